@@ -1,0 +1,60 @@
+# saxsnb: the two commands a newcomer needs are `make demo` and `make test`.
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+PORT ?= 8888
+DEMO_DIR ?= demo-data
+APP_NB ?= notebooks/02-phase-ramp.ipynb
+
+.PHONY: install demo demo-data test lint unit notebooks browser-deps app bench clean
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+	$(BIN)/python -m pip install -q -e ".[all]"
+	touch $(STAMP)
+
+install: $(STAMP)
+
+$(DEMO_DIR)/.written: $(STAMP)
+	$(BIN)/python -m saxsnb demo --out $(DEMO_DIR)
+	touch $@
+
+demo-data: $(DEMO_DIR)/.written
+
+# Open JupyterLab on the quickstart notebook; NOBROWSER=1 for a headless machine.
+demo: install demo-data
+	$(BIN)/python -m jupyterlab notebooks/01-quickstart.ipynb --ip=127.0.0.1 --port=$(PORT) \
+		$(if $(NOBROWSER),--no-browser,) --ServerApp.allow_root=True
+
+# A code-free page for collaborators (Voila), on 127.0.0.1.
+app: install demo-data
+	$(BIN)/python -m voila $(APP_NB) --Voila.ip=127.0.0.1 --port=$(PORT) \
+		$(if $(NOBROWSER),--no-browser,)
+
+# Debian's chromium for the real-browser tests (CI runs as root).
+browser-deps:
+	@command -v chromium >/dev/null 2>&1 || test -x /usr/bin/chromium || \
+		{ echo "installing Debian chromium for the browser tests"; \
+		  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; }
+
+lint: install
+	$(BIN)/ruff check .
+
+unit: install
+	$(BIN)/python -m pytest -q -m "not browser" tests saxsnb
+
+notebooks: install
+	$(BIN)/python -m pytest -q --nbval-lax -p no:cacheprovider notebooks
+
+test: install browser-deps
+	$(BIN)/ruff check .
+	$(BIN)/python -m pytest -q tests saxsnb
+	$(BIN)/python -m pytest -q --nbval-lax notebooks
+
+bench: install
+	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done
+
+clean:
+	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache
