@@ -196,6 +196,51 @@ class SaxsAccessor:
         head = html.escape(repr(self).splitlines()[0])
         return f"<div><b>{head}</b><table>{rows}</table></div>"
 
+    # ---- corrections
+    def subtract(self, background: xr.Dataset, *, scale: float = 1.0) -> xr.Dataset:
+        """Subtract a background series; sigma is propagated in quadrature.
+
+        Parameters
+        ----------
+        background : Dataset
+            A series on the same q grid with the same intensity unit, with either one
+            frame (subtracted from every frame) or as many frames as this series
+            (matched by position).
+        scale : float
+            Factor applied to the background (transmission/thickness ratio).
+
+        Returns
+        -------
+        A new Dataset: intensity ``I - scale I_bg``, sigma
+        ``sqrt(sigma^2 + (scale sigma_bg)^2)``, mask the union of both masks, the
+        operation recorded in ``attrs["history"]``. See
+        :func:`saxsnb.corrections.subtract_background`.
+        """
+        from .corrections import subtract_background
+
+        ds = self._ds
+        bI, bS, bM = _matching_background(ds, background)
+        I, S = ds["intensity"], ds["sigma"]
+        if I.chunks is not None:
+            I, S = I.chunk({"q": -1}), S.chunk({"q": -1})
+        out_i, out_s = xr.apply_ufunc(
+            subtract_background, I, S, bI, bS, kwargs={"scale": float(scale)},
+            input_core_dims=[["q"]] * 4, output_core_dims=[["q"], ["q"]],
+            dask="parallelized", output_dtypes=[float, float],
+        )
+        out = ds.copy()
+        out["intensity"] = out_i.transpose("frame", "q").assign_attrs(ds["intensity"].attrs)
+        out["sigma"] = out_s.transpose("frame", "q").assign_attrs(ds["sigma"].attrs)
+        if bM is not None:
+            mask = bM if "mask" not in ds.data_vars else (ds["mask"] | bM)
+            out["mask"] = mask.transpose("frame", "q").assign_attrs(long_name="excluded points")
+        if background.attrs.get("sigma_estimated", 0):
+            out.attrs["sigma_estimated"] = 1
+        return add_history(
+            out, "subtract", scale=float(scale), background_frames=int(background.sizes["frame"]),
+            background_sample=str(background.attrs.get("sample", "")),
+        )
+
     # -------------------------------------------------- mapping over frames
     def _map_frames(
         self,
@@ -275,3 +320,57 @@ def provenance(operation: str, parameters: Mapping[str, Any]) -> dict[str, Any]:
         "parameters": json.dumps(_jsonable(dict(parameters)), sort_keys=True),
         "saxsnb_version": __version__,
     }
+
+
+def _matching_background(ds: xr.Dataset, background) -> tuple[xr.DataArray, ...]:
+    """Background intensity, sigma and mask (or None) ready to combine with ``ds``.
+
+    One background frame gives arrays on ``q`` only; as many frames as ``ds`` gives
+    arrays on ``(frame, q)`` carrying the frame labels of ``ds``. Anything else is a
+    SaxsInputError naming the parameter ``background``.
+    """
+    if not isinstance(background, xr.Dataset):
+        raise SaxsInputError(
+            f"background must be a series Dataset, got {type(background).__name__}",
+            parameter="background",
+        )
+    try:
+        validate(background)
+    except SaxsInputError as exc:
+        raise SaxsInputError(f"background is not a series: {exc}", parameter="background") from None
+    q, bq = ds["q"], background["q"]
+    if normalize_q_unit(q.attrs["units"]) != normalize_q_unit(bq.attrs["units"]):
+        raise SaxsInputError(
+            f"background q is in {bq.attrs['units']}, the series in {q.attrs['units']}",
+            parameter="background",
+        )
+    if bq.size != q.size or not np.allclose(bq.values, q.values, rtol=1e-9, atol=0.0):
+        raise SaxsInputError(
+            f"background q grid ({bq.size} points, {float(bq.min()):.4g}..{float(bq.max()):.4g}) "
+            f"differs from the series ({q.size} points, {float(q.min()):.4g}..{float(q.max()):.4g});"
+            " regrid one of them first",
+            parameter="background",
+        )
+    units = ds["intensity"].attrs.get("units", "arb"), background["intensity"].attrs.get("units", "arb")
+    if units[0] != units[1]:
+        raise SaxsInputError(
+            f"background intensity is in {units[1]!r}, the series in {units[0]!r}",
+            parameter="background",
+        )
+    n, nb = ds.sizes["frame"], background.sizes["frame"]
+    names = ["intensity", "sigma"] + (["mask"] if "mask" in background.data_vars else [])
+    if nb == 1:
+        out = [
+            xr.DataArray(background[v].data[0], dims=("q",), coords={"q": q}) for v in names
+        ]
+    elif nb == n:
+        coords = {"frame": ds["frame"], "q": q}
+        out = [xr.DataArray(background[v].data, dims=("frame", "q"), coords=coords) for v in names]
+    else:
+        raise SaxsInputError(
+            f"background has {nb} frames; expected 1 or {n} (one per frame of the series)",
+            parameter="background",
+        )
+    if out[0].chunks is not None:
+        out = [a.chunk({"q": -1}) for a in out]
+    return out[0], out[1], (out[2] if len(out) == 3 else None)

@@ -15,7 +15,7 @@ from ._common import check_options, counting_noise, debye_chain, sphere_form_fac
 DEFAULTS = {
     "denaturant": None,  # M, default 0 .. 6 M in 0.15 M steps (41 frames)
     "q": None,  # 1/nm, default 0.06 .. 4.0, 600 linear points
-    "counts_scale": 2.0e5,  # counts per 1/cm
+    "counts_scale": 3.0e6,  # counts per 1/cm
     "noise": True,
     "radius_folded_nm": 2.5,
     "rg_unfolded_nm": 4.5,
