@@ -1,0 +1,92 @@
+"""Encoding of attrs that NetCDF and HDF5 cannot hold natively.
+
+NetCDF and HDF5 attributes hold numbers, strings and flat numeric arrays. Lists of
+strings (``history``, ``source_files``), bools, dicts and ``None`` are stored as a
+JSON string behind a marker prefix and decoded again on open, so a round trip gives
+back exactly the same Python values.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+
+__all__ = ["encode_attrs", "decode_attrs", "MARKER"]
+
+#: Prefix of an attribute value that holds JSON-encoded data.
+MARKER = "saxsnb-json:"
+
+
+def _native(value: Any) -> bool:
+    """True if NetCDF/HDF5 store ``value`` and give it back unchanged."""
+    if isinstance(value, (bool, np.bool_)):
+        return False
+    if isinstance(value, str):
+        return not value.startswith(MARKER)
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        return True
+    return False
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, np.ndarray):
+        return {"__ndarray__": value.tolist(), "dtype": str(value.dtype)}
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, tuple):
+        return {"__tuple__": [_plain(v) for v in value]}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    return value
+
+
+def _unplain(value: Any) -> Any:
+    if isinstance(value, dict):
+        if set(value) == {"__ndarray__", "dtype"}:
+            return np.array(value["__ndarray__"], dtype=value["dtype"])
+        if set(value) == {"__tuple__"}:
+            return tuple(_unplain(v) for v in value["__tuple__"])
+        return {k: _unplain(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_unplain(v) for v in value]
+    return value
+
+
+def encode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
+    """Return attrs where every non-native value is a marked JSON string.
+
+    >>> encode_attrs({"a": 1.5, "history": ["x"], "flag": True})
+    {'a': 1.5, 'history': 'saxsnb-json:["x"]', 'flag': 'saxsnb-json:true'}
+    """
+    out: dict[str, Any] = {}
+    for key, value in attrs.items():
+        if _native(value):
+            out[str(key)] = value
+        else:
+            out[str(key)] = MARKER + json.dumps(_plain(value), ensure_ascii=False)
+    return out
+
+
+def decode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
+    """Inverse of :func:`encode_attrs`; also turns bytes into str.
+
+    >>> decode_attrs({"history": 'saxsnb-json:["x"]', "n": 2})
+    {'history': ['x'], 'n': 2}
+    """
+    out: dict[str, Any] = {}
+    for key, value in attrs.items():
+        if isinstance(value, bytes):
+            value = value.decode("utf-8")
+        if isinstance(value, np.ndarray) and value.dtype.kind in "SO" and value.size == 1:
+            value = value.reshape(()).item()
+            if isinstance(value, bytes):
+                value = value.decode("utf-8")
+        if isinstance(value, str) and value.startswith(MARKER):
+            value = _unplain(json.loads(value[len(MARKER) :]))
+        out[str(key)] = value
+    return out

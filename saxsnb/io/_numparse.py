@@ -1,0 +1,167 @@
+"""Fast, exact parsing of many numbers from text, vectorised with numpy.
+
+numpy's own text parsers (``np.loadtxt``, ``np.fromstring``) spend about 250 ns per
+number; a folder of thousands of curves is dominated by that. Here all tokens of a
+whole batch of files are located at once and parsed column-wise: tokens with the same
+layout (same length, same position of the decimal point and exponent) form a small
+character matrix whose digit columns are combined with integer arithmetic.
+
+Exactness: a token whose decimal significand ``m`` has at most 15 digits and whose
+decimal exponent ``p`` satisfies ``|p| <= 22`` is converted as ``m * 10**p`` or
+``m / 10**-p``; both operands are exact doubles, so the single IEEE operation gives
+the correctly rounded result, identical to ``float(token)`` (Clinger, W. D., "How to
+read floating point numbers accurately", ACM SIGPLAN Notices 25(6), 92, 1990).
+Every other token (more digits, large exponents, ``nan``, ``inf``, odd spellings)
+goes through Python's ``float``, which is correctly rounded too.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["tokenize", "parse_tokens", "SEPARATORS"]
+
+#: Bytes that separate numbers: whitespace (any byte <= 32), comma and semicolon.
+SEPARATORS = b" \t\r\n\f\v,;"
+
+_MAX_LEN = 32
+_POW10 = np.array([10.0**k for k in range(23)])
+_TWO53 = float(2**53)
+
+
+def tokenize(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end (exclusive) byte offsets of the tokens in the uint8 array ``a``.
+
+    >>> s, e = tokenize(np.frombuffer(b" 1.5, 2\\n-3 ", np.uint8))
+    >>> s.tolist(), e.tolist()
+    ([1, 6, 8], [4, 7, 10])
+    """
+    sep = a <= 32
+    sep |= a == 44  # ','
+    sep |= a == 59  # ';'
+    pad = np.ones(a.size + 2, dtype=np.int8)
+    pad[1:-1] = sep
+    d = np.diff(pad)
+    return np.flatnonzero(d == -1), np.flatnonzero(d == 1)
+
+
+def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Parse rows of equal layout; return (values, ok) or None if layouts differ."""
+    n, width = chars.shape
+    tmpl = chars[0]
+    lower = tmpl | 0x20
+    e_cols = np.flatnonzero(lower == ord("e"))
+    dots = np.flatnonzero(tmpl == ord("."))
+    if e_cols.size > 1 or dots.size > 1:
+        return None
+    epos = int(e_cols[0]) if e_cols.size else width
+    dpos = int(dots[0]) if dots.size else -1
+    if dpos > epos:
+        return None
+    mant_cols = [j for j in range(epos) if j != dpos]
+    if not mant_cols:
+        return None
+    frac = (epos - dpos - 1) if dpos >= 0 else 0
+    exp_sign_col = None
+    exp_cols: list[int] = []
+    if epos < width:
+        rest = list(range(epos + 1, width))
+        if rest and tmpl[rest[0]] in (ord("+"), ord("-")):
+            exp_sign_col = rest[0]
+            rest = rest[1:]
+        if not rest or len(rest) > 3:
+            return None
+        exp_cols = rest
+    digits = chars[:, mant_cols + exp_cols] - np.uint8(48)
+    if not bool((digits < 10).all()):
+        return None
+    if dpos >= 0 and not bool((chars[:, dpos] == ord(".")).all()):
+        return None
+    if epos < width and not bool(((chars[:, epos] | 0x20) == ord("e")).all()):
+        return None
+    if exp_sign_col is not None:
+        col = chars[:, exp_sign_col]
+        if not bool(((col == ord("+")) | (col == ord("-"))).all()):
+            return None
+    nm = len(mant_cols)
+    # integer-valued float arithmetic: every partial sum is an integer < 2**53, exact
+    m = np.einsum("ij,j->i", digits[:, :nm], 10.0 ** np.arange(nm - 1, -1, -1))
+    ex = np.zeros(n, dtype=np.int64)
+    if exp_cols:
+        ne = len(exp_cols)
+        ex = np.einsum("ij,j->i", digits[:, nm:], 10 ** np.arange(ne - 1, -1, -1, dtype=np.int64))
+    if exp_sign_col is not None:
+        ex = np.where(chars[:, exp_sign_col] == ord("-"), -ex, ex)
+    p = ex - frac
+    ok = (len(mant_cols) <= 15) & (np.abs(p) <= 22)
+    if not np.any(ok):
+        return m, ok
+    pc = np.clip(np.abs(p), 0, 22)
+    scale = _POW10[pc]
+    vals = np.where(p >= 0, m * scale, m / scale)
+    return vals, ok & (m < _TWO53)
+
+
+def parse_tokens(
+    buf: bytes, a: np.ndarray, starts: np.ndarray, ends: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Values of the tokens ``buf[starts[i]:ends[i]]`` and a mask of tokens that failed.
+
+    Failed tokens (not a number) get NaN and ``bad[i] = True``.
+
+    >>> b = b"1.5e-01 -2.0E+02 3 nan x 0.1"
+    >>> a = np.frombuffer(b, np.uint8)
+    >>> v, bad = parse_tokens(b, a, *tokenize(a))
+    >>> v.tolist()[:4], bad.tolist()
+    ([0.15, -200.0, 3.0, nan], [False, False, False, False, True, False])
+    """
+    n = starts.size
+    vals = np.full(n, np.nan)
+    done = np.zeros(n, dtype=bool)
+    if n == 0:
+        return vals, done
+    first = a[starts]
+    neg = first == ord("-")
+    signed = neg | (first == ord("+"))
+    s2 = starts + signed
+    length = ends - s2
+    counts = np.bincount(np.clip(length, 0, _MAX_LEN + 1))
+    padded = np.zeros(a.size + _MAX_LEN, dtype=np.uint8)
+    padded[: a.size] = a
+    windows = np.lib.stride_tricks.sliding_window_view(padded, _MAX_LEN)
+    for width in np.flatnonzero(counts):
+        if width == 0 or width > _MAX_LEN:
+            continue
+        idx = np.flatnonzero(length == width)
+        chars = windows[s2[idx], :width]
+        res = _parse_group(chars)
+        if res is None:
+            # mixed layouts of one length: split by the position of '.' and 'e'
+            is_dot = chars == ord(".")
+            is_e = (chars | 0x20) == ord("e")
+            key = np.where(is_dot.any(1), is_dot.argmax(1), width) * 64 + np.where(
+                is_e.any(1), is_e.argmax(1), width
+            )
+            for k in np.unique(key):
+                sub = np.flatnonzero(key == k)
+                r = _parse_group(chars[sub])
+                if r is not None:
+                    v, ok = r
+                    vals[idx[sub[ok]]] = v[ok]
+                    done[idx[sub[ok]]] = True
+            continue
+        v, ok = res
+        vals[idx[ok]] = v[ok]
+        done[idx[ok]] = True
+    vals = np.where(neg, -vals, vals)
+    bad = np.zeros(n, dtype=bool)
+    for i in np.flatnonzero(~done):
+        tok = buf[starts[i] : ends[i]]
+        try:
+            if b"_" in tok:
+                raise ValueError(tok)
+            vals[i] = float(tok)
+        except ValueError:
+            bad[i] = True
+            vals[i] = np.nan
+    return vals, bad

@@ -1,0 +1,258 @@
+"""Parsing of text-column files: header/body split, header metadata, fast numeric body.
+
+The numeric bodies of many files are parsed together (see :mod:`._numparse`): files
+whose rows all share one byte layout (the usual output of a program) are read as a
+character matrix without locating tokens; the others go through the token parser.
+Any file that does not parse cleanly is re-read line by line, only to name the line
+that is wrong.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..errors import SaxsFileError
+from ._numparse import _parse_group, parse_tokens, tokenize
+
+__all__ = ["RawFile", "split_file", "parse_bodies"]
+
+_NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
+_TOKSPLIT = re.compile(rb"[\s,;]+")
+_COMMA_NUM = rb"[-+]?\d+,\d+(?:[eE][-+]?\d+)?"
+_COMMA_DECIMAL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
+_KEYVAL = re.compile(r"^\s*#*\s*([A-Za-z_][\w .\-]*?)\s*[=:]\s*(.*?)\s*$")
+_QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ]\s*[\(\[]\s*([^\)\]]+?)\s*[\)\]]")
+_Q_KEYS = {"q_unit", "q_units", "qunit", "qunits", "unit_q", "q_axis_unit"}
+_I_KEYS = {"intensity_unit", "intensity_units", "i_unit", "i_units", "unit_i"}
+
+
+@dataclass
+class RawFile:
+    """One text file split into header and numeric body."""
+
+    path: str
+    name: str
+    body: bytes
+    first_line: int
+    ncols: int
+    meta: dict[str, str] = field(default_factory=dict)
+    units: dict[str, str] = field(default_factory=dict)
+    attrs: dict[str, Any] = field(default_factory=dict)
+    q_unit: str | None = None
+    intensity_unit: str | None = None
+
+
+def _floatable(tokens) -> bool:
+    try:
+        for t in tokens:
+            if b"_" in t:
+                return False
+            float(t)
+    except ValueError:
+        return False
+    return True
+
+
+def _norm_key(key: str) -> str:
+    return re.sub(r"\W+", "_", key.strip().lower()).strip("_")
+
+
+def _header(raw: RawFile, text: str) -> None:
+    for line in text.splitlines():
+        m = _KEYVAL.match(line)
+        if m:
+            key = _norm_key(m.group(1))
+            value = m.group(2).strip()
+            if not key:
+                continue
+            if key.startswith("attr_") and line.lstrip("# \t").lower().startswith("attr."):
+                name = line.lstrip("# \t")[5:].split("=", 1)[0].split(":", 1)[0].strip()
+                try:
+                    raw.attrs[name] = json.loads(value)
+                except ValueError:
+                    raw.attrs[name] = value
+            elif key in _Q_KEYS:
+                raw.q_unit = value
+            elif key in _I_KEYS:
+                raw.intensity_unit = value
+            elif key.endswith("_units") or key.endswith("_unit"):
+                raw.units[key.rsplit("_", 1)[0]] = value
+            else:
+                raw.meta[key] = value
+            continue
+        if raw.q_unit is None:
+            qm = _QCOLUMN.search(line)
+            if qm:
+                raw.q_unit = qm.group(1)
+
+
+def split_file(path: str, name: str, data: bytes) -> RawFile:
+    """Split raw file bytes into header metadata and numeric body.
+
+    The first line holding 2 to 4 numbers starts the body; every line before it is
+    header. Raises :class:`SaxsFileError` for binary, empty or header-only files.
+    """
+    if b"\x00" in data[:4096] or b"\x00" in data:
+        raise SaxsFileError("this is not a text file (it contains NUL bytes)", path=path)
+    pos = 0
+    while True:
+        m = _NUMROW.search(data, pos)
+        if m is None:
+            what = "the file is empty" if not data.strip() else "no rows of numbers found (header only?)"
+            raise SaxsFileError(what, path=path)
+        start = m.start()
+        end = data.find(b"\n", start)
+        end = len(data) if end < 0 else end
+        line = data[start:end].split(b"#", 1)[0].strip()
+        if _COMMA_DECIMAL.match(line):
+            raise SaxsFileError(
+                "numbers use a comma as decimal separator; convert them to a decimal point",
+                path=path,
+                line=data.count(b"\n", 0, start) + 1,
+            )
+        tokens = _TOKSPLIT.split(line)
+        if _floatable(tokens) and len(tokens) > 1:
+            if len(tokens) > 4:
+                raise SaxsFileError(
+                    f"{len(tokens)} columns; expected 2 to 4 (q, I, sigma, dq)",
+                    path=path,
+                    line=data.count(b"\n", 0, start) + 1,
+                )
+            break
+        pos = end + 1
+    try:
+        text = data[:start].decode("utf-8")
+    except UnicodeDecodeError:
+        text = data[:start].decode("latin-1")
+    body = data[start:]
+    if b"#" in body:
+        body = re.sub(rb"#[^\n]*", b"", body)
+    if not body.endswith(b"\n"):
+        body += b"\n"
+    raw = RawFile(path, name, body, data.count(b"\n", 0, start) + 1, len(tokens))
+    _header(raw, text)
+    return raw
+
+
+def _line_errors(raw: RawFile) -> SaxsFileError:
+    """Walk the body line by line and describe the first bad line."""
+    for k, line in enumerate(raw.body.split(b"\n")):
+        line = line.strip()
+        if not line:
+            continue
+        tokens = _TOKSPLIT.split(line)
+        lineno = raw.first_line + k
+        if not tokens or not tokens[0]:
+            tokens = tokens[1:]
+        for t in tokens:
+            if not _floatable([t]):
+                shown = t.decode("utf-8", "replace")
+                if _COMMA_DECIMAL.match(line):
+                    return SaxsFileError(
+                        "numbers use a comma as decimal separator", path=raw.path, line=lineno
+                    )
+                return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
+        if len(tokens) != raw.ncols:
+            return SaxsFileError(
+                f"{len(tokens)} columns where the first data row has {raw.ncols}", path=raw.path, line=lineno
+            )
+    return SaxsFileError("cannot read the numbers", path=raw.path)
+
+
+def _fixed_layout(raws: list[RawFile]) -> dict[bytes, list[int]]:
+    """Group files whose body lines all have the byte layout of their first line."""
+    groups: dict[bytes, list[int]] = {}
+    digits = bytes.maketrans(b"0123456789", b"0000000000")
+    for i, r in enumerate(raws):
+        body = r.body
+        L = body.find(b"\n") + 1
+        if L <= 1 or len(body) % L or body[L - 1 :: L].count(b"\n") != len(body) // L:
+            continue
+        key = body[:L].translate(digits)
+        groups.setdefault(key, []).append(i)
+    return groups
+
+
+def _parse_fixed(template: bytes, bodies: list[bytes]) -> np.ndarray | None:
+    """Parse bodies made of rows laid out exactly like ``template``; None if not."""
+    L = len(template)
+    a = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(-1, L)
+    t = np.frombuffer(template, dtype=np.uint8)
+    starts, ends = tokenize(t)
+    # every non-digit column must match the template, except signs and exponent letters
+    cols = []
+    out = []
+    for s, e in zip(starts, ends):
+        neg = None
+        if t[s] in (43, 45):  # leading sign in the template
+            col = a[:, s]
+            if not bool(((col == 43) | (col == 45)).all()):
+                return None
+            neg = col == 45
+            cols.append(s)
+            s += 1
+        elif s > 0 and t[s - 1] == 32:
+            col = a[:, s - 1]
+            if bool(((col == 45) | (col == 43)).any()):
+                if not bool(((col == 45) | (col == 43) | (col == 32)).all()):
+                    return None
+                neg = col == 45
+                cols.append(s - 1)
+        res = _parse_group(a[:, s:e])
+        if res is None:
+            return None
+        v, ok = res
+        if not bool(ok.all()):
+            return None
+        out.append(v if neg is None else np.where(neg, -v, v))
+        cols.extend(range(s, e))
+    other = np.setdiff1d(np.arange(L), np.array(cols, dtype=np.int64))
+    if other.size and not bool((a[:, other] == t[other]).all()):
+        return None
+    return np.stack(out, axis=1)
+
+
+def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Numbers of each file body as ``(data (n_rows, n_cols), line_numbers)``."""
+    results: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(raws)
+    for key, idx in _fixed_layout(raws).items():
+        if len(tokenize(np.frombuffer(key, np.uint8))[0]) != raws[idx[0]].ncols:
+            continue
+        data = _parse_fixed(raws[idx[0]].body[: len(key)], [raws[i].body for i in idx])
+        if data is None:
+            continue
+        pos = 0
+        for i in idx:
+            n = len(raws[i].body) // len(key)
+            results[i] = (data[pos : pos + n], raws[i].first_line + np.arange(n))
+            pos += n
+    rest = [i for i, r in enumerate(results) if r is None]
+    if rest:
+        offsets = np.cumsum([0] + [len(raws[i].body) for i in rest])
+        buf = b"".join(raws[i].body for i in rest)
+        a = np.frombuffer(buf, dtype=np.uint8)
+        starts, ends = tokenize(a)
+        vals, bad = parse_tokens(buf, a, starts, ends)
+        nl = np.flatnonzero(a == 10)
+        tok_line = np.searchsorted(nl, starts)
+        file_tok = np.searchsorted(starts, offsets)
+        file_line = np.searchsorted(nl, offsets)
+        for k, i in enumerate(rest):
+            raw = raws[i]
+            t0, t1 = file_tok[k], file_tok[k + 1]
+            nc = raw.ncols
+            n = t1 - t0
+            if n == 0 or n % nc or bad[t0:t1].any():
+                raise _line_errors(raw)
+            lines = tok_line[t0:t1].reshape(-1, nc)
+            if (nc > 1 and not bool((lines == lines[:, :1]).all())) or bool(
+                (np.diff(lines[:, 0]) <= 0).any()
+            ):
+                raise _line_errors(raw)
+            results[i] = (vals[t0:t1].reshape(-1, nc), raw.first_line + lines[:, 0] - file_line[k])
+    return results  # type: ignore[return-value]

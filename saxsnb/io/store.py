@@ -1,0 +1,102 @@
+"""Saving and opening a series by file extension: NetCDF (.nc) or NXcanSAS (.h5, .nxs)."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+
+import xarray as xr
+
+from ..errors import SaxsFileError, SaxsInputError
+from ..series import validate
+
+__all__ = ["save_series", "open_series", "NETCDF_EXTENSIONS", "NXCANSAS_EXTENSIONS"]
+
+NETCDF_EXTENSIONS = (".nc", ".nc4", ".netcdf")
+NXCANSAS_EXTENSIONS = (".h5", ".hdf5", ".nxs", ".hdf")
+
+
+def _kind(path) -> str:
+    ext = os.path.splitext(os.fspath(path))[1].lower()
+    if ext in NETCDF_EXTENSIONS:
+        return "netcdf"
+    if ext in NXCANSAS_EXTENSIONS:
+        return "nxcansas"
+    raise SaxsInputError(
+        f"unknown file extension {ext!r} of {os.fspath(path)!r}; use .nc (NetCDF) or .h5/.nxs (NXcanSAS)",
+        parameter="path",
+    )
+
+
+def save_series(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
+    """Save a series, choosing the format by extension; the write is atomic.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A series (see :mod:`saxsnb.series`), in memory or dask-backed; not modified.
+    path : str or Path
+        ``.nc`` gives NetCDF-4 (h5netcdf engine); ``.h5``, ``.hdf5`` or ``.nxs`` gives
+        NXcanSAS (HDF5, the canSAS application definition of NeXus).
+    overwrite : bool
+        If False, an existing file is an error.
+
+    Notes
+    -----
+    Attrs that the formats cannot hold natively (lists such as ``history``,
+    bools, dicts, None) are stored as JSON strings with the prefix ``saxsnb-json:``
+    and decoded by :func:`open_series`, so ``open_series(p)`` is identical to ``ds``.
+
+    Examples
+    --------
+    >>> import tempfile, os, numpy as np, saxsnb, xarray as xr
+    >>> ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]])
+    >>> p = os.path.join(tempfile.mkdtemp(), "s.nc")
+    >>> save_series(ds, p)
+    >>> xr.testing.assert_identical(open_series(p), ds)
+    """
+    kind = _kind(path)
+    validate(ds)
+    if kind == "netcdf":
+        from .netcdf import write_netcdf
+
+        write_netcdf(ds, path, overwrite=overwrite)
+    else:
+        from .nxcansas import write_nxcansas
+
+        write_nxcansas(ds, path, overwrite=overwrite)
+
+
+def open_series(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
+    """Open a series saved as NetCDF or NXcanSAS (also NXcanSAS from other writers).
+
+    Parameters
+    ----------
+    path : str or Path
+    chunks : int or dict, optional
+        Return a dask-backed Dataset (an int means frames per chunk). Without it the
+        data are loaded into memory and the file is closed at once.
+
+    Returns
+    -------
+    xarray.Dataset, validated (see :func:`saxsnb.validate`).
+    """
+    if not os.path.isfile(os.fspath(path)):
+        raise SaxsFileError("no such file", path=path)
+    kind = _kind(path)
+    if isinstance(chunks, int):
+        chunks = {"frame": chunks}
+    if kind == "netcdf":
+        from .netcdf import read_netcdf
+
+        ds = read_netcdf(path, chunks=chunks)
+    else:
+        from .nxcansas import read_nxcansas
+
+        ds = read_nxcansas(path)
+        if chunks is not None:
+            ds = ds.chunk(dict(chunks))
+    try:
+        return validate(ds)
+    except SaxsInputError as exc:
+        raise SaxsFileError(f"not a saxsnb series: {exc}", path=path) from exc

@@ -1,0 +1,326 @@
+"""Reading a folder of text-column curves into one series, and writing one back.
+
+File layout understood by :func:`read_series` (and written by
+:func:`write_text_series`)::
+
+    # saxsnb series frame 12            <- free text: ignored
+    # sample = lipid mix B              <- key = value (or key: value), '#' optional
+    # q_unit = 1/nm                     <- unit of the q column
+    # intensity_unit = arb
+    # temperature = 25.5                <- numeric: a per-frame scan coordinate
+    # temperature_units = degC          <- its units (or "temperature = 25.5 degC")
+    # q I sigma                         <- column header; "q(1/A)" also gives the unit
+    1.000000e-01 2.5e+02 1.2e+00        <- 2 to 4 columns: q, I, sigma, dq
+"""
+
+from __future__ import annotations
+
+import glob as _glob
+import json
+import math
+import os
+import re
+import sys
+from collections.abc import Iterable, Mapping
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from ..errors import SaxsFileError, SaxsInputError
+from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
+from ._assemble import Curve, build_series
+from ._atomic import atomic_write_bytes
+from ._textparse import parse_bodies, split_file
+
+__all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS"]
+
+#: File extensions picked from a folder (when any such file exists).
+DATA_EXTENSIONS = (".dat", ".txt", ".csv", ".chi", ".xy")
+_BATCH = 256
+_PROGRESS_MIN = 500
+
+
+def _natural_key(path: str):
+    return [int(t) if t.isdigit() else t.lower() for t in re.split(r"(\d+)", os.path.basename(path))]
+
+
+def find_files(source) -> list[str]:
+    """The list of files named by ``source`` (glob, folder, path or list of paths).
+
+    Folders give their regular, non-hidden files with a data extension
+    (:data:`DATA_EXTENSIONS`), or all non-hidden files if none has one, in natural
+    order (``f2`` before ``f10``); globs are sorted the same way; lists keep their order.
+    """
+    if isinstance(source, (str, os.PathLike)):
+        s = os.fspath(source)
+        if os.path.isdir(s):
+            entries = [e for e in os.scandir(s) if not e.name.startswith(".") and e.is_file()]
+            data = [e.path for e in entries if os.path.splitext(e.name)[1].lower() in DATA_EXTENSIONS]
+            files = data or [e.path for e in entries]
+            if not files:
+                raise SaxsInputError(f"the folder {s!r} holds no data files", parameter="source")
+            return sorted(files, key=_natural_key)
+        if os.path.isfile(s):
+            return [s]
+        if _glob.has_magic(s):
+            files = [f for f in _glob.glob(s) if os.path.isfile(f)]
+            if not files:
+                raise SaxsInputError(f"no file matches {s!r}", parameter="source")
+            return sorted(files, key=_natural_key)
+        raise SaxsFileError("no such file or folder", path=s)
+    if isinstance(source, Iterable):
+        files = [os.fspath(p) for p in source]
+        if not files:
+            raise SaxsInputError("the list of files is empty", parameter="source")
+        for f in files:
+            if not os.path.isfile(f):
+                raise SaxsFileError("no such file", path=f)
+        return files
+    raise SaxsInputError(
+        f"source must be a folder, a glob, a path or a list of paths, not {type(source).__name__}",
+        parameter="source",
+    )
+
+
+def _read_bytes(path: str) -> bytes:
+    try:
+        with open(path, "rb") as f:
+            return f.read()
+    except OSError as exc:
+        raise SaxsFileError(f"cannot read the file: {exc.strerror or exc}", path=path) from exc
+
+
+def _progress(total: int, progress: bool | None):
+    if progress is None:
+        progress = total >= _PROGRESS_MIN and sys.stderr.isatty()
+    if not progress:
+        return None
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc="reading", unit="file")
+
+
+def _curves(files: list[str], progress: bool | None) -> list[Curve]:
+    names = [os.path.basename(f) for f in files]
+    bar = _progress(len(files), progress)
+    curves: list[Curve] = []
+    try:
+        with ThreadPoolExecutor(max_workers=2) as pool:
+            for b0 in range(0, len(files), _BATCH):
+                chunk = files[b0 : b0 + _BATCH]
+                datas = list(pool.map(_read_bytes, chunk))
+                raws = [split_file(p, n, d) for p, n, d in zip(chunk, names[b0 : b0 + _BATCH], datas)]
+                for raw, (data, lines) in zip(raws, parse_bodies(raws)):
+                    nc = data.shape[1]
+                    curves.append(
+                        Curve(
+                            name=raw.name,
+                            q=data[:, 0],
+                            intensity=data[:, 1],
+                            sigma=data[:, 2] if nc > 2 else None,
+                            dq=data[:, 3] if nc > 3 else None,
+                            q_unit=raw.q_unit,
+                            intensity_unit=raw.intensity_unit,
+                            meta=raw.meta,
+                            units=raw.units,
+                            attrs=raw.attrs,
+                            lines=lines,
+                            path=raw.path,
+                        )
+                    )
+                if bar is not None:
+                    bar.update(len(chunk))
+    finally:
+        if bar is not None:
+            bar.close()
+    return curves
+
+
+def read_series(
+    source,
+    *,
+    scan: str | None = None,
+    pattern: str | None = None,
+    q_unit: str | None = None,
+    regrid: str | None = None,
+    chunks: int | Mapping | None = None,
+    progress: bool | None = None,
+) -> xr.Dataset:
+    """Read a series of text-column curves (one file per frame) into one Dataset.
+
+    Parameters
+    ----------
+    source : str, Path or list of paths
+        A folder (its files ending in .dat, .txt, .csv, .chi or .xy, else all
+        non-hidden files), a glob such as ``"run7/*.dat"``, one file or a list of files.
+        Columns are separated by whitespace, commas or semicolons; ``#`` starts a
+        comment; lines before the first row of numbers are header. 2, 3 or 4 columns
+        are q, intensity, sigma and dq (q resolution, kept as variable ``dq``).
+    scan : str, optional
+        Name of the scan coordinate; frames are sorted by it and ``attrs["scan"]`` is
+        set. It must come from a header line or ``pattern``.
+    pattern : str, optional
+        Regular expression with named groups applied to each file name, e.g.
+        ``r"T(?P<temperature>[-\\d.]+)C"``; each group becomes a per-frame coordinate
+        (float when numeric). It overrides a header value of the same name.
+    q_unit : {"1/nm", "1/A"}, optional
+        Unit of the q column when the files do not say (a ``q_unit = ...`` header or a
+        column header such as ``q(1/A)``). q is stored in 1/nm.
+    regrid : {None, "first", "log"}
+        Files on different q grids are an error unless this is given: ``"first"``
+        interpolates intensity and sigma onto the first file's grid (points outside a
+        file's range become NaN and are masked), ``"log"`` onto a log-spaced grid over
+        the common range with as many points as the longest file. Recorded in history.
+    chunks : int or dict, optional
+        Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames).
+    progress : bool, optional
+        Show a progress bar; by default only for many files in an interactive terminal.
+
+    Returns
+    -------
+    xarray.Dataset
+        The series (see :mod:`saxsnb.series`): intensity and sigma (frame, q), q in
+        1/nm, one coordinate on ``frame`` per numeric header key or pattern group
+        (float64, with ``units``), per-frame string coordinates for text values that
+        vary, Dataset attrs for text values that are the same in every file, and
+        ``attrs["source_files"]`` (file names in frame order). A missing sigma column
+        is estimated (:func:`saxsnb.series.estimate_sigma`) and flagged with
+        ``attrs["sigma_estimated"] = 1``. Non-finite intensity or sigma, and sigma <= 0,
+        are masked with a :class:`~saxsnb.errors.SaxsWarning`; rows with unsorted q are
+        sorted with a warning.
+
+    Raises
+    ------
+    SaxsFileError
+        Unreadable, binary, empty or malformed files, naming the file and line.
+    SaxsInputError
+        Bad arguments, a missing q unit, an unknown scan name.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, numpy as np, saxsnb
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> for i, T in enumerate([30.0, 20.0]):
+    ...     _ = (d / f"s{i}.dat").write_text(
+    ...         f"# temperature = {T} degC\\n# q_unit = 1/A\\n0.01 5 0.1\\n0.02 4 0.1\\n")
+    >>> ds = read_series(d, scan="temperature")
+    >>> ds.temperature.values.tolist(), ds.q.values.tolist(), ds.temperature.attrs["units"]
+    ([20.0, 30.0], [0.1, 0.2], 'degC')
+    """
+    files = find_files(source)
+    curves = _curves(files, progress)
+    ds = build_series(curves, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid)
+    if chunks is not None:
+        ds = ds.chunk({"frame": int(chunks)} if isinstance(chunks, int) else dict(chunks))
+    return ds
+
+
+def _value_text(value) -> str:
+    if isinstance(value, (float, np.floating)):
+        return repr(float(value))
+    if isinstance(value, (np.integer,)):
+        return str(int(value))
+    return str(value)
+
+
+def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str = "%.8e") -> list[Path]:
+    """Write each frame to its own text file with a header of units and scan values.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A series (see :mod:`saxsnb.series`); it is not modified.
+    folder : str or Path
+        Created if missing. Files are ``{stem}_{index:0Nd}.dat`` with the frame
+        index zero-padded; each is written atomically.
+    stem : str
+        Start of the file names.
+    fmt : str
+        printf-style format of the numbers (q, intensity, sigma in columns).
+
+    Returns
+    -------
+    list of Path, one per frame.
+
+    Notes
+    -----
+    Header lines are ``# key = value``: ``q_unit`` and ``intensity_unit``, each
+    numeric scan coordinate and ``<name>_units``, ``sample``, other text values as
+    ``key = value``, and other scalar attrs as ``attr.<name> = <JSON>`` so that
+    :func:`read_series` gives them back as attrs. Masked points are written as NaN.
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np, saxsnb
+    >>> ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]], scan={"time": [3.0]})
+    >>> paths = write_text_series(ds, tempfile.mkdtemp())
+    >>> print(paths[0].read_text().splitlines()[3])
+    # time = 3.0
+    """
+    validate(ds)
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    n = ds.sizes["frame"]
+    width = max(4, len(str(max(n - 1, 0))))
+    q = ds["q"].values
+    unit = ds["q"].attrs.get("units", CANONICAL_Q_UNIT)
+    I = np.asarray(ds["intensity"].values, dtype=float)
+    S = np.asarray(ds["sigma"].values, dtype=float)
+    if "mask" in ds.data_vars:
+        M = np.asarray(ds["mask"].values, dtype=bool)
+        I = np.where(M, np.nan, I)
+        S = np.where(M, np.nan, S)
+    cols = ["q", "I", "sigma"]
+    D = None
+    if "dq" in ds.data_vars:
+        # dq is kept in 1/nm; write it in the unit of the q column
+        D = np.asarray(ds["dq"].values, dtype=float) / q_unit_factor(unit)
+        cols.append("dq")
+    scans = scan_coords(ds)
+    const: list[str] = []
+    for key, value in ds.attrs.items():
+        if key in ("source_files",):
+            continue
+        if key in ("sample", "scan") and isinstance(value, str):
+            const.append(f"# {key} = {value}")
+        else:
+            const.append(f"# attr.{key} = {json.dumps(_jsonable(value), ensure_ascii=False)}")
+    paths = []
+    row_fmt = " ".join([fmt] * len(cols))
+    for i in range(n):
+        lines = [
+            f"# saxsnb series frame {i}",
+            f"# q_unit = {unit}",
+            f"# intensity_unit = {ds['intensity'].attrs.get('units', 'arb')}",
+        ]
+        for name in scans:
+            v = ds[name].values[i]
+            lines.append(f"# {name} = {_value_text(v)}")
+            u = ds[name].attrs.get("units")
+            if u:
+                lines.append(f"# {name}_units = {u}")
+        lines.extend(const)
+        lines.append("# " + " ".join(cols))
+        block = np.column_stack([q, I[i], S[i]] + ([D[i]] if D is not None else []))
+        body = "\n".join(row_fmt % tuple(r) for r in block)
+        text = "\n".join(lines) + "\n" + body + "\n"
+        path = folder / f"{stem}_{i:0{width}d}.dat"
+        atomic_write_bytes(path, text.encode("utf-8"))
+        paths.append(path)
+    return paths
+
+
+def _jsonable(value):
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, Mapping):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    return value
