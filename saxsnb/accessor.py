@@ -241,6 +241,213 @@ class SaxsAccessor:
             background_sample=str(background.attrs.get("sample", "")),
         )
 
+    # ---- peaks
+    def find_peaks(
+        self,
+        *,
+        q_range: tuple[float, float] | None = None,
+        min_prominence: float = 6.0,
+        profile: str = "gaussian",
+        max_peaks: int = 16,
+        baseline_width: float | None = None,
+        track: bool = True,
+        errors: str = "ignore",
+    ) -> xr.Dataset:
+        """Find, fit and track the Bragg peaks of every frame.
+
+        Parameters are those of :func:`saxsnb.analysis.peaks.find_peaks` (q in 1/nm;
+        ``min_prominence`` in units of the noise); ``track`` links peaks of consecutive
+        frames along the main scan (:func:`saxsnb.analysis.tracking.link_peaks`).
+
+        Returns
+        -------
+        Dataset on (frame, peak), NaN padded: ``position``, ``fwhm`` (1/nm),
+        ``height``, ``area`` with ``*_sigma``, ``prominence``, ``eta``, ``redchi``,
+        ``track`` (int, -1 none); per frame ``n_peaks`` and ``status``.
+
+        Notes
+        -----
+        Finding and fitting run per frame chunk through ``_map_frames`` (lazy on a
+        dask series). Tracking needs the whole frame axis: the (small) peak table is
+        computed first, then linked in memory; with ``track=False`` the result stays
+        lazy.
+        """
+        from .analysis import peaks as _pk
+        from .analysis.tracking import link_peaks
+
+        ds = self._ds
+        iu = ds["intensity"].attrs.get("units", "arb")
+        size = {"peak": int(max_peaks)}
+        per = {
+            "position": "1/nm", "position_sigma": "1/nm", "fwhm": "1/nm", "fwhm_sigma": "1/nm",
+            "height": iu, "height_sigma": iu, "area": f"{iu} 1/nm", "area_sigma": f"{iu} 1/nm",
+            "prominence": "1", "eta": "1", "redchi": "1",
+        }
+        outputs = {k: OutputSpec(("peak",), float, u, sizes=size) for k, u in per.items()}
+        outputs["n_peaks"] = OutputSpec((), np.int64, "1")
+        outputs["status"] = OutputSpec((), "<U24", None)
+        params = dict(q_range=q_range, min_prominence=min_prominence, profile=profile,
+                      max_peaks=int(max_peaks), baseline_width=baseline_width, errors=errors)
+        out = self._map_frames(_pk.find_peaks, outputs, operation="find_peaks", parameters=params, **params)
+        q = ds["q"].values
+        lo, hi = (q.min(), q.max()) if q_range is None else (q_range[0], q_range[1])
+        out.attrs.update(q_min=float(max(lo, q.min())), q_max=float(min(hi, q.max())), profile=profile)
+        if not track:
+            return out
+        out = out.compute()
+        order = self._scan_order(out)
+        t, _ = link_peaks(*(out[v].values[order] for v in ("position", "position_sigma", "fwhm")))
+        trk = np.empty_like(t)
+        trk[order] = t
+        return out.assign(track=(("frame", "peak"), trk, {"units": "1", "long_name": "track number"}))
+
+    def index_phases(
+        self,
+        peaks: xr.Dataset | None = None,
+        *,
+        phases: tuple[str, ...] = ("lamellar", "hexagonal", "Pn3m", "Im3m", "Ia3d", "Fd3m", "Pm3n", "Fm3m"),
+        max_phases: int = 2,
+        tolerance: float = 0.01,
+        use_scan_prior: bool = True,
+        prior_weight: float = 1.0,
+    ) -> xr.Dataset:
+        """Assign each frame's peaks to one phase or two coexisting phases.
+
+        Parameters
+        ----------
+        peaks : Dataset from :meth:`find_peaks` (computed with defaults if None).
+        phases, max_phases, tolerance, use_scan_prior, prior_weight
+            See :func:`saxsnb.analysis.lattice.index_peaks`; the scan prior runs
+            along the main scan coordinate.
+
+        Returns
+        -------
+        Dataset on (frame, slot): ``phase`` (str, "" empty), ``lattice`` and
+        ``lattice_sigma`` (nm; d for lamellar, cell edge a otherwise), ``score``;
+        on frame: ``alternative``, ``status``, ``caveat``, ``cost``, ``margin``,
+        ``n_unexplained``; on (frame, peak): ``hkl``, ``peak_phase``, ``position``
+        and ``track`` (re-linked so a track ends where its assignment changes).
+        """
+        from .analysis.lattice import index_peaks
+        from .analysis.tracking import link_peaks
+
+        pk = self.find_peaks() if peaks is None else peaks
+        if "position" not in pk.data_vars or "peak" not in pk.dims:
+            raise SaxsInputError("peaks must be the Dataset of ds.saxs.find_peaks()", parameter="peaks")
+        pk = pk.compute()
+        order = self._scan_order(pk)
+        params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
+                      use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight))
+        get = lambda v: pk[v].values[order] if v in pk.data_vars else None  # noqa: E731
+        res = index_peaks(get("position"), get("position_sigma"), get("prominence"),
+                          q_min=pk.attrs.get("q_min"), **params)
+        lab = np.char.add(np.char.add(res["peak_phase"], " "), res["hkl"])
+        trk, _ = link_peaks(get("position"), get("position_sigma"), get("fwhm"),
+                            labels=np.where(res["hkl"] != "", lab, ""))
+        res["track"] = trk
+        inv = np.argsort(order)
+        if "status" in pk.data_vars:
+            bad = pk["status"].values[order] == "no_data"
+            res["status"] = np.where(bad, "no_data", res["status"])
+        dims = {"phase": ("frame", "slot"), "lattice": ("frame", "slot"), "lattice_sigma": ("frame", "slot"),
+                "score": ("frame", "slot"), "hkl": ("frame", "peak"), "peak_phase": ("frame", "peak"),
+                "track": ("frame", "peak")}
+        units = {"lattice": "nm", "lattice_sigma": "nm", "score": "1", "cost": "1", "margin": "1",
+                 "n_unexplained": "1", "track": "1"}
+        out = xr.Dataset(
+            {k: (dims.get(k, ("frame",)), np.asarray(v)[inv], {"units": units[k]} if k in units else {})
+             for k, v in res.items()}
+        )
+        out["position"] = pk["position"]
+        out = out.assign_coords({c: pk[c] for c in pk.coords if pk[c].dims == ("frame",)})
+        out = out.assign_coords(slot=np.arange(out.sizes["slot"]))
+        out["lattice"].attrs["long_name"] = "d-spacing (lamellar) or cell edge a"
+        out.attrs = provenance("index_phases", params)
+        out.attrs["scan"] = self._scan_name(pk)
+        out.attrs["note"] = (
+            "lattice from a weighted fit over the assigned peaks; frames with few peaks or a "
+            "non-empty 'alternative' are ambiguous: read 'caveat'"
+        )
+        return out
+
+    def phase_map(self, index: xr.Dataset | None = None) -> xr.Dataset:
+        """Phases present along the scan, transitions and coexistence windows.
+
+        Parameters
+        ----------
+        index : Dataset from :meth:`index_phases` (computed with defaults if None).
+
+        Returns
+        -------
+        Dataset with ``presence`` (bool, (frame, phase_name)), ``share`` and
+        ``lattice`` / ``lattice_sigma`` (nm) on (frame, phase_name), ``bonnet_ratio``,
+        ``bonnet_ratio_sigma``, ``bonnet_expected``, ``bonnet_pair`` on frame; attrs
+        ``transitions``, ``coexistence`` and ``bonnet`` as JSON strings (see
+        :func:`saxsnb.analysis.lattice.phase_map`), plus ``scan`` and ``scan_units``.
+        """
+        import json
+
+        from .analysis.lattice import phase_map
+
+        idx = self.index_phases() if index is None else index
+        names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or (
+            "lamellar", "hexagonal", "Pn3m", "Im3m", "Ia3d", "Fd3m", "Pm3n", "Fm3m")
+        scan = idx.attrs.get("scan") or self._scan_name(idx)
+        x = idx[scan].values if scan in idx.coords else idx["frame"].values
+        known = ~np.isin(idx["status"].values, ["no_data", "not_enough_peaks_to_index", "no_phase_found"])
+        m = phase_map(idx["phase"].values, x, known=known, lattice=idx["lattice"].values,
+                      lattice_sigma=idx["lattice_sigma"].values, score=idx["score"].values, phases=names)
+        fp = ("frame", "phase_name")
+        out = xr.Dataset(
+            {
+                "presence": (fp, m["presence"], {"units": "1"}),
+                "share": (fp, m["share"], {"units": "1", "long_name": "share of explained peak strength"}),
+                "lattice": (fp, m["lattice"], {"units": "nm"}),
+                "lattice_sigma": (fp, m["lattice_sigma"], {"units": "nm"}),
+                "bonnet_ratio": ("frame", m["bonnet_ratio"], {"units": "1"}),
+                "bonnet_ratio_sigma": ("frame", m["bonnet_ratio_sigma"], {"units": "1"}),
+                "bonnet_expected": ("frame", m["bonnet_expected"], {"units": "1"}),
+                "bonnet_pair": ("frame", m["bonnet_pair"]),
+                "known": ("frame", known, {"long_name": "frame could be indexed"}),
+            },
+            coords={"phase_name": list(names)},
+        )
+        out = out.assign_coords({c: idx[c] for c in idx.coords if idx[c].dims == ("frame",)})
+        out.attrs = provenance("phase_map", {"scan": scan})
+        out.attrs.update(
+            scan=scan,
+            scan_units=str(idx[scan].attrs.get("units", "")) if scan in idx.coords else "",
+            transitions=json.dumps(m["transitions"]),
+            coexistence=json.dumps(m["coexistence"]),
+            bonnet=json.dumps(m["bonnet"]),
+        )
+        return out
+
+    def phase_report(self, pmap: xr.Dataset | None = None) -> str:
+        """Short text report of :meth:`phase_map`: transitions, coexistence, Bonnet ratios."""
+        import json
+
+        from .analysis.lattice import phase_map_report
+
+        pm = self.phase_map() if pmap is None else pmap
+        scan = pm.attrs.get("scan", "frame")
+        x = np.sort(np.asarray(pm[scan].values, dtype=float)) if scan in pm.coords else None
+        step = float(np.median(np.diff(x))) if x is not None and x.size > 1 else None
+        res = {k: json.loads(pm.attrs[k]) for k in ("transitions", "coexistence", "bonnet")}
+        return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step)
+
+    def _scan_name(self, ds: xr.Dataset) -> str:
+        name = self.scan
+        return name if name in ds.coords else "frame"
+
+    def _scan_order(self, ds: xr.Dataset) -> np.ndarray:
+        """Frame order along the main scan coordinate (stable; NaN last)."""
+        name = self._scan_name(ds)
+        v = ds[name].values
+        if v.dtype.kind not in "fiu":
+            return np.arange(ds.sizes["frame"])
+        return np.argsort(np.where(np.isfinite(v), v, np.inf), kind="stable")
+
     # -------------------------------------------------- mapping over frames
     def _map_frames(
         self,

@@ -1,0 +1,758 @@
+"""Assigning mesophases to the Bragg peaks of every frame, and the phase map.
+
+The observed peak positions of all frames (a padded ``(n_frames, n_peaks)`` array)
+are explained by one phase or a pair of coexisting phases, chosen among lamellar,
+2D hexagonal and the cubic Pn3m, Im3m, Ia3d, Fd3m, Pm3n and Fm3m, whose allowed
+reflections come from :mod:`saxsnb.analysis.reflections`. The scan (temperature,
+time, ...) is then used as a prior: a dynamic-programming pass (Viterbi 1967) over
+the frames favours explanations that continue from one frame to the next with a
+smoothly changing lattice parameter.
+"""
+
+from __future__ import annotations
+
+from functools import cache
+
+import numpy as np
+
+from ..errors import SaxsInputError
+from .reflections import PHASES, allowed_reflections
+
+__all__ = [
+    "PHASES",
+    "BONNET_RATIOS",
+    "lattice_from_metric",
+    "index_peaks",
+    "phase_map",
+    "phase_map_report",
+]
+
+#: Bonnet relation of the bicontinuous cubics, a(Pn3m) : a(Im3m) : a(Ia3d)
+#: = 1 : 1.279 : 1.576 (Anderson, Gruner & Leibler 1988, PNAS 85, 5364; Hyde et al.
+#: 1997). REFERENCES.md marks these constants as derived from values quoted from
+#: memory: treat comparisons as indicative at the 1 % level.
+BONNET_RATIOS = {"Pn3m": 1.0, "Im3m": 1.279, "Ia3d": 1.576}
+
+#: Cost of an unobserved allowed reflection inside the observed range, by its rank in
+#: the phase's sequence (first reflection first); later ones cost the last value.
+MISS_COST = (1.5, 1.0, 0.6, 0.4, 0.3)
+#: Cost of a second coexisting phase (fewest phases preferred).
+PHASE_COST = 1.0
+#: A different explanation within this cost of the chosen one is reported as close.
+CLOSE_COST = 1.2
+_N_REF = {"lamellar": 12, "hexagonal": 20}
+_N_REF_CUBIC = 30
+_ANCHOR_REFLECTIONS = 4
+_ANCHOR_PEAKS = 8
+_KEEP = 3  # distinct lattices kept per phase per frame
+_VITERBI_STATES = 8
+
+
+@cache
+def _table(phase: str):
+    n = _N_REF.get(phase, _N_REF_CUBIC)
+    refl = allowed_reflections(phase, n)
+    s = np.array([r[0] for r in refl], dtype=np.int64)
+    smax = int(s.max())
+    ok = np.zeros(smax + 2, dtype=bool)
+    ok[s] = True
+    rank = np.full(smax + 2, -1, dtype=np.int64)
+    rank[s] = np.arange(s.size)
+    labels = np.array(["".join(str(i) for i in hkl) for _, hkl in refl])
+    return s, ok, rank, labels
+
+
+def lattice_from_metric(phase: str, metric):
+    """Lattice parameter (nm) from the metric ``L`` with ``q = sqrt(s) / L``.
+
+    Lamellar d = 2 pi L (s = l^2), cubic a = 2 pi L (s = h^2+k^2+l^2), 2D hexagonal
+    a = 4 pi L / sqrt(3) (s = h^2+hk+k^2); see REFERENCES.md (common practice).
+
+    >>> round(float(lattice_from_metric("Pn3m", np.sqrt(2) / 1.0)), 4)  # 110 at q = 1
+    8.8858
+    """
+    m = np.asarray(metric, dtype=float)
+    if phase == "hexagonal":
+        return 4.0 * np.pi * m / np.sqrt(3.0)
+    return 2.0 * np.pi * m
+
+
+def _match(phase, q, L, tol):
+    """Nearest allowed s for each observed q under metric L.
+
+    q (B, P) NaN padded; L (B, C). Returns s (B, C, P) int (0 = none), relerr (B, C, P).
+    """
+    s_list, ok, _, _ = _table(phase)
+    smax = ok.size - 2
+    with np.errstate(invalid="ignore"):
+        x = (q[:, None, :] * L[:, :, None]) ** 2
+        x = np.where(np.isfinite(x), x, -1.0)
+        best_s = np.zeros(x.shape, dtype=np.int64)
+        best_e = np.full(x.shape, np.inf)
+        base = np.floor(x).astype(np.int64)
+        for d in (0, 1):
+            n = base + d
+            valid = (n >= 1) & (n <= smax)
+            nn = np.clip(n, 0, smax)
+            e = np.abs(np.sqrt(np.maximum(x, 0.0) / np.maximum(nn, 1)) - 1.0)
+            use = valid & ok[nn] & (e < best_e)
+            best_s = np.where(use, nn, best_s)
+            best_e = np.where(use, e, best_e)
+    hit = best_e <= tol
+    s = np.where(hit, best_s, 0)
+    e = np.where(hit, best_e, np.inf)
+    # one observed peak per reflection: q is sorted, so two peaks claiming the same s are
+    # neighbours; keep the closer one (two passes settle runs of three)
+    for _ in range(2):
+        same = (s[..., 1:] == s[..., :-1]) & (s[..., 1:] > 0)
+        right_worse = same & (e[..., 1:] >= e[..., :-1])
+        left_worse = same & ~right_worse
+        drop = np.zeros(s.shape, dtype=bool)
+        drop[..., 1:] |= right_worse
+        drop[..., :-1] |= left_worse
+        s = np.where(drop, 0, s)
+        e = np.where(drop, np.inf, e)
+    return s, np.where(s > 0, e, np.nan)
+
+
+def _refine(q, w, s):
+    """Weighted least squares of q = k sqrt(s); returns L = 1/k and sigma_L.
+
+    Weights w = 1/sigma_q^2; sigma of k from (sum w s)^-1/2 scaled by sqrt(chi2_red)
+    when chi2_red > 1 (more than one peak).
+    """
+    m = s > 0
+    root = np.sqrt(s.astype(float))
+    ww = np.where(m, w, 0.0)
+    qq = np.where(m, np.nan_to_num(q), 0.0)
+    sw = np.sum(ww * s, axis=-1)
+    with np.errstate(all="ignore"):
+        k = np.sum(ww * qq * root, axis=-1) / sw
+        n = m.sum(axis=-1)
+        chi = np.sum(ww * (qq - k[..., None] * root) ** 2, axis=-1)
+        red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
+        sk = np.sqrt(np.maximum(red, 1.0) / sw)
+        L = 1.0 / k
+        sL = sk / k**2
+    return L, sL
+
+
+def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
+    """Best ``_KEEP`` distinct lattices of one phase for each frame.
+
+    q, w, unexpl (B, P); q_lo (B,). Returns dict of arrays (B, K[, P]).
+    """
+    s_list, _, rank, _ = _table(phase)
+    B, P = q.shape
+    na = min(_ANCHOR_REFLECTIONS, s_list.size)
+    # anchors: the strongest few peaks of the frame, each taken as one of the first reflections
+    na_p = min(_ANCHOR_PEAKS, P)
+    strong = np.argsort(-np.where(np.isfinite(q), strength, -np.inf), axis=1, kind="stable")[:, :na_p]
+    qa = np.take_along_axis(q, strong, 1)
+    L0 = (np.sqrt(s_list[:na])[None, None, :] / qa[:, :, None]).reshape(B, na_p * na)
+    s, _ = _match(phase, q, np.nan_to_num(L0, nan=0.0), tol)
+    for _ in range(2):
+        L, _ = _refine(q[:, None, :], w[:, None, :], s)
+        L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
+        s, err = _match(phase, q, L, tol)
+    L, sL = _refine(q[:, None, :], w[:, None, :], s)
+    matched = s > 0
+    n_match = matched.sum(-1)
+    # missing reflections: predicted inside [q_lo, highest matched q] but not observed
+    with np.errstate(invalid="ignore"):
+        q_hi = np.where(matched, q[:, None, :], -np.inf).max(-1) * (1 + tol)
+        qpred = np.sqrt(s_list)[None, None, :] / L[..., None]
+    seen = np.zeros(s.shape[:-1] + (s_list.size + 1,), dtype=bool)
+    np.put_along_axis(seen, np.where(s > 0, rank[s], s_list.size), True, axis=-1)
+    seen = seen[..., :-1]
+    inside = (qpred >= q_lo[:, None, None]) & (qpred <= q_hi[..., None])
+    mc = np.array([MISS_COST[min(j, len(MISS_COST) - 1)] for j in range(s_list.size)])
+    miss = np.sum(np.where(inside & ~seen, mc, 0.0), axis=-1)
+    fitc = 0.25 * np.nansum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
+    n_distinct = seen.sum(-1)
+    valid = (n_distinct >= 2) & np.isfinite(L) & (L > 0) & (n_match == n_distinct)
+    cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
+    cost = np.where(valid, cost, np.inf)
+    # keep the best _KEEP candidates with distinct lattices
+    keep = []
+    c = cost.copy()
+    for _ in range(_KEEP):
+        j = np.argmin(c, axis=1)
+        keep.append(j)
+        Lj = np.take_along_axis(L, j[:, None], 1)
+        same = np.abs(L / Lj - 1.0) <= tol
+        c = np.where(same, np.inf, c)
+    J = np.stack(keep, axis=1)  # (B, K)
+    take = lambda a: np.take_along_axis(a, J if a.ndim == 2 else J[..., None], 1)  # noqa: E731
+    return {
+        "L": take(L),
+        "sL": take(sL),
+        "s": take(s),
+        "err": take(err),
+        "miss": take(miss),
+        "fit": take(fitc),
+        "cost": take(cost),
+    }
+
+
+def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol):
+    """All one- and two-phase explanations of each frame with their costs."""
+    B, P = q.shape
+    present = np.isfinite(q)
+    smax = np.where(present, strength, -np.inf).max(-1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rho = np.where(present, np.clip(strength / smax, 0, 1), 0.0)
+    unexpl = np.where(present, 1.0 + np.nan_to_num(rho), 0.0)
+    singles = [_single_phase(ph, q, w, unexpl, strength, q_lo, tol) for ph in phases]
+    ph_id = np.repeat(np.arange(len(phases)), _KEEP)
+    cat = {k: np.concatenate([d[k] for d in singles], axis=1) for k in singles[0]}
+    M = cat["L"].shape[1]
+    hyp_phase = [np.full((B, 1, 2), -1)]
+    hyp_L = [np.full((B, 1, 2), np.nan)]
+    hyp_sL = [np.full((B, 1, 2), np.nan)]
+    hyp_slot = [np.full((B, 1, P), -1)]
+    hyp_s = [np.zeros((B, 1, P), dtype=np.int64)]
+    hyp_cost = [unexpl.sum(-1)[:, None]]
+    # single phases
+    hyp_phase.append(np.broadcast_to(np.stack([ph_id, np.full(M, -1)], -1), (B, M, 2)))
+    hyp_L.append(np.stack([cat["L"], np.full((B, M), np.nan)], -1))
+    hyp_sL.append(np.stack([cat["sL"], np.full((B, M), np.nan)], -1))
+    hyp_slot.append(np.where(cat["s"] > 0, 0, -1))
+    hyp_s.append(cat["s"])
+    hyp_cost.append(cat["cost"])
+    if max_phases >= 2:
+        a, b = np.triu_indices(M, 1)
+        diff = ph_id[a] != ph_id[b]
+        a, b = a[diff], b[diff]
+        sa, sb = cat["s"][:, a], cat["s"][:, b]
+        ea = np.where(sa > 0, cat["err"][:, a], np.inf)
+        eb = np.where(sb > 0, cat["err"][:, b], np.inf)
+        to_a = (sa > 0) & (ea <= eb)
+        to_b = (sb > 0) & ~to_a
+        only_a = ((sa > 0) & (sb == 0)).sum(-1)
+        only_b = ((sb > 0) & (sa == 0)).sum(-1)
+        explained = to_a | to_b
+        cost = (
+            np.sum(np.where(explained, 0.0, unexpl[:, None, :]), -1)
+            + cat["miss"][:, a]
+            + cat["miss"][:, b]
+            + cat["fit"][:, a]
+            + cat["fit"][:, b]
+            + PHASE_COST
+        )
+        ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cat["cost"][:, a]) & np.isfinite(cat["cost"][:, b])
+        hyp_phase.append(np.broadcast_to(np.stack([ph_id[a], ph_id[b]], -1), (B, a.size, 2)))
+        hyp_L.append(np.stack([cat["L"][:, a], cat["L"][:, b]], -1))
+        hyp_sL.append(np.stack([cat["sL"][:, a], cat["sL"][:, b]], -1))
+        hyp_slot.append(np.where(to_a, 0, np.where(to_b, 1, -1)))
+        hyp_s.append(np.where(to_a, sa, np.where(to_b, sb, 0)))
+        hyp_cost.append(np.where(ok, cost, np.inf))
+    return {
+        "phase": np.concatenate(hyp_phase, 1),
+        "L": np.concatenate(hyp_L, 1),
+        "sL": np.concatenate(hyp_sL, 1),
+        "slot": np.concatenate(hyp_slot, 1),
+        "s": np.concatenate(hyp_s, 1),
+        "cost": np.concatenate(hyp_cost, 1),
+        "rho": rho,
+    }
+
+
+def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
+    """Least total cost path through per-frame states (Viterbi 1967).
+
+    cost (F, K); phase, L (F, K, 2). Transition cost between consecutive frames:
+    ``switch_cost`` for every phase present in one state and not the other, and
+    ``jump_cost * min(1, (|ln(L'/L)| / jump_scale)^2)`` for a phase kept from one frame
+    to the next. The recursion is a loop over frames on (K, K) arrays.
+    """
+    F, K = cost.shape
+    if F == 0:
+        return np.zeros(0, dtype=np.int64)
+    pa, pb = phase[:-1, :, None, :, None], phase[1:, None, :, None, :]
+    La, Lb = L[:-1, :, None, :, None], L[1:, None, :, None, :]
+    same = (pa == pb) & (pa >= 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        dl = np.abs(np.log(Lb / La))
+    jump = np.where(same, jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2), 0.0)
+    n_a = (phase[:-1] >= 0).sum(-1)[:, :, None]
+    n_b = (phase[1:] >= 0).sum(-1)[:, None, :]
+    n_same = same.any(-1).sum(-1)
+    trans = weight * (jump.sum((-1, -2)) + switch_cost * (n_a + n_b - 2 * n_same))
+    back = np.zeros((F, K), dtype=np.int64)
+    acc = cost[0].copy()
+    for t in range(1, F):
+        tot = acc[:, None] + trans[t - 1]
+        back[t] = np.argmin(tot, axis=0)
+        acc = tot[back[t], np.arange(K)] + cost[t]
+    path = np.zeros(F, dtype=np.int64)
+    path[-1] = int(np.argmin(acc))
+    for t in range(F - 1, 0, -1):
+        path[t - 1] = back[t, path[t]]
+    return path
+
+
+def _key(phase_pair, n):
+    a, b = np.sort(phase_pair, axis=-1)[..., 0], np.sort(phase_pair, axis=-1)[..., 1]
+    return (a + 1) * (n + 1) + (b + 1)
+
+
+def index_peaks(
+    position,
+    position_sigma=None,
+    strength=None,
+    *,
+    phases=PHASES,
+    max_phases: int = 2,
+    tolerance: float = 0.01,
+    q_min=None,
+    use_scan_prior: bool = True,
+    prior_weight: float = 1.0,
+    switch_cost: float = 0.8,
+    jump_cost: float = 1.2,
+    jump_scale: float = 0.03,
+    block: int = 500,
+):
+    """Explain the peaks of every frame by one phase or a pair of coexisting phases.
+
+    Parameters
+    ----------
+    position : array (n_frames, n_peaks), 1/nm, NaN padded; frames in scan order.
+    position_sigma : array like position, optional; weights 1/sigma^2 of the lattice fit.
+    strength : array like position, optional (e.g. prominence); strong peaks count
+        more when unexplained. Default: all equal.
+    phases : sequence of phase names out of :data:`PHASES`.
+    max_phases : 1 or 2.
+    tolerance : float
+        Largest relative difference |q_obs / q_hkl - 1| for a peak to be assigned.
+    q_min : float or array (n_frames,), optional
+        Lowest q observed (1/nm): reflections below it are not expected.
+    use_scan_prior : bool
+        Choose the explanation of each frame jointly along the scan (see Notes).
+    prior_weight, switch_cost, jump_cost, jump_scale : float
+        Transition costs of the scan prior (see Notes).
+    block : int, frames processed at once (memory).
+
+    Returns
+    -------
+    dict of arrays:
+    per (frame, slot), slot < max_phases: ``phase`` (str, "" empty), ``lattice`` and
+    ``lattice_sigma`` (nm: d for lamellar, a otherwise), ``score`` (share of the
+    frame's peak strength explained by that phase, 0..1);
+    per (frame, peak): ``hkl`` (str, "" unassigned), ``peak_phase`` (str);
+    per frame: ``alternative`` (str, close other explanations, ", "-separated, ""
+    when none), ``status``, ``cost``, ``margin`` (cost of the closest other
+    explanation minus the chosen one; NaN when none), ``n_unexplained``,
+    ``caveat`` (str).
+
+    Notes
+    -----
+    *Candidates.* For each phase, each observed peak is taken in turn as each of the
+    first four allowed reflections, giving a trial metric L (``q = sqrt(s) / L``,
+    see :func:`lattice_from_metric`). Every peak is assigned the nearest allowed s
+    within ``tolerance`` and L is refined twice by weighted least squares of
+    ``q_i = sqrt(s_i) / L`` (weights ``1 / sigma_i^2``; sigma of L from the normal
+    equation, scaled by sqrt of the reduced chi-square when above one). A phase
+    needs at least two peaks with distinct indices.
+
+    *Cost* of an explanation (lower is better): each unexplained peak costs
+    ``1 + strength / max strength``; each allowed reflection that should appear
+    between the lowest observed q and the highest assigned peak but is not observed
+    costs :data:`MISS_COST` by rank (missing low orders weigh most); a second phase
+    costs :data:`PHASE_COST` and must explain at least two peaks of its own; the
+    misfit adds ``0.25 sum (err / tolerance)^2``. So the explanation with the fewest
+    phases that accounts for all strong peaks without gaps in its low orders wins.
+    Explanations of other phases within :data:`CLOSE_COST` are reported in
+    ``alternative`` (e.g. Im3m vs Pn3m when sqrt(3) is absent).
+
+    *Scan prior.* With ``use_scan_prior`` the lowest-cost states of each frame
+    (frames with fewer than two peaks are skipped) are linked by a Viterbi pass
+    (Viterbi 1967, IEEE Trans. Inf. Theory 13, 260) minimising the sum of frame costs
+    plus transitions: ``switch_cost`` per phase appearing or vanishing and
+    ``jump_cost * min(1, (|ln(L'/L)| / jump_scale)^2)`` per phase kept, all times
+    ``prior_weight``. A phase that explains frames n and n+1 with a smoothly changing
+    lattice is thus favoured over a jump to a near-equal explanation; evidence in a
+    frame stronger than the transition costs still wins.
+
+    A frame with one peak is never indexed (status "not_enough_peaks_to_index").
+
+    Examples
+    --------
+    >>> from saxsnb.analysis.reflections import q_positions
+    >>> q = q_positions("Pn3m", 10.0, 6)[None]  # 110, 111, 200, 211, 220, 221
+    >>> r = index_peaks(q)
+    >>> str(r["phase"][0, 0]), round(float(r["lattice"][0, 0]), 3), r["hkl"][0].tolist()
+    ('Pn3m', 10.0, ['110', '111', '200', '211', '220', '221'])
+    """
+    phases = tuple(phases)
+    for ph in phases:
+        if ph not in PHASES:
+            raise SaxsInputError(f"unknown phase {ph!r}; known: {PHASES}", parameter="phases")
+    if max_phases not in (1, 2):
+        raise SaxsInputError("max_phases must be 1 or 2", parameter="max_phases")
+    if not 0 < tolerance < 0.1:
+        raise SaxsInputError("tolerance must be between 0 and 0.1", parameter="tolerance")
+    q = np.atleast_2d(np.asarray(position, dtype=float)).copy()
+    F, P = q.shape
+    # work on peaks sorted by q (NaN last); per-peak outputs are put back in input order
+    order = np.argsort(np.where(np.isfinite(q), q, np.inf), axis=1, kind="stable")
+    inverse = np.argsort(order, axis=1)
+    q = np.take_along_axis(q, order, 1)
+    if position_sigma is not None:
+        position_sigma = np.broadcast_to(np.asarray(position_sigma, float), (F, P))
+        position_sigma = np.take_along_axis(position_sigma, order, 1)
+    if strength is not None:
+        strength = np.take_along_axis(np.broadcast_to(np.asarray(strength, float), (F, P)), order, 1)
+    with np.errstate(invalid="ignore"):
+        q[~(np.isfinite(q) & (q > 0))] = np.nan
+    present = np.isfinite(q)
+    sig = np.full_like(q, np.nan) if position_sigma is None else np.asarray(position_sigma, dtype=float)
+    fallback = tolerance * np.nan_to_num(q) / 3.0
+    with np.errstate(invalid="ignore"):
+        sig = np.where(np.isfinite(sig) & (sig > 0), sig, fallback)
+        sig = np.maximum(sig, 1e-6 * np.nan_to_num(q))
+        w = np.where(present, 1.0 / np.where(present, sig, 1.0) ** 2, 0.0)
+    st = np.ones_like(q) if strength is None else np.asarray(strength, dtype=float)
+    st = np.where(present & np.isfinite(st) & (st > 0), st, np.where(present, 1e-3, 0.0))
+    qlo = np.zeros(F) if q_min is None else np.broadcast_to(np.asarray(q_min, dtype=float), (F,))
+    n_obs = present.sum(-1)
+    nph = len(phases)
+    nkeys = (nph + 1) ** 2
+    Kv = _VITERBI_STATES
+    st_phase = np.full((F, Kv, 2), -1)
+    st_L = np.full((F, Kv, 2), np.nan)
+    st_sL = np.full((F, Kv, 2), np.nan)
+    st_slot = np.full((F, Kv, P), -1)
+    st_s = np.zeros((F, Kv, P), dtype=np.int64)
+    st_cost = np.full((F, Kv), np.inf)
+    best_key = np.full((F, nkeys), np.inf)
+    rho = np.zeros((F, P))
+    for b0 in range(0, F, block):
+        sl = slice(b0, min(F, b0 + block))
+        H = _hypotheses(q[sl], w[sl], st[sl], qlo[sl], phases, max_phases, tolerance)
+        cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
+        cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
+        rho[sl] = H["rho"]
+        kk = min(Kv, cost.shape[1])
+        top = np.argsort(cost, axis=1, kind="stable")[:, :kk]
+
+        def tk(a, top=top):
+            return np.take_along_axis(a, top.reshape(top.shape + (1,) * (a.ndim - 2)), 1)
+
+        st_phase[sl, :kk] = tk(H["phase"])
+        st_L[sl, :kk] = tk(H["L"])
+        st_sL[sl, :kk] = tk(H["sL"])
+        st_slot[sl, :kk] = tk(H["slot"])
+        st_s[sl, :kk] = tk(H["s"])
+        st_cost[sl, :kk] = tk(cost)
+        keys = _key(H["phase"], nph)
+        for kv in np.unique(keys):
+            best_key[sl, kv] = np.where(keys == kv, cost, np.inf).min(1)
+    # choose a state per frame
+    choice = np.zeros(F, dtype=np.int64)  # states are sorted: 0 = frame's best
+    informative = (n_obs >= 2) & np.isfinite(st_cost[:, 0]) & (st_phase[:, 0, 0] >= 0)
+    if use_scan_prior and informative.sum() > 1:
+        idx = np.nonzero(informative)[0]
+        path = _viterbi(
+            st_cost[idx], st_phase[idx], st_L[idx], prior_weight, switch_cost, jump_cost, jump_scale
+        )
+        choice[idx] = path
+    rows = np.arange(F)
+    ch_phase = st_phase[rows, choice]  # (F, 2)
+    ch_slot = st_slot[rows, choice]  # (F, P)
+    ch_s = st_s[rows, choice]
+    ch_cost = st_cost[rows, choice]
+    # refit each phase on the peaks assigned to it
+    lat = np.full((F, 2), np.nan)
+    lat_sig = np.full((F, 2), np.nan)
+    score = np.zeros((F, 2))
+    tot = rho.sum(-1)
+    for j in range(2):
+        sj = np.where(ch_slot == j, ch_s, 0)
+        L, sL = _refine(q, w, sj)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            score[:, j] = np.where(tot > 0, np.where(ch_slot == j, rho, 0).sum(-1) / tot, 0.0)
+        for k, ph in enumerate(phases):
+            m = ch_phase[:, j] == k
+            lat[m, j] = lattice_from_metric(ph, L[m])
+            lat_sig[m, j] = lattice_from_metric(ph, sL[m])
+    # order slots by explained strength
+    swap = score[:, 1] > score[:, 0]
+    for a in (ch_phase, lat, lat_sig, score):
+        a[swap] = a[swap][:, ::-1]
+    ch_slot = np.where(swap[:, None] & (ch_slot >= 0), 1 - ch_slot, ch_slot)
+    names = np.array(list(phases) + [""])
+    phase_str = names[np.where(ch_phase >= 0, ch_phase, nph)]
+    hkl = np.full((F, P), "", dtype="<U8")
+    peak_phase = np.full((F, P), "", dtype="<U12")
+    for j in range(2):
+        for k, ph in enumerate(phases):
+            m = (ch_slot == j) & (ch_phase[:, j : j + 1] == k)
+            if not m.any():
+                continue
+            _, _, rank, labels = _table(ph)
+            hkl[m] = labels[rank[ch_s[m]]]
+            peak_phase[m] = ph
+    # alternatives: other label sets within CLOSE_COST of the chosen explanation
+    ch_key = _key(ch_phase, nph)
+    alt = np.full(F, "", dtype=object)
+    margin = np.full(F, np.nan)
+    key_names = {}
+    for a_ in range(-1, nph):
+        for b_ in range(a_, nph):
+            pair = [phases[x] for x in (a_, b_) if x >= 0]
+            key_names[(a_ + 1) * (nph + 1) + (b_ + 1)] = "+".join(pair)
+    bk = best_key.copy()
+    bk[rows, ch_key] = np.inf
+    bk[:, 0] = np.inf  # "nothing" is not an alternative
+    d = bk - ch_cost[:, None]
+    with np.errstate(invalid="ignore"):
+        margin = np.where(np.isfinite(d).any(1), np.min(np.where(np.isfinite(d), d, np.inf), 1), np.nan)
+    margin[~np.isfinite(margin)] = np.nan
+    for i in np.nonzero((d < CLOSE_COST).any(1) & (ch_phase[:, 0] >= 0))[0]:
+        ks = np.nonzero(d[i] < CLOSE_COST)[0]
+        ks = ks[np.argsort(d[i, ks], kind="stable")]
+        alt[i] = ", ".join(key_names[int(k)] for k in ks)
+    n_unexpl = (present & (ch_slot < 0)).sum(-1)
+    found = ch_phase[:, 0] >= 0
+    status = np.where(
+        n_obs == 0,
+        "no_peaks",
+        np.where(
+            n_obs == 1,
+            "not_enough_peaks_to_index",
+            np.where(~found, "no_phase_found", np.where(n_unexpl > 0, "unexplained_peaks", "ok")),
+        ),
+    ).astype("<U28")
+    caveat = np.full(F, "", dtype=object)
+    few = found & (n_obs <= 3)
+    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)))[0]:
+        parts = []
+        if few[i]:
+            parts.append(f"only {int(n_obs[i])} peaks: assignment rests on few ratios")
+        if alt[i]:
+            parts.append(f"close alternative: {alt[i]}")
+        if n_unexpl[i]:
+            parts.append(f"{int(n_unexpl[i])} peak(s) unexplained")
+        caveat[i] = "; ".join(parts)
+    if max_phases == 1:
+        phase_str, lat, lat_sig, score = phase_str[:, :1], lat[:, :1], lat_sig[:, :1], score[:, :1]
+    return {
+        "phase": phase_str.astype("<U12"),
+        "lattice": lat,
+        "lattice_sigma": lat_sig,
+        "score": score,
+        "hkl": np.take_along_axis(hkl, inverse, 1),
+        "peak_phase": np.take_along_axis(peak_phase, inverse, 1),
+        "alternative": alt.astype(str),
+        "status": status,
+        "cost": np.where(found, ch_cost, np.nan),
+        "margin": np.where(found, margin, np.nan),
+        "n_unexplained": n_unexpl.astype(np.int64),
+        "caveat": caveat.astype(str),
+    }
+
+
+def _runs(mask):
+    """(start, stop) index pairs of the runs of True in a 1-D boolean array."""
+    m = np.concatenate([[False], np.asarray(mask, dtype=bool), [False]])
+    d = np.diff(m.astype(np.int8))
+    return list(zip(np.nonzero(d == 1)[0].tolist(), np.nonzero(d == -1)[0].tolist()))
+
+
+def phase_map(phase, scan, *, known=None, lattice=None, lattice_sigma=None, score=None, phases=PHASES):
+    """Which phases are present along the scan, where they appear and vanish.
+
+    Parameters
+    ----------
+    phase : str array (n_frames, n_slots), "" for an empty slot (from :func:`index_peaks`).
+    scan : array (n_frames,), the scan coordinate (any order; sorted internally).
+    known : bool array (n_frames,), optional
+        False for frames that could not be indexed (no data, a single peak): they are
+        left out when locating transitions instead of counting as "no phase".
+    lattice, lattice_sigma, score : arrays (n_frames, n_slots), optional.
+    phases : phase names, the columns of the presence table.
+
+    Returns
+    -------
+    dict with ``presence`` (bool, (n_frames, n_phases)), ``share`` ((n_frames,
+    n_phases), the phase's share of the explained peak strength, a rough indicator
+    and not a volume fraction), ``lattice`` and ``lattice_sigma`` ((n_frames,
+    n_phases), nm), ``bonnet_ratio``, ``bonnet_ratio_sigma``, ``bonnet_expected``
+    ((n_frames,), for frames with two coexisting bicontinuous cubics: larger over
+    smaller cell edge, and the Bonnet value), ``transitions`` (list of
+    ``{"phase", "appears", "vanishes", "appears_between", "vanishes_between"}``),
+    ``coexistence`` (list of ``{"phases", "start", "end"}``) and ``bonnet`` (list of
+    per-window summaries).
+
+    Notes
+    -----
+    A transition is placed half-way between the last frame without and the first
+    frame with the phase (``appears``), and between the last frame with and the
+    first frame without it (``vanishes``), so its uncertainty is half a step; the
+    bracketing scan values are given as ``*_between``. None means the phase is
+    present at the start (end) of the scan. Bonnet ratios a(Pn3m) : a(Im3m) : a(Ia3d)
+    = 1 : 1.279 : 1.576 (Anderson, Gruner & Leibler 1988, PNAS 85, 5364; constants
+    marked as recalled from memory in REFERENCES.md).
+
+    Examples
+    --------
+    >>> ph = np.array([["lamellar", ""], ["lamellar", "Ia3d"], ["Ia3d", ""]])
+    >>> m = phase_map(ph, np.array([20.0, 21.0, 22.0]))
+    >>> [(t["phase"], t["appears"], t["vanishes"]) for t in m["transitions"]]
+    [('lamellar', None, 21.5), ('Ia3d', 20.5, None)]
+    >>> m["coexistence"]
+    [{'phases': ['lamellar', 'Ia3d'], 'start': 20.5, 'end': 21.5}]
+    """
+    ph = np.asarray(phase).astype(str)
+    if ph.ndim == 1:
+        ph = ph[:, None]
+    F = ph.shape[0]
+    x = np.asarray(scan, dtype=float)
+    if x.shape != (F,):
+        raise SaxsInputError("scan must have one value per frame", parameter="scan")
+    kn = np.ones(F, dtype=bool) if known is None else np.asarray(known, dtype=bool)
+    phases = tuple(phases)
+    n = len(phases)
+    presence = np.zeros((F, n), dtype=bool)
+    share = np.zeros((F, n))
+    lat = np.full((F, n), np.nan)
+    lsig = np.full((F, n), np.nan)
+    for k, name in enumerate(phases):
+        hit = ph == name
+        presence[:, k] = hit.any(1)
+        if score is not None:
+            share[:, k] = np.where(hit, np.asarray(score, dtype=float), 0.0).sum(1)
+        if lattice is not None:
+            la = np.nan_to_num(np.asarray(lattice, dtype=float), nan=-np.inf)
+            lat[:, k] = np.where(hit, la, -np.inf).max(1)
+            lat[~np.isfinite(lat[:, k]), k] = np.nan
+        if lattice_sigma is not None:
+            ls = np.nan_to_num(np.asarray(lattice_sigma, dtype=float), nan=-np.inf)
+            lsig[:, k] = np.where(hit, ls, -np.inf).max(1)
+            lsig[~np.isfinite(lsig[:, k]), k] = np.nan
+    order = np.argsort(x, kind="stable")
+    order = order[kn[order]]
+    xs = x[order]
+    pres = presence[order]
+    mid = lambda i, j: float(0.5 * (xs[i] + xs[j]))  # noqa: E731
+    transitions = []
+    for k, name in enumerate(phases):
+        for a, b in _runs(pres[:, k]):
+            transitions.append(
+                {
+                    "phase": name,
+                    "appears": None if a == 0 else mid(a - 1, a),
+                    "vanishes": None if b == len(xs) else mid(b - 1, b),
+                    "appears_between": None if a == 0 else [float(xs[a - 1]), float(xs[a])],
+                    "vanishes_between": None if b == len(xs) else [float(xs[b - 1]), float(xs[b])],
+                }
+            )
+    transitions.sort(key=lambda t: (-np.inf if t["appears"] is None else t["appears"]))
+    coexistence = []
+    multi = pres.sum(1) >= 2
+    for a, b in _runs(multi):
+        # split the run where the set of phases changes
+        start = a
+        for i in range(a + 1, b + 1):
+            if i == b or not np.array_equal(pres[i], pres[start]):
+                names = [phases[k] for k in np.nonzero(pres[start])[0]]
+                coexistence.append(
+                    {
+                        "phases": names,
+                        "start": None if start == 0 else mid(start - 1, start),
+                        "end": None if i == len(xs) else mid(i - 1, i),
+                    }
+                )
+                start = i
+    # Bonnet ratios of coexisting bicontinuous cubics
+    ratio = np.full(F, np.nan)
+    ratio_sig = np.full(F, np.nan)
+    expected = np.full(F, np.nan)
+    pair_name = np.full(F, "", dtype=object)
+    cubics = [c for c in ("Pn3m", "Im3m", "Ia3d") if c in phases]
+    bonnet = []
+    for i1 in range(len(cubics)):
+        for i2 in range(i1 + 1, len(cubics)):
+            c1, c2 = cubics[i1], cubics[i2]
+            k1, k2 = phases.index(c1), phases.index(c2)
+            both = presence[:, k1] & presence[:, k2] & kn
+            if not both.any():
+                continue
+            with np.errstate(invalid="ignore"):
+                r = lat[:, k2] / lat[:, k1]
+                rs = r * np.hypot(lsig[:, k1] / lat[:, k1], lsig[:, k2] / lat[:, k2])
+            e = BONNET_RATIOS[c2] / BONNET_RATIOS[c1]
+            ratio[both], ratio_sig[both], expected[both] = r[both], rs[both], e
+            pair_name[both] = f"{c2}/{c1}"
+            rb = r[both]
+            bonnet.append(
+                {
+                    "phases": [c2, c1],
+                    "n_frames": int(both.sum()),
+                    "ratio_mean": float(np.nanmean(rb)) if np.isfinite(rb).any() else None,
+                    "ratio_std": float(np.nanstd(rb)) if np.isfinite(rb).sum() > 1 else None,
+                    "expected": float(e),
+                    "relative_deviation": float(np.nanmean(rb) / e - 1) if np.isfinite(rb).any() else None,
+                }
+            )
+    return {
+        "presence": presence,
+        "share": share,
+        "lattice": lat,
+        "lattice_sigma": lsig,
+        "bonnet_ratio": ratio,
+        "bonnet_ratio_sigma": ratio_sig,
+        "bonnet_expected": expected,
+        "bonnet_pair": pair_name.astype(str),
+        "transitions": transitions,
+        "coexistence": coexistence,
+        "bonnet": bonnet,
+    }
+
+
+def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step: float | None = None) -> str:
+    """A short text report of :func:`phase_map` output.
+
+    >>> ph = np.array([["lamellar"], ["hexagonal"]])
+    >>> print(phase_map_report(phase_map(ph, np.array([20.0, 21.0])), scan="temperature", units="degC"))
+    Phase map along temperature:
+      lamellar: from the start to 20.5 degC (between 20 and 21)
+      hexagonal: from 20.5 degC (between 20 and 21) to the end
+    No coexistence window found.
+    """
+    u = f" {units}" if units else ""
+
+    def fmt(v, between):
+        if v is None:
+            return None
+        return f"{v:.4g}{u} (between {between[0]:.4g} and {between[1]:.4g})"
+
+    lines = [f"Phase map along {scan}:"]
+    for t in result["transitions"]:
+        a = fmt(t["appears"], t["appears_between"])
+        v = fmt(t["vanishes"], t["vanishes_between"])
+        lines.append(
+            f"  {t['phase']}: "
+            + ("from the start" if a is None else f"from {a}")
+            + (" to the end" if v is None else f" to {v}")
+        )
+    if result["coexistence"]:
+        for c in result["coexistence"]:
+            s = "the start" if c["start"] is None else f"{c['start']:.4g}{u}"
+            e = "the end" if c["end"] is None else f"{c['end']:.4g}{u}"
+            lines.append(f"  coexistence {' + '.join(c['phases'])}: {s} to {e}")
+    else:
+        lines.append("No coexistence window found.")
+    for b in result["bonnet"]:
+        if b["ratio_mean"] is None:
+            continue
+        lines.append(
+            f"  lattice ratio a({b['phases'][0]})/a({b['phases'][1]}) = {b['ratio_mean']:.4f} over "
+            f"{b['n_frames']} frame(s); Bonnet value {b['expected']:.3f} "
+            f"({100 * b['relative_deviation']:+.2f} %; "
+            "Bonnet constants recalled from memory, indicative only)"
+        )
+    if step is not None:
+        lines.append(f"Transitions are located to +-{step / 2:.3g}{u} (half a scan step).")
+    return "\n".join(lines)

@@ -1,0 +1,126 @@
+"""Peak baseline, detection and batched fitting (saxsnb.analysis.peaks, ds.saxs.find_peaks)."""
+
+import numpy as np
+import pytest
+from _synth_peaks import Q, curve, gaussian
+from scipy.optimize import curve_fit
+
+import saxsnb
+from saxsnb.analysis.peaks import estimate_baseline, find_peaks, fit_peaks, peak_profile
+from saxsnb.errors import SaxsFitError, SaxsInputError
+
+
+def _series(rng, n_frames=6):
+    pos = [np.array([0.9, 1.3, 1.8, 2.6]) * (1 + 0.001 * i) for i in range(n_frames)]
+    heights = np.array([80.0, 40.0, 20.0, 10.0])
+    I, S = zip(*(curve(p, heights, rng=rng) for p in pos))
+    return np.array(pos), np.array(I), np.array(S)
+
+
+def test_fit_matches_curve_fit_on_same_window(rng):
+    # reference: scipy.optimize.curve_fit (general-purpose library) on the same points
+    q = np.linspace(0.5, 1.5, 401)
+    true = gaussian(q, 1.0123, 0.03, 50.0) + 3.0 + 0.5 * (q - 1.0)
+    sig = np.full(q.size, 0.4)
+    y = true + rng.normal(0, 1, q.size) * sig
+    ci = int(np.argmin(np.abs(q - 1.0123)))
+    wpts = 6.0  # window = +-round(2 * 6) = 12 points
+    res = fit_peaks(q, y[None], sig[None], np.array([[ci]]), np.array([[wpts]]))
+    sl = slice(ci - 12, ci + 13)
+
+    def model(x, c, w, h, b0, b1):
+        return gaussian(x, c, w, h) + b0 + b1 * (x - q[ci])
+
+    p, cov = curve_fit(model, q[sl], y[sl], p0=[q[ci], 0.025, 45, 3, 0], sigma=sig[sl])
+    assert res["position"][0, 0] == pytest.approx(p[0], rel=1e-7)
+    assert res["fwhm"][0, 0] == pytest.approx(p[1], rel=1e-5)
+    assert res["height"][0, 0] == pytest.approx(p[2], rel=1e-5)
+    # covariance scaled by reduced chi-square, as curve_fit with absolute_sigma=False
+    assert res["position_sigma"][0, 0] == pytest.approx(np.sqrt(cov[0, 0]), rel=1e-3)
+    assert res["fwhm_sigma"][0, 0] == pytest.approx(np.sqrt(cov[1, 1]), rel=1e-3)
+
+
+@pytest.mark.parametrize("profile", ["gaussian", "lorentzian", "pseudo_voigt"])
+def test_profiles_recover_area(profile, rng):
+    q = np.linspace(0.5, 2.0, 1500)
+    c, w, h = 1.2, 0.03, 100.0
+    y = peak_profile(q, c, w, h, 0.4, profile=profile) + 10.0
+    sig = np.full(q.size, 0.1)
+    res = find_peaks(q, (y + rng.normal(0, 0.1, q.size))[None], sig[None], profile=profile)
+    assert res["n_peaks"][0] == 1
+    assert res["position"][0, 0] == pytest.approx(c, abs=5e-5)
+    assert res["fwhm"][0, 0] == pytest.approx(w, rel=0.05)
+    # closed-form areas: Gaussian h w sqrt(pi / (4 ln 2)), Lorentzian h w pi / 2 (common practice)
+    area = {"gaussian": h * w * np.sqrt(np.pi / (4 * np.log(2))), "lorentzian": h * w * np.pi / 2}
+    area["pseudo_voigt"] = 0.4 * area["lorentzian"] + 0.6 * area["gaussian"]
+    # the local line absorbs part of the Lorentzian tails outside the window: 10 % band
+    assert res["area"][0, 0] == pytest.approx(area[profile], rel=0.1)
+
+
+def test_find_peaks_recovers_positions_and_batch_equals_loop(rng):
+    pos, I, S = _series(rng)
+    res = find_peaks(Q, I, S)
+    assert res["n_peaks"].tolist() == [4] * len(pos)
+    assert np.allclose(res["position"][:, :4], pos, atol=3e-4)
+    z = (res["position"][:, :4] - pos) / res["position_sigma"][:, :4]
+    assert np.all(np.abs(z) < 6)
+    assert np.isnan(res["position"][:, 4:]).all()
+    for i in range(len(pos)):  # batch equals loop
+        one = find_peaks(Q, I[i : i + 1], S[i : i + 1])
+        assert np.allclose(one["position"], res["position"][i : i + 1], equal_nan=True)
+
+
+def test_baseline_under_data_and_close_to_background(rng):
+    pos, I, S = _series(rng, 2)
+    b = estimate_baseline(Q, I, S)
+    bg = 2.0 * Q**-2.0 + 5.0
+    assert np.mean(b <= I + 3 * S) > 0.995
+    assert np.median(np.abs(b / bg - 1)) < 0.01
+
+
+def test_no_false_peaks_on_pure_noise(rng):
+    bg = 2.0 * Q**-2.0 + 5.0
+    sig = np.sqrt(bg / 2000)
+    I = bg + rng.normal(0, 1, (20, Q.size)) * sig
+    res = find_peaks(Q, I, np.broadcast_to(sig, I.shape))
+    assert res["n_peaks"].sum() <= 1
+    assert set(res["status"].tolist()) <= {"no_peaks", "ok"}
+
+
+def test_bad_frames_get_status(rng):
+    pos, I, S = _series(rng, 3)
+    I = I.copy()
+    I[1] = np.nan
+    I[2] = 2.0 * Q**-2.0 + 5.0  # no peaks, no noise
+    res = find_peaks(Q, I, S)
+    assert res["status"].tolist() == ["ok", "no_data", "no_peaks"]
+    assert res["n_peaks"].tolist() == [4, 0, 0]
+    with pytest.raises(SaxsFitError, match="frame 1"):
+        find_peaks(Q, I, S, errors="raise")
+
+
+def test_q_range_excludes_peaks_outside(rng):
+    pos, I, S = _series(rng, 2)
+    res = find_peaks(Q, I, S, q_range=(1.0, 2.0))
+    assert res["n_peaks"].tolist() == [2, 2]
+    assert np.all((res["position"][:, :2] > 1.0) & (res["position"][:, :2] < 2.0))
+    with pytest.raises(SaxsInputError, match="q_range"):
+        find_peaks(Q, I, S, q_range=(6.0, 7.0))
+    with pytest.raises(SaxsInputError, match="profile"):
+        find_peaks(Q, I, S, profile="triangle")
+
+
+def test_accessor_units_dask_and_tracks(rng):
+    pos, I, S = _series(rng)
+    T = np.array([30.0, 25.0, 20.0, 35.0, 40.0, 45.0])  # not sorted: tracks follow the scan
+    ds = saxsnb.from_arrays(Q, I, S, scan={"temperature": T})
+    pk = ds.saxs.find_peaks()
+    assert pk["position"].attrs["units"] == "1/nm"
+    assert pk["area"].attrs["units"] == "arb 1/nm"
+    assert pk["track"].dims == ("frame", "peak")
+    assert sorted(set(pk["track"].values[:, :4].ravel().tolist())) == [0, 1, 2, 3]
+    assert pk.attrs["operation"] == "find_peaks"
+    lazy = ds.chunk({"frame": 2}).saxs.find_peaks(track=False)
+    assert lazy["position"].chunks is not None
+    assert np.allclose(lazy["position"].values, pk["position"].values, equal_nan=True)
+    assert np.all(ds["intensity"].values == I)  # input untouched

@@ -1,0 +1,56 @@
+"""Linking peaks across frames (saxsnb.analysis.tracking)."""
+
+import numpy as np
+from scipy.optimize import linear_sum_assignment
+
+from saxsnb.analysis.tracking import link_peaks
+
+
+def test_drifting_peaks_form_one_track_each():
+    n = 30
+    pos = np.stack([1.0 + 0.001 * np.arange(n), 2.0 - 0.0005 * np.arange(n)], axis=1)
+    track, prev = link_peaks(pos, np.full(pos.shape, 2e-4), np.full(pos.shape, 0.02))
+    assert (track[:, 0] == 0).all() and (track[:, 1] == 1).all()
+    assert (prev[0] == -1).all() and (prev[1:] == [0, 1]).all()
+
+
+def test_fading_and_appearing_reflections_are_separate_tracks():
+    # one reflection fades out at frame 10, another appears at frame 10 nearby
+    pos = np.full((20, 2), np.nan)
+    pos[:10, 0] = 1.20
+    pos[10:, 0] = 1.25
+    pos[:, 1] = 2.0
+    track, _ = link_peaks(pos, np.full(pos.shape, 1e-3), np.full(pos.shape, 0.03))
+    assert track[9, 0] != track[10, 0]
+    assert len(set(track[:, 1])) == 1
+    assert sorted(set(track.ravel())) == [0, 1, 2]
+
+
+def test_nan_frame_splits_tracks_and_no_peaks():
+    pos = np.array([[1.0, 2.0], [np.nan, np.nan], [1.0, 2.0]])
+    track, _ = link_peaks(pos, np.full(pos.shape, 1e-3))
+    assert track.tolist() == [[0, 1], [-1, -1], [2, 3]]
+
+
+def test_matches_minimum_cost_assignment(rng):
+    # reference: scipy.optimize.linear_sum_assignment (Hungarian/Jonker-Volgenant) per pair
+    n_f, n_p = 40, 6
+    base = np.sort(rng.uniform(0.5, 4.0, n_p))
+    pos = base + rng.normal(0, 2e-4, (n_f, n_p))
+    for row in pos:
+        rng.shuffle(row)
+    sig = np.full(pos.shape, 2e-4)
+    _, prev = link_peaks(pos, sig)
+    for t in range(1, n_f):
+        cost = np.abs(pos[t][None, :] - pos[t - 1][:, None])
+        r, c = linear_sum_assignment(cost)
+        want = np.empty(n_p, dtype=int)
+        want[c] = r
+        assert prev[t].tolist() == want.tolist()
+
+
+def test_labels_split_tracks():
+    pos = np.array([[1.0], [1.0], [1.0]])
+    lab = np.array([["Pn3m 110"], ["Pn3m 110"], ["Im3m 110"]])
+    track, _ = link_peaks(pos, np.full(pos.shape, 1e-3), labels=lab)
+    assert track[:, 0].tolist() == [0, 0, 1]
