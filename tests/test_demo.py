@@ -6,6 +6,7 @@ import re
 import numpy as np
 import pytest
 from scipy import integrate, stats
+from scipy.special import gammaln
 
 import saxsnb
 from saxsnb import demo
@@ -217,6 +218,21 @@ def test_schulz_guinier_slope_of_noiseless_curve():
         slope = np.polyfit(q[sel] ** 2, np.log(I[i, sel]), 1)[0]
         # Kotlarchyk & Chen 1983 (REFERENCES.md); fit bias at q Rg <= 0.3 is < 0.1 % (sphere table)
         assert np.sqrt(-3 * slope) == pytest.approx(rg, rel=2e-3)
+
+
+def test_schulz_quadrature_converged():
+    q = np.geomspace(0.03, 3.0, 60)
+    Rm, z = np.array([2.0, 7.0, 12.0]), np.array([20.0, 35.0, 50.0])
+    default = flow_growth.schulz_spheres(q, Rm, z)
+    fine = flow_growth.schulz_spheres(q, Rm, z, n_radii=1500)
+    np.testing.assert_allclose(default, fine, rtol=1e-8)
+    # absolute scale: I(0) = phi drho^2 <V^2>/<V>, Schulz moments (Kotlarchyk & Chen 1983)
+    I0 = flow_growth.schulz_spheres(np.array([1e-6]), Rm, z)[:, 0]
+    # <R^n> = Rm^n Gamma(z+1+n) / (Gamma(z+1) (z+1)^n), REFERENCES.md
+    m6 = np.exp(gammaln(z + 7) - gammaln(z + 1) - 6 * np.log(z + 1)) * (Rm * 1e-7) ** 6
+    m3 = np.exp(gammaln(z + 4) - gammaln(z + 1) - 3 * np.log(z + 1)) * (Rm * 1e-7) ** 3
+    v2_over_v = (4 * np.pi / 3) * m6 / m3
+    np.testing.assert_allclose(I0, 1e-3 * (2e11) ** 2 * v2_over_v, rtol=1e-6)
 
 
 def test_schulz_monodisperse_limit_is_a_sphere():

@@ -65,11 +65,17 @@ def sphere_form_factor(x: np.ndarray) -> np.ndarray:
     """
     x = np.asarray(x, dtype=float)
     small = np.abs(x) < 1e-2
-    xs = np.where(small, 1.0, x)
-    amp = 3.0 * (np.sin(xs) - xs * np.cos(xs)) / xs**3
-    x2 = x * x
-    amp = np.where(small, 1.0 - x2 / 10.0 + x2 * x2 / 280.0, amp)
-    return amp * amp
+    any_small = bool(small.any())
+    xs = np.where(small, 1.0, x) if any_small else x
+    amp = np.sin(xs)
+    amp -= xs * np.cos(xs)
+    amp *= 3.0
+    amp /= xs * xs * xs
+    if any_small:
+        x2 = x * x
+        amp = np.where(small, 1.0 - x2 / 10.0 + x2 * x2 / 280.0, amp)
+    amp *= amp
+    return amp
 
 
 def debye_chain(x: np.ndarray) -> np.ndarray:
