@@ -72,34 +72,56 @@ def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         if not rest or len(rest) > 3:
             return None
         exp_cols = rest
-    digits = chars[:, mant_cols + exp_cols] - np.uint8(48)
-    if not bool((digits < 10).all()):
+    nm, ne = len(mant_cols), len(exp_cols)
+    if nm > 15:
         return None
-    if dpos >= 0 and not bool((chars[:, dpos] == ord(".")).all()):
-        return None
-    if epos < width and not bool(((chars[:, epos] | 0x20) == ord("e")).all()):
+    # one gather of every column that matters, then one range check per column
+    cols = mant_cols + exp_cols
+    lo = [48] * (nm + ne)
+    hi = [57] * (nm + ne)
+    orm = [0] * (nm + ne)
+    if dpos >= 0:
+        cols.append(dpos)
+        lo.append(46)
+        hi.append(46)
+        orm.append(0)
+    if epos < width:
+        cols.append(epos)
+        lo.append(101)
+        hi.append(101)
+        orm.append(0x20)
+    if exp_sign_col is not None:
+        cols.append(exp_sign_col)
+        lo.append(43)
+        hi.append(45)
+        orm.append(0)
+    g = chars[:, cols]
+    v = g | np.array(orm, dtype=np.uint8) if any(orm) else g
+    if not bool(((v >= np.array(lo, np.uint8)) & (v <= np.array(hi, np.uint8))).all()):
         return None
     if exp_sign_col is not None:
-        col = chars[:, exp_sign_col]
-        if not bool(((col == ord("+")) | (col == ord("-"))).all()):
+        sign = g[:, -1]
+        if bool((sign == 44).any()):  # ',' lies between '+' and '-'
             return None
-    nm = len(mant_cols)
-    # integer-valued float arithmetic: every partial sum is an integer < 2**53, exact
-    m = np.einsum("ij,j->i", digits[:, :nm], 10.0 ** np.arange(nm - 1, -1, -1))
-    ex = np.zeros(n, dtype=np.int64)
-    if exp_cols:
-        ne = len(exp_cols)
-        ex = np.einsum("ij,j->i", digits[:, nm:], 10 ** np.arange(ne - 1, -1, -1, dtype=np.int64))
-    if exp_sign_col is not None:
-        ex = np.where(chars[:, exp_sign_col] == ord("-"), -ex, ex)
-    p = ex - frac
-    ok = (len(mant_cols) <= 15) & (np.abs(p) <= 22)
-    if not np.any(ok):
-        return m, ok
-    pc = np.clip(np.abs(p), 0, 22)
-    scale = _POW10[pc]
-    vals = np.where(p >= 0, m * scale, m / scale)
-    return vals, ok & (m < _TWO53)
+    # integer-valued float arithmetic on the raw bytes: sum(b_j 10^k) - 48 sum(10^k);
+    # every partial sum is an integer < 2**53, hence exact
+    wm = 10.0 ** np.arange(nm - 1, -1, -1)
+    m = np.einsum("ij,j->i", g[:, :nm], wm) - 48.0 * wm.sum()
+    if ne:
+        we = 10 ** np.arange(ne - 1, -1, -1, dtype=np.int64)
+        ex = np.einsum("ij,j->i", g[:, nm : nm + ne], we) - 48 * int(we.sum())
+        if exp_sign_col is not None:
+            ex = np.where(g[:, -1] == 45, -ex, ex)
+        p = ex - frac
+    else:
+        p = np.full(n, -frac, dtype=np.int64)
+    ok = np.abs(p) <= 22
+    scale = _POW10[np.minimum(np.abs(p), 22)]
+    vals = np.empty(n)
+    up = p >= 0
+    np.multiply(m, scale, out=vals, where=up)
+    np.divide(m, scale, out=vals, where=~up)
+    return vals, ok
 
 
 def parse_tokens(

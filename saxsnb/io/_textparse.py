@@ -9,6 +9,7 @@ that is wrong.
 
 from __future__ import annotations
 
+import functools
 import json
 import re
 from dataclasses import dataclass, field
@@ -25,7 +26,7 @@ _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
 _COMMA_NUM = rb"[-+]?\d+,\d+(?:[eE][-+]?\d+)?"
 _COMMA_DECIMAL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
-_KEYVAL = re.compile(r"^\s*#*\s*([A-Za-z_][\w .\-]*?)\s*[=:]\s*(.*?)\s*$")
+_KEYVAL = re.compile(r"^[ \t#]*([A-Za-z_][\w .\-]*?)[ \t]*[=:][ \t]*(.*?)[ \t\r]*$", re.M)
 _QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ]\s*[\(\[]\s*([^\)\]]+?)\s*[\)\]]")
 _Q_KEYS = {"q_unit", "q_units", "qunit", "qunits", "unit_q", "q_axis_unit"}
 _I_KEYS = {"intensity_unit", "intensity_units", "i_unit", "i_units", "unit_i"}
@@ -58,37 +59,44 @@ def _floatable(tokens) -> bool:
     return True
 
 
-def _norm_key(key: str) -> str:
-    return re.sub(r"\W+", "_", key.strip().lower()).strip("_")
+@functools.lru_cache(maxsize=4096)
+def _classify_key(raw_key: str) -> tuple[str, str]:
+    """("attr" | "q_unit" | "intensity_unit" | "units" | "meta", name) of a header key."""
+    raw_key = raw_key.strip()
+    if raw_key.lower().startswith("attr.") and len(raw_key) > 5:
+        return "attr", raw_key[5:].strip()
+    key = re.sub(r"\W+", "_", raw_key.lower()).strip("_")
+    if key in _Q_KEYS:
+        return "q_unit", key
+    if key in _I_KEYS:
+        return "intensity_unit", key
+    if key.endswith("_units") or key.endswith("_unit"):
+        return "units", key.rsplit("_", 1)[0]
+    return "meta", key
 
 
 def _header(raw: RawFile, text: str) -> None:
-    for line in text.splitlines():
-        m = _KEYVAL.match(line)
-        if m:
-            key = _norm_key(m.group(1))
-            value = m.group(2).strip()
-            if not key:
-                continue
-            if key.startswith("attr_") and line.lstrip("# \t").lower().startswith("attr."):
-                name = line.lstrip("# \t")[5:].split("=", 1)[0].split(":", 1)[0].strip()
-                try:
-                    raw.attrs[name] = json.loads(value)
-                except ValueError:
-                    raw.attrs[name] = value
-            elif key in _Q_KEYS:
-                raw.q_unit = value
-            elif key in _I_KEYS:
-                raw.intensity_unit = value
-            elif key.endswith("_units") or key.endswith("_unit"):
-                raw.units[key.rsplit("_", 1)[0]] = value
-            else:
-                raw.meta[key] = value
+    for raw_key, value in _KEYVAL.findall(text):
+        kind, key = _classify_key(raw_key)
+        if not key:
             continue
-        if raw.q_unit is None:
-            qm = _QCOLUMN.search(line)
-            if qm:
-                raw.q_unit = qm.group(1)
+        if kind == "meta":
+            raw.meta[key] = value
+        elif kind == "units":
+            raw.units[key] = value
+        elif kind == "q_unit":
+            raw.q_unit = value
+        elif kind == "intensity_unit":
+            raw.intensity_unit = value
+        else:
+            try:
+                raw.attrs[key] = json.loads(value)
+            except ValueError:
+                raw.attrs[key] = value
+    if raw.q_unit is None:
+        qm = _QCOLUMN.search(text)
+        if qm:
+            raw.q_unit = qm.group(1)
 
 
 def split_file(path: str, name: str, data: bytes) -> RawFile:

@@ -38,7 +38,8 @@ __all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS"]
 
 #: File extensions picked from a folder (when any such file exists).
 DATA_EXTENSIONS = (".dat", ".txt", ".csv", ".chi", ".xy")
-_BATCH = 256
+_BATCH = 128
+_THREADS = min(4, os.cpu_count() or 1) or 1
 _PROGRESS_MIN = 500
 
 
@@ -102,37 +103,48 @@ def _progress(total: int, progress: bool | None):
     return tqdm(total=total, desc="reading", unit="file")
 
 
+def _read_batch(paths: list[str]) -> list[Curve]:
+    raws = [split_file(p, os.path.basename(p), _read_bytes(p)) for p in paths]
+    curves = []
+    for raw, (data, lines) in zip(raws, parse_bodies(raws)):
+        nc = data.shape[1]
+        curves.append(
+            Curve(
+                name=raw.name,
+                q=data[:, 0],
+                intensity=data[:, 1],
+                sigma=data[:, 2] if nc > 2 else None,
+                dq=data[:, 3] if nc > 3 else None,
+                q_unit=raw.q_unit,
+                intensity_unit=raw.intensity_unit,
+                meta=raw.meta,
+                units=raw.units,
+                attrs=raw.attrs,
+                lines=lines,
+                path=raw.path,
+            )
+        )
+    return curves
+
+
 def _curves(files: list[str], progress: bool | None) -> list[Curve]:
-    names = [os.path.basename(f) for f in files]
+    """Read and parse files in batches on two threads (numpy and file reads release the GIL)."""
     bar = _progress(len(files), progress)
+    batches = [files[b : b + _BATCH] for b in range(0, len(files), _BATCH)]
     curves: list[Curve] = []
     try:
-        with ThreadPoolExecutor(max_workers=2) as pool:
-            for b0 in range(0, len(files), _BATCH):
-                chunk = files[b0 : b0 + _BATCH]
-                datas = list(pool.map(_read_bytes, chunk))
-                raws = [split_file(p, n, d) for p, n, d in zip(chunk, names[b0 : b0 + _BATCH], datas)]
-                for raw, (data, lines) in zip(raws, parse_bodies(raws)):
-                    nc = data.shape[1]
-                    curves.append(
-                        Curve(
-                            name=raw.name,
-                            q=data[:, 0],
-                            intensity=data[:, 1],
-                            sigma=data[:, 2] if nc > 2 else None,
-                            dq=data[:, 3] if nc > 3 else None,
-                            q_unit=raw.q_unit,
-                            intensity_unit=raw.intensity_unit,
-                            meta=raw.meta,
-                            units=raw.units,
-                            attrs=raw.attrs,
-                            lines=lines,
-                            path=raw.path,
-                        )
-                    )
-                if bar is not None:
-                    bar.update(len(chunk))
+        if len(batches) == 1:
+            results = iter([_read_batch(batches[0])])
+        else:
+            pool = ThreadPoolExecutor(max_workers=_THREADS)
+            results = pool.map(_read_batch, batches)
+        for batch in results:
+            curves.extend(batch)
+            if bar is not None:
+                bar.update(len(batch))
     finally:
+        if len(batches) > 1:
+            pool.shutdown(wait=True, cancel_futures=True)
         if bar is not None:
             bar.close()
     return curves
