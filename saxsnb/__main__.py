@@ -30,7 +30,7 @@ def _demo_run(args: argparse.Namespace) -> int:
     for name, folder in folders.items():
         n = len(list(folder.glob("*.dat")))
         print(f"{name}: {n} curves + background in {folder}")
-    print("synthetic data from closed-form models; see README.txt in each folder")
+    print("synthetic data from closed-form models; see README.md in each folder")
     return 0
 
 

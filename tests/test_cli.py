@@ -39,7 +39,7 @@ def test_demo_writes_folders_with_headers(tmp_path):
     ]
     assert files[20].name == "titration_D3.000M_0020.dat"
     assert len(list((out / "flow-growth").glob("flow_X*mm_*.dat"))) == 60
-    assert (out / "flow-growth" / "README.txt").exists()
+    assert (out / "flow-growth" / "README.md").exists()
 
 
 def test_demo_same_seed_same_files(tmp_path, capsys):

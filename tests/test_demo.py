@@ -293,7 +293,7 @@ def test_write_demo_folders(tmp_path):
         files = sorted(folder.glob("*.dat"))
         bg = sorted((folder / "background").glob("*.dat"))
         assert len(files) == n and len(bg) == n
-        assert "SYNTHETIC" in (folder / "README.txt").read_text()
+        assert "Synthetic data" in (folder / "README.md").read_text()
         assert not list(folder.rglob("*.part"))
         scan, unit = SCANS[name]
         pattern = demo.files.FILE_NAMES[name][3]
@@ -317,3 +317,21 @@ def test_write_demo_rejects_unknown_name(tmp_path):
     with pytest.raises(SaxsInputError, match="bogus"):
         demo.write_demo(tmp_path, names=["bogus"])
     assert not list(tmp_path.iterdir())
+
+
+def test_demo_folder_reads_back(tmp_path):
+    folders = demo.write_demo(tmp_path, names=["unfolding"], seed=4)
+    folder = folders["unfolding"]
+    series, background = demo.make_series("unfolding", seed=4)
+    pattern = demo.files.FILE_NAMES["unfolding"][3]
+    by_glob = saxsnb.read_series(str(folder / "*.dat"), scan="denaturant", pattern=pattern)
+    by_folder = saxsnb.read_series(folder)  # the README beside the curves is not read
+    bg = saxsnb.read_series(folder / "background")
+    for ds in (by_glob, by_folder):
+        np.testing.assert_allclose(ds["denaturant"].values, series["denaturant"].values)
+        np.testing.assert_allclose(ds["intensity"].values, series["intensity"].values, rtol=1e-8)
+        np.testing.assert_allclose(ds["sigma"].values, series["sigma"].values, rtol=1e-8)
+        assert ds["intensity"].attrs["units"] == "1/cm"
+        assert ds.attrs["sample"] == series.attrs["sample"]
+    np.testing.assert_allclose(by_folder.saxs.subtract(bg)["intensity"].values,
+                               series.saxs.subtract(background)["intensity"].values, atol=1e-9)

@@ -21,27 +21,31 @@ FILE_NAMES = {
 }
 
 _README = """\
-saxsnb demo data: {name}
-{line}
+# saxsnb demo data: {name}
 
-SYNTHETIC DATA. Every sample, instrument and number here is invented and computed
-from closed-form models by saxsnb.demo.make_series({name!r}, seed={seed}); nothing was
-measured. The folder is laid out like a user's beamline folder:
+**Synthetic data.** Every sample, instrument and number here is invented and computed
+from closed-form models by `saxsnb.demo.make_series({name!r}, seed={seed})`; nothing
+was measured. The folder is laid out like a user's beamline folder:
 
-  *.dat           one reduced curve per frame: sample + background, as measured
-  background/     the matching background (buffer/capillary) measured separately
+- `*.dat`: one reduced curve per frame, sample + background, as measured;
+- `background/`: the matching background (buffer, capillary) measured separately.
 
-Sample: {sample}
-Frames: {frames}, scan coordinate '{scan}' ({units}), {qmin:.3g} .. {qmax:.3g} 1/nm
-Intensity unit: {iunit}
+Sample: {sample}.
+Frames: {frames}, scan coordinate `{scan}` ({units}); q {qmin:.3g} .. {qmax:.3g} 1/nm.
+Intensity unit: {iunit}.
 
-Each file has '# key = value' header lines (sample, q_unit, intensity_unit, the scan
+Each file has `# key = value` header lines (sample, q_unit, intensity_unit, the scan
 value and its units) and three columns: q, I, sigma. The scan value is also in the
-file name, e.g. {example}; read the folder with
+file name, e.g. `{example}`. Read the folder (from its parent) with
 
-  saxsnb.read_series("{name}/*.dat", scan="{scan}", pattern=r"{pattern}")
+```python
+ds = saxsnb.read_series("{name}/*.dat", scan="{scan}", pattern=r"{pattern}")
+background = saxsnb.read_series("{name}/background/*.dat", scan="{scan}", pattern=r"{pattern}")
+signal = ds.saxs.subtract(background)
+```
 
-Subtracting the background (ds.saxs.subtract(background)) gives the model signal.
+Subtracting the background gives the model signal; the truth used to make it is in
+`saxsnb.demo.truth(saxsnb.demo.make_series({name!r}, seed={seed})[0])`.
 """
 
 
@@ -96,7 +100,7 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
     ----------
     out_dir : path
         Created if missing. Each scenario goes to ``out_dir/<name>/`` with its
-        background in ``out_dir/<name>/background/`` and a README.txt.
+        background in ``out_dir/<name>/background/`` and a README.md.
     names : iterable of str, optional
         Scenarios to write (default: all of :data:`saxsnb.demo.SCENARIOS`).
     seed : int
@@ -137,9 +141,9 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
             write_frames(background, folder / "background", prefix=prefix + "_bg", scan=scan, tag=tag)
             q = series["q"].values
             _atomic_write_text(
-                folder / "README.txt",
+                folder / "README.md",
                 _README.format(
-                    name=name, line="=" * (len(name) + 18), seed=seed, sample=series.attrs["sample"],
+                    name=name, seed=seed, sample=series.attrs["sample"],
                     frames=series.sizes["frame"], scan=scan, units=series[scan].attrs["units"],
                     qmin=q[0], qmax=q[-1], iunit=series["intensity"].attrs["units"],
                     example=paths[min(12, len(paths) - 1)].name, pattern=pattern,
