@@ -1,0 +1,486 @@
+"""Weighted straight-line fits over a leading frame axis: the engine of Guinier and Porod.
+
+Three pieces, all pure numpy and vectorised over any leading axes:
+
+- :func:`linearize` turns ``(q, I, sigma)`` into ``(x, y, sigma_y)`` for the usual
+  linearising plots (Guinier ``ln I`` vs ``q^2``, rod and sheet cross-sections, log-log,
+  Porod ``q^4 I`` vs ``q^4``) with first-order error propagation;
+- :func:`weighted_linear_fit` fits ``y = intercept + slope * x`` to every row at once
+  (non-finite points are excluded, so masked points arriving as NaN are honoured);
+- :class:`WindowMoments` holds prefix sums of the weighted moments of each row, from
+  which :meth:`WindowMoments.fit` gives the regression of *any* contiguous index window
+  in a few array operations: every candidate window of every frame at once, which is
+  what the automatic Guinier range search needs.
+
+Both fitting routes end in the same formulas (``_line_from_moments``), so a window fit
+and a direct fit of the same points agree to rounding.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import SaxsInputError
+
+__all__ = ["TRANSFORMS", "linearize", "weighted_linear_fit", "WindowMoments", "index_range", "running_sum"]
+
+#: Linearising transforms: name -> (x as a function of q, description of y).
+TRANSFORMS = {
+    "guinier": ("q^2", "ln I"),
+    "rod": ("q^2", "ln(q I)"),
+    "sheet": ("q^2", "ln(q^2 I)"),
+    "loglog": ("ln q", "ln I"),
+    "porod": ("q^4", "q^4 I"),
+}
+
+
+def linearize(q, intensity, sigma=None, kind: str = "guinier"):
+    """Transform a curve (or a stack of curves) to the coordinates of a linear plot.
+
+    Parameters
+    ----------
+    q : array (n_q,) or broadcastable to ``intensity``, 1/nm
+    intensity : array (..., n_q)
+    sigma : array like ``intensity``, optional
+        One standard deviation of the intensity.
+    kind : {"guinier", "rod", "sheet", "loglog", "porod"}
+        ``guinier``: x = q^2, y = ln I; ``rod``: x = q^2, y = ln(q I); ``sheet``:
+        x = q^2, y = ln(q^2 I); ``loglog``: x = ln q, y = ln I; ``porod``: x = q^4,
+        y = q^4 I.
+
+    Returns
+    -------
+    x, y, sigma_y : arrays broadcast to ``intensity.shape``. ``sigma_y`` is None when
+    ``sigma`` is None. Points where a logarithm is undefined (I <= 0) are NaN in ``y``.
+
+    Notes
+    -----
+    First-order (delta-method) propagation: for y = ln(q^k I), sigma_y = sigma / I; for
+    y = q^4 I, sigma_y = q^4 sigma. The logarithmic form is biased when sigma/I is not
+    small (a few tenths); such points carry little weight in a weighted fit anyway.
+
+    Examples
+    --------
+    >>> x, y, sy = linearize([1.0, 2.0], [[np.e, 1.0]], [[0.1 * np.e, 0.5]])
+    >>> x.tolist(), y.tolist(), np.round(sy, 3).tolist()
+    ([[1.0, 4.0]], [[1.0, 0.0]], [[0.1, 0.5]])
+    """
+    if kind not in TRANSFORMS:
+        raise SaxsInputError(f"unknown transform {kind!r}; use one of {sorted(TRANSFORMS)}", parameter="kind")
+    I = np.asarray(intensity, dtype=float)
+    q = np.broadcast_to(np.asarray(q, dtype=float), I.shape)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if kind == "porod":
+            q4 = q**4
+            x, y = q4, q4 * I
+            sy = None if sigma is None else q4 * np.asarray(sigma, dtype=float)
+            return x, y, sy
+        pos = I > 0
+        logI = np.log(np.where(pos, I, np.nan))
+        if kind == "guinier":
+            x, y = q * q, logI
+        elif kind == "rod":
+            x, y = q * q, logI + np.log(q)
+        elif kind == "sheet":
+            x, y = q * q, logI + 2.0 * np.log(q)
+        else:  # loglog
+            x, y = np.log(q), logI
+        sy = None if sigma is None else np.asarray(sigma, dtype=float) / np.where(pos, I, np.nan)
+    return x, y, sy
+
+
+def _weights(y, sigma):
+    """Weights 1/sigma^2 (1 when sigma is None); 0 where any input is not usable."""
+    y = np.asarray(y, dtype=float)
+    if sigma is None:
+        w = np.ones_like(y)
+    else:
+        s = np.asarray(sigma, dtype=float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            w = 1.0 / (s * s)
+        w = np.where(np.isfinite(w) & (s > 0), w, 0.0)
+    return w
+
+
+def _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale):
+    """Slope, intercept, covariance and chi-square from weighted (centred) moments.
+
+    ``S0 = sum w``, ``xm, ym`` weighted means, ``Sxx = sum w (x - xm)^2``,
+    ``Sxy = sum w (x - xm)(y - ym)``, ``chi2 = sum w r^2``; ``scale`` (bool array)
+    multiplies the covariance by the reduced chi-square.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = Sxy / Sxx
+        intercept = ym - slope * xm
+        var_b = 1.0 / Sxx
+        var_a = 1.0 / S0 + xm * xm / Sxx
+        cov_ab = -xm / Sxx
+        dof = n - 2
+        chi2_red = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)
+        factor = np.where(scale, chi2_red, 1.0)
+        ok = (n >= 2) & (Sxx > 0) & (S0 > 0)
+        nan = np.nan
+        return {
+            "slope": np.where(ok, slope, nan),
+            "intercept": np.where(ok, intercept, nan),
+            "slope_sigma": np.where(ok, np.sqrt(var_b * factor), nan),
+            "intercept_sigma": np.where(ok, np.sqrt(var_a * factor), nan),
+            "slope_intercept_cov": np.where(ok, cov_ab * factor, nan),
+            "chi2": np.where(ok, chi2, nan),
+            "chi2_reduced": np.where(ok, chi2_red, nan),
+            "n_points": np.asarray(n, dtype=np.int64),
+            "x_mean": np.where(ok, xm, nan),
+        }
+
+
+def weighted_linear_fit(x, y, sigma=None, *, scale_covariance: bool | None = None) -> dict:
+    """Fit ``y = intercept + slope * x`` by weighted least squares, row by row.
+
+    Parameters
+    ----------
+    x : array (..., n) or (n,)
+        Abscissae, broadcast against ``y``.
+    y : array (..., n)
+        Ordinates; the fit runs along the last axis for every leading index.
+    sigma : array like ``y``, optional
+        One standard deviation of ``y``; weights are ``1 / sigma^2``. Points where x, y
+        or sigma is not finite, or sigma <= 0, are excluded. Without sigma every
+        point has weight 1.
+    scale_covariance : bool, optional
+        Multiply the covariance by the reduced chi-square (the residual scatter
+        decides the uncertainty). Default: True without ``sigma`` (as
+        ``numpy.polyfit(cov=True)`` and ``scipy.stats.linregress``), False with
+        ``sigma`` (the sigmas are taken as absolute).
+
+    Returns
+    -------
+    dict of arrays of shape ``y.shape[:-1]``: ``slope``, ``intercept``,
+    ``slope_sigma``, ``intercept_sigma``, ``slope_intercept_cov``, ``chi2`` (sum of
+    weighted squared residuals), ``chi2_reduced`` (chi2 / (n - 2)), ``n_points``
+    (int), ``x_mean`` (weighted mean of x). Rows with fewer than two distinct usable
+    x get NaN.
+
+    Notes
+    -----
+    Two-pass centred sums (weighted means first), so the result does not lose digits
+    when x lies far from zero: slope = Sxy / Sxx, intercept = ym - slope xm,
+    var(slope) = 1 / Sxx, var(intercept) = 1 / S0 + xm^2 / Sxx,
+    cov = -xm / Sxx (e.g. Bevington & Robinson 2003, Data Reduction and Error
+    Analysis, ch. 6).
+
+    Examples
+    --------
+    >>> x = np.array([0.0, 1.0, 2.0, 3.0])
+    >>> r = weighted_linear_fit(x, np.array([[1.0, 3.0, 5.0, 7.0], [0.0, -1.0, -2.0, -3.0]]))
+    >>> r["slope"].tolist(), r["intercept"].tolist()
+    ([2.0, -1.0], [1.0, 0.0])
+    """
+    y = np.asarray(y, dtype=float)
+    x = np.broadcast_to(np.asarray(x, dtype=float), y.shape)
+    w = _weights(y, sigma)
+    use = np.isfinite(x) & np.isfinite(y) & (w > 0)
+    w = np.where(use, w, 0.0)
+    xz = np.where(use, x, 0.0)
+    yz = np.where(use, y, 0.0)
+    n = use.sum(axis=-1)
+    S0 = w.sum(axis=-1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xm = (w * xz).sum(axis=-1) / S0
+        ym = (w * yz).sum(axis=-1) / S0
+    dx = np.where(use, xz - xm[..., None], 0.0)
+    dy = np.where(use, yz - ym[..., None], 0.0)
+    Sxx = (w * dx * dx).sum(axis=-1)
+    Sxy = (w * dx * dy).sum(axis=-1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = Sxy / Sxx
+        r = dy - slope[..., None] * dx
+    chi2 = (w * np.where(use, r * r, 0.0)).sum(axis=-1)
+    if scale_covariance is None:
+        scale_covariance = sigma is None
+    return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, bool(scale_covariance))
+
+
+def index_range(q, q_range, n_frames: int):
+    """Index windows ``[start, stop)`` of each frame for a q-range specification.
+
+    Parameters
+    ----------
+    q : array (n_q,), increasing, 1/nm
+    q_range : (a, b) or array (n_frames, 2)
+        Inclusive bounds; NaN bounds mean "no limit on that side".
+    n_frames : int
+
+    Returns
+    -------
+    start, stop : int arrays (n_frames,), with ``q[start:stop]`` inside the range.
+
+    Examples
+    --------
+    >>> index_range(np.array([0.1, 0.2, 0.3, 0.4]), (0.15, 0.3), 2)
+    (array([1, 1]), array([3, 3]))
+    """
+    q = np.asarray(q, dtype=float)
+    r = np.asarray(q_range, dtype=float)
+    if r.shape == (2,):
+        r = np.broadcast_to(r, (n_frames, 2))
+    if r.shape != (n_frames, 2):
+        raise SaxsInputError(
+            f"q_range must be (q_min, q_max) or an array ({n_frames}, 2); got shape {r.shape}",
+            parameter="q_range",
+        )
+    lo = np.where(np.isnan(r[:, 0]), -np.inf, r[:, 0])
+    hi = np.where(np.isnan(r[:, 1]), np.inf, r[:, 1])
+    if np.any(lo >= hi):
+        f = int(np.argmax(lo >= hi))
+        raise SaxsInputError(
+            f"q_range lower bound {lo[f]} is not below the upper bound {hi[f]}",
+            parameter="q_range",
+            frame=f if r.shape[0] > 1 else None,
+        )
+    start = np.searchsorted(q, lo, side="left")
+    stop = np.searchsorted(q, hi, side="right")
+    return start.astype(np.int64), stop.astype(np.int64)
+
+
+def running_sum(a, axis: int = 0):
+    """Cumulative sum along ``axis`` with a leading zero: out[0] = 0,
+    out[i + 1] = out[i] + a[i] (indices along ``axis``).
+
+    Each step adds whole slices (a loop over q columns, vectorised over frames),
+    several times faster than ``numpy.cumsum`` along a non-last axis, and strictly in
+    sequence, so a prefix does not depend on what follows it.
+
+    >>> running_sum(np.array([1.0, 2.0, 3.0])).tolist()
+    [0.0, 1.0, 3.0, 6.0]
+    """
+    a = np.moveaxis(np.asarray(a), axis, 0)
+    if a.ndim == 1:
+        return np.concatenate([[0.0], np.cumsum(a, dtype=np.float64)])
+    out = np.empty((a.shape[0] + 1,) + a.shape[1:], dtype=np.result_type(a.dtype, np.float64))
+    out[0] = 0
+    for i in range(a.shape[0]):
+        np.add(out[i], a[i], out=out[i + 1])
+    return np.moveaxis(out, 0, axis)
+
+
+class WindowMoments:
+    """Prefix sums of weighted moments, giving the fit of any index window at once.
+
+    For each row, with ``u = x - x_ref`` and ``v = y - y_ref`` (per-row reference
+    values that keep the sums well conditioned), cumulative sums along the q axis of
+    ``w, w u, w v, w u^2, w u v, w v^2`` (and, for the curvature test, ``w u^3, w u^4,
+    w u^2 v``) and of the point count are stored with a leading zero. The sums over a
+    window ``[i, j)`` are then ``P[j] - P[i]``: the regression of every window of
+    every frame costs a few array operations, whatever the window length.
+
+    Parameters
+    ----------
+    x, y : arrays (n_frames, n)
+    sigma : array (n_frames, n) or None
+        Excluded points (non-finite, sigma <= 0) get weight 0.
+    ref : int array (n_frames,), optional
+        Index of each row's reference point (default: the first usable point).
+    quadratic : bool
+        Also keep the moments needed by :meth:`curvature`.
+
+    Notes
+    -----
+    The cumulative sums add sequentially along q, element by element, so a prefix
+    sum does not depend on how many columns follow it nor on the other frames: the
+    fit of a window is the same whether a frame is processed alone or in a batch
+    (batch equals loop, exactly).
+
+    Examples
+    --------
+    >>> x = np.arange(6.0)[None, :]
+    >>> m = WindowMoments(x, 2.0 - 0.5 * x)
+    >>> r = m.fit(np.array([[0, 1]]), np.array([[4, 6]]))
+    >>> r["slope"].round(12).tolist()
+    [[-0.5, -0.5]]
+    """
+
+    def __init__(self, x, y, sigma=None, *, ref=None, quadratic: bool = False):
+        y = np.asarray(y, dtype=float)
+        x = np.broadcast_to(np.asarray(x, dtype=float), y.shape)
+        w = _weights(y, sigma)
+        use = np.isfinite(x) & np.isfinite(y) & (w > 0)
+        F, n = y.shape
+        if ref is None:
+            ref = np.argmax(use, axis=-1)
+        ref = np.asarray(ref, dtype=np.int64)
+        rows = np.arange(F)
+        xr_ = x[rows, ref]
+        yr_ = y[rows, ref]
+        self.x_ref = np.where(np.isfinite(xr_), xr_, 0.0)
+        self.y_ref = np.where(np.isfinite(yr_), yr_, 0.0)
+        # layout (column, term, frame): each step of the running sum adds one
+        # contiguous (term, frame) block (numpy's cumsum along a non-last axis is
+        # much slower)
+        useT = np.ascontiguousarray(use.T)
+        w = np.where(useT, w.T, 0.0)
+        u = np.where(useT, x.T - self.x_ref, 0.0)
+        v = np.where(useT, y.T - self.y_ref, 0.0)
+        T = 10 if quadratic else 7
+        terms = np.empty((n, T, F))
+        terms[:, 0] = useT
+        terms[:, 1] = w
+        wu = np.multiply(w, u, out=terms[:, 2])
+        wv = np.multiply(w, v, out=terms[:, 3])
+        wuu = np.multiply(wu, u, out=terms[:, 4])
+        np.multiply(wu, v, out=terms[:, 5])
+        np.multiply(wv, v, out=terms[:, 6])
+        if quadratic:
+            np.multiply(wuu, u, out=terms[:, 7])
+            np.multiply(terms[:, 7], u, out=terms[:, 8])
+            np.multiply(wuu, v, out=terms[:, 9])
+        self.P = running_sum(terms)
+        self.quadratic = quadratic
+        self._T, self._F = T, F
+
+    def _gather(self, idx):
+        """Prefix sums at column ``idx`` (int array (F, ...)) of each frame: (T, F, ...)."""
+        idx = np.asarray(idx, dtype=np.int64)
+        T, F = self._T, self._F
+        P2 = self.P.reshape(self.P.shape[0], T * F)
+        f = np.arange(F).reshape((F,) + (1,) * (idx.ndim - 1))
+        t = np.arange(T).reshape((T,) + (1,) * idx.ndim)
+        return P2[idx[None], t * F + f[None]]
+
+    def _sums(self, start, stop):
+        D = self._gather(stop) - self._gather(start)
+        return D, D.shape[1:]
+
+    def fit(self, start, stop, *, scale_covariance: bool = False) -> dict:
+        """Straight-line fit of the windows ``[start, stop)`` of each row.
+
+        Parameters
+        ----------
+        start, stop : int arrays (n_frames, ...) broadcastable to each other
+            Column indices (stop exclusive); any number of windows per frame. Give
+            starts as (n_frames, K, 1) and stops as (n_frames, 1, E) for all K x E
+            combinations: the prefix sums are read once per start and per stop.
+        scale_covariance : bool
+            As in :func:`weighted_linear_fit`.
+
+        Returns
+        -------
+        dict as :func:`weighted_linear_fit`, each array of the broadcast shape.
+        """
+        D, shape = self._sums(start, stop)
+        return self._fit_from(D, shape, scale_covariance)
+
+    def _fit_from(self, D, shape, scale_covariance=False):
+        n = np.rint(D[0]).astype(np.int64)
+        S0, Su, Sv, Suu, Suv, Svv = D[1:7]
+        extra = (slice(None),) + (None,) * (len(shape) - 1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            um = Su / S0
+            vm = Sv / S0
+            Sxx = Suu - Su * um
+            Sxy = Suv - Su * vm
+            Syy = Svv - Sv * vm
+            chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
+        xm = um + self.x_ref[extra]
+        ym = vm + self.y_ref[extra]
+        return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale_covariance)
+
+    def fit_and_curvature(self, start, stop):
+        """:meth:`fit` and :meth:`curvature` of the same windows, reading the sums once."""
+        D, shape = self._sums(start, stop)
+        return self._fit_from(D, shape), self._curvature_from(D, shape)
+
+    def search_stats(self, start, stop):
+        """Lean statistics for a window search: the straight line's slope and its
+        variance (from the weights), the point count, and the quadratic term
+        (:meth:`curvature`) with its variance, the quadratic fit's chi-square, the
+        relative slope drift and the lever; computed with as few array operations
+        as possible since it runs on every candidate window.
+
+        Returns
+        -------
+        dict of arrays of the broadcast shape of ``start`` and ``stop``: ``slope``,
+        ``slope_var``, ``n_points``, ``c``, ``c_var``, ``chi2_quadratic``, ``drift``,
+        ``lever``. Degenerate windows give NaN (compare with care).
+        """
+        if not self.quadratic:
+            raise SaxsInputError("built without quadratic=True", parameter="quadratic")
+        D, shape = self._sums(start, stop)
+        cnt, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv = D
+        extra = (slice(None),) + (None,) * (len(shape) - 1)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            inv = 1.0 / S0
+            m = Su * inv
+            mm = m * m
+            M2 = Suu * inv
+            Y = Sv * inv
+            C1 = Suv * inv
+            mu2 = M2 - mm
+            mu3 = S3 * inv - m * (3.0 * M2 - 2.0 * mm)
+            mu4 = S4 * inv - m * (4.0 * S3 * inv - m * (6.0 * M2 - 3.0 * mm))
+            cuy = C1 - m * Y
+            cu2y = Suuv * inv - m * (2.0 * C1 - m * Y) - mu2 * Y
+            k4 = mu4 - mu2 * mu2
+            det = mu2 * k4 - mu3 * mu3
+            idet = 1.0 / det
+            bq = (k4 * cuy - mu3 * cu2y) * idet
+            c = (mu2 * cu2y - mu3 * cuy) * idet
+            slope = cuy / mu2
+            out = {
+                "slope": slope,
+                "slope_var": inv / mu2,
+                "n_points": cnt,
+                "c": c,
+                "c_var": mu2 * idet * inv,
+                "chi2_quadratic": Svv - Sv * Y - S0 * (bq * cuy + c * cu2y),
+                "drift": 2.0 * c * np.sqrt(12.0 * mu2) / bq,
+                "lever": mu3 / mu2 + 2.0 * (m + self.x_ref[extra]),
+            }
+        return out
+
+    def curvature(self, start, stop):
+        """Quadratic term of ``y = a + b x + c x^2`` on each window, with its sigma.
+
+        Returns
+        -------
+        dict with ``c``, ``c_sigma`` (from the weights), ``chi2_quadratic`` and
+        ``drift``: the relative change of the local slope across the window,
+        ``2 c (x_last - x_first) / b``, approximated with the window's x spread
+        ``sqrt(12 var(x))`` for x_last - x_first; ``lever``: cov(x, x^2) / var(x), so
+        that ``c * lever`` is how far the straight-line slope of the window departs
+        from the slope at x = 0 when the data follow the quadratic.
+        """
+        D, shape = self._sums(start, stop)
+        return self._curvature_from(D, shape)
+
+    def _curvature_from(self, D, shape):
+        if not self.quadratic:
+            raise SaxsInputError("built without quadratic=True", parameter="quadratic")
+        S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv = D[1:]
+        extra = (slice(None),) + (None,) * (len(shape) - 1)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            inv = 1.0 / S0
+            m = Su * inv
+            M2, M3, M4 = Suu * inv, S3 * inv, S4 * inv
+            Y, C1, C2 = Sv * inv, Suv * inv, Suuv * inv
+            mm = m * m
+            mu2 = M2 - mm
+            mu3 = M3 - 3 * m * M2 + 2 * mm * m
+            mu4 = M4 - 4 * m * M3 + 6 * mm * M2 - 3 * mm * mm
+            cuy = C1 - m * Y
+            cu2y = C2 - 2 * m * C1 + mm * Y - mu2 * Y
+            k4 = mu4 - mu2 * mu2
+            det = mu2 * k4 - mu3 * mu3
+            b = (k4 * cuy - mu3 * cu2y) / det
+            c = (mu2 * cu2y - mu3 * cuy) / det
+            var_c = mu2 / det * inv
+            chi2q = np.maximum(Svv - Sv * Y - S0 * (b * cuy + c * cu2y), 0.0)
+            drift = 2.0 * c * np.sqrt(12.0 * np.maximum(mu2, 0.0)) / b
+            lever = mu3 / mu2 + 2.0 * (m + self.x_ref[extra])
+        good = det > 0
+        return {
+            "c": np.where(good, c, np.nan),
+            "c_sigma": np.where(good, np.sqrt(np.abs(var_c)), np.nan),
+            "chi2_quadratic": np.where(good, chi2q, np.nan),
+            "drift": np.where(good, drift, np.nan),
+            "lever": np.where(good, lever, np.nan),
+        }

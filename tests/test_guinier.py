@@ -1,0 +1,200 @@
+"""Guinier analysis against published closed forms and tables (REFERENCES.md)."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from shapes_linear import cylinder, debye, flat_disc, rg_schulz, schulz_spheres, sphere
+
+from saxsnb.analysis.guinier import guinier_fit, guinier_search, rod_length
+from saxsnb.errors import SaxsInputError
+
+
+def test_guinier_form_exact():
+    q = np.linspace(0.01, 1.0, 300)
+    rg = np.array([1.0, 2.0, 3.5])
+    I = np.array([10.0, 1.0, 250.0])[:, None] * np.exp(-((q * rg[:, None]) ** 2) / 3)
+    for q_range in (None, (0.0, 0.5)):
+        r = guinier_fit(q, I, 0.01 * I, q_range=q_range, qrg_limit=1.8)
+        np.testing.assert_allclose(r["rg"], rg, rtol=1e-9)
+        np.testing.assert_allclose(r["i0"], [10.0, 1.0, 250.0], rtol=1e-9)
+    r = guinier_fit(q, I, 0.01 * I)
+    assert (r["qrg_max"] <= 1.3).all() and (r["status"] == "ok").all()
+
+
+# Sphere (Guinier & Fournet 1955): Rg = sqrt(3/5) R. Bias of an unweighted fit of ln I vs
+# q^2 on 400 evenly spaced q in (0, qmax] (REFERENCES.md, [der]; reproduced to 4 digits).
+SPHERE_BIAS = [(0.5, 1.0026), (0.8, 1.0067), (1.0, 1.0106), (1.3, 1.0184), (1.5, 1.0251), (2.0, 1.0483)]
+# Gaussian chain (Debye 1947), same fit (REFERENCES.md, [der]).
+CHAIN_BIAS = [(0.5, 0.9911), (1.0, 0.9650), (1.3, 0.9419)]
+
+
+@pytest.mark.parametrize(("qrg", "ratio"), SPHERE_BIAS)
+def test_sphere_bias_table(qrg, ratio):
+    R = 2.0
+    rg = np.sqrt(3 / 5) * R  # Guinier & Fournet (1955)
+    qmax = qrg / rg
+    q = np.linspace(qmax / 400, qmax, 400)
+    r = guinier_fit(q, sphere(q * R), q_range=(0.0, qmax), qrg_limit=3.0)
+    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
+
+
+@pytest.mark.parametrize(("qrg", "ratio"), CHAIN_BIAS)
+def test_chain_bias_table(qrg, ratio):
+    rg = 3.0
+    q = np.linspace(qrg / rg / 400, qrg / rg, 400)
+    r = guinier_fit(q, debye((q * rg) ** 2), q_range=(0.0, 1.0))
+    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
+
+
+def _noisy_schulz(rng, n=40, noise=0.01):
+    q = np.linspace(0.01, 2.5, 400)
+    Rm = rng.uniform(2.0, 8.0, n)
+    z = rng.uniform(10.0, 60.0, n)
+    I = 100.0 * np.array([schulz_spheres(q, a, b) for a, b in zip(Rm, z)])
+    sigma = noise * np.sqrt(100.0 * I)  # counting-like noise, 1 % at I(0)
+    return q, I + rng.normal(size=I.shape) * sigma, sigma, rg_schulz(Rm, z)
+
+
+def test_automatic_range_on_noisy_schulz_spheres(rng):
+    q, I, s, rg_true = _noisy_schulz(rng)
+    r = guinier_fit(q, I, s)
+    assert (r["status"] == "ok").all()
+    err = np.abs(r["rg"] / rg_true - 1)
+    # apparent Rg of Schulz spheres (Kotlarchyk & Chen 1983); the issue asks < 1 %
+    assert np.median(err) < 0.01
+    assert (r["qrg_max"] <= 1.3 + 1e-12).all()
+
+
+def test_search_alone_and_fit_agree(rng):
+    q, I, s, _ = _noisy_schulz(rng, n=5)
+    found = guinier_search(q, I, s)
+    r = guinier_fit(q, I, s)
+    assert np.array_equal(found["start"], r["start"]) and np.array_equal(found["stop"], r["stop"])
+    # the same range given by hand gives the same numbers
+    ranges = np.stack([q[found["start"]], q[found["stop"] - 1]], axis=1)
+    fixed = guinier_fit(q, I, s, q_range=ranges)
+    np.testing.assert_allclose(fixed["rg"], r["rg"], rtol=1e-12)
+
+
+def test_batch_equals_loop(rng):
+    q, I, s, _ = _noisy_schulz(rng, n=12)
+    I[3, :40] = np.nan
+    I[5, 2] = -1.0
+    for kwargs in ({}, {"q_range": (0.02, 0.2)}, {"shape": "rod"}):
+        batch = guinier_fit(q, I, s, **kwargs)
+        for f in range(I.shape[0]):
+            one = guinier_fit(q, I[f], s[f], **kwargs)
+            for key, v in batch.items():
+                assert np.array_equal(v[f : f + 1], one[key], equal_nan=v.dtype.kind == "f"), (key, f)
+
+
+def test_long_cylinder_cross_section():
+    R = 1.0
+    q = np.linspace(0.3, 1.2, 40)  # q L >= 300, q Rc <= 0.85
+    I = cylinder(q, R, 1000.0)
+    r = guinier_fit(q, I, shape="rod", q_range=(0.3, 1.2))
+    # Rc^2 = R^2/2 (REFERENCES.md [mem], from memory: loose tolerance); the curvature of
+    # ln[2 J1(x)/x]^2 biases the fixed-range fit by about 1.4 %
+    assert r["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.02)
+    assert r["radius"][0] == pytest.approx(R, rel=0.02)
+    qa = np.linspace(0.05, 3.0, 300)
+    auto = guinier_fit(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
+    assert auto["status"][0] == "ok"
+    assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.01)
+
+
+def test_flat_disc_thickness():
+    T = 4.0
+    q = np.linspace(0.1, 0.45, 30)  # q R >= 50, q Rt <= 0.52
+    I = flat_disc(q, 500.0, T)
+    r = guinier_fit(q, I, shape="sheet", q_range=(0.1, 0.45))
+    # Rt^2 = T^2/12 (REFERENCES.md [mem], from memory: loose tolerance)
+    assert r["thickness"][0] == pytest.approx(T, rel=0.02)
+    assert r["rt"][0] == pytest.approx(T / np.sqrt(12), rel=0.02)
+
+
+def test_rod_length():
+    # cylinder R = 1, L = 30: Rg^2 = R^2/2 + L^2/12 (REFERENCES.md [mem], from memory)
+    L, Ls = rod_length(np.sqrt(0.5 + 900 / 12), np.sqrt(0.5), 0.1, 0.01)
+    assert L == pytest.approx(30.0, rel=1e-12)
+    assert Ls > 0
+    assert np.isnan(rod_length(1.0, 2.0)[0])
+    # end to end: whole-particle Rg at low q (elongated: q Rg <= 0.8), Rc from the rod fit
+    q_lo = np.linspace(0.002, 0.8 / 8.7, 60)
+    rg = guinier_fit(q_lo, cylinder(q_lo, 1.0, 30.0), q_range=(0, 1))["rg"]
+    q_hi = np.linspace(0.4, 1.2, 40)
+    r = guinier_fit(q_hi, cylinder(q_hi, 1.0, 30.0), shape="rod", q_range=(0.4, 1.2), rg=rg)
+    assert r["length"][0] == pytest.approx(30.0, rel=0.03)  # loose: [mem] relation
+
+
+def test_bad_input_statuses():
+    q = np.linspace(0.01, 1.0, 100)
+    I = np.tile(10.0 * np.exp(-((q * 2.0) ** 2) / 3), (5, 1))
+    s = 0.01 * I
+    I[0] = np.nan
+    I[1, :] = -1.0
+    s[2, :] = 0.0
+    I[3, 5:] = np.nan
+    auto = guinier_fit(q, I, s)
+    assert auto["status"].tolist() == ["all_nan", "negative_intensity", "zero_sigma", "too_few_points", "ok"]
+    assert np.isnan(auto["rg"][:4]).all() and np.isfinite(auto["rg"][4])
+    I2 = np.tile(10.0 * np.exp(-((q * 2.0) ** 2) / 3), (6, 1))
+    s2 = 0.01 * I2
+    I2[0] = np.nan
+    I2[1, 10] = -1.0
+    s2[2, 12] = 0.0
+    ranges = np.array([[0.05, 0.5], [0.05, 0.5], [0.05, 0.5], [2.0, 3.0], [0.05, 0.06], [0.05, 1.0]])
+    fixed = guinier_fit(q, I2, s2, q_range=ranges)
+    assert fixed["status"].tolist() == [
+        "all_nan", "negative_intensity", "zero_sigma", "range_outside_data", "too_few_points",
+        "qrg_limit_exceeded",
+    ]
+    assert np.isfinite(fixed["rg"][5])  # numbers kept, flagged
+    with pytest.raises(SaxsInputError, match="shape"):
+        guinier_fit(q, I, s, shape="blob")
+    with pytest.raises(SaxsInputError, match="q_range"):
+        guinier_fit(q, I, s, q_range=(0.5, 0.1))
+
+
+def test_aggregation_is_flagged():
+    q = np.linspace(0.02, 1.0, 200)
+    base = 10.0 * np.exp(-((q * 2.0) ** 2) / 3)
+    aggregate = 200.0 * np.exp(-((q * 25.0) ** 2) / 3) + 40.0 / (1 + (q * 30.0) ** 2)
+    I = np.stack([base, base + aggregate])
+    r = guinier_fit(q, I, 0.005 * I)
+    assert r["status"].tolist() == ["ok", "curvature_aggregation"]
+
+
+def test_input_not_modified(rng):
+    q, I, s, _ = _noisy_schulz(rng, n=3)
+    I0, s0 = I.copy(), s.copy()
+    guinier_fit(q, I, s)
+    guinier_fit(q, I, s, q_range=(0.02, 0.1))
+    assert np.array_equal(I, I0) and np.array_equal(s, s0)
+
+
+@settings(max_examples=25, deadline=None)
+@given(rg=st.floats(0.5, 20.0), i0=st.floats(1e-3, 1e6), n=st.integers(40, 400))
+def test_automatic_recovers_exact_guinier(rg, i0, n):
+    q = np.linspace(0.05 / rg, 3.0 / rg, n)
+    I = i0 * np.exp(-((q * rg) ** 2) / 3)
+    r = guinier_fit(q, I, 0.01 * I)
+    assert r["status"][0] == "ok"
+    assert r["rg"][0] == pytest.approx(rg, rel=1e-7)
+    assert r["i0"][0] == pytest.approx(i0, rel=1e-7)
+
+
+def test_demo_flow_growth_truth():
+    demo = pytest.importorskip("saxsnb.demo")
+    series, background = demo.make_series("flow-growth", seed=0)
+    truth = demo.truth(series)
+    I = series.intensity.values - background.intensity.values
+    s = np.hypot(series.sigma.values, background.sigma.values)
+    r = guinier_fit(series.q.values, I, s)
+    assert (r["status"] == "ok").all()
+    err = np.abs(r["rg"] / np.asarray(truth["rg_apparent_nm"]) - 1)
+    # Counting noise is low in this scenario (sigma(Rg)/Rg ~ 0.05 %); the remaining error is
+    # the curvature bias of the chosen windows on Schulz spheres (~0.2 % measured). 1 %
+    # leaves a margin of several times that bias.
+    assert err.max() < 0.01
