@@ -232,8 +232,8 @@ class SaxsAccessor:
         out["intensity"] = out_i.transpose("frame", "q").assign_attrs(ds["intensity"].attrs)
         out["sigma"] = out_s.transpose("frame", "q").assign_attrs(ds["sigma"].attrs)
         if bM is not None:
-            mask = bM if "mask" not in ds.data_vars else (ds["mask"] | bM)
-            out["mask"] = mask.transpose("frame", "q").assign_attrs(long_name="excluded points")
+            own = ds["mask"] if "mask" in ds.data_vars else xr.zeros_like(ds["intensity"], dtype=bool)
+            out["mask"] = (own | bM).transpose("frame", "q").assign_attrs(long_name="excluded points")
         if background.attrs.get("sigma_estimated", 0):
             out.attrs["sigma_estimated"] = 1
         return add_history(

@@ -127,3 +127,13 @@ def test_accessor_subtract_bad_background(rng):
         assert info.value.parameter == "background"
     with pytest.raises(SaxsInputError, match="expected 1 or 4"):
         ds.saxs.subtract(cases[0])
+
+
+def test_accessor_subtract_single_frame_background_mask(rng):
+    ds = _series(rng)  # no mask of its own
+    bmask = np.array([False, True, False, False, False])
+    bg = saxsnb.from_arrays(ds.q.values, np.ones(5), np.full(5, 0.1), mask=bmask)
+    out = ds.saxs.subtract(bg)
+    assert out["mask"].dims == ("frame", "q")
+    np.testing.assert_array_equal(out["mask"].values, np.broadcast_to(bmask, (4, 5)))
+    assert "mask" not in ds.data_vars
