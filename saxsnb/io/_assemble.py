@@ -47,6 +47,7 @@ class Curve:
     attrs: dict[str, Any] = field(default_factory=dict)
     lines: np.ndarray | None = None
     path: str | None = None
+    mask: np.ndarray | None = None
 
     def where(self, row: int | None = None) -> dict[str, Any]:
         line = None
@@ -108,6 +109,12 @@ def _resolve_q_unit(curves: Sequence[Curve], q_unit: str | None) -> str:
             parameter="q_unit",
         )
     return normalize_q_unit(q_unit)
+
+
+def _part(c: Curve) -> str:
+    """``"<entry name>: "`` when a curve is one part of a file, else ``""``."""
+    base = (c.path or c.name).replace("\\", "/").rsplit("/", 1)[-1]
+    return "" if c.name == base else f"{c.name}: "
 
 
 def _check_q(c: Curve) -> Curve:
@@ -317,7 +324,8 @@ def build_series(
     elif regrid is None:
         bad = curves[first_bad]
         raise SaxsFileError(
-            f"its q grid ({bad.q.size} points, {bad.q[0]:.6g}..{bad.q[-1]:.6g}) differs from that of "
+            f"{_part(bad)}its q grid ({bad.q.size} points, {bad.q[0]:.6g}..{bad.q[-1]:.6g}) "
+            "differs from that of "
             f"{curves[0].name} ({q0.size} points, {q0[0]:.6g}..{q0[-1]:.6g}); pass regrid='first' "
             "(interpolate onto the first file's grid) or regrid='log' (common log grid)",
             path=bad.path or bad.name,
@@ -328,17 +336,26 @@ def build_series(
             D = None
 
     no_sigma = np.array([c.sigma is None for c in curves])
+    # masks stored in the source (NXcanSAS Mask): applied without a warning
+    known = np.zeros(I.shape, dtype=bool)
+    for i, c in enumerate(curves):
+        if c.mask is not None:
+            if same:
+                known[i] = c.mask
+            else:
+                known[i] = np.interp(grid, c.q, c.mask.astype(float), left=0.0, right=0.0) > 0
     file_bad = ~np.isfinite(I)
     file_bad[~no_sigma] |= ~(S[~no_sigma] > 0)
+    file_bad &= ~known
     if regrid_desc is not None:
         # points outside a file's own q range are NaN by construction: masked, not warned
         outside = np.zeros_like(file_bad)
         for i, c in enumerate(curves):
             outside[i] = (grid < c.q[0] * (1 - 1e-12)) | (grid > c.q[-1] * (1 + 1e-12))
         file_bad &= ~outside
-        mask = file_bad | outside
+        mask = file_bad | outside | known
     else:
-        mask = file_bad.copy()
+        mask = file_bad | known
     if file_bad.any():
         i = int(np.argmax(file_bad.any(axis=1)))
         warnings.warn(

@@ -221,8 +221,6 @@ def _curves_from_sasdata(path: str, label: str, d, meta, units) -> list[Curve]:
     for i in range(n):
         qi = Q[i] if Q.ndim == 2 else Q
         Ii = np.array(I[i], dtype=float)
-        if M is not None:
-            Ii = np.where(M[i], np.nan, Ii)
         m = dict(meta)
         u = dict(units)
         if scan_name is not None and scan_vals is not None and scan_vals.shape[0] == n:
@@ -242,6 +240,7 @@ def _curves_from_sasdata(path: str, label: str, d, meta, units) -> list[Curve]:
                 meta=m,
                 units=u,
                 path=path,
+                mask=None if M is None else np.asarray(M[i], dtype=bool),
             )
         )
     return out
