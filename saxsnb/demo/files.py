@@ -76,7 +76,7 @@ def write_frames(ds, folder, *, prefix: str, scan: str, tag: str) -> list[Path]:
     units = ds[scan].attrs.get("units", "")
     sample = str(ds.attrs.get("sample", "")).replace("\n", " ")
     iunit = ds["intensity"].attrs.get("units", "arb")
-    q_text = np.char.mod("%.8e", q)
+    row_block = "%.8e %.8e %.8e\n" * q.size  # one format string for a whole curve
     paths = []
     for i in range(I.shape[0]):  # one file per frame: the loop is over files, not maths
         v = float(values[i])
@@ -85,10 +85,9 @@ def write_frames(ds, folder, *, prefix: str, scan: str, tag: str) -> list[Path]:
             f"# intensity_unit = {iunit}\n# {scan} = {v:.6g}\n# {scan}_units = {units}\n"
             "# q I sigma\n"
         )
-        rows = np.char.add(np.char.add(np.char.add(q_text, " "), np.char.mod("%.8e", I[i])),
-                           np.char.add(" ", np.char.mod("%.8e", S[i])))
+        body = row_block % tuple(np.column_stack([q, I[i], S[i]]).ravel().tolist())
         path = folder / f"{prefix}_{tag.format(v)}_{i:04d}.dat"
-        _atomic_write_text(path, head + "\n".join(rows.tolist()) + "\n")
+        _atomic_write_text(path, head + body)
         paths.append(path)
     return paths
 
