@@ -4,6 +4,9 @@ import json
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
 
 import saxsnb
 from saxsnb.corrections import scale_intensity, subtract_background
@@ -137,3 +140,24 @@ def test_accessor_subtract_single_frame_background_mask(rng):
     assert out["mask"].dims == ("frame", "q")
     np.testing.assert_array_equal(out["mask"].values, np.broadcast_to(bmask, (4, 5)))
     assert "mask" not in ds.data_vars
+
+
+_finite = st.floats(-1e6, 1e6, allow_nan=False)
+_positive = st.floats(1e-6, 1e3, allow_nan=False)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.integers(1, 4).flatmap(lambda n: st.tuples(
+        arrays(float, (n, 5), elements=_finite), arrays(float, (n, 5), elements=_positive),
+        arrays(float, 5, elements=_finite), arrays(float, 5, elements=_positive))),
+    st.floats(0.0, 10.0),
+)
+def test_subtract_properties(arrays_, scale):
+    I, S, B, BS = arrays_
+    out, sig = subtract_background(I, S, B, BS, scale=scale)
+    assert out.shape == sig.shape == I.shape
+    np.testing.assert_allclose(out + scale * B, I, rtol=1e-9, atol=1e-6)  # adding back undoes it
+    # quadrature: never below either part, never above their sum (common practice)
+    assert np.all(sig >= np.maximum(S, scale * BS) * (1 - 1e-12))
+    assert np.all(sig <= (S + scale * BS) * (1 + 1e-12))
