@@ -214,7 +214,17 @@ class SaxsAccessor:
         A new Dataset: intensity ``I - scale I_bg``, sigma
         ``sqrt(sigma^2 + (scale sigma_bg)^2)``, mask the union of both masks, the
         operation recorded in ``attrs["history"]``. See
-        :func:`saxsnb.corrections.subtract_background`.
+        :func:`saxsnb.corrections.subtract_background`. Frames are matched by
+        position, not by scan value: sort both series the same way.
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> ds = saxsnb.from_arrays([0.1, 0.2], [[5.0, 3.0], [6.0, 4.0]], [[0.3, 0.3], [0.3, 0.3]])
+        >>> bg = saxsnb.from_arrays([0.1, 0.2], [1.0, 1.0], [0.4, 0.4])
+        >>> out = ds.saxs.subtract(bg)
+        >>> out.intensity.values.tolist(), out.sigma.values.round(6).tolist()
+        ([[4.0, 2.0], [5.0, 3.0]], [[0.5, 0.5], [0.5, 0.5]])
         """
         from .corrections import subtract_background
 
