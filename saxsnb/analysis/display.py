@@ -1,0 +1,172 @@
+"""Display transforms for the interactive panels: pure numpy, no fitting.
+
+The widgets in :mod:`saxsnb.widgets` only show numbers; the few array reshapes a
+plot needs (a downsampled overview map, error-bar segments, conversions between q and
+the abscissa of a linearised plot) live here so they are tested like any analysis
+function and the widgets stay free of maths.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import SaxsInputError
+
+__all__ = ["overview_map", "errorbar_segments", "positive_range", "linear_x", "q_from_linear_x", "LINEAR_X"]
+
+#: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
+#: the Porod plot q^4 I against q^4 uses q^4).
+LINEAR_X = {"guinier": 2, "rod": 2, "sheet": 2, "porod": 4}
+
+
+def _block_edges(n: int, max_blocks: int) -> np.ndarray:
+    """Start indices of at most ``max_blocks`` contiguous blocks covering ``range(n)``."""
+    k = max(1, int(np.ceil(n / max(1, int(max_blocks)))))
+    return np.arange(0, n, k)
+
+
+def overview_map(q, intensity, *, max_rows: int = 400, max_cols: int = 400) -> dict:
+    """Downsample a series to a small map of log10 intensity over (frame, q).
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    intensity : array (n_frames, n_q)
+        Non-positive and non-finite points are left out of the block means.
+    max_rows, max_cols : int
+        Largest number of rows (frame blocks) and columns (q blocks) of the map.
+
+    Returns
+    -------
+    dict with ``log10_intensity`` (n_rows, n_cols), the mean of log10 I over each
+    block (NaN where a block holds no positive point); ``q`` (n_cols,), the
+    geometric mean q of each column block (1/nm); ``frame_start``, ``frame_stop``
+    (n_rows,), the frames ``[start, stop)`` that each row averages; ``row_step``
+    and ``col_step``, the block sizes (1 when nothing was merged).
+
+    Examples
+    --------
+    >>> m = overview_map(np.array([1.0, 2.0, 4.0, 8.0]), np.full((6, 4), 10.0), max_rows=3, max_cols=2)
+    >>> m["log10_intensity"].tolist(), m["frame_start"].tolist(), m["row_step"], m["col_step"]
+    ([[1.0, 1.0], [1.0, 1.0], [1.0, 1.0]], [0, 2, 4], 2, 2)
+    >>> np.round(m["q"], 3).tolist()
+    [1.414, 5.657]
+    """
+    q = np.asarray(q, dtype=float)
+    I = np.asarray(intensity, dtype=float)
+    if I.ndim != 2 or I.shape[1] != q.size:
+        raise SaxsInputError(f"intensity has shape {I.shape}; expected (n_frames, {q.size})",
+                             parameter="intensity")
+    n_f, n_q = I.shape
+    rows = _block_edges(n_f, max_rows)
+    cols = _block_edges(n_q, max_cols)
+    ok = np.isfinite(I) & (I > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logI = np.where(ok, np.log10(np.where(ok, I, 1.0)), 0.0)
+    total = np.add.reduceat(np.add.reduceat(logI, rows, axis=0), cols, axis=1)
+    count = np.add.reduceat(np.add.reduceat(ok.astype(float), rows, axis=0), cols, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(count > 0, total / np.where(count > 0, count, 1.0), np.nan)
+        qpos = q > 0
+        lq = np.where(qpos, np.log(np.where(qpos, q, 1.0)), 0.0)
+        qsum = np.add.reduceat(lq, cols)
+        qcount = np.add.reduceat(qpos.astype(float), cols)
+        qmean = np.where(qcount > 0, np.exp(qsum / np.where(qcount > 0, qcount, 1.0)),
+                         np.add.reduceat(q, cols) / np.diff(np.append(cols, n_q)))
+    return {
+        "log10_intensity": mean,
+        "q": qmean,
+        "frame_start": rows,
+        "frame_stop": np.append(rows[1:], n_f),
+        "row_step": int(rows[1] - rows[0]) if rows.size > 1 else 1,
+        "col_step": int(cols[1] - cols[0]) if cols.size > 1 else 1,
+    }
+
+
+def errorbar_segments(q, intensity, sigma, *, floor: float | None = None):
+    """Vertical +-sigma bars of one curve as a single polyline with gaps.
+
+    Parameters
+    ----------
+    q, intensity, sigma : arrays (n_q,)
+    floor : float, optional
+        Lower ends below ``floor`` are drawn from ``floor`` (for a log axis that
+        starts there; a bar reaching zero or below cannot be drawn on a log axis).
+
+    Returns
+    -------
+    x, y : arrays (3 n_q,): for each point ``(q, I - sigma), (q, I + sigma), gap``;
+    the gap has ``y = NaN`` (a plotting library leaves the line undefined there).
+
+    Examples
+    --------
+    >>> x, y = errorbar_segments([1.0, 2.0], [10.0, 5.0], [1.0, 6.0], floor=0.5)
+    >>> x.tolist()[:2], y.tolist()[:2], y.tolist()[3:5]
+    ([1.0, 1.0], [9.0, 11.0], [0.5, 11.0])
+    """
+    q = np.asarray(q, dtype=float)
+    I = np.asarray(intensity, dtype=float)
+    S = np.asarray(sigma, dtype=float)
+    lo = I - S
+    if floor is not None:
+        lo = np.where(lo < floor, floor, lo)
+    x = np.repeat(q, 3)
+    y = np.empty(3 * q.size)
+    y[0::3] = lo
+    y[1::3] = I + S
+    y[2::3] = np.nan
+    return x, y
+
+
+def linear_x(q, kind: str):
+    """Abscissa of the linearised plot ``kind`` for q (q^2, or q^4 for Porod).
+
+    >>> linear_x(np.array([2.0]), "guinier").tolist(), linear_x(2.0, "porod")
+    ([4.0], 16.0)
+    """
+    return np.asarray(q, dtype=float) ** _power(kind) if np.ndim(q) else float(q) ** _power(kind)
+
+
+def q_from_linear_x(x, kind: str):
+    """Inverse of :func:`linear_x`: q in 1/nm from the plot abscissa (NaN below 0).
+
+    >>> q_from_linear_x(np.array([4.0, 16.0]), "guinier").tolist()
+    [2.0, 4.0]
+    """
+    x = np.asarray(x, dtype=float)
+    with np.errstate(invalid="ignore"):
+        out = np.where(x >= 0, np.abs(x) ** (1.0 / _power(kind)), np.nan)
+    return out if out.ndim else float(out)
+
+
+def _power(kind: str) -> int:
+    if kind not in LINEAR_X:
+        raise SaxsInputError(f"unknown linear plot {kind!r}; use one of {sorted(LINEAR_X)}",
+                             parameter="kind")
+    return LINEAR_X[kind]
+
+
+def positive_range(values, *, lower: float = 0.05, upper: float = 99.95, pad: float = 1.5):
+    """A fixed log-axis range that holds almost every positive finite value.
+
+    Parameters
+    ----------
+    values : array
+    lower, upper : float
+        Percentiles (0-100) of the positive finite values used as the range ends.
+    pad : float
+        Factor applied outwards to each end (the range is ``lo / pad, hi * pad``).
+
+    Returns
+    -------
+    (lo, hi) floats, or (1e-3, 1.0) when there is no positive finite value.
+
+    >>> positive_range(np.array([1.0, 10.0, -1.0, np.nan]), lower=0, upper=100, pad=1.0)
+    (1.0, 10.0)
+    """
+    a = np.asarray(values, dtype=float).ravel()
+    a = a[np.isfinite(a) & (a > 0)]
+    if a.size == 0:
+        return (1e-3, 1.0)
+    lo, hi = np.percentile(a, [lower, upper])
+    return (float(lo / pad), float(hi * pad))

@@ -1,0 +1,163 @@
+"""Series browser: a slider and play button over the frames, and an overview map."""
+
+from __future__ import annotations
+
+import html
+
+import ipywidgets as widgets
+import numpy as np
+
+from ..analysis.display import overview_map
+from . import _bq as bq
+from .base import PanelBase, make_figure
+from .palette import MAP_SCHEME, ROLE
+
+__all__ = ["SeriesBrowser"]
+
+
+class SeriesBrowser(PanelBase):
+    """Step through a series: slider, play button and a clickable overview map.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series.
+    frame : int
+        Initial frame.
+    max_rows, max_cols : int
+        Size limits of the overview map; a larger series is averaged in blocks of
+        frames and q points (``analysis.display.overview_map``), and the panel says so.
+
+    Attributes
+    ----------
+    slider : ipywidgets.IntSlider
+        Frame slider (keyboard: focus its handle and use the arrow keys).
+    play : ipywidgets.Play
+        Play button, linked to the slider in the browser (``jslink``).
+    label : ipywidgets.HTML
+        The current frame's scan value and units, e.g. "temperature 45.5 degC".
+    heatmap : bqplot.HeatMap
+        log10 I over (q, scan).
+    rows : bqplot.GridHeatMap
+        Transparent row targets over the map: clicking a row selects its frame
+        (``rows.on_element_click``, and ``rows.selected`` with the click-select
+        interaction). From Python: :meth:`select_row` or the handler ``_on_row_click``.
+    marker : bqplot.Lines
+        Horizontal line at the current frame.
+
+    ``result`` is the current frame, ``ds.isel(frame=[i])``.
+    """
+
+    name = "browser"
+    title = "Series browser"
+
+    def __init__(self, ds, *, frame: int = 0, max_rows: int = 400, max_cols: int = 400, **kwargs):
+        self._max_rows = int(max_rows)
+        self._max_cols = int(max_cols)
+        super().__init__(ds, frame=frame, **kwargs)
+
+    # ---------------------------------------------------------------- build
+    def _build(self):
+        n = self.n_frames
+        self.slider = widgets.IntSlider(value=0, min=0, max=max(n - 1, 0), step=1, description="frame",
+                                        continuous_update=True, readout=True,
+                                        layout=widgets.Layout(width="60%"))
+        self.play = widgets.Play(value=0, min=0, max=max(n - 1, 0), step=1, interval=250,
+                                 description="Play through the frames")
+        widgets.jslink((self.play, "value"), (self.slider, "value"))
+        widgets.link((self.slider, "value"), (self, "frame"))
+        self.label = widgets.HTML("")
+
+        omap = overview_map(self.q, self.ds["intensity"].values, max_rows=self._max_rows,
+                            max_cols=self._max_cols)
+        self.overview = omap
+        centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
+        y = self.scan_values[centre] if self._monotonic() else centre.astype(float)
+        self._row_axis_is_scan = self._monotonic()
+        order = np.argsort(y, kind="stable")
+        self._row_frames = centre[order]
+        self._row_y = np.asarray(y, dtype=float)[order]
+        logmap = omap["log10_intensity"][order]
+
+        xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
+        ys = bq.LinearScale()
+        cs = bq.ColorScale(scheme=MAP_SCHEME)
+        self.heatmap = bq.HeatMap(x=omap["q"], y=self._row_y, color=logmap,
+                                  scales={"x": xs, "y": ys, "color": cs}, null_color="white")
+        qx = omap["q"]
+        q_edges = np.array([qx[0], np.sqrt(qx[0] * qx[-1]) if qx[0] > 0 else 0.5 * (qx[0] + qx[-1]), qx[-1]])
+        y_edges = self._edges(self._row_y)
+        self.rows = bq.GridHeatMap(
+            color=np.full((self._row_y.size, 2), np.nan), row=y_edges, column=q_edges,
+            scales={"row": ys, "column": xs, "color": bq.ColorScale(min=0.0, max=1.0)},
+            null_color="transparent", stroke="transparent", opacity=1.0,
+            interactions={"click": "select"},
+            selected_style={"stroke": ROLE["current"], "stroke-width": "2"},
+        )
+        self.rows.on_element_click(self._on_row_click)
+        self.rows.observe(self._on_row_selected, "selected")
+        self.marker = bq.Lines(x=np.array([qx[0], qx[-1]]), y=np.zeros(2), scales={"x": xs, "y": ys},
+                               colors=[ROLE["current"]], stroke_width=2.0)
+        caxis = bq.ColorAxis(scale=cs, label="log10 I", side="right")
+        ylab = self.scan_label if self._row_axis_is_scan else "frame"
+        marks = [self.heatmap] + ([self.rows] if self._row_y.size >= 2 else []) + [self.marker]
+        fig = make_figure(marks, xs, ys, x_label=f"q ({self.q_units})", y_label=ylab,
+                          title="log10 intensity over the series (click a row)", height="320px")
+        fig.axes = [*fig.axes, caxis]
+        fig.fig_margin = {**fig.fig_margin, "right": 70}
+        self.figures = [fig]
+        note = ""
+        if omap["row_step"] > 1 or omap["col_step"] > 1:
+            note = (f"Map downsampled for the browser: blocks of {omap['row_step']} frame(s) x "
+                    f"{omap['col_step']} q point(s) averaged (log10 I); the curves are not.")
+        self.map_note = widgets.HTML(f"<small>{html.escape(note)}</small>")
+        return [widgets.HBox([self.play, self.slider]), self.label, fig, self.map_note]
+
+    def _monotonic(self) -> bool:
+        v = self.scan_values
+        if self.scan == "frame" or v.size < 2 or not np.issubdtype(v.dtype, np.number):
+            return self.scan != "frame" and v.size == 1 and np.issubdtype(v.dtype, np.number)
+        d = np.diff(v.astype(float))
+        return bool(np.all(np.isfinite(d)) and (np.all(d > 0) or np.all(d < 0)))
+
+    @staticmethod
+    def _edges(centres: np.ndarray) -> np.ndarray:
+        c = np.asarray(centres, dtype=float)
+        if c.size == 1:
+            return np.array([c[0] - 0.5, c[0] + 0.5])
+        mid = 0.5 * (c[1:] + c[:-1])
+        return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+
+    # -------------------------------------------------------------- clicking
+    def select_row(self, row: int) -> None:
+        """Make the frame of overview row ``row`` (0 = lowest scan value) current."""
+        row = int(row)
+        if not 0 <= row < self._row_frames.size:
+            self.status = f"map row {row} outside 0..{self._row_frames.size - 1}"
+            return
+        self.frame = int(self._row_frames[row])
+
+    def _on_row_click(self, _mark, content) -> None:
+        data = content.get("data") or {}
+        row = data.get("rowNum", data.get("row")) if isinstance(data, dict) else None
+        if row is not None:
+            self.select_row(row)
+
+    def _on_row_selected(self, change) -> None:
+        sel = change["new"]
+        if sel is None or np.size(sel) == 0:
+            return
+        self.select_row(int(np.asarray(sel).reshape(-1, 2)[-1, 0]))
+
+    # ---------------------------------------------------------------- update
+    def _update(self) -> None:
+        i = self.frame
+        y = self.scan_values[i] if self._row_axis_is_scan else float(i)
+        with self.marker.hold_sync():
+            self.marker.y = np.array([float(y), float(y)])
+        self.label.value = f"<b>{html.escape(self.frame_label(i))}</b> of {self.n_frames} frames"
+        self._set_result(self.ds.isel(frame=[i]))
+        self.status = ""
+
+    def _code_lines(self, target: str) -> list[str]:
+        return [f"{target} = ds.isel(frame=[{self.frame}])  # {self.frame_label()}"]

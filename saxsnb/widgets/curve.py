@@ -1,0 +1,199 @@
+"""Curve panel: the current frame on log-log axes with error bars and overlays."""
+
+from __future__ import annotations
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+
+from ..analysis.display import errorbar_segments, positive_range
+from ..series import validate
+from . import _bq as bq
+from .base import PanelBase, make_figure
+from .palette import ROLE, SEQUENCE
+
+__all__ = ["CurvePanel"]
+
+#: Most overlay curves drawn at once (every n-th frame of a long series is thinned).
+MAX_OVERLAYS = 40
+
+
+class CurvePanel(PanelBase):
+    """The current frame, I(q) +- sigma on log-log axes.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series.
+    background : xarray.Dataset, optional
+        A background series on the same q grid (one frame, or one per frame); the
+        matching frame is drawn dashed in grey when ``show_background`` is on.
+    frame : int
+        Initial frame.
+    overlay : list of int
+        Frames drawn in addition to the current one (``overlay`` trait).
+    every : int
+        Also draw every n-th frame (0 = off; ``every`` trait). At most
+        ``MAX_OVERLAYS`` overlays are drawn; more are thinned evenly and the panel says so.
+
+    Attributes
+    ----------
+    curve : bqplot.Lines
+        The current frame (x = q, y = I).
+    errorbars : bqplot.Lines
+        +-sigma bars as one line with gaps (``analysis.display.errorbar_segments``).
+    overlays, background_line : bqplot.Lines
+
+    ``result`` is ``ds.isel(frame=[current, *overlay frames])``. The y range is fixed
+    for the whole series so curves can be compared while stepping.
+    """
+
+    name = "curve"
+    title = "Curve"
+
+    overlay = traitlets.List(traitlets.Int())
+    every = traitlets.Int(0)
+    show_background = traitlets.Bool(True)
+
+    def __init__(self, ds, background=None, *, frame: int = 0, overlay=(), every: int = 0, **kwargs):
+        self.background = None if background is None else validate(background)
+        self._init_overlay = [int(v) for v in overlay]
+        self._init_every = int(every)
+        super().__init__(ds, frame=frame, **kwargs)
+        self.observe(self._on_overlay, ["overlay", "every", "show_background"])
+        if self._init_overlay or self._init_every:
+            with self.hold_trait_notifications():
+                self.overlay = self._init_overlay
+                self.every = self._init_every
+
+    def _build(self):
+        ds = self.ds
+        I, S = ds.saxs.masked()
+        self._I = I.values
+        self._S = S.values
+        lo, hi = positive_range(self._I)
+        self._floor = lo
+        xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
+        ys = bq.LogScale(min=lo, max=hi)
+        self._xs, self._ys = xs, ys
+        self.errorbars = bq.Lines(x=np.repeat(self.q, 3), y=np.full(3 * self.q.size, np.nan),
+                                  scales={"x": xs, "y": ys}, colors=[ROLE["error"]], stroke_width=1.0,
+                                  labels=["+-sigma"])
+        self.curve = bq.Lines(x=self.q, y=np.full(self.q.size, np.nan), scales={"x": xs, "y": ys},
+                              colors=[ROLE["data"]], stroke_width=1.5, labels=["current frame"])
+        self.overlays = bq.Lines(x=self.q, y=np.full((1, self.q.size), np.nan), scales={"x": xs, "y": ys},
+                                 colors=SEQUENCE[1:], stroke_width=1.0, opacities=[0.7], visible=False)
+        self.background_line = bq.Lines(x=self.q, y=np.full(self.q.size, np.nan), scales={"x": xs, "y": ys},
+                                        colors=[ROLE["background"]], line_style="dashed", stroke_width=1.0,
+                                        labels=["background"], visible=False)
+        fig = make_figure([self.overlays, self.background_line, self.errorbars, self.curve], xs, ys,
+                          x_label=f"q ({self.q_units})", y_label=f"I ({self.intensity_units})",
+                          title="current frame", height="320px")
+        self.figures = [fig]
+        self.overlay_text = widgets.Text(value="", placeholder="e.g. 0, 10, 20",
+                                         description="overlay frames", continuous_update=False,
+                                         style={"description_width": "initial"})
+        self.every_box = widgets.BoundedIntText(value=0, min=0, max=max(self.n_frames, 1),
+                                                description="every n-th (0 off)",
+                                                style={"description_width": "initial"},
+                                                layout=widgets.Layout(width="11em"))
+        self.background_box = widgets.Checkbox(value=True, description="background",
+                                               disabled=self.background is None, indent=False)
+        self.overlay_text.observe(self._parse_overlay, "value")
+        widgets.link((self.every_box, "value"), (self, "every"))
+        widgets.link((self.background_box, "value"), (self, "show_background"))
+        self.overlay_note = widgets.HTML("")
+        controls = widgets.HBox([self.overlay_text, self.every_box, self.background_box])
+        self._draw_background()
+        return [fig, controls, self.overlay_note]
+
+    # ------------------------------------------------------------- overlays
+    def _parse_overlay(self, change) -> None:
+        text = change["new"].replace(";", ",").replace(" ", ",")
+        try:
+            frames = [int(t) for t in text.split(",") if t.strip()]
+        except ValueError as exc:
+            self.report(exc, "overlay frames must be integers separated by commas")
+            return
+        self.overlay = frames
+
+    @traitlets.validate("overlay")
+    def _check_overlay(self, proposal):
+        bad = [v for v in proposal["value"] if not 0 <= int(v) < self.n_frames]
+        if bad:
+            raise traitlets.TraitError(f"overlay frames {bad} outside 0..{self.n_frames - 1}")
+        return [int(v) for v in proposal["value"]]
+
+    @traitlets.validate("every")
+    def _check_every(self, proposal):
+        if int(proposal["value"]) < 0:
+            raise traitlets.TraitError("every must be 0 (off) or positive")
+        return int(proposal["value"])
+
+    def overlay_frames(self) -> list[int]:
+        """Overlay frames in drawing order (no duplicates; independent of ``frame``)."""
+        frames = list(self.overlay)
+        if self.every:
+            frames += list(range(0, self.n_frames, self.every))
+        seen: set[int] = set()
+        out = []
+        for f in frames:
+            if f not in seen:
+                seen.add(f)
+                out.append(f)
+        if len(out) > MAX_OVERLAYS:
+            pick = np.linspace(0, len(out) - 1, MAX_OVERLAYS).round().astype(int)
+            out = [out[k] for k in pick]
+        return out
+
+    def shown_frames(self) -> list[int]:
+        """The current frame followed by the overlay frames (without repeating it)."""
+        return [self.frame, *(f for f in self.overlay_frames() if f != self.frame)]
+
+    def _on_overlay(self, change=None) -> None:
+        self._draw_overlays()
+        self._set_result(self.ds.isel(frame=self.shown_frames()))
+
+    def _draw_overlays(self) -> None:
+        frames = self.overlay_frames()
+        with self.overlays.hold_sync():
+            if frames:
+                self.overlays.y = self._I[frames]
+                self.overlays.labels = [self.frame_label(f) for f in frames]
+                self.overlays.visible = True
+            else:
+                self.overlays.visible = False
+        asked = len(self.overlay) + (len(range(0, self.n_frames, self.every)) if self.every else 0)
+        self.overlay_note.value = (
+            f"<small>{len(frames)} overlay curve(s) shown of {asked} asked (at most {MAX_OVERLAYS})</small>"
+            if asked > MAX_OVERLAYS else ""
+        )
+        self._draw_background()
+
+    def _draw_background(self) -> None:
+        bg = self.background
+        with self.background_line.hold_sync():
+            if bg is None or not self.show_background:
+                self.background_line.visible = False
+                return
+            k = self.frame if bg.sizes["frame"] == self.n_frames else 0
+            self.background_line.y = bg["intensity"].values[k]
+            self.background_line.visible = True
+
+    # ----------------------------------------------------------------- frame
+    def _update(self) -> None:
+        i = self.frame
+        _x, ey = errorbar_segments(self.q, self._I[i], self._S[i], floor=self._floor)
+        with self.curve.hold_sync():
+            self.curve.y = self._I[i]
+        with self.errorbars.hold_sync():
+            self.errorbars.y = ey
+        self.figure.title = self.frame_label(i)
+        if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:
+            self._draw_background()
+        self._set_result(self.ds.isel(frame=self.shown_frames()))
+        self.status = ""
+
+    def _code_lines(self, target: str) -> list[str]:
+        frames = self.shown_frames()
+        return [f"{target} = ds.isel(frame={frames})  # current frame first, then the overlays"]

@@ -1,0 +1,174 @@
+"""``explore(ds)``: all panels of a series, linked on one current frame."""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Sequence
+
+import ipywidgets as widgets
+import traitlets
+import xarray as xr
+
+from ..series import validate
+from .base import PanelBase
+
+__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
+
+#: Panels of :func:`explore`, in display order.
+PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks")
+
+
+class PanelSet(dict):
+    """The panels of a dashboard: a dict ``name -> panel`` in display order.
+
+    Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"`` (those
+    asked for). Iterating gives the names, as for any dict; use ``.values()`` for the
+    panels, ``.items()`` for pairs, or an integer position: ``panels[0]`` is the first
+    panel (the browser).
+    """
+
+    def __getitem__(self, key):
+        if isinstance(key, int):
+            return list(self.values())[key]
+        return super().__getitem__(key)
+
+
+class Dashboard(widgets.VBox):
+    """The linked panels of one series (made by :func:`explore`).
+
+    Attributes
+    ----------
+    panels : PanelSet
+        ``name -> panel``.
+    frame : int trait
+        The shared current frame; every panel's ``frame`` is linked to it.
+    """
+
+    frame = traitlets.Int(0)
+
+    def __init__(self, panels: dict[str, PanelBase], **kwargs):
+        super().__init__(**kwargs)
+        self.panels = PanelSet(panels)
+        self._links = [traitlets.link((self, "frame"), (p, "frame")) for p in self.panels.values()]
+        self.status_line = widgets.HTML("")
+        for p in self.panels.values():
+            p.observe(self._collect_status, "status")
+        self.export_button = widgets.Button(description="Export all code", icon="code",
+                                            layout=widgets.Layout(width="auto"))
+        self.code_area = widgets.Textarea("", layout=widgets.Layout(width="100%", height="12em",
+                                                                    display="none"))
+        self.export_button.on_click(lambda _b: self.show_code())
+        self.children = [*self._arrange(), widgets.HBox([self.export_button]), self.code_area,
+                         self.status_line]
+
+    def _arrange(self) -> list[widgets.Widget]:
+        ps = list(self.panels.values())
+        rows = []
+        half = widgets.Layout(width="50%")
+        for k in range(0, len(ps), 2):
+            pair = ps[k : k + 2]
+            if len(pair) == 2:
+                for p in pair:
+                    p.layout.width = half.width
+                rows.append(widgets.HBox(pair, layout=widgets.Layout(width="100%")))
+            else:
+                rows.append(pair[0])
+        return rows
+
+    def _collect_status(self, change=None) -> None:
+        parts = [f"{name}: {p.status}" for name, p in self.panels.items() if p.status]
+        self.status_line.value = "<br>".join(html.escape(t) for t in parts)
+
+    def to_code(self) -> str:
+        """Code reproducing every panel's result, one variable per panel (its name).
+
+        The code expects the series in ``ds`` (and ``background`` where used).
+        """
+        out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
+        for name, p in self.panels.items():
+            out.append(f"# {p.title}")
+            out.extend(p._code_lines(name))
+        return "\n".join(out) + "\n"
+
+    @property
+    def code(self) -> str:
+        """The same as :meth:`to_code`."""
+        return self.to_code()
+
+    def show_code(self) -> str:
+        """Show the exported code in the text area (what "Export all code" does)."""
+        self.code_area.value = self.to_code()
+        self.code_area.layout.display = None
+        return self.code_area.value
+
+
+def _factories():
+    from .browser import SeriesBrowser
+    from .curve import CurvePanel
+
+    out = {
+        "browser": lambda ds, bg: SeriesBrowser(ds),
+        "curve": lambda ds, bg: CurvePanel(ds, bg),
+    }
+    try:
+        from .linear import LinearFitPanel
+
+        out["guinier"] = lambda ds, bg: LinearFitPanel(ds, kind="guinier")
+    except ImportError:  # pragma: no cover - panel module not present yet
+        pass
+    try:
+        from .kratky import KratkyPanel
+
+        out["kratky"] = lambda ds, bg: KratkyPanel(ds)
+    except ImportError:  # pragma: no cover
+        pass
+    try:
+        from .peaks import PeaksPanel
+
+        out["peaks"] = lambda ds, bg: PeaksPanel(ds)
+    except ImportError:  # pragma: no cover
+        pass
+    return out
+
+
+def explore(
+    ds: xr.Dataset,
+    background: xr.Dataset | None = None,
+    *,
+    panels: Sequence[str] = PANEL_NAMES,
+    frame: int = 0,
+) -> Dashboard:
+    """Open the linked panels of a series in a notebook.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A series in the saxsnb layout (never modified).
+    background : xarray.Dataset, optional
+        A background series, drawn in the curve panel.
+    panels : sequence of str
+        Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``,
+        ``"peaks"`` (default: all).
+    frame : int
+        Initial current frame.
+
+    Returns
+    -------
+    Dashboard
+        An ``ipywidgets.VBox``; ``dashboard.panels`` is a dict ``name -> panel`` (a
+        :class:`PanelSet`), ``dashboard.frame`` the shared current frame and
+        ``dashboard.to_code()`` the code that reproduces every panel's result.
+    """
+    validate(ds)
+    make = _factories()
+    unknown = [p for p in panels if p not in PANEL_NAMES]
+    if unknown:
+        from ..errors import SaxsInputError
+
+        raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}",
+                             parameter="panels")
+    built = {name: make[name](ds, background) for name in panels if name in make}
+    dash = Dashboard(built)
+    if frame:
+        dash.frame = int(frame)
+    return dash
