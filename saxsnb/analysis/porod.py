@@ -1,0 +1,465 @@
+"""Porod analysis of a whole series: power-law exponent, Porod constant, invariant,
+Porod volume and specific surface.
+
+Conventions (Porod 1951, Kolloid-Z. 124, 83; Glatter & Kratky 1982, Small Angle X-ray
+Scattering):
+
+- power law I(q) - B ~ A q^-p on a q range; ``exponent`` is p (4 for a smooth sharp
+  surface, 6 - Ds for a surface fractal, Dm for a mass fractal, 2 for sheets and
+  Gaussian coils, 1 for thin rods; Bale & Schmidt 1984, PRL 53, 596);
+- Porod constant Kp = lim q^4 (I - B), with a flat background B either given or
+  fitted: q^4 I = Kp + B q^4 is a straight line in q^4 (common practice);
+- invariant **Q = int_0^inf q^2 I(q) dq** (no 4 pi or 1/(2 pi^2) factor), so that
+  Q = 2 pi^2 drho^2 phi (1 - phi) for a two-phase sample, the Porod volume is
+  V = 2 pi^2 I(0) / Q and the specific surface (surface per sample volume) is
+  S/V = pi phi (1 - phi) Kp / Q; the surface per particle volume is
+  pi (1 - phi) Kp / Q (dilute limit pi Kp / Q, 3/R for spheres).
+
+All functions take ``q`` (n_q,) in 1/nm and ``intensity`` (n_frames, n_q) (or one
+curve (n_q,)); non-finite points (masked points arrive as NaN) are excluded. Units
+follow the intensity: Kp in [I] nm^-4, Q in [I] nm^-3, V in nm^3 when [I] is the
+same for I(0) and Q, S/V in 1/nm.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import special
+
+from ..errors import SaxsInputError
+from .linear import index_range, weighted_linear_fit
+
+__all__ = ["default_porod_range", "power_law_fit", "porod_fit", "invariant", "guinier_integrals"]
+
+_STATUS_DTYPE = "<U24"
+
+
+def _as_2d(q, intensity, sigma):
+    q = np.asarray(q, dtype=float)
+    I = np.asarray(intensity, dtype=float)
+    if I.ndim == 1:
+        I = I[None, :]
+    if q.ndim != 1 or I.ndim != 2 or I.shape[1] != q.size:
+        raise SaxsInputError(
+            f"intensity has shape {np.shape(intensity)}; expected (n_frames, {q.size}) to match q",
+            parameter="intensity",
+        )
+    S = None
+    if sigma is not None:
+        S = np.asarray(sigma, dtype=float)
+        if S.ndim == 1:
+            S = S[None, :]
+        if S.shape != I.shape:
+            raise SaxsInputError(f"sigma has shape {S.shape}; expected {I.shape}", parameter="sigma")
+    return q, I, S
+
+
+def default_porod_range(q) -> tuple[float, float]:
+    """The range used when none is given: the upper quarter of the q grid.
+
+    A starting point only: no published criterion picks the Porod region for every
+    sample; look at the q^4 I plot and choose.
+
+    >>> default_porod_range(np.linspace(1.0, 5.0, 5))
+    (4.0, 5.0)
+    """
+    q = np.asarray(q, dtype=float)
+    return float(q[int(0.75 * (q.size - 1))]), float(q[-1])
+
+
+def _window(q, I, S, q_range):
+    """Columns of the range (common slice) and the per-frame in-range mask."""
+    F = I.shape[0]
+    if q_range is None:
+        q_range = default_porod_range(q)
+    start, stop = index_range(q, q_range, F)
+    lo, hi = int(start.min()), int(max(stop.max(), start.min()))
+    cols = np.arange(lo, hi)
+    inside = (cols[None, :] >= start[:, None]) & (cols[None, :] < stop[:, None])
+    Iw = I[:, lo:hi]
+    Sw = None if S is None else S[:, lo:hi]
+    return q[lo:hi], Iw, Sw, inside, start, stop, q_range
+
+
+def _common_status(q, I, S, Iw, Sw, inside, q_range, *, need_positive):
+    """Status per frame for a fixed-range fit, and the mask of usable points."""
+    F = I.shape[0]
+    finite = np.isfinite(Iw) & inside
+    if Sw is not None:
+        finite &= np.isfinite(Sw)
+    zero = finite & (Sw <= 0) if Sw is not None else np.zeros_like(finite)
+    neg = finite & (Iw <= 0) if need_positive else np.zeros_like(finite)
+    usable = finite & ~zero & ~neg
+    status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+    status[usable.sum(-1) < 3] = "too_few_points"
+    status[zero.any(-1)] = "zero_sigma"
+    status[neg.any(-1)] = "negative_intensity"
+    empty = ~finite.any(-1)
+    if empty.any():
+        fin = np.isfinite(I[empty]) if S is None else np.isfinite(I[empty]) & np.isfinite(S[empty])
+        has = fin.any(-1)
+        first = q[np.where(has, np.argmax(fin, -1), 0)]
+        last = q[np.where(has, q.size - 1 - np.argmax(fin[:, ::-1], -1), 0)]
+        rng = np.broadcast_to(np.asarray(q_range, dtype=float), (F, 2))[empty]
+        st = status[empty]
+        st[(rng[:, 1] < first) | (rng[:, 0] > last)] = "range_outside_data"
+        st[~has] = "all_nan"
+        status[empty] = st
+    return status, usable
+
+
+def _span(qw, usable):
+    n = usable.shape[1]
+    if n == 0:
+        return np.full(usable.shape[0], np.nan), np.full(usable.shape[0], np.nan)
+    has = usable.any(-1)
+    lo = np.where(has, np.argmax(usable, -1), 0)
+    hi = np.where(has, n - 1 - np.argmax(usable[:, ::-1], -1), 0)
+    return np.where(has, qw[lo], np.nan), np.where(has, qw[hi], np.nan)
+
+
+def power_law_fit(q, intensity, sigma=None, *, q_range=None, background=0.0) -> dict:
+    """Power-law exponent from a straight line in log-log coordinates, per frame.
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    intensity, sigma : arrays (n_frames, n_q) or (n_q,)
+    q_range : None, (q_min, q_max) or array (n_frames, 2)
+        None: :func:`default_porod_range`.
+    background : float or array (n_frames,)
+        Flat background subtracted before the logarithm (same unit as intensity).
+
+    Returns
+    -------
+    dict of arrays (n_frames,): ``exponent`` (p in I - B ~ A q^-p, dimensionless),
+    ``exponent_sigma``, ``prefactor`` (A, [I] nm^-p), ``prefactor_sigma``,
+    ``chi2_reduced``, ``n_points``, ``q_min``, ``q_max``, ``status`` ("ok",
+    "all_nan", "range_outside_data", "too_few_points", "zero_sigma",
+    "negative_intensity": I - B <= 0 inside the range, where no logarithm exists).
+
+    Notes
+    -----
+    ln(I - B) = ln A - p ln q, weights (I - B)^2 / sigma^2 (first-order propagation,
+    :func:`~saxsnb.analysis.linear.linearize`). Exponents: 4 smooth surfaces (Porod
+    1951), 2 Gaussian coils and sheets, 1 rods (Bale & Schmidt 1984; Schmidt 1991,
+    J. Appl. Cryst. 24, 414).
+
+    Examples
+    --------
+    >>> q = np.geomspace(1.0, 10.0, 30)
+    >>> r = power_law_fit(q, 5.0 * q**-4, q_range=(1.0, 10.0))
+    >>> round(float(r["exponent"][0]), 9), round(float(r["prefactor"][0]), 9)
+    (4.0, 5.0)
+    """
+    q, I, S = _as_2d(q, intensity, sigma)
+    B = np.broadcast_to(np.asarray(background, dtype=float), (I.shape[0],))[:, None]
+    qw, Iw, Sw, inside, _, _, q_range = _window(q, I - 0.0, S, q_range)
+    Iw = Iw - B
+    status, usable = _common_status(q, I, S, Iw, Sw, inside, q_range, need_positive=True)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = np.log(qw)[None, :]
+        y = np.where(usable, np.log(np.where(usable, Iw, 1.0)), np.nan)
+        sy = None if Sw is None else np.where(usable, Sw / Iw, np.nan)
+    fit = weighted_linear_fit(x, y, sy)
+    good = status == "ok"
+    q_lo, q_hi = _span(qw, usable)
+    nan = np.nan
+    with np.errstate(invalid="ignore", over="ignore"):
+        A = np.exp(fit["intercept"])
+    return {
+        "exponent": np.where(good, -fit["slope"], nan),
+        "exponent_sigma": np.where(good, fit["slope_sigma"], nan),
+        "prefactor": np.where(good, A, nan),
+        "prefactor_sigma": np.where(good, A * fit["intercept_sigma"], nan),
+        "chi2_reduced": np.where(good, fit["chi2_reduced"], nan),
+        "n_points": np.where(good, fit["n_points"], 0).astype(np.int64),
+        "q_min": np.where(good, q_lo, nan),
+        "q_max": np.where(good, q_hi, nan),
+        "status": status,
+    }
+
+
+def porod_fit(q, intensity, sigma=None, *, q_range=None, background="fit") -> dict:
+    """Porod constant Kp = lim q^4 (I - B), with a flat background fitted or given.
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    intensity, sigma : arrays (n_frames, n_q) or (n_q,)
+    q_range : None, (q_min, q_max) or array (n_frames, 2)
+        None: :func:`default_porod_range`.
+    background : "fit", float or array (n_frames,)
+        "fit": straight line q^4 I = Kp + B q^4 (intercept Kp, slope B). A number:
+        Kp is the weighted mean of q^4 (I - B) over the range.
+
+    Returns
+    -------
+    dict of arrays (n_frames,): ``porod_constant`` ([I] nm^-4), ``porod_constant_sigma``,
+    ``background`` ([I]; the given value when not fitted), ``background_sigma`` (0
+    when given), ``porod_background_cov``, ``chi2_reduced``, ``n_points``, ``q_min``,
+    ``q_max``, ``status`` (as :func:`power_law_fit`, negative intensities allowed,
+    plus "negative_porod_constant" when Kp <= 0: numbers kept, but a Porod law
+    with a positive constant does not describe the range).
+
+    Notes
+    -----
+    The fitted background assumes the exponent is 4 on the range; check it with
+    :func:`power_law_fit` (on I - B). Uncertainties from the weights (absolute sigma);
+    without sigma, from the scatter of the residuals.
+
+    Examples
+    --------
+    >>> q = np.linspace(2.0, 4.0, 50)
+    >>> r = porod_fit(q, 3.0 / q**4 + 0.01, q_range=(2.0, 4.0))
+    >>> round(float(r["porod_constant"][0]), 9), round(float(r["background"][0]), 9)
+    (3.0, 0.01)
+    """
+    q, I, S = _as_2d(q, intensity, sigma)
+    F = I.shape[0]
+    qw, Iw, Sw, inside, _, _, q_range = _window(q, I, S, q_range)
+    status, usable = _common_status(q, I, S, Iw, Sw, inside, q_range, need_positive=False)
+    q4 = (qw**4)[None, :]
+    nan = np.nan
+    if isinstance(background, str):
+        if background != "fit":
+            raise SaxsInputError(
+                f"background must be 'fit' or a number, got {background!r}", parameter="background"
+            )
+        y = np.where(usable, q4 * Iw, np.nan)
+        sy = None if Sw is None else np.where(usable, q4 * Sw, np.nan)
+        fit = weighted_linear_fit(np.broadcast_to(q4, Iw.shape), y, sy)
+        Kp, Ks = fit["intercept"], fit["intercept_sigma"]
+        B, Bs, cov = fit["slope"], fit["slope_sigma"], fit["slope_intercept_cov"]
+        chi2r, n = fit["chi2_reduced"], fit["n_points"]
+    else:
+        B = np.broadcast_to(np.asarray(background, dtype=float), (F,)).astype(float)
+        y = np.where(usable, q4 * (Iw - B[:, None]), 0.0)
+        if Sw is None:
+            w = usable.astype(float)
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                w = np.where(usable, 1.0 / (q4 * Sw) ** 2, 0.0)
+        n = usable.sum(-1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            S0 = w.sum(-1)
+            Kp = (w * y).sum(-1) / S0
+            chi2 = (w * np.where(usable, (y - Kp[:, None]) ** 2, 0.0)).sum(-1)
+            chi2r = np.where(n > 1, chi2 / np.maximum(n - 1, 1), nan)
+            Ks = np.sqrt(1.0 / S0) if Sw is not None else np.sqrt(chi2r / S0)
+        Bs = np.zeros(F)
+        cov = np.zeros(F)
+    good = (status == "ok") & np.isfinite(Kp)
+    status[good & (Kp <= 0)] = "negative_porod_constant"
+    keep = good
+    q_lo, q_hi = _span(qw, usable)
+    return {
+        "porod_constant": np.where(keep, Kp, nan),
+        "porod_constant_sigma": np.where(keep, Ks, nan),
+        "background": np.where(keep, B, nan),
+        "background_sigma": np.where(keep, Bs, nan),
+        "porod_background_cov": np.where(keep, cov, nan),
+        "chi2_reduced": np.where(keep, chi2r, nan),
+        "n_points": np.where(keep, n, 0).astype(np.int64),
+        "q_min": np.where(keep, q_lo, nan),
+        "q_max": np.where(keep, q_hi, nan),
+        "status": status,
+    }
+
+
+def guinier_integrals(a, s):
+    """J2 = int_0^a q^2 e^(-s q^2) dq and J4 = int_0^a q^4 e^(-s q^2) dq (s >= 0).
+
+    Closed forms: J2 = sqrt(pi) erf(sqrt(s) a) / (4 s^1.5) - a e^(-s a^2) / (2 s),
+    J4 = 3 J2 / (2 s) - a^3 e^(-s a^2) / (2 s) (integration by parts); a Taylor
+    series where s a^2 < 1e-2 avoids their cancellation.
+
+    >>> j2, j4 = guinier_integrals(np.array([1.0]), np.array([0.0]))
+    >>> float(j2[0]), float(j4[0])
+    (0.3333333333333333, 0.2)
+    """
+    a = np.asarray(a, dtype=float)
+    s = np.asarray(s, dtype=float)
+    t = s * a * a
+    small = t < 1e-2
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        ss = np.where(small, 1.0, s)
+        e = np.exp(-ss * a * a)
+        j2 = np.sqrt(np.pi) * special.erf(np.sqrt(ss) * a) / (4 * ss**1.5) - a * e / (2 * ss)
+        j4 = 3 * j2 / (2 * ss) - a**3 * e / (2 * ss)
+    # series: int q^(2m) (1 - s q^2 + s^2 q^4 / 2 - s^3 q^6 / 6) dq
+    a3, a5 = a**3, a**5
+    j2s = a3 * (1 / 3 - t / 5 + t * t / 14 - t**3 / 54)
+    j4s = a5 * (1 / 5 - t / 7 + t * t / 18 - t**3 / 66)
+    return np.where(small, j2s, j2), np.where(small, j4s, j4)
+
+
+def _trapezoid_weights(q, usable):
+    """Weights of the trapezoidal rule over each row's usable points (others 0)."""
+    n = usable.shape[1]
+    idx = np.arange(n)[None, :]
+    prev = np.maximum.accumulate(np.where(usable, idx, -1), axis=1)
+    prev = np.concatenate([np.full((usable.shape[0], 1), -1), prev[:, :-1]], axis=1)
+    nxt = np.minimum.accumulate(np.where(usable, idx, n)[:, ::-1], axis=1)[:, ::-1]
+    nxt = np.concatenate([nxt[:, 1:], np.full((usable.shape[0], 1), n)], axis=1)
+    qq = np.append(q, np.nan)
+    q_prev = np.where(prev >= 0, qq[np.maximum(prev, 0)], q[None, :])
+    q_next = np.where(nxt < n, qq[np.minimum(nxt, n)], q[None, :])
+    return np.where(usable, 0.5 * (q_next - q_prev), 0.0)
+
+
+def invariant(
+    q,
+    intensity,
+    sigma=None,
+    *,
+    rg,
+    i0,
+    porod_constant,
+    rg_sigma=0.0,
+    i0_sigma=0.0,
+    porod_constant_sigma=0.0,
+    background=0.0,
+    background_sigma=0.0,
+    porod_background_cov=0.0,
+    q_range=None,
+    volume_fraction=None,
+) -> dict:
+    """Scattering invariant Q = int_0^inf q^2 I dq with its extrapolations, per frame.
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    intensity, sigma : arrays (n_frames, n_q) or (n_q,)
+    rg, i0 : arrays (n_frames,)
+        Guinier Rg (nm) and I(0) for the extrapolation from q = 0 to the first point.
+    porod_constant : array (n_frames,)
+        Kp for the tail Kp / q_last beyond the last point.
+    rg_sigma, i0_sigma, porod_constant_sigma, background_sigma, porod_background_cov
+        Uncertainties (0 when unknown); Rg and I(0) are treated as independent.
+    background : float or array (n_frames,)
+        Flat background subtracted from the measured part.
+    q_range : (q_min, q_max), optional
+        The measured part integrates the usable points inside it (default: all).
+    volume_fraction : float or array (n_frames,), optional
+        phi, for ``specific_surface``; without it, ``specific_surface`` is NaN and
+        ``surface_to_volume`` uses the dilute limit phi -> 0.
+
+    Returns
+    -------
+    dict of arrays (n_frames,): ``invariant`` ([I] nm^-3) = ``invariant_low`` +
+    ``invariant_measured`` + ``invariant_high``, each with ``_sigma``;
+    ``porod_volume`` (nm^3, 2 pi^2 I0 / Q), ``surface_to_volume`` (1/nm,
+    pi (1 - phi) Kp / Q), ``specific_surface`` (1/nm, pi phi (1 - phi) Kp / Q), each
+    with ``_sigma``; ``low_fraction``, ``high_fraction`` (shares of Q that are
+    extrapolated: large values mean a model-dependent invariant); ``status``.
+
+    Notes
+    -----
+    Convention Q = int_0^inf q^2 I(q) dq (Porod 1951; Glatter & Kratky 1982); some
+    texts multiply by 4 pi or divide by 2 pi^2. Low q: I0 exp(-q^2 Rg^2 / 3) integrated
+    in closed form (:func:`guinier_integrals`) from 0 to the first usable point;
+    measured part: trapezoidal rule over the usable points of I - B; high q: Kp / q_last
+    (Porod law). Uncertainties: first-order propagation with the point sigmas
+    independent; Rg, I(0) independent; B and Kp with their covariance;
+    ``porod_volume`` and the surfaces treat I(0), Kp and Q as independent, which
+    overstates their sigma slightly (they are positively correlated through the
+    extrapolations).
+
+    Examples
+    --------
+    >>> q = np.linspace(0.01, 40.0, 20001)
+    >>> I = np.exp(-q**2 / 3)                    # Guinier form, Rg = 1, I0 = 1
+    >>> r = invariant(q, I, rg=1.0, i0=1.0, porod_constant=0.0)
+    >>> round(float(r["invariant"][0]), 5), round(float(3 * np.sqrt(3 * np.pi) / 4), 5)
+    (2.30249, 2.30249)
+    """
+    q, I, S = _as_2d(q, intensity, sigma)
+    F = I.shape[0]
+
+    def per_frame(v):
+        return np.broadcast_to(np.asarray(v, dtype=float), (F,)).astype(float)
+
+    rg, i0, Kp = per_frame(rg), per_frame(i0), per_frame(porod_constant)
+    rg_s, i0_s, Kp_s = per_frame(rg_sigma), per_frame(i0_sigma), per_frame(porod_constant_sigma)
+    B, B_s, cov_BK = per_frame(background), per_frame(background_sigma), per_frame(porod_background_cov)
+    finite = np.isfinite(I) & (np.isfinite(S) if S is not None else True)
+    if q_range is not None:
+        start, stop = index_range(q, q_range, F)
+        cols = np.arange(q.size)[None, :]
+        finite = finite & (cols >= start[:, None]) & (cols < stop[:, None])
+    usable = finite
+    wts = _trapezoid_weights(q, usable)
+    q2 = (q * q)[None, :]
+    f = np.where(usable, q2 * (I - B[:, None]), 0.0)
+    measured = (wts * f).sum(-1)
+    var_meas = (wts * q2 * np.where(usable, S, 0.0)) ** 2 if S is not None else np.zeros_like(wts)
+    var_meas = var_meas.sum(-1)
+    dQ_dB = -(wts * q2).sum(-1)
+    has = usable.any(-1)
+    q_first = np.where(has, q[np.argmax(usable, -1)], np.nan)
+    q_last = np.where(has, q[q.size - 1 - np.argmax(usable[:, ::-1], -1)], np.nan)
+    s = rg * rg / 3.0
+    j2, j4 = guinier_integrals(q_first, s)
+    low = i0 * j2
+    var_low = (j2 * i0_s) ** 2 + (i0 * j4 * 2.0 * rg / 3.0 * rg_s) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        high = Kp / q_last
+        dQ_dK = 1.0 / q_last
+    total = low + measured + high
+    var_total = (
+        var_low + var_meas + (dQ_dB * B_s) ** 2 + (dQ_dK * Kp_s) ** 2 + 2 * dQ_dB * dQ_dK * cov_BK
+    )
+    var_high = (dQ_dK * Kp_s) ** 2
+    var_meas_b = var_meas + (dQ_dB * B_s) ** 2
+    Q_s = np.sqrt(np.maximum(var_total, 0.0))
+    if volume_fraction is None:
+        phi = np.zeros(F)
+        spec_known = np.zeros(F, dtype=bool)
+    else:
+        phi = per_frame(volume_fraction)
+        spec_known = np.isfinite(phi)
+        if np.any((phi < 0) | (phi >= 1)):
+            raise SaxsInputError("volume_fraction must lie in [0, 1)", parameter="volume_fraction")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel_Q = Q_s / total
+        vol = 2.0 * np.pi**2 * i0 / total
+        vol_s = np.abs(vol) * np.sqrt((i0_s / i0) ** 2 + rel_Q**2)
+        s2v = np.pi * (1.0 - phi) * Kp / total
+        rel_K = np.where(Kp != 0, Kp_s / np.abs(Kp), np.nan)
+        s2v_s = np.abs(s2v) * np.sqrt(rel_K**2 + rel_Q**2)
+        spec = np.where(spec_known, phi * s2v, np.nan)
+        spec_s = np.where(spec_known, phi * s2v_s, np.nan)
+        low_frac = low / total
+        high_frac = high / total
+    status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+    status[~np.isfinite(low)] = "no_guinier"
+    status[~np.isfinite(high)] = "no_porod_constant"
+    status[~has] = "all_nan"
+    good = status == "ok"
+    nan = np.nan
+
+    def keep(a):
+        return np.where(good, a, nan)
+
+    return {
+        "invariant": keep(total),
+        "invariant_sigma": keep(Q_s),
+        "invariant_low": keep(low),
+        "invariant_low_sigma": keep(np.sqrt(var_low)),
+        "invariant_measured": keep(measured),
+        "invariant_measured_sigma": keep(np.sqrt(var_meas_b)),
+        "invariant_high": keep(high),
+        "invariant_high_sigma": keep(np.sqrt(var_high)),
+        "low_fraction": keep(low_frac),
+        "high_fraction": keep(high_frac),
+        "porod_volume": keep(vol),
+        "porod_volume_sigma": keep(vol_s),
+        "surface_to_volume": keep(s2v),
+        "surface_to_volume_sigma": keep(s2v_s),
+        "specific_surface": keep(spec),
+        "specific_surface_sigma": keep(spec_s),
+        "q_min": keep(q_first),
+        "q_max": keep(q_last),
+        "status": status,
+    }

@@ -1,0 +1,79 @@
+"""Kratky transforms and shape summary against closed forms (REFERENCES.md)."""
+
+import numpy as np
+import pytest
+from shapes_linear import debye, sphere, thin_rod
+
+from saxsnb.analysis.kratky import kratky, kratky_summary
+from saxsnb.errors import SaxsInputError
+
+Q = np.linspace(0.005, 8.0, 4000)
+
+
+def test_plain_and_dimensionless_transform():
+    I = np.exp(-(Q**2) * 4 / 3)[None, :] * 7.0
+    K, Ks = kratky(Q, I, 0.1 * I)
+    np.testing.assert_allclose(K, Q**2 * I)
+    np.testing.assert_allclose(Ks, Q**2 * 0.1 * I)
+    D = kratky(Q, I, rg=[2.0], i0=[7.0])
+    np.testing.assert_allclose(D[0], (2 * Q) ** 2 * np.exp(-((2 * Q) ** 2) / 3))
+    with pytest.raises(SaxsInputError, match="rg"):
+        kratky(Q, I, rg=[2.0])
+
+
+def test_debye_chain_kratky_values():
+    rg = 1.0
+    x = np.array([1.0, 2.0, 5.0, 10.0])  # x = (q Rg)^2
+    q = np.sqrt(x) / rg
+    D = kratky(q, debye(x)[None, :], rg=[rg], i0=[1.0])
+    # Debye (1947): x P = 0.7358, 1.1353, 1.6027, 1.8000 at x = 1, 2, 5, 10 (REFERENCES.md [der])
+    np.testing.assert_allclose(D[0], [0.7358, 1.1353, 1.6027, 1.8000], atol=5e-5)
+    # ... tending to 2 (the plateau)
+    big = kratky(np.array([100.0]), debye(np.array([1e4]))[None, :], rg=[1.0], i0=[1.0])
+    assert big[0, 0] == pytest.approx(2.0, abs=2e-4)
+
+
+def test_peak_of_guinier_form_and_sphere():
+    R = 1.0
+    rg = np.sqrt(3 / 5) * R  # Guinier & Fournet (1955)
+    I = np.stack([np.exp(-((Q * rg) ** 2) / 3), sphere(Q * R)])
+    s = kratky_summary(Q, I, rg=[rg, rg], i0=[1.0, 1.0])
+    # Durand et al. (2010): Guinier form peaks at q Rg = sqrt(3), height 3/e (REFERENCES.md [der])
+    assert s["peak_qrg"][0] == pytest.approx(np.sqrt(3), abs=2e-4)
+    assert s["peak_height"][0] == pytest.approx(3 / np.e, abs=2e-4)
+    # a true sphere peaks at q Rg = 1.6124, height 1.0274 (REFERENCES.md [der])
+    assert s["peak_qrg"][1] == pytest.approx(1.6124, abs=2e-4)
+    assert s["peak_height"][1] == pytest.approx(1.0274, abs=2e-4)
+
+
+def test_shape_classes():
+    rg = 1.0
+    I = np.stack(
+        [
+            sphere(Q * rg / np.sqrt(0.6)),
+            np.exp(-((Q * rg) ** 2) / 3),
+            debye((Q * rg) ** 2),
+            thin_rod(Q * rg * np.sqrt(12)),  # thin rod: Rg^2 = L^2 / 12 (REFERENCES.md)
+        ]
+    )
+    s = kratky_summary(Q, I, rg=np.full(4, rg), i0=np.ones(4))
+    assert s["shape_class"].tolist() == ["bell", "bell", "plateau", "rise"]
+    assert np.isnan(s["peak_qrg"][2]) and np.isnan(s["peak_qrg"][3])  # no interior maximum
+    assert s["level_high"][2] == pytest.approx(1.93, abs=0.02)  # Debye: x P -> 2 from below
+    short = kratky_summary(Q[:200], I[:, :200], rg=np.full(4, rg), i0=np.ones(4))
+    assert (short["shape_class"] == "undetermined").all()
+    nan_rg = kratky_summary(Q, I[:1], rg=[np.nan], i0=[1.0])
+    assert nan_rg["shape_class"][0] == "undetermined" and np.isnan(nan_rg["peak_qrg"][0])
+
+
+def test_noisy_peak_and_batch_equals_loop(rng):
+    rg = np.array([1.5, 2.0, 3.0])
+    I = np.exp(-((Q[None, :] * rg[:, None]) ** 2) / 3) * 5.0
+    I = I * (1 + 0.01 * rng.normal(size=I.shape))
+    s = kratky_summary(Q, I, rg=rg, i0=np.full(3, 5.0))
+    np.testing.assert_allclose(s["peak_qrg"], np.sqrt(3), atol=0.03)
+    np.testing.assert_allclose(s["peak_height"], 3 / np.e, atol=0.01)
+    for f in range(3):
+        one = kratky_summary(Q, I[f], rg=rg[f], i0=5.0)
+        for key, v in s.items():
+            assert np.array_equal(v[f : f + 1], one[key], equal_nan=v.dtype.kind == "f"), key

@@ -1,0 +1,128 @@
+"""Porod analysis against closed forms (REFERENCES.md): sphere invariant, Porod volume,
+surface to volume, power-law exponents of sphere, chain and rod tails."""
+
+import numpy as np
+import pytest
+from shapes_linear import debye, schulz_spheres, sphere, thin_rod
+
+from saxsnb.analysis.porod import (
+    default_porod_range,
+    guinier_integrals,
+    invariant,
+    porod_fit,
+    power_law_fit,
+)
+from saxsnb.errors import SaxsInputError
+
+
+@pytest.fixture(scope="module")
+def sphere_curve():
+    q = np.linspace(1e-3, 400.0, 400_001)
+    return q, sphere(q)  # R = 1, I(0) = 1
+
+
+def test_sphere_invariant_volume_surface(sphere_curve):
+    q, I = sphere_curve
+    # Kp from q^4 I over a whole number of periods of cos^2(qR) (period pi) ending at 400
+    q_lo = 400.0 - 63 * np.pi
+    pf = porod_fit(q, I, q_range=(q_lo, 400.0), background=0.0)
+    # Porod (1951): a sphere P(q) -> 9 / (2 q^4 R^4), so Kp = 4.5 [der]
+    assert pf["porod_constant"][0] == pytest.approx(4.5, rel=1e-3)
+    r = invariant(q, I, rg=np.sqrt(0.6), i0=1.0, porod_constant=pf["porod_constant"])
+    # REFERENCES.md (sphere R = 1 integrated to q = 400 plus Kp/qmax): Q = 3 pi / 2 = 4.71240,
+    # V = 4 pi / 3 = 4.18878, S/V = 3.0000 [der]
+    assert r["invariant"][0] == pytest.approx(3 * np.pi / 2, rel=2e-5)
+    assert r["porod_volume"][0] == pytest.approx(4 * np.pi / 3, rel=2e-5)
+    assert r["surface_to_volume"][0] == pytest.approx(3.0, rel=1e-3)
+    assert r["invariant_high"][0] == pytest.approx(4.5 / 400.0, rel=1e-3)
+    assert r["invariant_low"][0] == pytest.approx(1e-9 / 3, rel=1e-3)  # int_0^0.001 q^2 dq
+    assert np.isnan(r["specific_surface"][0])
+    r2 = invariant(q, I, rg=np.sqrt(0.6), i0=1.0, porod_constant=4.5, volume_fraction=0.1)
+    # S/V of the sample = pi phi (1 - phi) Kp / Q (Porod 1951; REFERENCES.md)
+    assert r2["specific_surface"][0] == pytest.approx(np.pi * 0.1 * 0.9 * 4.5 / (1.5 * np.pi), rel=1e-4)
+
+
+def test_guinier_integrals_against_quadrature():
+    from scipy import integrate
+
+    for a, s in ((0.5, 2.0), (3.0, 0.01), (1e-3, 0.2), (2.0, 1e-9)):
+        # scipy.integrate.quad (reference library)
+        j2 = integrate.quad(lambda x, s=s: x**2 * np.exp(-s * x * x), 0, a, epsabs=0, epsrel=1e-13)[0]
+        j4 = integrate.quad(lambda x, s=s: x**4 * np.exp(-s * x * x), 0, a, epsabs=0, epsrel=1e-13)[0]
+        g2, g4 = guinier_integrals(np.array(a), np.array(s))
+        assert g2 == pytest.approx(j2, rel=1e-10)
+        assert g4 == pytest.approx(j4, rel=1e-10)
+
+
+def test_exponent_of_sphere_chain_rod_tails():
+    # smooth surface -> 4 (Porod 1951): polydisperse spheres smooth the oscillations
+    q = np.geomspace(10.0, 50.0, 200)
+    assert power_law_fit(q, schulz_spheres(q, 1.0, 20, n=2001), q_range=(10, 50))["exponent"][0] == (
+        pytest.approx(4.0, abs=0.02)
+    )
+    # Gaussian chain -> 2 (Debye 1947; Bale & Schmidt 1984 [mem]: from memory, loose)
+    q = np.geomspace(10.0, 100.0, 100)
+    assert power_law_fit(q, debye(q**2), q_range=(10, 100))["exponent"][0] == pytest.approx(2.0, abs=0.02)
+    # thin rod -> 1 (Neugebauer 1943; Schmidt 1991 [mem]: from memory, loose)
+    q = np.geomspace(100.0, 2000.0, 100)
+    assert power_law_fit(q, thin_rod(q), q_range=(100, 2000))["exponent"][0] == pytest.approx(1.0, abs=0.02)
+
+
+def test_porod_constant_with_fitted_background(rng):
+    q = np.linspace(1.5, 4.0, 200)
+    Kp, B = np.array([3.0, 0.5, 10.0]), np.array([0.01, 0.002, 0.05])
+    I = Kp[:, None] / q**4 + B[:, None]
+    s = 0.01 * I
+    noisy = I + rng.normal(size=I.shape) * s
+    r = porod_fit(q, noisy, s, q_range=(1.5, 4.0))
+    assert (r["status"] == "ok").all()
+    assert np.all(np.abs(r["porod_constant"] - Kp) < 4 * r["porod_constant_sigma"])
+    assert np.all(np.abs(r["background"] - B) < 4 * r["background_sigma"])
+    assert np.all(r["porod_background_cov"] < 0)  # intercept and slope anticorrelated (x > 0)
+    exact = porod_fit(q, I, s, q_range=(1.5, 4.0))
+    np.testing.assert_allclose(exact["porod_constant"], Kp, rtol=1e-9)
+    given = porod_fit(q, I, s, q_range=(1.5, 4.0), background=B)
+    np.testing.assert_allclose(given["porod_constant"], Kp, rtol=1e-12)
+    assert (given["background_sigma"] == 0).all()
+    # exponent on I - B recovers 4 exactly
+    pl = power_law_fit(q, I, s, q_range=(1.5, 4.0), background=B)
+    np.testing.assert_allclose(pl["exponent"], 4.0, rtol=1e-10)
+
+
+def test_invariant_uncertainty_by_monte_carlo(rng):
+    q = np.linspace(0.05, 3.0, 300)
+    I = 100 * np.exp(-(q**2) * 4.0 / 3.0) + 0.5 / q**4 * (1 - np.exp(-(q * 2) ** 6))
+    s = 0.02 * I + 0.01
+    base = invariant(q, I, s, rg=2.0, i0=100.0, porod_constant=0.5)
+    draws = [
+        invariant(q, I + rng.normal(size=I.shape) * s, rg=2.0, i0=100.0, porod_constant=0.5)["invariant"][0]
+        for _ in range(300)
+    ]
+    # first-order propagation against the scatter of a Monte-Carlo (common practice)
+    assert np.std(draws) == pytest.approx(base["invariant_sigma"][0], rel=0.15)
+
+
+def test_batch_equals_loop_and_statuses(rng):
+    q = np.linspace(0.5, 5.0, 300)
+    I = 2.0 / q[None, :] ** 4 * rng.uniform(0.5, 2.0, (6, 1)) + 0.01
+    s = 0.01 * I
+    I = I + rng.normal(size=I.shape) * s
+    I[1] = np.nan
+    I[2, -5:] = -1.0
+    s[3, -3] = 0.0
+    for func in (power_law_fit, porod_fit):
+        batch = func(q, I, s)
+        for f in range(6):
+            one = func(q, I[f], s[f])
+            for key, v in batch.items():
+                assert np.array_equal(v[f : f + 1], one[key], equal_nan=v.dtype.kind == "f"), (func, key)
+    pl = power_law_fit(q, I, s)
+    assert pl["status"].tolist()[:4] == ["ok", "all_nan", "negative_intensity", "zero_sigma"]
+    assert porod_fit(q, I, s)["status"][2] == "ok"  # no logarithm: negative points are data
+    out = power_law_fit(q, I, s, q_range=(8.0, 9.0))
+    assert out["status"][0] == "range_outside_data"
+    few = porod_fit(q, I, s, q_range=(4.99, 5.0))
+    assert few["status"][0] == "too_few_points"
+    with pytest.raises(SaxsInputError, match="background"):
+        porod_fit(q, I, s, background="flat")
+    assert default_porod_range(q) == (q[224], 5.0)
