@@ -296,7 +296,15 @@ def build_series(
             parameter="regrid",
         )
     unit = _resolve_q_unit(curves, q_unit)
-    curves = [_check_q(c) for c in curves]
+    if len({c.q.size for c in curves}) == 1:
+        # the common case, checked for all files at once; the loop only names the culprit
+        Q = np.stack([c.q for c in curves])
+        with np.errstate(invalid="ignore"):
+            fine = bool(np.isfinite(Q).all() and (Q > 0).all() and (np.diff(Q, axis=1) > 0).all())
+    else:
+        fine = False
+    if not fine:
+        curves = [_check_q(c) for c in curves]
     iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
     for c, u in iu[1:]:
         if u != iu[0][1]:

@@ -24,7 +24,7 @@ __all__ = ["tokenize", "parse_tokens", "SEPARATORS"]
 #: Bytes that separate numbers: whitespace (any byte <= 32), comma and semicolon.
 SEPARATORS = b" \t\r\n\f\v,;"
 
-_MAX_LEN = 32
+_MAX_LEN = 30
 _POW10 = np.array([10.0**k for k in range(23)])
 _TWO53 = float(2**53)
 
@@ -147,34 +147,45 @@ def parse_tokens(
     signed = neg | (first == ord("+"))
     s2 = starts + signed
     length = ends - s2
-    counts = np.bincount(np.clip(length, 0, _MAX_LEN + 1))
+    # layout key of every token: (length, position of '.', position of 'e'), found from
+    # the positions of '.' and 'e' in the whole buffer rather than token by token;
+    # 5 bits each, so the key is an int16 and the stable sort below is a radix sort
+    none = _MAX_LEN + 1
+    dpos = np.full(n, none, dtype=np.int16)
+    epos = np.full(n, none, dtype=np.int16)
+    multi = (length <= 0) | (length > _MAX_LEN)
+    for pos, out in ((np.flatnonzero(a == 46), dpos), (np.flatnonzero((a | 0x20) == 101), epos)):
+        if pos.size:
+            tok = np.searchsorted(starts, pos, side="right") - 1
+            inside = tok >= 0
+            tok, pos = tok[inside], pos[inside]
+            inside = pos < ends[tok]
+            tok, pos = tok[inside], pos[inside]
+            multi |= np.bincount(tok, minlength=n) > 1
+            out[tok] = np.clip(pos - s2[tok], 0, none)
+    key = (np.clip(length, 0, none).astype(np.int16) << 10) | (dpos << 5) | epos
+    key[multi] = -1
+    order = np.argsort(key, kind="stable")
+    ks = key[order]
+    bounds = np.concatenate([[0], np.flatnonzero(ks[1:] != ks[:-1]) + 1, [n]])
     padded = np.zeros(a.size + _MAX_LEN, dtype=np.uint8)
     padded[: a.size] = a
     windows = np.lib.stride_tricks.sliding_window_view(padded, _MAX_LEN)
-    for width in np.flatnonzero(counts):
-        if width == 0 or width > _MAX_LEN:
+    for lo, hi in zip(bounds[:-1], bounds[1:]):
+        k = int(ks[lo])
+        if k < 0:
             continue
-        idx = np.flatnonzero(length == width)
-        chars = windows[s2[idx], :width]
-        res = _parse_group(chars)
+        idx = order[lo:hi]
+        res = _parse_group(windows[s2[idx], : k >> 10])
         if res is None:
-            # mixed layouts of one length: split by the position of '.' and 'e'
-            is_dot = chars == ord(".")
-            is_e = (chars | 0x20) == ord("e")
-            key = np.where(is_dot.any(1), is_dot.argmax(1), width) * 64 + np.where(
-                is_e.any(1), is_e.argmax(1), width
-            )
-            for k in np.unique(key):
-                sub = np.flatnonzero(key == k)
-                r = _parse_group(chars[sub])
-                if r is not None:
-                    v, ok = r
-                    vals[idx[sub[ok]]] = v[ok]
-                    done[idx[sub[ok]]] = True
             continue
         v, ok = res
-        vals[idx[ok]] = v[ok]
-        done[idx[ok]] = True
+        if bool(ok.all()):
+            vals[idx] = v
+            done[idx] = True
+        else:
+            vals[idx[ok]] = v[ok]
+            done[idx[ok]] = True
     vals = np.where(neg, -vals, vals)
     bad = np.zeros(n, dtype=bool)
     for i in np.flatnonzero(~done):
