@@ -42,8 +42,8 @@ PHASE_COST = 1.0
 CLOSE_COST = 1.2
 _N_REF = {"lamellar": 12, "hexagonal": 20}
 _N_REF_CUBIC = 30
-_ANCHOR_REFLECTIONS = 4
-_ANCHOR_PEAKS = 8
+_ANCHOR_REFLECTIONS = 3
+_ANCHOR_PEAKS = 6
 _KEEP = 3  # distinct lattices kept per phase per frame
 _VITERBI_STATES = 8
 
@@ -77,41 +77,47 @@ def lattice_from_metric(phase: str, metric):
     return 2.0 * np.pi * m
 
 
+_GRID = 64  # points per unit of s in the nearest-reflection lookup
+
+
+@cache
+def _nearest_table(phase: str):
+    """Nearest allowed s (in q, i.e. sqrt(s)) for x = (q L)^2 on a grid of 1/_GRID."""
+    s_list = _table(phase)[0]
+    root = np.sqrt(s_list.astype(float))
+    g = np.sqrt((np.arange((int(s_list.max()) + 2) * _GRID) + 0.5) / _GRID)
+    j = np.clip(np.searchsorted(root, g), 1, root.size - 1)
+    lower_closer = (g / root[j - 1] - 1.0) < (1.0 - g / root[j])
+    pick = np.where(lower_closer, j - 1, j)
+    pick = np.where(g <= root[0], 0, np.where(g >= root[-1], root.size - 1, pick))
+    nearest = s_list[pick]
+    nearest[-_GRID // 2 :] = 0  # beyond the table: no reflection
+    return nearest, np.sqrt(np.maximum(nearest, 1).astype(float))
+
+
 def _match(phase, q, L, tol):
     """Nearest allowed s for each observed q under metric L.
 
-    q (B, P) NaN padded; L (B, C). Returns s (B, C, P) int (0 = none), relerr (B, C, P).
+    q (B, P) NaN padded, sorted; L (B, C). Returns s (B, C, P) int (0 = none) and the
+    relative error |q L / sqrt(s) - 1| (B, C, P), NaN where unassigned.
     """
-    s_list, ok, _, _ = _table(phase)
-    smax = ok.size - 2
+    nearest, root = _nearest_table(phase)
+    x = q[:, None, :] * L[:, :, None]  # = sqrt of (q L)^2
+    i = np.nan_to_num(x * x * _GRID, nan=-1.0, posinf=-1.0)
+    i = np.clip(i, 0, nearest.size - 1).astype(np.intp)
     with np.errstate(invalid="ignore"):
-        x = (q[:, None, :] * L[:, :, None]) ** 2
-        x = np.where(np.isfinite(x), x, -1.0)
-        best_s = np.zeros(x.shape, dtype=np.int64)
-        best_e = np.full(x.shape, np.inf)
-        base = np.floor(x).astype(np.int64)
-        for d in (0, 1):
-            n = base + d
-            valid = (n >= 1) & (n <= smax)
-            nn = np.clip(n, 0, smax)
-            e = np.abs(np.sqrt(np.maximum(x, 0.0) / np.maximum(nn, 1)) - 1.0)
-            use = valid & ok[nn] & (e < best_e)
-            best_s = np.where(use, nn, best_s)
-            best_e = np.where(use, e, best_e)
-    hit = best_e <= tol
-    s = np.where(hit, best_s, 0)
-    e = np.where(hit, best_e, np.inf)
+        e = np.abs(x / root[i] - 1.0)
+    s = np.where((e <= tol) & (nearest[i] > 0), nearest[i], 0)
+    e = np.where(s > 0, e, np.inf)
     # one observed peak per reflection: q is sorted, so two peaks claiming the same s are
-    # neighbours; keep the closer one (two passes settle runs of three)
-    for _ in range(2):
-        same = (s[..., 1:] == s[..., :-1]) & (s[..., 1:] > 0)
+    # neighbours; keep the closer one
+    same = (s[..., 1:] == s[..., :-1]) & (s[..., 1:] > 0)
+    if same.any():
         right_worse = same & (e[..., 1:] >= e[..., :-1])
-        left_worse = same & ~right_worse
         drop = np.zeros(s.shape, dtype=bool)
         drop[..., 1:] |= right_worse
-        drop[..., :-1] |= left_worse
+        drop[..., :-1] |= same & ~right_worse
         s = np.where(drop, 0, s)
-        e = np.where(drop, np.inf, e)
     return s, np.where(s > 0, e, np.nan)
 
 
@@ -151,10 +157,9 @@ def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
     qa = np.take_along_axis(q, strong, 1)
     L0 = (np.sqrt(s_list[:na])[None, None, :] / qa[:, :, None]).reshape(B, na_p * na)
     s, _ = _match(phase, q, np.nan_to_num(L0, nan=0.0), tol)
-    for _ in range(2):
-        L, _ = _refine(q[:, None, :], w[:, None, :], s)
-        L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
-        s, err = _match(phase, q, L, tol)
+    L, _ = _refine(q[:, None, :], w[:, None, :], s)
+    L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
+    s, err = _match(phase, q, L, tol)
     L, sL = _refine(q[:, None, :], w[:, None, :], s)
     matched = s > 0
     n_match = matched.sum(-1)
@@ -224,29 +229,49 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol):
         a, b = np.triu_indices(M, 1)
         diff = ph_id[a] != ph_id[b]
         a, b = a[diff], b[diff]
-        sa, sb = cat["s"][:, a], cat["s"][:, b]
-        ea = np.where(sa > 0, cat["err"][:, a], np.inf)
-        eb = np.where(sb > 0, cat["err"][:, b], np.inf)
-        to_a = (sa > 0) & (ea <= eb)
-        to_b = (sb > 0) & ~to_a
-        only_a = ((sa > 0) & (sb == 0)).sum(-1)
-        only_b = ((sb > 0) & (sa == 0)).sum(-1)
-        explained = to_a | to_b
-        cost = (
-            np.sum(np.where(explained, 0.0, unexpl[:, None, :]), -1)
-            + cat["miss"][:, a]
-            + cat["miss"][:, b]
-            + cat["fit"][:, a]
-            + cat["fit"][:, b]
-            + PHASE_COST
-        )
-        ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cat["cost"][:, a]) & np.isfinite(cat["cost"][:, b])
-        hyp_phase.append(np.broadcast_to(np.stack([ph_id[a], ph_id[b]], -1), (B, a.size, 2)))
-        hyp_L.append(np.stack([cat["L"][:, a], cat["L"][:, b]], -1))
-        hyp_sL.append(np.stack([cat["sL"][:, a], cat["sL"][:, b]], -1))
-        hyp_slot.append(np.where(to_a, 0, np.where(to_b, 1, -1)))
-        hyp_s.append(np.where(to_a, sa, np.where(to_b, sb, 0)))
-        hyp_cost.append(np.where(ok, cost, np.inf))
+        npair = a.size
+        # a pair can only help where the best single phase leaves two or more peaks unexplained
+        best = np.argmin(cat["cost"], axis=1)
+        n_best = (np.take_along_axis(cat["s"], best[:, None, None], 1)[:, 0] > 0).sum(-1)
+        n_best = np.where(np.isfinite(cat["cost"][np.arange(B), best]), n_best, 0)
+        sub = np.nonzero(present.sum(-1) - n_best >= 2)[0]
+        pair_phase = np.broadcast_to(np.stack([ph_id[a], ph_id[b]], -1), (B, npair, 2))
+        pair_L = np.full((B, npair, 2), np.nan)
+        pair_sL = np.full((B, npair, 2), np.nan)
+        pair_slot = np.full((B, npair, P), -1)
+        pair_s = np.zeros((B, npair, P), dtype=np.int64)
+        pair_cost = np.full((B, npair), np.inf)
+        if sub.size:
+            c_s, c_err = cat["s"][sub], cat["err"][sub]
+            sa, sb = c_s[:, a], c_s[:, b]
+            ea = np.where(sa > 0, c_err[:, a], np.inf)
+            eb = np.where(sb > 0, c_err[:, b], np.inf)
+            to_a = (sa > 0) & (ea <= eb)
+            to_b = (sb > 0) & ~to_a
+            only_a = ((sa > 0) & (sb == 0)).sum(-1)
+            only_b = ((sb > 0) & (sa == 0)).sum(-1)
+            explained = to_a | to_b
+            cs = cat["cost"][sub]
+            cost = (
+                np.sum(np.where(explained, 0.0, unexpl[sub][:, None, :]), -1)
+                + cat["miss"][sub][:, a]
+                + cat["miss"][sub][:, b]
+                + cat["fit"][sub][:, a]
+                + cat["fit"][sub][:, b]
+                + PHASE_COST
+            )
+            ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b])
+            pair_L[sub] = np.stack([cat["L"][sub][:, a], cat["L"][sub][:, b]], -1)
+            pair_sL[sub] = np.stack([cat["sL"][sub][:, a], cat["sL"][sub][:, b]], -1)
+            pair_slot[sub] = np.where(to_a, 0, np.where(to_b, 1, -1))
+            pair_s[sub] = np.where(to_a, sa, np.where(to_b, sb, 0))
+            pair_cost[sub] = np.where(ok, cost, np.inf)
+        hyp_phase.append(pair_phase)
+        hyp_L.append(pair_L)
+        hyp_sL.append(pair_sL)
+        hyp_slot.append(pair_slot)
+        hyp_s.append(pair_s)
+        hyp_cost.append(pair_cost)
     return {
         "phase": np.concatenate(hyp_phase, 1),
         "L": np.concatenate(hyp_L, 1),
@@ -347,10 +372,11 @@ def index_peaks(
 
     Notes
     -----
-    *Candidates.* For each phase, each observed peak is taken in turn as each of the
-    first four allowed reflections, giving a trial metric L (``q = sqrt(s) / L``,
-    see :func:`lattice_from_metric`). Every peak is assigned the nearest allowed s
-    within ``tolerance`` and L is refined twice by weighted least squares of
+    *Candidates.* For each phase, each of the six strongest peaks is taken in turn as
+    each of the first three allowed reflections, giving a trial metric L
+    (``q = sqrt(s) / L``, see :func:`lattice_from_metric`). Every peak is assigned the
+    nearest allowed s within ``tolerance`` (one peak per reflection, the closest) and L
+    is refined by weighted least squares of
     ``q_i = sqrt(s_i) / L`` (weights ``1 / sigma_i^2``; sigma of L from the normal
     equation, scaled by sqrt of the reduced chi-square when above one). A phase
     needs at least two peaks with distinct indices.
@@ -429,7 +455,12 @@ def index_peaks(
     rho = np.zeros((F, P))
     for b0 in range(0, F, block):
         sl = slice(b0, min(F, b0 + block))
-        H = _hypotheses(q[sl], w[sl], st[sl], qlo[sl], phases, max_phases, tolerance)
+        pb = max(int(n_obs[sl].max()), 1)  # peaks are sorted, NaN last: drop empty columns
+        H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance)
+        if pb < P:
+            for key, fill in (("slot", -1), ("s", 0)):
+                H[key] = np.concatenate([H[key], np.full(H[key].shape[:2] + (P - pb,), fill)], axis=2)
+            H["rho"] = np.concatenate([H["rho"], np.zeros((H["rho"].shape[0], P - pb))], axis=1)
         cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
         rho[sl] = H["rho"]

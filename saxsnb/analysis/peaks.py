@@ -56,6 +56,10 @@ def _odd(n: float, minimum: int = 3) -> int:
 
 def _row_median(a: np.ndarray) -> np.ndarray:
     """Median along the last axis ignoring NaN (NaN for all-NaN rows), vectorised."""
+    if a.shape[-1] == 0:
+        return np.full(a.shape[:-1], np.nan)
+    if np.isfinite(a).all():
+        return np.median(a, axis=-1)
     srt = np.sort(a, axis=-1)  # NaN sort last
     n = np.isfinite(srt).sum(axis=-1)
     lo = np.clip((n - 1) // 2, 0, None)[..., None]
@@ -204,7 +208,10 @@ def detect_peaks(
     ok = is_max & (prom > min_prominence * nz) & (sm > 0)
     score = np.where(ok, prom / np.maximum(nz, 1e-300), -np.inf)
     k = min(int(max_peaks), n_q)
-    top = np.argsort(-score, axis=-1, kind="stable")[:, :k]
+    if k < n_q:
+        top = np.argpartition(-score, k - 1, axis=-1)[:, :k]
+    else:
+        top = np.argsort(-score, axis=-1, kind="stable")[:, :k]
     good = np.take_along_axis(score, top, axis=-1) > -np.inf
     top = np.where(good, top, n_q + 1)
     top = np.sort(top, axis=-1)
@@ -256,25 +263,38 @@ def peak_profile(x, center, fwhm, height, eta=None, *, profile: str = "gaussian"
     raise SaxsInputError(f"unknown profile {profile!r}; use one of {PROFILES}", parameter="profile")
 
 
-def _model(x, p, profile, c0):
-    """Peak + local line; returns model (n, m) and Jacobian (n, m, k)."""
+def _model(x, p, profile, c0, wgt=None):
+    """Peak + local line; returns model (n, m) and Jacobian (n, m, k), the Jacobian
+    multiplied by ``wgt`` (n, m) when given."""
     c, w, h, b0, b1 = (p[:, i : i + 1] for i in range(5))
     u = (x - c) / w
-    g = np.exp(-_G * u * u)
-    lo = 1.0 / (1.0 + 4.0 * u * u)
+    u2 = u * u
     if profile == "gaussian":
-        s, ds = g, -2.0 * _G * u * g
-    elif profile == "lorentzian":
-        s, ds = lo, -8.0 * u * lo * lo
+        s = np.exp(-_G * u2)
+        ds = (-2.0 * _G) * u * s
     else:
-        e = np.clip(p[:, 5:6], 0.0, 1.0)
-        s = e * lo + (1 - e) * g
-        ds = e * (-8.0 * u * lo * lo) + (1 - e) * (-2.0 * _G * u * g)
-    f = h * s + b0 + b1 * (x - c0)
-    cols = [-h * ds / w, -h * ds * u / w, s, np.ones_like(x), x - c0]
-    if profile == "pseudo_voigt":
-        cols.append(h * (lo - g))
-    return f, np.stack(cols, axis=-1)
+        lo = 1.0 / (1.0 + 4.0 * u2)
+        if profile == "lorentzian":
+            s, ds = lo, -8.0 * u * lo * lo
+        else:
+            g = np.exp(-_G * u2)
+            e = np.clip(p[:, 5:6], 0.0, 1.0)
+            s = e * lo + (1 - e) * g
+            ds = e * (-8.0 * u * lo * lo) + (1 - e) * (-2.0 * _G * u * g)
+    dx = x - c0
+    f = h * s + b0 + b1 * dx
+    k = 6 if profile == "pseudo_voigt" else 5
+    J = np.empty(x.shape + (k,))
+    wv = 1.0 if wgt is None else wgt
+    a = (-h / w) * ds * wv
+    J[..., 0] = a
+    J[..., 1] = a * u
+    J[..., 2] = s * wv
+    J[..., 3] = wv
+    J[..., 4] = dx * wv
+    if k == 6:
+        J[..., 5] = h * (lo - g) * wv
+    return f, J
 
 
 def guess_peaks(q, residual, index, width_points):
@@ -383,127 +403,138 @@ def fit_peaks(
     nxt[:, :-1] = np.where(good[:, 1:], idx[:, 1:], 10**9)
     lo_lim = np.maximum(ci - hw, (ci + prev[fi, pi]) // 2 + 1)
     hi_lim = np.minimum(ci + hw, (ci + nxt[fi, pi] + 1) // 2 - 1)
-    hpad = int(hw.max())
-    cols = ci[:, None] + np.arange(-hpad, hpad + 1)[None, :]
-    inside = (cols >= lo_lim[:, None]) & (cols <= hi_lim[:, None]) & (cols >= 0) & (cols < n_q)
-    cols_c = np.clip(cols, 0, n_q - 1)
-    x = q[cols_c]
-    y = r[fi[:, None], cols_c]
-    s = nz[fi[:, None], cols_c]
-    inside &= np.isfinite(y) & np.isfinite(s) & (s > 0)
-    wgt = np.where(inside, 1.0 / np.where(inside, s, 1.0), 0.0)
-    y = np.where(inside, y, 0.0)
-    n_pts = inside.sum(axis=1)
-    # starting values
-    c0 = q[ci]
-    dq = np.gradient(q)[ci] if n_q > 1 else np.ones_like(c0)
-    w0 = np.maximum(wpts * dq, 2 * dq)
-    edge = np.where(inside, y, np.inf).min(axis=1)
-    edge = np.where(np.isfinite(edge), edge, 0.0)
-    h0 = np.maximum(r[fi, ci] - edge, 1e-12)
-    k = 6 if profile == "pseudo_voigt" else 5
-    p = np.zeros((ci.size, k))
-    p[:, 0], p[:, 1], p[:, 2], p[:, 3] = c0, w0, h0, edge
-    if k == 6:
-        p[:, 5] = 0.5
-    cref = c0[:, None]
-    wmin = 0.25 * dq
-
-    def evaluate(par, sel):
-        f, J = _model(x[sel], par, profile, cref[sel])
-        res = (y[sel] - f) * wgt[sel]
-        return J * wgt[sel][..., None], res, np.einsum("nm,nm->n", res, res)
-
-    def normal(Jw_, res_):
-        Jt = np.swapaxes(Jw_, 1, 2)
-        return Jt @ Jw_, (Jt @ res_[..., None])[..., 0]
-
-    all_ = np.arange(ci.size)
-    Jw, res, chi = evaluate(p, all_)
-    lam = np.full(ci.size, 1e-3)
-    done = np.zeros(ci.size, dtype=bool)
-    eye = np.eye(k)
-    for _ in range(int(max_iter)):
-        act = np.nonzero(~done)[0]
-        if act.size == 0:
-            break
-        A, g = normal(Jw[act], res[act])
-        D = np.einsum("nkk->nk", A)
-        la = lam[act]
-        Ad = A + (la[:, None] * (D + 1e-12 * D.max(axis=1, keepdims=True) + 1e-300))[:, :, None] * eye
-        with np.errstate(all="ignore"):
-            try:
-                dp = np.linalg.solve(Ad, g[..., None])[..., 0]
-            except np.linalg.LinAlgError:
-                dp = np.stack([np.linalg.lstsq(a_, b_, rcond=None)[0] for a_, b_ in zip(Ad, g)])
-        dp = np.where(np.isfinite(dp), dp, 0.0)
-        pn = p[act] + dp
-        pn[:, 1] = np.maximum(pn[:, 1], wmin[act])
+    # peaks are solved in groups of similar window size, so padding stays small
+    all_f, all_p, all_c, all_w, all_h, all_lo, all_hi = fi, pi, ci, wpts, hw, lo_lim, hi_lim
+    cuts = np.minimum(np.percentile(all_h, [60, 95]).astype(int), hmax)
+    edges = np.unique(np.concatenate([[0], cuts, [hmax]]))
+    for g_lo, g_hi in zip(edges[:-1], edges[1:]):
+        g = np.nonzero((all_h > g_lo) & (all_h <= g_hi))[0]
+        if g.size == 0:
+            continue
+        fi, pi, ci, wpts, hw = all_f[g], all_p[g], all_c[g], all_w[g], all_h[g]
+        lo_lim, hi_lim = all_lo[g], all_hi[g]
+        hpad = int(hw.max())
+        cols = ci[:, None] + np.arange(-hpad, hpad + 1)[None, :]
+        inside = (cols >= lo_lim[:, None]) & (cols <= hi_lim[:, None]) & (cols >= 0) & (cols < n_q)
+        cols_c = np.clip(cols, 0, n_q - 1)
+        x = q[cols_c]
+        y = r[fi[:, None], cols_c]
+        s = nz[fi[:, None], cols_c]
+        inside &= np.isfinite(y) & np.isfinite(s) & (s > 0)
+        wgt = np.where(inside, 1.0 / np.where(inside, s, 1.0), 0.0)
+        y = np.where(inside, y, 0.0)
+        n_pts = inside.sum(axis=1)
+        # starting values
+        c0 = q[ci]
+        dq = np.gradient(q)[ci] if n_q > 1 else np.ones_like(c0)
+        w0 = np.maximum(wpts * dq, 2 * dq)
+        edge = np.where(inside, y, np.inf).min(axis=1)
+        edge = np.where(np.isfinite(edge), edge, 0.0)
+        h0 = np.maximum(r[fi, ci] - edge, 1e-12)
+        k = 6 if profile == "pseudo_voigt" else 5
+        p = np.zeros((ci.size, k))
+        p[:, 0], p[:, 1], p[:, 2], p[:, 3] = c0, w0, h0, edge
         if k == 6:
-            pn[:, 5] = np.clip(pn[:, 5], 0.0, 1.0)
-        Jn, rn, chin = evaluate(pn, act)
-        ch = chi[act]
-        better = chin < ch
-        upd = act[better]
-        p[upd] = pn[better]
-        Jw[upd] = Jn[better]
-        res[upd] = rn[better]
-        tiny = (ch - chin) <= 1e-9 * np.maximum(ch, 1e-300)
-        chi[upd] = chin[better]
-        lam[act] = np.where(better, np.maximum(la / 3.0, 1e-9), la * 4.0)
-        done[act] = (better & tiny) | (lam[act] > 1e8) | (np.abs(dp[:, 0]) <= 1e-9 * np.abs(p[act, 0]))
-    A, _ = normal(Jw, res)
-    dof = np.maximum(n_pts - k, 1)
-    redchi = chi / dof
-    with np.errstate(all="ignore"):
-        det_ok = np.isfinite(A).all(axis=(1, 2)) & (np.abs(np.linalg.det(A)) > 0)
-        cov = np.full_like(A, np.nan)
-        if det_ok.any():
-            cov[det_ok] = np.linalg.inv(A[det_ok])
-        cov *= redchi[:, None, None]
-        err = np.sqrt(np.einsum("nkk->nk", cov))
-    c, w, h = p[:, 0], np.abs(p[:, 1]), p[:, 2]
-    if profile == "gaussian":
-        af = np.full_like(c, np.sqrt(np.pi / _G))
-        deta = np.zeros_like(c)
-    elif profile == "lorentzian":
-        af = np.full_like(c, np.pi / 2.0)
-        deta = np.zeros_like(c)
-    else:
-        e = p[:, 5]
-        af = e * np.pi / 2.0 + (1 - e) * np.sqrt(np.pi / _G)
-        deta = h * w * (np.pi / 2.0 - np.sqrt(np.pi / _G))
-    area = af * h * w
-    grad = np.zeros((ci.size, k))
-    grad[:, 1] = af * h
-    grad[:, 2] = af * w
-    if k == 6:
-        grad[:, 5] = deta
-    with np.errstate(all="ignore"):
-        area_sig = np.sqrt(np.einsum("nk,nkl,nl->n", grad, cov, grad))
-    span = hmax * dq
-    valid = (
-        np.isfinite(p).all(axis=1)
-        & (h > 0)
-        & (np.abs(c - c0) < np.maximum(hw, 2) * dq)
-        & (w < 2 * span + 4 * dq)
-        & (n_pts > k)
-        & np.isfinite(err[:, 0])
-    )
-    for name, val in (
-        ("position", c),
-        ("fwhm", w),
-        ("height", h),
-        ("area", area),
-        ("position_sigma", err[:, 0]),
-        ("fwhm_sigma", err[:, 1]),
-        ("height_sigma", err[:, 2]),
-        ("area_sigma", area_sig),
-        ("redchi", redchi),
-    ):
-        out[name][fi, pi] = np.where(valid, val, np.nan)
-    if k == 6:
-        out["eta"][fi, pi] = np.where(valid, p[:, 5], np.nan)
+            p[:, 5] = 0.5
+        cref = c0[:, None]
+        wmin = 0.25 * dq
+
+        def evaluate(par, sel, x=x, y=y, wgt=wgt, cref=cref):
+            ws = wgt[sel]
+            f, Jw_ = _model(x[sel], par, profile, cref[sel], ws)
+            res = (y[sel] - f) * ws
+            return Jw_, res, np.einsum("nm,nm->n", res, res)
+
+        def normal(Jw_, res_):
+            Jt = np.swapaxes(Jw_, 1, 2)
+            return Jt @ Jw_, (Jt @ res_[..., None])[..., 0]
+
+        all_ = np.arange(ci.size)
+        Jw, res, chi = evaluate(p, all_)
+        lam = np.full(ci.size, 1e-3)
+        done = np.zeros(ci.size, dtype=bool)
+        eye = np.eye(k)
+        for _ in range(int(max_iter)):
+            act = np.nonzero(~done)[0]
+            if act.size == 0:
+                break
+            A, g = normal(Jw[act], res[act])
+            D = np.einsum("nkk->nk", A)
+            la = lam[act]
+            Ad = A + (la[:, None] * (D + 1e-12 * D.max(axis=1, keepdims=True) + 1e-300))[:, :, None] * eye
+            with np.errstate(all="ignore"):
+                try:
+                    dp = np.linalg.solve(Ad, g[..., None])[..., 0]
+                except np.linalg.LinAlgError:
+                    dp = np.stack([np.linalg.lstsq(a_, b_, rcond=None)[0] for a_, b_ in zip(Ad, g)])
+            dp = np.where(np.isfinite(dp), dp, 0.0)
+            pn = p[act] + dp
+            pn[:, 1] = np.maximum(pn[:, 1], wmin[act])
+            if k == 6:
+                pn[:, 5] = np.clip(pn[:, 5], 0.0, 1.0)
+            Jn, rn, chin = evaluate(pn, act)
+            ch = chi[act]
+            better = chin < ch
+            upd = act[better]
+            p[upd] = pn[better]
+            Jw[upd] = Jn[better]
+            res[upd] = rn[better]
+            tiny = (ch - chin) <= 1e-9 * np.maximum(ch, 1e-300)
+            chi[upd] = chin[better]
+            lam[act] = np.where(better, np.maximum(la / 3.0, 1e-9), la * 4.0)
+            done[act] = (better & tiny) | (lam[act] > 1e8) | (np.abs(dp[:, 0]) <= 1e-9 * np.abs(p[act, 0]))
+        A, _ = normal(Jw, res)
+        dof = np.maximum(n_pts - k, 1)
+        redchi = chi / dof
+        with np.errstate(all="ignore"):
+            det_ok = np.isfinite(A).all(axis=(1, 2)) & (np.abs(np.linalg.det(A)) > 0)
+            cov = np.full_like(A, np.nan)
+            if det_ok.any():
+                cov[det_ok] = np.linalg.inv(A[det_ok])
+            cov *= redchi[:, None, None]
+            err = np.sqrt(np.einsum("nkk->nk", cov))
+        c, w, h = p[:, 0], np.abs(p[:, 1]), p[:, 2]
+        if profile == "gaussian":
+            af = np.full_like(c, np.sqrt(np.pi / _G))
+            deta = np.zeros_like(c)
+        elif profile == "lorentzian":
+            af = np.full_like(c, np.pi / 2.0)
+            deta = np.zeros_like(c)
+        else:
+            e = p[:, 5]
+            af = e * np.pi / 2.0 + (1 - e) * np.sqrt(np.pi / _G)
+            deta = h * w * (np.pi / 2.0 - np.sqrt(np.pi / _G))
+        area = af * h * w
+        grad = np.zeros((ci.size, k))
+        grad[:, 1] = af * h
+        grad[:, 2] = af * w
+        if k == 6:
+            grad[:, 5] = deta
+        with np.errstate(all="ignore"):
+            area_sig = np.sqrt(np.einsum("nk,nkl,nl->n", grad, cov, grad))
+        span = hmax * dq
+        valid = (
+            np.isfinite(p).all(axis=1)
+            & (h > 0)
+            & (np.abs(c - c0) < np.maximum(hw, 2) * dq)
+            & (w < 2 * span + 4 * dq)
+            & (n_pts > k)
+            & np.isfinite(err[:, 0])
+        )
+        for name, val in (
+            ("position", c),
+            ("fwhm", w),
+            ("height", h),
+            ("area", area),
+            ("position_sigma", err[:, 0]),
+            ("fwhm_sigma", err[:, 1]),
+            ("height_sigma", err[:, 2]),
+            ("area_sigma", area_sig),
+            ("redchi", redchi),
+        ):
+            out[name][fi, pi] = np.where(valid, val, np.nan)
+        if k == 6:
+            out["eta"][fi, pi] = np.where(valid, p[:, 5], np.nan)
     return out
 
 
