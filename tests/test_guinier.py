@@ -198,3 +198,88 @@ def test_demo_flow_growth_truth():
     # the curvature bias of the chosen windows on Schulz spheres (~0.2 % measured). 1 %
     # leaves a margin of several times that bias.
     assert err.max() < 0.01
+
+
+# ------------------------------------------------------------------ the .saxs accessor
+@pytest.fixture
+def series(rng):
+    import saxsnb
+
+    q, I, s, rg_true = _noisy_schulz(rng, n=8)
+    ds = saxsnb.from_arrays(q, I, s, scan={"temperature": np.linspace(20.0, 55.0, 8)}, intensity_unit="1/cm")
+    return ds, rg_true
+
+
+def test_accessor_guinier_dataset(series):
+    ds, rg_true = series
+    before = ds.copy(deep=True)
+    res = ds.saxs.guinier()
+    assert ds.identical(before)  # the input is not modified
+    assert res.rg.dims == ("frame",) and "temperature" in res.coords
+    assert res.rg.attrs["units"] == "nm" and res.i0.attrs["units"] == "1/cm"
+    assert res.qrg_max.attrs["units"] == "1" and res.q_min.attrs["units"] == "1/nm"
+    assert res.attrs["operation"] == "guinier" and '"shape": "compact"' in res.attrs["parameters"]
+    direct = guinier_fit(ds.q.values, ds.intensity.values, ds.sigma.values)
+    np.testing.assert_array_equal(res.rg.values, direct["rg"])
+    import matplotlib
+
+    matplotlib.use("Agg")
+    res.rg.plot(x="temperature")  # trends over the scan just work
+
+
+def test_accessor_dask_equals_in_memory(series):
+    pytest.importorskip("dask")
+    ds, _ = series
+    lazy = ds.chunk({"frame": 3})
+    for kwargs in ({}, {"q_range": (0.02, 0.15)}):
+        eager = ds.saxs.guinier(**kwargs)
+        res = lazy.saxs.guinier(**kwargs)
+        assert res.rg.chunks is not None
+        res = res.compute()
+        for v in eager.data_vars:
+            assert np.array_equal(res[v].values, eager[v].values, equal_nan=res[v].dtype.kind == "f"), v
+
+
+def test_accessor_per_frame_range_mask_and_errors(series):
+    import xarray as xr
+
+    from saxsnb.errors import SaxsFitError
+
+    ds, _ = series
+    ranges = np.tile([0.02, 0.15], (8, 1))
+    ranges[2] = [0.02, 0.1]
+    res = ds.saxs.guinier(q_range=ranges)
+    direct = guinier_fit(ds.q.values, ds.intensity.values, ds.sigma.values, q_range=ranges)
+    np.testing.assert_array_equal(res.rg.values, direct["rg"])
+    res_da = ds.saxs.guinier(q_range=xr.DataArray(ranges, dims=("frame", "bound")))
+    np.testing.assert_array_equal(res_da.rg.values, direct["rg"])
+    masked = ds.assign(mask=(("frame", "q"), np.zeros(ds.intensity.shape, bool)))
+    masked["mask"][4, :] = True
+    out = masked.saxs.guinier()
+    assert out.status.values[4] == "all_nan" and np.isnan(out.rg.values[4])
+    with pytest.raises(SaxsFitError, match=r"frame 4 \(temperature = 40.0 degC\).*all_nan") as err:
+        masked.saxs.guinier(errors="raise")
+    assert err.value.frame == 4 and err.value.parameter == "intensity"
+    with pytest.raises(SaxsFitError, match="q_range"):
+        ds.saxs.guinier(q_range=(5.0, 6.0), errors="raise")
+    with pytest.raises(SaxsInputError, match="errors"):
+        ds.saxs.guinier(errors="sometimes")
+    with pytest.raises(SaxsInputError, match="q_range"):
+        ds.saxs.guinier(q_range=np.zeros((3, 2)))
+
+
+def test_accessor_rod_with_length():
+    import saxsnb
+
+    q_lo = np.linspace(0.002, 0.8 / 8.7, 60)
+    q_hi = np.linspace(0.4, 1.2, 40)
+    q = np.concatenate([q_lo, q_hi])
+    I = cylinder(q, 1.0, 30.0)
+    ds = saxsnb.from_arrays(q, I, 1e-4 * I)
+    g = ds.saxs.guinier(q_range=(0.0, 0.1))
+    rod = ds.saxs.guinier(q_range=(0.4, 1.2), shape="rod", rg=g)
+    assert rod.length.attrs["units"] == "nm"
+    assert rod.length.values[0] == pytest.approx(30.0, rel=0.03)  # [mem] relation, loose
+    assert "rg" not in rod.data_vars
+    # finite length (q L = 12 .. 36) still bends ln(q I): radius only to a few %
+    assert rod.radius.values[0] == pytest.approx(1.0, rel=0.06)

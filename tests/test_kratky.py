@@ -77,3 +77,23 @@ def test_noisy_peak_and_batch_equals_loop(rng):
         one = kratky_summary(Q, I[f], rg=rg[f], i0=5.0)
         for key, v in s.items():
             assert np.array_equal(v[f : f + 1], one[key], equal_nan=v.dtype.kind == "f"), key
+
+
+def test_accessor_kratky(rng):
+    import saxsnb
+
+    rg = np.array([1.5, 2.0])
+    I = 3.0 * np.exp(-((Q[None, :] * rg[:, None]) ** 2) / 3)
+    ds = saxsnb.from_arrays(Q, I, 0.001 * I, scan={"denaturant": [0.0, 1.0]}, intensity_unit="1/cm")
+    k = ds.saxs.kratky()
+    assert k.dims == ("frame", "q") and k.attrs["units"] == "1/cm 1/nm^2" and "denaturant" in k.coords
+    np.testing.assert_allclose(k.values, Q**2 * I)
+    d = ds.saxs.kratky("rg")
+    assert d.attrs["units"] == "1"
+    np.testing.assert_allclose(d.values.max(axis=1), 3 / np.e, rtol=1e-4)  # Durand et al. (2010)
+    s = ds.saxs.kratky_summary()
+    assert s.shape_class.values.tolist() == ["bell", "bell"]
+    np.testing.assert_allclose(s.peak_qrg.values, np.sqrt(3), atol=1e-3)
+    assert s.peak_qrg.attrs["units"] == "1" and s.rg.attrs["units"] == "nm"
+    with pytest.raises(SaxsInputError, match="normalize"):
+        ds.saxs.kratky("i0")

@@ -29,7 +29,14 @@ from scipy import special
 from ..errors import SaxsInputError
 from .linear import index_range, weighted_linear_fit
 
-__all__ = ["default_porod_range", "power_law_fit", "porod_fit", "invariant", "guinier_integrals"]
+__all__ = [
+    "default_porod_range",
+    "power_law_fit",
+    "porod_fit",
+    "porod_analysis",
+    "invariant",
+    "guinier_integrals",
+]
 
 _STATUS_DTYPE = "<U24"
 
@@ -265,6 +272,36 @@ def porod_fit(q, intensity, sigma=None, *, q_range=None, background="fit") -> di
         "q_max": np.where(keep, q_hi, nan),
         "status": status,
     }
+
+
+def porod_analysis(q, intensity, sigma=None, *, q_range=None, background="fit") -> dict:
+    """:func:`porod_fit` and :func:`power_law_fit` on the same range, in one call.
+
+    The exponent is fitted on I - B with B the *given* background, or on I itself when
+    the background is fitted (the fitted B presumes the exponent 4, so using it to
+    measure the exponent would be circular).
+
+    Returns
+    -------
+    The dict of :func:`porod_fit`, plus ``exponent``, ``exponent_sigma``,
+    ``prefactor``, ``prefactor_sigma``, ``exponent_chi2_reduced`` and
+    ``exponent_status`` from :func:`power_law_fit`.
+
+    Examples
+    --------
+    >>> q = np.linspace(2.0, 4.0, 50)
+    >>> r = porod_analysis(q, 3.0 / q**4, q_range=(2.0, 4.0), background=0.0)
+    >>> round(float(r["exponent"][0]), 9), round(float(r["porod_constant"][0]), 9)
+    (4.0, 3.0)
+    """
+    out = porod_fit(q, intensity, sigma, q_range=q_range, background=background)
+    given = 0.0 if isinstance(background, str) else background
+    pl = power_law_fit(q, intensity, sigma, q_range=q_range, background=given)
+    for key in ("exponent", "exponent_sigma", "prefactor", "prefactor_sigma"):
+        out[key] = pl[key]
+    out["exponent_chi2_reduced"] = pl["chi2_reduced"]
+    out["exponent_status"] = pl["status"]
+    return out
 
 
 def guinier_integrals(a, s):
