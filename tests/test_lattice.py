@@ -238,3 +238,34 @@ def test_demo_outputs_layout_and_round_trip(demo_result, tmp_path):
     assert "Bonnet" in text and "coexistence" in text
     idx.to_netcdf(tmp_path / "idx.nc")
     pm.to_netcdf(tmp_path / "pm.nc")
+
+
+def test_batch_equals_loop_without_prior(rng):
+    pos, truth = _frames(rng)
+    sig = np.full(pos.shape, 2e-4) * pos
+    batch = index_peaks(pos, sig, use_scan_prior=False)
+    for i in range(0, len(pos), 5):
+        one = index_peaks(pos[i : i + 1], sig[i : i + 1], use_scan_prior=False)
+        for key in ("phase", "hkl", "status", "alternative"):
+            assert one[key][0].tolist() == batch[key][i].tolist()
+        assert np.allclose(one["lattice"][0], batch["lattice"][i], equal_nan=True)
+
+
+def test_accessor_bad_frames_and_dask(rng):
+    qs = pattern_positions("hexagonal", 6.0)[:4]
+    good, S = curve(qs, [100, 40, 30, 10], rng=rng)
+    single, _ = curve(qs[:1], [100], rng=rng)
+    flat, _ = curve([], [], rng=rng)
+    nan = np.full(Q.size, np.nan)
+    I = np.array([good, single, flat, nan, good])
+    ds = saxsnb.from_arrays(Q, I, np.array([S] * 5), scan={"temperature": [20.0, 21, 22, 23, 24]})
+    idx = ds.saxs.index_phases()
+    assert idx["status"].values.tolist() == [
+        "ok", "not_enough_peaks_to_index", "no_peaks", "no_data", "ok"]
+    assert idx["phase"].values[:, 0].tolist() == ["hexagonal", "", "", "", "hexagonal"]
+    pm = ds.saxs.phase_map(idx)
+    assert pm["known"].values.tolist() == [True, False, True, False, True]
+    # the dask-chunked series gives the same answer (peaks per chunk, then in memory)
+    idx_d = ds.chunk({"frame": 2}).saxs.index_phases()
+    assert idx_d["phase"].values.tolist() == idx["phase"].values.tolist()
+    assert np.allclose(idx_d["lattice"].values, idx["lattice"].values, equal_nan=True)

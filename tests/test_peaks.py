@@ -124,3 +124,15 @@ def test_accessor_units_dask_and_tracks(rng):
     assert lazy["position"].chunks is not None
     assert np.allclose(lazy["position"].values, pk["position"].values, equal_nan=True)
     assert np.all(ds["intensity"].values == I)  # input untouched
+
+
+def test_blocks_equal_one_pass(rng):
+    pos, I, S = _series(rng, 5)
+    one = find_peaks(Q, I, S)
+    blocks = find_peaks(Q, I, S, block=2)
+    for key in ("position", "position_sigma", "area", "n_peaks"):
+        assert np.allclose(one[key], blocks[key], equal_nan=True)
+    I = I.copy()
+    I[3] = np.nan
+    with pytest.raises(SaxsFitError, match="frame 3"):
+        find_peaks(Q, I, S, block=2, errors="raise")

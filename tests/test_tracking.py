@@ -1,6 +1,9 @@
 """Linking peaks across frames (saxsnb.analysis.tracking)."""
 
 import numpy as np
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
 from scipy.optimize import linear_sum_assignment
 
 from saxsnb.analysis.tracking import link_peaks
@@ -54,3 +57,27 @@ def test_labels_split_tracks():
     lab = np.array([["Pn3m 110"], ["Pn3m 110"], ["Im3m 110"]])
     track, _ = link_peaks(pos, np.full(pos.shape, 1e-3), labels=lab)
     assert track[:, 0].tolist() == [0, 0, 1]
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    arrays(float, (8, 5), elements=st.one_of(st.just(np.nan), st.floats(0.5, 3.0))),
+    st.floats(1e-4, 1e-2),
+)
+def test_track_invariants(pos, sig):
+    track, prev = link_peaks(pos, np.full(pos.shape, sig), np.full(pos.shape, 0.02))
+    ok = np.isfinite(pos)
+    assert ((track >= 0) == ok).all()
+    # one peak per track per frame; numbers 0..n-1
+    for t in range(pos.shape[0]):
+        got = track[t][ok[t]]
+        assert len(set(got.tolist())) == got.size
+    ids = sorted(set(track[ok].tolist()))
+    assert ids == list(range(len(ids)))
+    # every link is inside its gate and joins peaks of the same track
+    for t in range(1, pos.shape[0]):
+        for j in np.nonzero(prev[t] >= 0)[0]:
+            i = prev[t, j]
+            gate = max(5 * np.hypot(sig, sig), 0.5 * 0.02)
+            assert abs(pos[t, j] - pos[t - 1, i]) <= gate + 1e-12
+            assert track[t, j] == track[t - 1, i]

@@ -551,6 +551,7 @@ def find_peaks(
     baseline_width: float | None = None,
     min_separation: int = 3,
     errors: str = "ignore",
+    block: int = 512,
 ):
     """Find and fit the Bragg peaks of every frame.
 
@@ -569,6 +570,9 @@ def find_peaks(
     min_separation : int, points.
     errors : "ignore" (per-frame status) or "raise" (:class:`SaxsFitError` for a
         frame without usable data).
+    block : int
+        Frames processed together; larger series are done block by block (a loop
+        over blocks, not frames, that keeps the work arrays in cache).
 
     Returns
     -------
@@ -592,6 +596,19 @@ def find_peaks(
     >>> np.round(res["position"][0, :2], 4).tolist(), int(res["n_peaks"][0])
     ([1.2, 2.4], 2)
     """
+    I_all = np.atleast_2d(np.asarray(intensity, dtype=float))
+    if I_all.shape[0] > block > 0:
+        S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
+        opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
+                    baseline_width=baseline_width, min_separation=min_separation, errors=errors, block=0)
+        parts = []
+        for b0 in range(0, I_all.shape[0], block):
+            sl = slice(b0, b0 + block)
+            try:
+                parts.append(find_peaks(q, I_all[sl], None if S_all is None else S_all[sl], **opts))
+            except SaxsFitError as exc:
+                raise SaxsFitError(str(exc).split(" [")[0], frame=b0 + int(exc.frame)) from None
+        return {k: np.concatenate([p[k] for p in parts], axis=0) for k in parts[0]}
     if errors not in ("ignore", "raise"):
         raise SaxsInputError("errors must be 'ignore' or 'raise'", parameter="errors")
     if profile not in PROFILES:
