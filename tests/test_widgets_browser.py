@@ -14,7 +14,7 @@ from saxsnb.widgets import CurvePanel, SeriesBrowser, explore
 def series(rng):
     q = np.linspace(0.05, 3.0, 120)
     rg = np.linspace(2.0, 4.0, 12)
-    I = 100 * np.exp(-(q[None, :] * rg[:, None]) ** 2 / 3) + 0.5  # Guinier form, Guinier (1939)
+    I = 100 * np.exp(-((q[None, :] * rg[:, None]) ** 2) / 3) + 0.5  # Guinier form, Guinier (1939)
     S = 0.01 * I
     I = I + rng.normal(0, 1, I.shape) * S
     ds = saxsnb.from_arrays(q, I, S, scan={"temperature": np.linspace(20.0, 75.0, 12)})

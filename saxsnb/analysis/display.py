@@ -12,7 +12,19 @@ import numpy as np
 
 from ..errors import SaxsInputError
 
-__all__ = ["overview_map", "errorbar_segments", "positive_range", "linear_x", "q_from_linear_x", "LINEAR_X"]
+__all__ = [
+    "overview_map",
+    "errorbar_segments",
+    "positive_range",
+    "linear_x",
+    "q_from_linear_x",
+    "LINEAR_X",
+    "line_coefficients",
+    "line_residuals",
+    "KRATKY_REFERENCES",
+    "scaled_q",
+    "curve_at",
+]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
 #: the Porod plot q^4 I against q^4 uses q^4).
@@ -55,8 +67,9 @@ def overview_map(q, intensity, *, max_rows: int = 400, max_cols: int = 400) -> d
     q = np.asarray(q, dtype=float)
     I = np.asarray(intensity, dtype=float)
     if I.ndim != 2 or I.shape[1] != q.size:
-        raise SaxsInputError(f"intensity has shape {I.shape}; expected (n_frames, {q.size})",
-                             parameter="intensity")
+        raise SaxsInputError(
+            f"intensity has shape {I.shape}; expected (n_frames, {q.size})", parameter="intensity"
+        )
     n_f, n_q = I.shape
     rows = _block_edges(n_f, max_rows)
     cols = _block_edges(n_q, max_cols)
@@ -71,8 +84,11 @@ def overview_map(q, intensity, *, max_rows: int = 400, max_cols: int = 400) -> d
         lq = np.where(qpos, np.log(np.where(qpos, q, 1.0)), 0.0)
         qsum = np.add.reduceat(lq, cols)
         qcount = np.add.reduceat(qpos.astype(float), cols)
-        qmean = np.where(qcount > 0, np.exp(qsum / np.where(qcount > 0, qcount, 1.0)),
-                         np.add.reduceat(q, cols) / np.diff(np.append(cols, n_q)))
+        qmean = np.where(
+            qcount > 0,
+            np.exp(qsum / np.where(qcount > 0, qcount, 1.0)),
+            np.add.reduceat(q, cols) / np.diff(np.append(cols, n_q)),
+        )
     return {
         "log10_intensity": mean,
         "q": qmean,
@@ -141,8 +157,7 @@ def q_from_linear_x(x, kind: str):
 
 def _power(kind: str) -> int:
     if kind not in LINEAR_X:
-        raise SaxsInputError(f"unknown linear plot {kind!r}; use one of {sorted(LINEAR_X)}",
-                             parameter="kind")
+        raise SaxsInputError(f"unknown linear plot {kind!r}; use one of {sorted(LINEAR_X)}", parameter="kind")
     return LINEAR_X[kind]
 
 
@@ -170,3 +185,108 @@ def positive_range(values, *, lower: float = 0.05, upper: float = 99.95, pad: fl
         return (1e-3, 1.0)
     lo, hi = np.percentile(a, [lower, upper])
     return (float(lo / pad), float(hi * pad))
+
+
+#: Guinier law per linear plot: R^2 = -k * slope (Guinier 1939; see analysis.guinier).
+_GUINIER_K = {"guinier": 3.0, "rod": 2.0, "sheet": 1.0}
+
+
+def line_coefficients(kind: str, values: dict) -> tuple[float, float]:
+    """Intercept and slope of the straight line behind a fit result, in plot coordinates.
+
+    Parameters
+    ----------
+    kind : {"guinier", "rod", "sheet", "porod"}
+    values : mapping of result name -> float
+        A Guinier result: ``intercept`` and ``slope`` when present, else ``i0`` and the
+        size (``rg``, ``rc`` or ``rt``) with ln i0 = intercept and size^2 = -k slope
+        (k = 3, 2, 1). A Porod result: ``porod_constant`` (intercept of q^4 I against
+        q^4) and ``background`` (slope).
+
+    Returns
+    -------
+    (intercept, slope) floats (NaN when the fit failed).
+
+    >>> line_coefficients("guinier", {"i0": float(np.e), "rg": 3.0})
+    (1.0, -3.0)
+    >>> line_coefficients("porod", {"porod_constant": 2.0, "background": 0.1})
+    (2.0, 0.1)
+    """
+    if kind == "porod":
+        return float(values.get("porod_constant", np.nan)), float(values.get("background", np.nan))
+    if "intercept" in values and "slope" in values:
+        return float(values["intercept"]), float(values["slope"])
+    size = {"guinier": "rg", "rod": "rc", "sheet": "rt"}[kind]
+    i0, r = float(values.get("i0", np.nan)), float(values.get(size, np.nan))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return float(np.log(i0)) if i0 > 0 else np.nan, -(r * r) / _GUINIER_K[kind]
+
+
+def line_residuals(x, y, sigma_y, intercept: float, slope: float):
+    """The straight line ``intercept + slope x`` and normalised residuals.
+
+    Returns
+    -------
+    line : array like ``x``
+    residual : array, ``(y - line) / sigma_y`` (``y - line`` when ``sigma_y`` is None)
+
+    >>> x, y, sy = np.array([0.0, 1.0]), np.array([1.0, 0.0]), np.array([0.5, 0.5])
+    >>> line, res = line_residuals(x, y, sy, 1.0, -0.5)
+    >>> line.tolist(), res.tolist()
+    ([1.0, 0.5], [0.0, -1.0])
+    """
+    x = np.asarray(x, dtype=float)
+    line = intercept + slope * x
+    diff = np.asarray(y, dtype=float) - line
+    if sigma_y is None:
+        return line, diff
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return line, diff / np.asarray(sigma_y, dtype=float)
+
+
+#: Reference levels of the dimensionless Kratky plot (q Rg)^2 I / I0: the Guinier form
+#: exp(-(q Rg)^2 / 3) peaks at q Rg = sqrt(3) with height 3/e (Durand et al. 2010,
+#: J. Struct. Biol. 169, 45); the Gaussian chain tends to the plateau 2 (Debye 1947,
+#: J. Phys. Colloid Chem. 51, 18).
+KRATKY_REFERENCES = {
+    "globule_peak_qrg": float(np.sqrt(3.0)),
+    "globule_peak_height": float(3.0 / np.e),
+    "chain_plateau": 2.0,
+}
+
+
+def scaled_q(q, size):
+    """q times a size for each frame (the abscissa q Rg of a dimensionless plot).
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    size : array (n_frames,), nm
+
+    Returns
+    -------
+    array (n_frames, n_q), dimensionless (NaN rows where ``size`` is NaN).
+
+    >>> scaled_q(np.array([0.5, 1.0]), np.array([2.0])).tolist()
+    [[1.0, 2.0]]
+    """
+    return np.asarray(q, dtype=float)[None, :] * np.asarray(size, dtype=float).reshape(-1, 1)
+
+
+def curve_at(q, intensity, positions):
+    """Intensity of one curve at given q positions (linear interpolation, for markers).
+
+    Parameters
+    ----------
+    q : array (n_q,), increasing
+    intensity : array (n_q,)
+    positions : array (n,), NaN allowed (gives NaN)
+
+    >>> curve_at(np.array([1.0, 2.0]), np.array([10.0, 20.0]), np.array([1.5, np.nan])).tolist()
+    [15.0, nan]
+    """
+    p = np.asarray(positions, dtype=float)
+    out = np.interp(
+        np.where(np.isfinite(p), p, 0.0), np.asarray(q, dtype=float), np.asarray(intensity, dtype=float)
+    )
+    return np.where(np.isfinite(p), out, np.nan)

@@ -28,6 +28,16 @@ from bqplot import (  # noqa: E402
 from bqplot.interacts import BrushIntervalSelector  # noqa: E402
 
 __all__ = [
-    "Axis", "ColorAxis", "ColorScale", "Figure", "GridHeatMap", "HeatMap", "Label", "Lines",
-    "LinearScale", "LogScale", "Scatter", "BrushIntervalSelector",
+    "Axis",
+    "ColorAxis",
+    "ColorScale",
+    "Figure",
+    "GridHeatMap",
+    "HeatMap",
+    "Label",
+    "Lines",
+    "LinearScale",
+    "LogScale",
+    "Scatter",
+    "BrushIntervalSelector",
 ]

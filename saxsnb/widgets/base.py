@@ -112,15 +112,19 @@ class PanelBase(widgets.VBox):
         self.figures: list[bq.Figure] = []
         self.heading = widgets.HTML(f"<b>{html.escape(self.title)}</b>")
         self.status_line = widgets.HTML("", layout=widgets.Layout(min_height="1.5em"))
-        self.export_button = widgets.Button(description="Export code", icon="code",
-                                            tooltip="Show Python code that reproduces this result")
-        self.code_area = widgets.Textarea(
-            "", layout=widgets.Layout(width="100%", height="9em", display="none"),
+        self.export_button = widgets.Button(
+            description="Export code", icon="code", tooltip="Show Python code that reproduces this result"
         )
-        self.png_button = widgets.Button(description="PNG", icon="download",
-                                         tooltip="Save the main figure as PNG (in the browser)")
-        self.svg_button = widgets.Button(description="SVG", icon="download",
-                                         tooltip="Save the main figure as SVG (in the browser)")
+        self.code_area = widgets.Textarea(
+            "",
+            layout=widgets.Layout(width="100%", height="9em", display="none"),
+        )
+        self.png_button = widgets.Button(
+            description="PNG", icon="download", tooltip="Save the main figure as PNG (in the browser)"
+        )
+        self.svg_button = widgets.Button(
+            description="SVG", icon="download", tooltip="Save the main figure as SVG (in the browser)"
+        )
         for b in (self.export_button, self.png_button, self.svg_button):
             b.layout = widgets.Layout(width="auto")
         self.export_button.on_click(lambda _b: self.show_code())
@@ -129,7 +133,6 @@ class PanelBase(widgets.VBox):
         body = self._build()
         tools = widgets.HBox([self.export_button, self.png_button, self.svg_button])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
-        self.observe(self._show_status, "status")
         self.observe(self._handle_frame, "frame")
         self.layout.border = "1px solid #dddddd"
         self.layout.padding = "4px"
@@ -196,6 +199,7 @@ class PanelBase(widgets.VBox):
         prefix = f"{what}: " if what else ""
         self.status = f"{prefix}{type(exc).__name__}: {exc}"
 
+    @traitlets.observe("status")
     def _show_status(self, change) -> None:
         text = change["new"]
         if text:
@@ -270,15 +274,20 @@ def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
             continue
         if isinstance(mark, bq.HeatMap):
             c = np.asarray(mark.color, dtype=float)
-            mesh = ax.pcolormesh(np.asarray(mark.x), np.asarray(mark.y), c, shading="nearest",
-                                 cmap="viridis")
+            mesh = ax.pcolormesh(np.asarray(mark.x), np.asarray(mark.y), c, shading="nearest", cmap="viridis")
             ax.figure.colorbar(mesh, ax=ax, label="log10 I")
         elif isinstance(mark, bq.GridHeatMap):
             continue  # transparent click targets
         elif isinstance(mark, bq.Label):
             for x, y, t in zip(np.atleast_1d(mark.x), np.atleast_1d(mark.y), mark.text):
-                ax.annotate(str(t), (float(x), float(y)), fontsize=7, ha="center", va="bottom",
-                            color=(mark.colors or ["black"])[0])
+                ax.annotate(
+                    str(t),
+                    (float(x), float(y)),
+                    fontsize=7,
+                    ha="center",
+                    va="bottom",
+                    color=(mark.colors or ["black"])[0],
+                )
         elif isinstance(mark, bq.Scatter):
             x, y = np.atleast_1d(mark.x), np.atleast_1d(mark.y)
             if x.size == 0:
@@ -289,7 +298,8 @@ def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
                 col = [colors[i] for i in idx]
             else:
                 col = colors[0]
-            ax.scatter(x, y, s=12, c=col, label=mark.labels[0] if mark.labels else None)
+            label = mark.labels[0] if mark.labels and mark.display_legend else None
+            ax.scatter(x, y, s=max(12.0, 1.2 * mark.default_size), c=col, label=label)
         elif isinstance(mark, bq.Lines):
             x, y = np.asarray(mark.x, dtype=float), np.asarray(mark.y, dtype=float)
             if x.size == 0 or y.size == 0:
@@ -300,8 +310,16 @@ def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
             style = {"solid": "-", "dashed": "--", "dotted": ":", "dash_dotted": "-."}[mark.line_style]
             for k, (xx, yy) in enumerate(zip(xs, ys)):
                 label = mark.labels[k] if k < len(mark.labels) and mark.display_legend else None
-                ax.plot(xx, yy, style, color=colors[k % len(colors)], lw=1.2,
-                        marker="o" if mark.marker else None, ms=3, label=label)
+                ax.plot(
+                    xx,
+                    yy,
+                    style,
+                    color=colors[k % len(colors)],
+                    lw=1.2,
+                    marker="o" if mark.marker else None,
+                    ms=0.7 * np.sqrt(mark.marker_size),
+                    label=label,
+                )
     for axis in fig.axes:
         if isinstance(axis, bq.ColorAxis):
             continue

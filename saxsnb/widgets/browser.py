@@ -59,17 +59,26 @@ class SeriesBrowser(PanelBase):
     # ---------------------------------------------------------------- build
     def _build(self):
         n = self.n_frames
-        self.slider = widgets.IntSlider(value=0, min=0, max=max(n - 1, 0), step=1, description="frame",
-                                        continuous_update=True, readout=True,
-                                        layout=widgets.Layout(width="60%"))
-        self.play = widgets.Play(value=0, min=0, max=max(n - 1, 0), step=1, interval=250,
-                                 description="Play through the frames")
+        self.slider = widgets.IntSlider(
+            value=0,
+            min=0,
+            max=max(n - 1, 0),
+            step=1,
+            description="frame",
+            continuous_update=True,
+            readout=True,
+            layout=widgets.Layout(width="60%"),
+        )
+        self.play = widgets.Play(
+            value=0, min=0, max=max(n - 1, 0), step=1, interval=250, description="Play through the frames"
+        )
         widgets.jslink((self.play, "value"), (self.slider, "value"))
         widgets.link((self.slider, "value"), (self, "frame"))
         self.label = widgets.HTML("")
 
-        omap = overview_map(self.q, self.ds["intensity"].values, max_rows=self._max_rows,
-                            max_cols=self._max_cols)
+        omap = overview_map(
+            self.q, self.ds["intensity"].values, max_rows=self._max_rows, max_cols=self._max_cols
+        )
         self.overview = omap
         centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
         y = self.scan_values[centre] if self._monotonic() else centre.astype(float)
@@ -82,34 +91,57 @@ class SeriesBrowser(PanelBase):
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LinearScale()
         cs = bq.ColorScale(scheme=MAP_SCHEME)
-        self.heatmap = bq.HeatMap(x=omap["q"], y=self._row_y, color=logmap,
-                                  scales={"x": xs, "y": ys, "color": cs}, null_color="white")
+        self.heatmap = bq.HeatMap(
+            x=omap["q"],
+            y=self._row_y,
+            color=logmap,
+            scales={"x": xs, "y": ys, "color": cs},
+            null_color="white",
+        )
         qx = omap["q"]
         q_edges = np.array([qx[0], np.sqrt(qx[0] * qx[-1]) if qx[0] > 0 else 0.5 * (qx[0] + qx[-1]), qx[-1]])
         y_edges = self._edges(self._row_y)
         self.rows = bq.GridHeatMap(
-            color=np.full((self._row_y.size, 2), np.nan), row=y_edges, column=q_edges,
+            color=np.full((self._row_y.size, 2), np.nan),
+            row=y_edges,
+            column=q_edges,
             scales={"row": ys, "column": xs, "color": bq.ColorScale(min=0.0, max=1.0)},
-            null_color="transparent", stroke="transparent", opacity=1.0,
+            null_color="transparent",
+            stroke="transparent",
+            opacity=1.0,
             interactions={"click": "select"},
             selected_style={"stroke": ROLE["current"], "stroke-width": "2"},
         )
         self.rows.on_element_click(self._on_row_click)
         self.rows.observe(self._on_row_selected, "selected")
-        self.marker = bq.Lines(x=np.array([qx[0], qx[-1]]), y=np.zeros(2), scales={"x": xs, "y": ys},
-                               colors=[ROLE["current"]], stroke_width=2.0)
+        self.marker = bq.Lines(
+            x=np.array([qx[0], qx[-1]]),
+            y=np.zeros(2),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["current"]],
+            stroke_width=2.0,
+        )
         caxis = bq.ColorAxis(scale=cs, label="log10 I", side="right")
         ylab = self.scan_label if self._row_axis_is_scan else "frame"
         marks = [self.heatmap] + ([self.rows] if self._row_y.size >= 2 else []) + [self.marker]
-        fig = make_figure(marks, xs, ys, x_label=f"q ({self.q_units})", y_label=ylab,
-                          title="log10 intensity over the series (click a row)", height="320px")
+        fig = make_figure(
+            marks,
+            xs,
+            ys,
+            x_label=f"q ({self.q_units})",
+            y_label=ylab,
+            title="log10 intensity over the series (click a row)",
+            height="320px",
+        )
         fig.axes = [*fig.axes, caxis]
         fig.fig_margin = {**fig.fig_margin, "right": 70}
         self.figures = [fig]
         note = ""
         if omap["row_step"] > 1 or omap["col_step"] > 1:
-            note = (f"Map downsampled for the browser: blocks of {omap['row_step']} frame(s) x "
-                    f"{omap['col_step']} q point(s) averaged (log10 I); the curves are not.")
+            note = (
+                f"Map downsampled for the browser: blocks of {omap['row_step']} frame(s) x "
+                f"{omap['col_step']} q point(s) averaged (log10 I); the curves are not."
+            )
         self.map_note = widgets.HTML(f"<small>{html.escape(note)}</small>")
         return [widgets.HBox([self.play, self.slider]), self.label, fig, self.map_note]
 

@@ -76,29 +76,69 @@ class CurvePanel(PanelBase):
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LogScale(min=lo, max=hi)
         self._xs, self._ys = xs, ys
-        self.errorbars = bq.Lines(x=np.repeat(self.q, 3), y=np.full(3 * self.q.size, np.nan),
-                                  scales={"x": xs, "y": ys}, colors=[ROLE["error"]], stroke_width=1.0,
-                                  labels=["+-sigma"])
-        self.curve = bq.Lines(x=self.q, y=np.full(self.q.size, np.nan), scales={"x": xs, "y": ys},
-                              colors=[ROLE["data"]], stroke_width=1.5, labels=["current frame"])
-        self.overlays = bq.Lines(x=self.q, y=np.full((1, self.q.size), np.nan), scales={"x": xs, "y": ys},
-                                 colors=SEQUENCE[1:], stroke_width=1.0, opacities=[0.7], visible=False)
-        self.background_line = bq.Lines(x=self.q, y=np.full(self.q.size, np.nan), scales={"x": xs, "y": ys},
-                                        colors=[ROLE["background"]], line_style="dashed", stroke_width=1.0,
-                                        labels=["background"], visible=False)
-        fig = make_figure([self.overlays, self.background_line, self.errorbars, self.curve], xs, ys,
-                          x_label=f"q ({self.q_units})", y_label=f"I ({self.intensity_units})",
-                          title="current frame", height="320px")
+        self.errorbars = bq.Lines(
+            x=np.repeat(self.q, 3),
+            y=np.full(3 * self.q.size, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["error"]],
+            stroke_width=1.0,
+            labels=["+-sigma"],
+        )
+        self.curve = bq.Lines(
+            x=self.q,
+            y=np.full(self.q.size, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["data"]],
+            stroke_width=1.5,
+            labels=["current frame"],
+        )
+        self.overlays = bq.Lines(
+            x=self.q,
+            y=np.full((1, self.q.size), np.nan),
+            scales={"x": xs, "y": ys},
+            colors=SEQUENCE[1:],
+            stroke_width=1.0,
+            opacities=[0.7],
+            visible=False,
+        )
+        self.background_line = bq.Lines(
+            x=self.q,
+            y=np.full(self.q.size, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["background"]],
+            line_style="dashed",
+            stroke_width=1.0,
+            labels=["background"],
+            visible=False,
+        )
+        fig = make_figure(
+            [self.overlays, self.background_line, self.errorbars, self.curve],
+            xs,
+            ys,
+            x_label=f"q ({self.q_units})",
+            y_label=f"I ({self.intensity_units})",
+            title="current frame",
+            height="320px",
+        )
         self.figures = [fig]
-        self.overlay_text = widgets.Text(value="", placeholder="e.g. 0, 10, 20",
-                                         description="overlay frames", continuous_update=False,
-                                         style={"description_width": "initial"})
-        self.every_box = widgets.BoundedIntText(value=0, min=0, max=max(self.n_frames, 1),
-                                                description="every n-th (0 off)",
-                                                style={"description_width": "initial"},
-                                                layout=widgets.Layout(width="11em"))
-        self.background_box = widgets.Checkbox(value=True, description="background",
-                                               disabled=self.background is None, indent=False)
+        self.overlay_text = widgets.Text(
+            value="",
+            placeholder="e.g. 0, 10, 20",
+            description="overlay frames",
+            continuous_update=False,
+            style={"description_width": "initial"},
+        )
+        self.every_box = widgets.BoundedIntText(
+            value=0,
+            min=0,
+            max=max(self.n_frames, 1),
+            description="every n-th (0 off)",
+            style={"description_width": "initial"},
+            layout=widgets.Layout(width="11em"),
+        )
+        self.background_box = widgets.Checkbox(
+            value=True, description="background", disabled=self.background is None, indent=False
+        )
         self.overlay_text.observe(self._parse_overlay, "value")
         widgets.link((self.every_box, "value"), (self, "every"))
         widgets.link((self.background_box, "value"), (self, "show_background"))
@@ -166,7 +206,8 @@ class CurvePanel(PanelBase):
         asked = len(self.overlay) + (len(range(0, self.n_frames, self.every)) if self.every else 0)
         self.overlay_note.value = (
             f"<small>{len(frames)} overlay curve(s) shown of {asked} asked (at most {MAX_OVERLAYS})</small>"
-            if asked > MAX_OVERLAYS else ""
+            if asked > MAX_OVERLAYS
+            else ""
         )
         self._draw_background()
 

@@ -53,13 +53,19 @@ class Dashboard(widgets.VBox):
         self.status_line = widgets.HTML("")
         for p in self.panels.values():
             p.observe(self._collect_status, "status")
-        self.export_button = widgets.Button(description="Export all code", icon="code",
-                                            layout=widgets.Layout(width="auto"))
-        self.code_area = widgets.Textarea("", layout=widgets.Layout(width="100%", height="12em",
-                                                                    display="none"))
+        self.export_button = widgets.Button(
+            description="Export all code", icon="code", layout=widgets.Layout(width="auto")
+        )
+        self.code_area = widgets.Textarea(
+            "", layout=widgets.Layout(width="100%", height="12em", display="none")
+        )
         self.export_button.on_click(lambda _b: self.show_code())
-        self.children = [*self._arrange(), widgets.HBox([self.export_button]), self.code_area,
-                         self.status_line]
+        self.children = [
+            *self._arrange(),
+            widgets.HBox([self.export_button]),
+            self.code_area,
+            self.status_line,
+        ]
 
     def _arrange(self) -> list[widgets.Widget]:
         ps = list(self.panels.values())
@@ -165,8 +171,9 @@ def explore(
     if unknown:
         from ..errors import SaxsInputError
 
-        raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}",
-                             parameter="panels")
+        raise SaxsInputError(
+            f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}", parameter="panels"
+        )
     built = {name: make[name](ds, background) for name in panels if name in make}
     dash = Dashboard(built)
     if frame:

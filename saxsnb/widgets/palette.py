@@ -34,7 +34,7 @@ ROLE = {
     "trend": OKABE_ITO["bluish_green"],
     "ok": OKABE_ITO["bluish_green"],
     "warning": OKABE_ITO["vermillion"],
-    "current": OKABE_ITO["reddish_purple"],
+    "current": OKABE_ITO["black"],
 }
 
 #: Order of colours for overlays and categories (phases, overlay frames).

@@ -1,0 +1,280 @@
+"""Kratky panel: plain q^2 I or dimensionless (q Rg)^2 I / I0, with reference levels."""
+
+from __future__ import annotations
+
+import html
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+
+from ..analysis.display import KRATKY_REFERENCES, scaled_q
+from . import _bq as bq
+from .base import PanelBase, make_figure
+from .palette import OKABE_ITO, ROLE
+
+__all__ = ["KratkyPanel"]
+
+
+class KratkyPanel(PanelBase):
+    """The Kratky plot of the current frame and the shape summary over the series.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series.
+    normalize : None or "rg"
+        None: plain Kratky plot q^2 I against q. "rg": dimensionless (q Rg)^2 I / I0
+        against q Rg, with Rg and I0 from the automatic Guinier fit
+        (``ds.saxs.kratky(normalize="rg")``; Durand et al. 2010, J. Struct. Biol. 169, 45).
+    frame : int
+        Initial frame.
+
+    Traits
+    ------
+    normalize : None or "rg"  (also the toggle above the plot)
+
+    Attributes
+    ----------
+    curve : bqplot.Lines
+        The current frame's Kratky curve.
+    references : bqplot.Lines
+        Dimensionless form only: the compact-globule (Guinier-form) peak at q Rg =
+        sqrt(3), height 3/e, and the Gaussian-chain plateau 2 (Debye 1947).
+    trend_peak, trend_level : bqplot.Scatter
+        ``kratky_summary()`` over the series: peak height and high-q level of the
+        dimensionless plot against the scan (click a point to jump to its frame).
+
+    ``result`` is ``ds.isel(frame=[i]).saxs.kratky(normalize=...)`` as a Dataset with
+    the variable ``kratky``.
+    """
+
+    name = "kratky"
+    title = "Kratky plot"
+
+    normalize = traitlets.Unicode(None, allow_none=True)
+
+    def __init__(self, ds, *, normalize: str | None = "rg", frame: int = 0, **kwargs):
+        self._init_normalize = normalize
+        self._series_cache: dict = {}
+        super().__init__(ds, frame=frame, **kwargs)
+        self.observe(self._on_normalize, "normalize")
+
+    @traitlets.validate("normalize")
+    def _check_normalize(self, proposal):
+        if proposal["value"] not in (None, "rg"):
+            raise traitlets.TraitError(f"normalize must be None or 'rg', got {proposal['value']!r}")
+        return proposal["value"]
+
+    # ------------------------------------------------------------------ build
+    def _build(self):
+        self.normalize = self._init_normalize
+        xs, ys = bq.LinearScale(), bq.LinearScale()
+        self._xs, self._ys = xs, ys
+        self.curve = bq.Lines(
+            x=self.q,
+            y=np.full(self.q.size, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["data"]],
+            stroke_width=1.5,
+            labels=["current frame"],
+        )
+        ref = KRATKY_REFERENCES
+        self.references = bq.Lines(
+            x=np.array([[0.0, 12.0], [ref["globule_peak_qrg"]] * 2, [0.0, 12.0]]),
+            y=np.array(
+                [
+                    [ref["globule_peak_height"]] * 2,
+                    [0.0, ref["globule_peak_height"]],
+                    [ref["chain_plateau"]] * 2,
+                ]
+            ),
+            scales={"x": xs, "y": ys},
+            colors=[OKABE_ITO["orange"], OKABE_ITO["orange"], OKABE_ITO["black"]],
+            line_style="dashed",
+            stroke_width=1.0,
+            labels=["globule peak height 3/e", "globule peak q Rg = sqrt(3)", "chain plateau 2"],
+        )
+        self.axis_note = widgets.HTML("")
+        fig = make_figure(
+            [self.references, self.curve],
+            xs,
+            ys,
+            x_label="q Rg",
+            y_label="(q Rg)^2 I / I0",
+            title=self.title,
+            height="300px",
+        )
+        self._x_axis, self._y_axis = fig.axes
+        tx, ty = bq.LinearScale(), bq.LinearScale()
+        scan = np.asarray(self.scan_values, dtype=float)
+        self.trend_peak = bq.Scatter(
+            x=scan,
+            y=np.full(self.n_frames, np.nan),
+            scales={"x": tx, "y": ty},
+            colors=[ROLE["trend"]],
+            default_size=16,
+            labels=["peak height"],
+            interactions={"click": "select"},
+            unselected_style={"opacity": 1.0},
+        )
+        self.trend_level = bq.Scatter(
+            x=scan,
+            y=np.full(self.n_frames, np.nan),
+            scales={"x": tx, "y": ty},
+            colors=[OKABE_ITO["blue"]],
+            default_size=16,
+            marker="square",
+            labels=["high-q level (q Rg 4.5-6)"],
+            interactions={"click": "select"},
+            unselected_style={"opacity": 1.0},
+        )
+        self.trend_current = bq.Lines(
+            x=np.zeros(2),
+            y=np.array([0.0, 2.5]),
+            scales={"x": tx, "y": ty},
+            colors=[ROLE["current"]],
+            stroke_width=1.5,
+        )
+        self.trend_refs = bq.Lines(
+            x=np.array([[scan.min(), scan.max()]] * 2),
+            y=np.array([[ref["globule_peak_height"]] * 2, [ref["chain_plateau"]] * 2]),
+            scales={"x": tx, "y": ty},
+            colors=[OKABE_ITO["orange"], OKABE_ITO["black"]],
+            line_style="dashed",
+            stroke_width=1.0,
+        )
+        for m in (self.trend_peak, self.trend_level):
+            m.on_element_click(self._on_trend_click)
+        tfig = make_figure(
+            [self.trend_refs, self.trend_peak, self.trend_level, self.trend_current],
+            tx,
+            ty,
+            x_label=self.scan_label,
+            y_label="dimensionless Kratky value",
+            title="Kratky shape over the series (click a point)",
+            height="220px",
+        )
+        tfig.legend_location = "top-left"
+        for m in (self.trend_peak, self.trend_level):
+            m.display_legend = True
+        self.figures = [fig, tfig]
+        self.toggle = widgets.ToggleButtons(
+            options=[("q^2 I", "plain"), ("(q Rg)^2 I / I0", "rg")],
+            value="plain" if self._init_normalize is None else "rg",
+            description="plot",
+            style={"button_width": "auto"},
+        )
+        self.toggle.observe(self._on_toggle, "value")
+        self.summary_text = widgets.HTML("")
+        self._summary = None
+        try:
+            self._summary = self.ds.saxs.kratky_summary()
+            with self.trend_peak.hold_sync():
+                self.trend_peak.y = np.asarray(self._summary["peak_height"].values, dtype=float)
+            with self.trend_level.hold_sync():
+                self.trend_level.y = np.asarray(self._summary["level_high"].values, dtype=float)
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "Kratky summary of the series")
+        return [self.toggle, fig, self.summary_text, tfig]
+
+    def _on_toggle(self, change) -> None:
+        self.normalize = None if change["new"] == "plain" else "rg"
+
+    def _on_normalize(self, change) -> None:
+        self.toggle.value = "plain" if change["new"] is None else "rg"
+        self._update()
+
+    def _on_trend_click(self, _mark, content) -> None:
+        data = content.get("data") or {}
+        idx = data.get("index") if isinstance(data, dict) else None
+        if idx is not None and 0 <= int(idx) < self.n_frames:
+            self.frame = int(idx)
+
+    # ----------------------------------------------------------------- update
+    def _series(self, normalize):
+        """``ds.saxs.kratky(normalize)`` of every frame (computed once per form).
+
+        The transform of one frame equals that frame of the series (batch equals
+        loop), so stepping only indexes this array.
+        """
+        key = normalize or "plain"
+        if key not in self._series_cache:
+            self._series_cache[key] = self.ds.saxs.kratky(normalize=normalize)
+        return self._series_cache[key]
+
+    def _update(self) -> None:
+        i = self.frame
+        try:
+            series = self._series(self.normalize)
+        except Exception as exc:
+            self.report(exc, "Kratky transform")
+            return
+        self._set_result(series.isel(frame=[i]).to_dataset(name="kratky"))
+        dimensionless = self.normalize == "rg"
+        rg = np.nan
+        if dimensionless:
+            if self._summary is not None and "rg" in self._summary:
+                rg = float(self._summary["rg"].values[i])
+            else:
+                rg = self._rg(i)
+            x = scaled_q(self.q, np.array([rg]))[0]
+        else:
+            x = self.q
+        with self.curve.hold_sync():
+            if dimensionless:
+                self.curve.x = x
+            elif self._x_axis.label != f"q ({self.q_units})":
+                self.curve.x = x
+            self.curve.y = np.asarray(series.values[i], dtype=float)
+        if dimensionless:
+            self._set_axes("q Rg", "(q Rg)^2 I / I0", visible=True)
+            self._xs.min, self._xs.max = 0.0, float(min(np.nanmax(x), 12.0)) if np.isfinite(rg) else None
+        else:
+            self._set_axes(
+                f"q ({self.q_units})", f"q^2 I ({self.intensity_units} {self.q_units}^2)", visible=False
+            )
+            self._xs.min, self._xs.max = None, None
+        with self.trend_current.hold_sync():
+            v = float(self.scan_values[i])
+            self.trend_current.x = np.array([v, v])
+        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        self.summary_text.value = self._summary_html(i, rg)
+        self.status = (
+            ""
+            if not dimensionless or np.isfinite(rg)
+            else (f"{self.frame_label(i)}: no Guinier Rg, the dimensionless plot is undefined")
+        )
+
+    def _rg(self, i: int) -> float:
+        if "_rg_series" not in self._series_cache:
+            self._series_cache["_rg_series"] = np.asarray(self.ds.saxs.guinier().rg.values, dtype=float)
+        return float(self._series_cache["_rg_series"][i])
+
+    def _set_axes(self, xlabel: str, ylabel: str, *, visible: bool) -> None:
+        if self._x_axis.label != xlabel:
+            self._x_axis.label = xlabel
+        if self._y_axis.label != ylabel:
+            self._y_axis.label = ylabel
+        if self.references.visible != visible:
+            self.references.visible = visible
+
+    def _summary_html(self, i: int, rg: float) -> str:
+        s = self._summary
+        if s is None:
+            return ""
+        get = lambda k: s[k].values[i] if k in s else np.nan  # noqa: E731
+        cls = html.escape(str(get("shape_class")))
+        return (
+            f"shape: <b>{cls}</b>; peak at q Rg = {float(get('peak_qrg')):.3g}, height "
+            f"{float(get('peak_height')):.3g} (globule 1.73, 1.10); "
+            f"high-q level {float(get('level_high')):.3g} "
+            f"(chain plateau 2)" + (f"; Rg = {rg:.3g} nm" if np.isfinite(rg) else "")
+        )
+
+    def _code_lines(self, target: str) -> list[str]:
+        norm = "None" if self.normalize is None else repr(self.normalize)
+        return [
+            f"{target} = ds.isel(frame=[{self.frame}]).saxs.kratky(normalize={norm})"
+            f".to_dataset(name='kratky')  # {self.frame_label()}"
+        ]

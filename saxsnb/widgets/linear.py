@@ -1,0 +1,444 @@
+"""Linear-fit panel: Guinier (compact, rod, sheet) and Porod with a draggable q range."""
+
+from __future__ import annotations
+
+import html
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+
+from ..analysis.display import (
+    line_coefficients,
+    line_residuals,
+    linear_x,
+    q_from_linear_x,
+)
+from ..analysis.linear import linearize
+from ..errors import SaxsInputError
+from . import _bq as bq
+from .base import PanelBase, make_figure
+from .palette import OKABE_ITO, ROLE
+
+__all__ = ["LinearFitPanel", "KINDS"]
+
+#: kind -> (accessor method, shape argument, linearize transform, y label, size variable, size label)
+KINDS = {
+    "guinier": ("guinier", "compact", "guinier", "ln I", "rg", "Rg"),
+    "rod": ("guinier", "rod", "rod", "ln(q I)", "rc", "Rc"),
+    "sheet": ("guinier", "sheet", "sheet", "ln(q^2 I)", "rt", "Rt"),
+    "porod": ("porod", None, "porod", "q^4 I", "porod_constant", "Kp"),
+}
+
+#: Validity limits of q_max R for the result text (Guinier 1939; Jacques & Trewhella
+#: 2010, Protein Sci. 19, 642): compact 1.3, elongated about 0.8; rod cross-section
+#: q Rc about 1; sheet 0.7 (analysis.guinier).
+LIMITS = {"guinier": (0.8, 1.3), "rod": (1.0, 1.0), "sheet": (0.7, 0.7)}
+
+
+def _fmt(v: float, s: float | None = None, unit: str = "") -> str:
+    if not np.isfinite(v):
+        return "n/a"
+    text = f"{v:.4g}"
+    if s is not None and np.isfinite(s):
+        text += f" &plusmn; {s:.2g}"
+    return text + (f" {html.escape(unit)}" if unit else "")
+
+
+class LinearFitPanel(PanelBase):
+    """Fit a straight line in a linearised plot over a q range chosen by dragging.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series.
+    kind : {"guinier", "rod", "sheet", "porod"}
+        ``"guinier"``: ln I against q^2 (compact particle, ``ds.saxs.guinier(shape=
+        "compact")``); ``"rod"``: ln(q I) against q^2 (cross-section); ``"sheet"``:
+        ln(q^2 I) against q^2 (thickness); ``"porod"``: q^4 I against q^4, where
+        I = Kp / q^4 + B is the straight line q^4 I = Kp + B q^4 (``ds.saxs.porod``,
+        background fitted).
+    frame : int
+        Initial frame.
+    q_range : (float, float) or None
+        Initial range in 1/nm; None chooses it automatically per frame.
+
+    Traits
+    ------
+    q_range : (float, float) or None
+        The fit range in q (1/nm), kept in sync with :attr:`selector` both ways: a drag
+        sets it when ``selector.brushing`` turns False (or when ``selector.selected``
+        is set from Python); setting it moves the selector. None = automatic range.
+    apply_to_all : bool
+        False: ``result`` is the fit of the current frame. True: ``result`` is the fit
+        of every frame with the same range (the "Apply range to all frames" button).
+
+    Attributes
+    ----------
+    selector : bqplot.interacts.BrushIntervalSelector
+        On the x scale of the linearised plot, whose values are q^2 (q^4 for Porod):
+        ``selector.selected = [q_lo**2, q_hi**2]``.
+    data, in_range, fit_line, residuals, trend, trend_fixed, trend_current : bqplot marks
+    result_text : ipywidgets.HTML
+        Size +- sigma, I0 +- sigma, q range, q_max R (coloured past the validity limit).
+    """
+
+    name = "guinier"
+    title = "Guinier fit"
+
+    q_range = traitlets.Tuple(traitlets.Float(), traitlets.Float(), default_value=None, allow_none=True)
+    apply_to_all = traitlets.Bool(False)
+
+    def __init__(self, ds, kind: str = "guinier", *, frame: int = 0, q_range=None, **kwargs):
+        if kind not in KINDS:
+            raise SaxsInputError(f"unknown kind {kind!r}; use one of {list(KINDS)}", parameter="kind")
+        self.kind = kind
+        self.method, self.shape, self.transform, self.y_label, self.size_var, self.size_label = KINDS[kind]
+        self.name = kind
+        self.title = {
+            "guinier": "Guinier fit (compact)",
+            "rod": "Guinier fit (rod cross-section)",
+            "sheet": "Guinier fit (sheet thickness)",
+            "porod": "Porod fit",
+        }[kind]
+        self._syncing = False
+        self._cache: dict = {}
+        self._init_range = None if q_range is None else tuple(float(v) for v in q_range)
+        super().__init__(ds, frame=frame, **kwargs)
+        self.observe(self._on_choice, ["q_range", "apply_to_all"])
+        if self._init_range is not None:
+            self.q_range = self._init_range
+
+    # ---------------------------------------------------------------- analysis
+    def _call(self, ds, q_range):
+        """The one accessor call behind ``result`` (what ``to_code`` writes out)."""
+        if self.method == "porod":
+            return ds.saxs.porod(q_range=q_range)
+        return ds.saxs.guinier(q_range=q_range, shape=self.shape)
+
+    def _call_code(self, source: str) -> str:
+        qr = "None" if self.q_range is None else f"({self.q_range[0]!r}, {self.q_range[1]!r})"
+        if self.method == "porod":
+            return f"{source}.saxs.porod(q_range={qr})"
+        return f"{source}.saxs.guinier(q_range={qr}, shape={self.shape!r})"
+
+    def _code_lines(self, target: str) -> list[str]:
+        if self.apply_to_all:
+            return [f"{target} = {self._call_code('ds')}  # every frame"]
+        return [f"{target} = {self._call_code(f'ds.isel(frame=[{self.frame}])')}  # {self.frame_label()}"]
+
+    # ------------------------------------------------------------------- build
+    def _build(self):
+        I, S = self.ds.saxs.masked()
+        self._I, self._S = I.values, S.values
+        self._lx, self._ly, self._lsy = linearize(self.q, self._I, self._S, kind=self.transform)
+        xs, ys = bq.LinearScale(), bq.LinearScale()
+        self._xs, self._ys = xs, ys
+        self.data = bq.Lines(
+            x=np.zeros(1),
+            y=np.zeros(1),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["data"]],
+            stroke_width=1.0,
+            marker="circle",
+            marker_size=6,
+            labels=["data"],
+        )
+        self.in_range = bq.Scatter(
+            x=np.zeros(0),
+            y=np.zeros(0),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["selected"]],
+            default_size=16,
+            labels=["fitted points"],
+        )
+        self.fit_line = bq.Lines(
+            x=np.zeros(2),
+            y=np.full(2, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["fit"]],
+            stroke_width=2.0,
+            labels=["fit"],
+        )
+        self.selector = bq.BrushIntervalSelector(scale=xs, marks=[self.data], color=ROLE["selected"])
+        xq = "q^4" if self.transform == "porod" else "q^2"
+        qu = self.q_units
+        xunit = f"({qu})^4" if self.transform == "porod" else f"({qu})^2"
+        fig = make_figure(
+            [self.data, self.in_range, self.fit_line],
+            xs,
+            ys,
+            x_label=f"{xq} {xunit}",
+            y_label=self.y_label,
+            title=self.title,
+            interaction=self.selector,
+            height="300px",
+        )
+        rxs, rys = bq.LinearScale(), bq.LinearScale()
+        self.residuals = bq.Scatter(
+            x=np.zeros(0), y=np.zeros(0), scales={"x": rxs, "y": rys}, colors=[ROLE["data"]], default_size=12
+        )
+        self.zero_line = bq.Lines(
+            x=np.zeros(2),
+            y=np.zeros(2),
+            scales={"x": rxs, "y": rys},
+            colors=[ROLE["reference"]],
+            stroke_width=1.0,
+            line_style="dashed",
+        )
+        rfig = make_figure(
+            [self.zero_line, self.residuals],
+            rxs,
+            rys,
+            x_label=f"{xq} {xunit}",
+            y_label="residual / sigma",
+            height="150px",
+        )
+        # trend of the result against the scan (all frames, automatic range: computed once)
+        tx, ty = bq.LinearScale(), bq.LinearScale()
+        self._auto_series = None
+        self.trend = bq.Scatter(
+            x=np.asarray(self.scan_values, dtype=float),
+            y=np.full(self.n_frames, np.nan),
+            scales={"x": tx, "y": ty},
+            colors=[ROLE["trend"]],
+            default_size=16,
+            interactions={"click": "select"},
+            labels=["automatic range"],
+            unselected_style={"opacity": 1.0},
+        )
+        self.trend_fixed = bq.Scatter(
+            x=np.asarray(self.scan_values, dtype=float),
+            y=np.full(self.n_frames, np.nan),
+            scales={"x": tx, "y": ty},
+            colors=[OKABE_ITO["orange"]],
+            default_size=16,
+            marker="square",
+            interactions={"click": "select"},
+            labels=["range applied to all"],
+            visible=False,
+        )
+        self.trend_current = bq.Scatter(
+            x=np.zeros(1),
+            y=np.full(1, np.nan),
+            scales={"x": tx, "y": ty},
+            colors=[ROLE["current"]],
+            default_size=80,
+            marker="diamond",
+        )
+        for m in (self.trend, self.trend_fixed):
+            m.on_element_click(self._on_trend_click)
+        unit = self._size_unit()
+        tfig = make_figure(
+            [self.trend, self.trend_fixed, self.trend_current],
+            tx,
+            ty,
+            x_label=self.scan_label,
+            y_label=f"{self.size_label} ({unit})",
+            title=f"{self.size_label} over the series (click a point)",
+            height="220px",
+        )
+        self.figures = [fig, rfig, tfig]
+
+        self.auto_button = widgets.Button(
+            description="Automatic range",
+            icon="magic",
+            tooltip="Choose the range automatically for each frame",
+            layout=widgets.Layout(width="auto"),
+        )
+        self.apply_button = widgets.ToggleButton(
+            value=False,
+            description="Apply range to all frames",
+            icon="list",
+            layout=widgets.Layout(width="auto"),
+            tooltip="Fit every frame with this range",
+        )
+        self.auto_button.on_click(lambda _b: setattr(self, "q_range", None))
+        widgets.link((self.apply_button, "value"), (self, "apply_to_all"))
+        self.result_text = widgets.HTML("")
+        self.selector.observe(self._on_brushing, "brushing")
+        self.selector.observe(self._on_selected, "selected")
+        self._compute_trend()
+        return [fig, rfig, self.result_text, widgets.HBox([self.auto_button, self.apply_button]), tfig]
+
+    def _size_unit(self) -> str:
+        if self.kind == "porod":
+            return f"{self.intensity_units} nm^-4"
+        return "nm"
+
+    def series_result(self, q_range=None):
+        """The fit of every frame with ``q_range`` (None: automatic), cached.
+
+        A frame's fit equals that frame of the series fit (batch equals loop), so a
+        frame step only indexes it; a new range fits the whole series once.
+        """
+        key = None if q_range is None else (float(q_range[0]), float(q_range[1]))
+        if key not in self._cache:
+            if len(self._cache) >= 6:
+                self._cache.pop(next(k for k in self._cache if k is not None))
+            self._cache[key] = self._call(self.ds, key)
+        return self._cache[key]
+
+    def _compute_trend(self) -> None:
+        try:
+            self._auto_series = self.series_result(None)
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "automatic fit of the series")
+            return
+        with self.trend.hold_sync():
+            self.trend.y = np.asarray(self._auto_series[self.size_var].values, dtype=float)
+
+    # --------------------------------------------------------------- selector
+    @traitlets.validate("q_range")
+    def _check_range(self, proposal):
+        value = proposal["value"]
+        if value is None:
+            return None
+        lo, hi = (float(v) for v in value)
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            raise traitlets.TraitError(f"q_range {value!r} must be finite")
+        return (min(lo, hi), max(lo, hi))
+
+    def _on_brushing(self, change) -> None:
+        if not change["new"]:
+            self._commit_selector()
+
+    def _on_selected(self, change) -> None:
+        if not self.selector.brushing:
+            self._commit_selector()
+
+    def _commit_selector(self) -> None:
+        if self._syncing:
+            return
+        sel = self.selector.selected
+        if sel is None or np.size(sel) < 2:
+            return
+        x0, x1 = np.sort(np.asarray(sel, dtype=float).ravel()[:2])
+        q0, q1 = q_from_linear_x(np.array([max(x0, 0.0), max(x1, 0.0)]), self.transform)
+        new = (float(q0), float(q1))
+        if new != self.q_range:
+            self.q_range = new
+
+    def _move_selector(self, q_lo: float, q_hi: float) -> None:
+        if not (np.isfinite(q_lo) and np.isfinite(q_hi)):
+            return
+        target = linear_x(np.array([q_lo, q_hi]), self.transform)
+        cur = self.selector.selected
+        if cur is not None and np.size(cur) == 2 and np.allclose(cur, target, rtol=1e-12, atol=0):
+            return
+        self._syncing = True
+        try:
+            self.selector.selected = target
+        finally:
+            self._syncing = False
+
+    def _on_trend_click(self, _mark, content) -> None:
+        data = content.get("data") or {}
+        idx = data.get("index") if isinstance(data, dict) else None
+        if idx is not None and 0 <= int(idx) < self.n_frames:
+            self.frame = int(idx)
+
+    # ----------------------------------------------------------------- update
+    def _on_choice(self, change) -> None:
+        self._update()
+
+    def _on_frame(self) -> None:
+        self._update(frame_only=True)
+
+    def _update(self, frame_only: bool = False) -> None:
+        i = self.frame
+        try:
+            series = self.series_result(self.q_range)
+        except Exception as exc:
+            self.report(exc, "fit")
+            return
+        if self.apply_to_all:
+            if not frame_only or self.result is not series:
+                self._set_result(series)
+                self._draw_fixed_trend(series)
+        else:
+            self._set_result(series.isel(frame=[i]))
+            if not frame_only and self.trend_fixed.visible:
+                self.trend_fixed.visible = False
+        vals = {k: float(v.values[i]) for k, v in series.data_vars.items() if v.dtype.kind in "fiu"}
+        fstatus = str(series["status"].values[i]) if "status" in series else "ok"
+        self._draw(i, vals)
+        self.status = "" if fstatus == "ok" else f"{self.frame_label(i)}: {fstatus}"
+
+    def _draw_fixed_trend(self, res_all) -> None:
+        with self.trend_fixed.hold_sync():
+            self.trend_fixed.y = np.asarray(res_all[self.size_var].values, dtype=float)
+            self.trend_fixed.visible = True
+
+    def _draw(self, i: int, vals: dict) -> None:
+        q = self.q
+        q_lo, q_hi = vals.get("q_min", np.nan), vals.get("q_max", np.nan)
+        if self.q_range is not None:
+            q_lo, q_hi = self.q_range
+        # view: from 0 (extrapolation to q = 0) to twice the range for Guinier plots,
+        # the measured high-q end for Porod
+        if self.transform == "porod":
+            lo_view = q_lo / 1.5 if np.isfinite(q_lo) else q[0]
+            hi_view = q[-1]
+        else:
+            lo_view = 0.0
+            hi_view = min(q[-1], 2.0 * q_hi) if np.isfinite(q_hi) else q[min(q.size - 1, q.size // 4)]
+        view = (q >= lo_view) & (q <= hi_view)
+        x, y = self._lx[i][view], self._ly[i][view]
+        with self.data.hold_sync():
+            self.data.x = x
+            self.data.y = y
+        inside = (
+            (q >= q_lo) & (q <= q_hi) if np.isfinite(q_lo) and np.isfinite(q_hi) else np.zeros_like(q, bool)
+        )
+        xin, yin, syin = self._lx[i][inside], self._ly[i][inside], self._lsy[i][inside]
+        a, b = line_coefficients(self.kind, vals)
+        x_end = linear_x(max(hi_view, q_hi if np.isfinite(q_hi) else hi_view), self.transform)
+        x_start = linear_x(lo_view, self.transform) if self.transform == "porod" else 0.0
+        line, _ = line_residuals(np.array([x_start, x_end]), np.zeros(2), None, a, b)
+        _, res = line_residuals(xin, yin, syin, a, b)
+        with self.in_range.hold_sync():
+            self.in_range.x, self.in_range.y = xin, yin
+        with self.fit_line.hold_sync():
+            self.fit_line.x, self.fit_line.y = np.array([x_start, x_end]), line
+        with self.residuals.hold_sync():
+            self.residuals.x, self.residuals.y = xin, res
+        if xin.size:
+            with self.zero_line.hold_sync():
+                self.zero_line.x = np.array([xin[0], xin[-1]])
+        self._move_selector(q_lo, q_hi)
+        with self.trend_current.hold_sync():
+            self.trend_current.x = np.array([float(self.scan_values[i])])
+            self.trend_current.y = np.array([vals.get(self.size_var, np.nan)])
+        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        self.result_text.value = self._result_html(vals)
+
+    def _result_html(self, vals: dict) -> str:
+        unit = self._size_unit()
+        rng = "automatic" if self.q_range is None else "fixed"
+        v = lambda k: vals.get(k, np.nan)  # noqa: E731
+        size = _fmt(v(self.size_var), v(self.size_var + "_sigma"), unit)
+        rows = [f"<b>{self.size_label}</b> = {size}"]
+        if self.kind == "porod":
+            rows.append(f"background = {_fmt(v('background'), v('background_sigma'), self.intensity_units)}")
+        else:
+            i0name = {"guinier": "I0", "rod": "lim q I", "sheet": "lim q^2 I"}[self.kind]
+            rows.append(f"{i0name} = {_fmt(v('i0'), v('i0_sigma'), self.intensity_units)}")
+        rows.append(
+            f"q range ({rng}) = {_fmt(v('q_min'))} .. {_fmt(v('q_max'), unit=self.q_units)}, "
+            f"{int(vals.get('n_points', 0))} points, reduced chi2 = {_fmt(v('chi2_reduced'))}"
+        )
+        if self.kind in LIMITS:
+            qr = vals.get("qrg_max", np.nan)
+            soft, hard = LIMITS[self.kind]
+            colour = ROLE["ok"]
+            note = ""
+            if np.isfinite(qr) and qr > hard:
+                colour, note = ROLE["warning"], f" past the validity limit {hard}"
+            elif np.isfinite(qr) and qr > soft:
+                colour, note = (
+                    OKABE_ITO["orange"],
+                    f" (valid for compact particles; elongated ones need <= {soft})",
+                )
+            rows.append(f'<span style="color:{colour}">q_max {self.size_label} = {_fmt(qr)}{note}</span>')
+        return "<br>".join(rows)

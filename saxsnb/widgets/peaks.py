@@ -1,0 +1,427 @@
+"""Peaks panel: Bragg peaks with hkl labels, phase assignment, maps and overrides."""
+
+from __future__ import annotations
+
+import html
+import json
+
+import ipywidgets as widgets
+import numpy as np
+import traitlets
+
+from ..analysis.display import curve_at, positive_range
+from ..analysis.reflections import PHASES
+from ..phase_overrides import apply_phase_overrides
+from . import _bq as bq
+from .base import PanelBase, make_figure
+from .palette import ROLE, phase_colour
+
+__all__ = ["PeaksPanel"]
+
+#: Most frames drawn in the peak map and lattice trend (longer series are thinned).
+MAX_MAP_FRAMES = 400
+_AUTO = "(automatic)"
+
+
+class PeaksPanel(PanelBase):
+    """Bragg peaks of the current frame, the phase assignment and its trends.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series (background-subtracted for best results).
+    frame : int
+        Initial frame.
+    overrides : mapping frame -> {"phase": str, "lattice": float or None}, optional
+        Initial hand-made assignments (see :func:`saxsnb.phase_overrides.apply_phase_overrides`).
+    find_options, index_options : dict, optional
+        Passed to ``ds.saxs.find_peaks`` and ``ds.saxs.index_phases``.
+
+    Traits
+    ------
+    overrides : dict
+        frame -> {"phase", "lattice"}; set with the "Override this frame" button, or
+        :meth:`override` / :meth:`clear_override` from Python. Applied in ``result``
+        and written out by ``to_code()``.
+
+    Attributes
+    ----------
+    peaks, index : xarray.Dataset
+        ``ds.saxs.find_peaks(**find_options)`` and ``ds.saxs.index_phases(peaks,
+        **index_options)`` (computed once).
+    curve, markers : bqplot marks of the current frame; labels : bqplot.Label (hkl).
+    table : ipywidgets.HTML
+        The frame's assignment: phases, lattice +- sigma, score, alternatives, status.
+    map_marks, trend_marks : dict phase -> bqplot.Scatter
+        Tracked peak positions and lattice parameters over the scan, by phase.
+    boundaries : bqplot.Lines
+        Phase transitions found by ``ds.saxs.phase_map``.
+
+    ``result`` is the whole-series assignment with the overrides applied.
+    """
+
+    name = "peaks"
+    title = "Bragg peaks and phases"
+
+    overrides = traitlets.Dict()
+
+    def __init__(
+        self, ds, *, frame: int = 0, overrides=None, find_options=None, index_options=None, **kwargs
+    ):
+        self.find_options = dict(find_options or {})
+        self.index_options = dict(index_options or {})
+        self._index_auto = None
+        self.peaks = None
+        super().__init__(ds, frame=frame, **kwargs)
+        self.observe(self._on_overrides, "overrides")
+        if overrides:
+            self.overrides = {int(k): dict(v) for k, v in overrides.items()}
+
+    # ------------------------------------------------------------------ build
+    def _build(self):
+        I, _S = self.ds.saxs.masked()
+        self._I = I.values
+        lo, hi = positive_range(self._I)
+        xs, ys = bq.LinearScale(), bq.LogScale(min=lo, max=hi)
+        self.curve = bq.Lines(
+            x=self.q,
+            y=np.full(self.q.size, np.nan),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["data"]],
+            stroke_width=1.2,
+        )
+        self.markers = bq.Scatter(
+            x=np.zeros(0),
+            y=np.zeros(0),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["fit"]],
+            marker="triangle-down",
+            default_size=40,
+        )
+        self.labels = bq.Label(
+            x=np.zeros(0),
+            y=np.zeros(0),
+            text=[],
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["reference"]],
+            default_size=11,
+            y_offset=-12,
+            align="middle",
+        )
+        fig = make_figure(
+            [self.curve, self.markers, self.labels],
+            xs,
+            ys,
+            x_label=f"q ({self.q_units})",
+            y_label=f"I ({self.intensity_units})",
+            title=self.title,
+            height="300px",
+        )
+        self.table = widgets.HTML("")
+        # maps over the scan
+        mx, my = bq.LinearScale(), bq.LinearScale()
+        lx, ly = bq.LinearScale(), bq.LinearScale()
+        self._phase_names = list(PHASES) + ["unassigned"]
+        self.map_marks, self.trend_marks = {}, {}
+        for k, ph in enumerate(self._phase_names):
+            colour = ROLE["background"] if ph == "unassigned" else phase_colour(k)
+            m = bq.Scatter(
+                x=np.zeros(0),
+                y=np.zeros(0),
+                scales={"x": mx, "y": my},
+                colors=[colour],
+                default_size=10,
+                labels=[ph],
+                display_legend=False,
+                interactions={"click": "select"},
+                unselected_style={"opacity": 1.0},
+            )
+            t = bq.Scatter(
+                x=np.zeros(0),
+                y=np.zeros(0),
+                scales={"x": lx, "y": ly},
+                colors=[colour],
+                default_size=14,
+                labels=[ph],
+                display_legend=False,
+                interactions={"click": "select"},
+                unselected_style={"opacity": 1.0},
+            )
+            m.on_element_click(self._on_point_click)
+            t.on_element_click(self._on_point_click)
+            self.map_marks[ph], self.trend_marks[ph] = m, t
+        self._map_frames_of: dict = {}
+        self.map_current = bq.Lines(
+            x=np.zeros(2),
+            y=np.array([self.q[0], self.q[-1]]),
+            scales={"x": mx, "y": my},
+            colors=[ROLE["current"]],
+            stroke_width=1.5,
+        )
+        self.trend_current = bq.Lines(
+            x=np.zeros(2),
+            y=np.zeros(2),
+            scales={"x": lx, "y": ly},
+            colors=[ROLE["current"]],
+            stroke_width=1.5,
+        )
+        self.boundaries = bq.Lines(
+            x=np.zeros((1, 2)),
+            y=np.zeros((1, 2)),
+            scales={"x": lx, "y": ly},
+            colors=[ROLE["reference"]],
+            line_style="dashed",
+            stroke_width=1.0,
+            visible=False,
+        )
+        mfig = make_figure(
+            [*self.map_marks.values(), self.map_current],
+            mx,
+            my,
+            x_label=self.scan_label,
+            y_label=f"peak position q ({self.q_units})",
+            title="tracked peaks by assigned phase (click a point)",
+            height="260px",
+        )
+        tfig = make_figure(
+            [*self.trend_marks.values(), self.boundaries, self.trend_current],
+            lx,
+            ly,
+            x_label=self.scan_label,
+            y_label="lattice parameter (nm)",
+            title="lattice parameter (d or a) and phase boundaries",
+            height="260px",
+        )
+        mfig.legend_location = tfig.legend_location = "top-right"
+        self.figures = [fig, mfig, tfig]
+        self.map_note = widgets.HTML("")
+        # override controls
+        self.phase_choice = widgets.Dropdown(
+            options=[_AUTO, *PHASES], value=_AUTO, description="phase", layout=widgets.Layout(width="14em")
+        )
+        self.lattice_box = widgets.FloatText(
+            value=0.0,
+            description="lattice (nm, 0 = refit)",
+            style={"description_width": "initial"},
+            layout=widgets.Layout(width="16em"),
+        )
+        self.override_button = widgets.Button(
+            description="Override this frame",
+            icon="pencil",
+            layout=widgets.Layout(width="auto"),
+            tooltip="Record the chosen phase for the current frame",
+        )
+        self.clear_button = widgets.Button(
+            description="Clear override", icon="undo", layout=widgets.Layout(width="auto")
+        )
+        self.override_button.on_click(lambda _b: self._override_from_controls())
+        self.clear_button.on_click(lambda _b: self.clear_override())
+        self.overrides_text = widgets.HTML("")
+        controls = widgets.HBox(
+            [self.phase_choice, self.lattice_box, self.override_button, self.clear_button]
+        )
+        self._analyse()
+        return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.map_note]
+
+    def _analyse(self) -> None:
+        try:
+            self.peaks = self.ds.saxs.find_peaks(**self.find_options)
+            self._index_auto = self.ds.saxs.index_phases(self.peaks, **self.index_options)
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "peak search / indexing")
+            return
+        self._transitions = []
+        try:
+            pmap = self.ds.saxs.phase_map(self._index_auto)
+            self._transitions = json.loads(pmap.attrs.get("transitions", "[]"))
+        except Exception as exc:
+            self.report(exc, "phase map")
+        self._pos = np.asarray(self.peaks["position"].values, dtype=float)
+        n = self.n_frames
+        step = max(1, int(np.ceil(n / MAX_MAP_FRAMES)))
+        self._map_rows = np.arange(0, n, step)
+        self.map_note.value = (
+            f"<small>Maps show every {step}th frame ({self._map_rows.size} of {n}).</small>"
+            if step > 1
+            else ""
+        )
+
+    # ------------------------------------------------------------- overrides
+    def override(self, frame: int, phase: str, lattice: float | None = None) -> None:
+        """Record that ``frame`` is ``phase`` (lattice refitted, or the given value in nm)."""
+        if phase not in PHASES:
+            self.status = f"unknown phase {phase!r}; choose from {', '.join(PHASES)}"
+            return
+        new = {k: dict(v) for k, v in self.overrides.items()}
+        new[int(frame)] = {"phase": phase, "lattice": None if lattice is None else float(lattice)}
+        self.overrides = new
+
+    def clear_override(self, frame: int | None = None) -> None:
+        """Forget the override of ``frame`` (default: the current frame)."""
+        f = self.frame if frame is None else int(frame)
+        if f in self.overrides:
+            self.overrides = {k: dict(v) for k, v in self.overrides.items() if k != f}
+
+    def _override_from_controls(self) -> None:
+        phase = self.phase_choice.value
+        if phase == _AUTO:
+            self.clear_override()
+            return
+        lat = float(self.lattice_box.value)
+        self.override(self.frame, phase, lat if lat > 0 else None)
+
+    def _on_overrides(self, change) -> None:
+        self._apply()
+        self._update()
+
+    def _apply(self) -> None:
+        if self._index_auto is None:
+            return
+        try:
+            res = apply_phase_overrides(self.ds, self._index_auto, self.peaks, self.overrides)
+        except Exception as exc:
+            self.report(exc, "override")
+            return
+        self._set_result(res)
+        self._draw_maps()
+
+    # ------------------------------------------------------------------- maps
+    def _draw_maps(self) -> None:
+        res = self.result
+        rows = self._map_rows
+        scan = np.asarray(self.scan_values, dtype=float)
+        pos = self._pos[rows]
+        pphase = np.asarray(res["peak_phase"].values)[rows] if "peak_phase" in res else np.full(pos.shape, "")
+        frames_2d = np.broadcast_to(rows[:, None], pos.shape)
+        lat = np.asarray(res["lattice"].values, dtype=float)[rows]
+        lphase = np.asarray(res["phase"].values)[rows]
+        frames_slot = np.broadcast_to(rows[:, None], lat.shape)
+        for ph in self._phase_names:
+            key = "" if ph == "unassigned" else ph
+            sel = np.isfinite(pos) & (pphase == key)
+            m = self.map_marks[ph]
+            with m.hold_sync():
+                m.x, m.y = scan[frames_2d[sel]], pos[sel]
+                m.display_legend = bool(sel.any())
+            self._map_frames_of[id(m)] = frames_2d[sel]
+            t = self.trend_marks[ph]
+            tsel = np.isfinite(lat) & (lphase == key) if key else np.zeros(lat.shape, bool)
+            with t.hold_sync():
+                t.x, t.y = scan[frames_slot[tsel]], lat[tsel]
+                t.display_legend = bool(tsel.any())
+            self._map_frames_of[id(t)] = frames_slot[tsel]
+        self._draw_boundaries(lat)
+
+    def _draw_boundaries(self, lat) -> None:
+        xs = sorted(
+            {
+                float(v)
+                for t in self._transitions
+                for k in ("appears", "vanishes")
+                if (v := t.get(k)) is not None
+            }
+        )
+        if not xs or not np.isfinite(lat).any():
+            self.boundaries.visible = False
+            return
+        lo, hi = float(np.nanmin(lat)), float(np.nanmax(lat))
+        with self.boundaries.hold_sync():
+            self.boundaries.x = np.array([[x, x] for x in xs])
+            self.boundaries.y = np.array([[lo, hi]] * len(xs))
+            self.boundaries.visible = True
+
+    def _on_point_click(self, mark, content) -> None:
+        data = content.get("data") or {}
+        idx = data.get("index") if isinstance(data, dict) else None
+        frames = self._map_frames_of.get(id(mark))
+        if idx is not None and frames is not None and 0 <= int(idx) < len(frames):
+            self.frame = int(frames[int(idx)])
+
+    # ----------------------------------------------------------------- update
+    def _update(self) -> None:
+        i = self.frame
+        if self.result is None:
+            self._apply()
+        with self.curve.hold_sync():
+            self.curve.y = self._I[i]
+        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        v = float(self.scan_values[i])
+        with self.map_current.hold_sync():
+            self.map_current.x = np.array([v, v])
+        res = self.result
+        if res is None:
+            return
+        with self.trend_current.hold_sync():
+            lat = np.asarray(res["lattice"].values, dtype=float)
+            fin = lat[np.isfinite(lat)]
+            self.trend_current.x = np.array([v, v])
+            self.trend_current.y = np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2)
+        pos = self._pos[i]
+        ok = np.isfinite(pos)
+        hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
+        y = curve_at(self.q, self._I[i], pos[ok])
+        with self.markers.hold_sync():
+            self.markers.x, self.markers.y = pos[ok], y
+        with self.labels.hold_sync():
+            self.labels.x, self.labels.y = pos[ok], y
+            self.labels.text = [str(h) for h in hkl[ok]]
+        self.table.value = self._table_html(i)
+        self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
+        status = str(res["status"].values[i])
+        self.status = "" if status in ("ok", "override") else f"{self.frame_label(i)}: {status}"
+
+    def _table_html(self, i: int) -> str:
+        res = self.result
+        e = html.escape
+        rows = []
+        for s in range(res.sizes["slot"]):
+            ph = str(res["phase"].values[i, s])
+            if not ph:
+                continue
+            lat, sig = float(res["lattice"].values[i, s]), float(res["lattice_sigma"].values[i, s])
+            score = float(res["score"].values[i, s])
+            what = "d" if ph == "lamellar" else "a"
+            lat_t = (
+                "n/a"
+                if not np.isfinite(lat)
+                else f"{lat:.4g}" + (f" &plusmn; {sig:.2g}" if np.isfinite(sig) else "")
+            )
+            rows.append(
+                f"<tr><td>{e(ph)}</td><td>{what} = {lat_t} nm</td><td>{score:.2f}</td></tr>"
+                if np.isfinite(score)
+                else f"<tr><td>{e(ph)}</td><td>{what} = {lat_t} nm</td><td>n/a</td></tr>"
+            )
+        body = "".join(rows) or "<tr><td colspan=3>no phase assigned</td></tr>"
+        get = lambda k: str(res[k].values[i]) if k in res else ""  # noqa: E731
+        extra = []
+        for k, label in (("status", "status"), ("alternative", "alternatives"), ("caveat", "caveat")):
+            if get(k):
+                extra.append(f"{label}: {e(get(k))}")
+        n_pk = int(np.isfinite(self._pos[i]).sum())
+        extra.append(f"{n_pk} peak(s) found")
+        return (
+            f"<table style='border-collapse:collapse'><tr><th>phase</th><th>lattice</th>"
+            f"<th>score</th></tr>{body}</table><small>{'<br>'.join(extra)}</small>"
+        )
+
+    def _on_frame(self) -> None:
+        self._update()
+
+    # ------------------------------------------------------------------ code
+    def _code_lines(self, target: str) -> list[str]:
+        fo = ", ".join(f"{k}={v!r}" for k, v in sorted(self.find_options.items()))
+        io = ", ".join(f"{k}={v!r}" for k, v in sorted(self.index_options.items()))
+        lines = [
+            f"{target}_peaks = ds.saxs.find_peaks({fo})",
+            f"{target} = ds.saxs.index_phases({target}_peaks{', ' + io if io else ''})",
+        ]
+        if self.overrides:
+            ov = {
+                int(k): {"phase": v["phase"], "lattice": v.get("lattice")}
+                for k, v in sorted(self.overrides.items())
+            }
+            lines += [
+                "from saxsnb.phase_overrides import apply_phase_overrides",
+                f"{target} = apply_phase_overrides(ds, {target}, {target}_peaks, {ov!r})  # set by hand",
+            ]
+        return lines

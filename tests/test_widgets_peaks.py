@@ -1,0 +1,106 @@
+"""Python-side tests of the peaks panel, phase overrides and the full dashboard."""
+
+import json
+
+import numpy as np
+import pytest
+import xarray as xr
+
+import saxsnb
+from saxsnb.analysis.reflections import q_positions
+from saxsnb.phase_overrides import apply_phase_overrides
+from saxsnb.widgets import PeaksPanel
+
+
+@pytest.fixture(scope="module")
+def cubic_series():
+    """Four frames of a Pn3m phase (a = 10 -> 10.3 nm) then two lamellar (d = 6 nm)."""
+    rng = np.random.default_rng(1234)
+    q = np.linspace(0.3, 5.0, 700)
+    rows = []
+    for a in (10.0, 10.1, 10.2, 10.3):
+        rows.append(q_positions("Pn3m", a, 6))  # ITC Vol. A reflection conditions
+    for d in (6.0, 6.0):
+        rows.append(q_positions("lamellar", d, 3))  # 1 : 2 : 3 (common practice)
+    I = np.empty((len(rows), q.size))
+    for k, centres in enumerate(rows):
+        I[k] = 2.0 / (1 + q**2) + sum(40 * np.exp(-0.5 * ((q - c) / 0.012) ** 2) for c in centres)
+    S = 0.01 * I + 0.002
+    I = I + rng.normal(0, 1, I.shape) * S
+    return saxsnb.from_arrays(q, I, S, scan={"temperature": 20.0 + 5.0 * np.arange(len(rows))})
+
+
+@pytest.fixture(scope="module")
+def panel(cubic_series):
+    return PeaksPanel(cubic_series)
+
+
+def test_peaks_panel_marks_and_table(cubic_series, panel):
+    p = panel
+    p.frame = 1
+    pk = cubic_series.saxs.find_peaks()
+    ix = cubic_series.saxs.index_phases(pk)
+    xr.testing.assert_identical(p.result, ix)
+    pos = pk.position.values[1]
+    np.testing.assert_allclose(p.markers.x, pos[np.isfinite(pos)])
+    assert list(p.labels.text) == [str(h) for h, x in zip(ix.hkl.values[1], pos) if np.isfinite(x)]
+    assert str(ix.phase.values[1, 0]) == "Pn3m"
+    assert "Pn3m" in p.table.value and "a = 10.1" in p.table.value
+    # the peak map holds every found peak of the Pn3m frames
+    n_pn3m = int(np.isfinite(pk.position.values[:4]).sum())
+    assert p.map_marks["Pn3m"].x.size == n_pn3m
+    np.testing.assert_allclose(np.sort(p.trend_marks["Pn3m"].y), np.sort(ix.lattice.values[:4, 0]))
+
+
+def test_override_is_recorded_applied_and_exported(cubic_series):
+    p = PeaksPanel(cubic_series, frame=2)
+    p.phase_choice.value = "Im3m"
+    p.override_button.click()
+    assert p.overrides == {2: {"phase": "Im3m", "lattice": None}}
+    assert str(p.result.phase.values[2, 0]) == "Im3m" and str(p.result.status.values[2]) == "override"
+    assert "override" in p.table.value and "automatic: Pn3m" in p.table.value
+    pk = cubic_series.saxs.find_peaks()
+    expected = apply_phase_overrides(cubic_series, cubic_series.saxs.index_phases(pk), pk, p.overrides)
+    xr.testing.assert_identical(p.result, expected)
+    ns = {"ds": cubic_series}
+    exec(p.to_code(), ns)
+    xr.testing.assert_identical(ns["result"], p.result)
+    assert json.loads(p.result.attrs["overrides"]) == {"2": {"phase": "Im3m", "lattice": None}}
+    # [der] Pn3m h^2+k^2+l^2 = 2, 3, 4, 6, 8, 9 doubled are 4, 6, 8, 12, 16, 18, all Im3m-allowed
+    # (h+k+l even; ITC Vol. A): the Im3m reading has a = sqrt(2) a(Pn3m)
+    assert float(p.result.lattice.values[2, 0]) == pytest.approx(10.2 * np.sqrt(2.0), rel=2e-3)
+    # a given lattice value, then clearing
+    p.override(5, "lamellar", 6.5)
+    assert float(p.result.lattice.values[5, 0]) == 6.5
+    p.clear_override(2)
+    assert 2 not in p.overrides and str(p.result.phase.values[2, 0]) == "Pn3m"
+    p.override(1, "cubic")
+    assert "unknown phase" in p.status
+
+
+def test_peak_map_click_jumps_to_frame(panel):
+    m = panel.map_marks["lamellar"]
+    panel._on_point_click(m, {"event": "element_click", "data": {"index": 0}})
+    assert panel.frame == 4
+
+
+def test_peaks_panel_reports_analysis_error(cubic_series):
+    p = PeaksPanel(cubic_series, find_options={"profile": "no-such-profile"})
+    assert p.status.startswith("peak search / indexing") and p.status_line.value
+    assert p.result is None
+
+
+def test_explore_all_panels_linked_and_exported(cubic_series):
+    d = saxsnb.explore(cubic_series)
+    assert list(d.panels) == ["browser", "curve", "guinier", "kratky", "peaks"]
+    d.panels["browser"].slider.value = 3
+    assert all(p.frame == 3 for p in d.panels.values())
+    d.panels["guinier"].q_range = (0.3, 0.6)
+    d.panels["peaks"].override(3, "Im3m")
+    ns = {"ds": cubic_series}
+    exec(d.to_code(), ns)
+    for name, p in d.panels.items():
+        xr.testing.assert_identical(ns[name], p.result)
+    assert d.show_code() == d.code_area.value
+    fig = d.panels["peaks"].to_matplotlib()
+    assert len(fig.axes) == 3
