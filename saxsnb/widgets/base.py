@@ -38,7 +38,7 @@ from ..series import main_scan, validate
 from . import _bq as bq
 from .palette import ROLE
 
-__all__ = ["PanelBase", "make_figure", "figure_to_matplotlib"]
+__all__ = ["PanelBase", "DatasetTrait", "make_figure", "figure_to_matplotlib"]
 
 #: Margins of every figure, in pixels.
 FIG_MARGIN = {"top": 30, "bottom": 48, "left": 64, "right": 16}
@@ -72,6 +72,25 @@ def make_figure(
     )
 
 
+class DatasetTrait(traitlets.Instance):
+    """An ``xarray.Dataset`` trait that notifies on every new object.
+
+    traitlets compares old and new values with ``==`` before notifying; for a Dataset
+    that is an element-wise comparison with alignment (milliseconds per step), so
+    this trait compares identity only.
+    """
+
+    def __init__(self, **kwargs):
+        super().__init__(xr.Dataset, **kwargs)
+
+    def set(self, obj, value) -> None:
+        new_value = self._validate(obj, value)
+        old_value = obj._trait_values.get(self.name, self.default_value)
+        obj._trait_values[self.name] = new_value
+        if old_value is not new_value:
+            obj._notify_trait(self.name, old_value, new_value)
+
+
 class PanelBase(widgets.VBox):
     """Base class of the linked panels (see the module docstring).
 
@@ -89,7 +108,7 @@ class PanelBase(widgets.VBox):
     title = "Panel"
 
     frame = traitlets.Int(0)
-    result = traitlets.Instance(xr.Dataset, allow_none=True, read_only=True)
+    result = DatasetTrait(allow_none=True, read_only=True)
     status = traitlets.Unicode("")
     code = traitlets.Unicode("", read_only=True)
 
