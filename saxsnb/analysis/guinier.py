@@ -28,8 +28,8 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis.linear.Wi
    be skipped), for "rod"/"sheet" ``n_starts`` (default 16) starts spread over the
    data, since their linear region lies at intermediate q; ``max_ends`` (default 32)
    stops evenly spaced from ``min_points`` usable points after the first start up to
-   the third point where ln I lies more than ``limit^2 / 3 + ln 2`` below its first
-   value (a Guinier curve has lost that much only beyond q Rg = limit; the ln 2 is a
+   the third point where ln I lies more than ``limit^2 / 3 + 0.3`` below its first
+   value (a Guinier curve has lost that much only beyond q Rg = limit; the 0.3 is a
    margin for curves that decay more slowly, such as chains);
 2. a window is acceptable when it holds at least ``min_points`` usable points and no
    negative intensity or zero sigma, its slope is negative, ``q_max * R <= limit``
@@ -65,7 +65,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
-from .linear import WindowMoments, index_range, linearize
+from .linear import WindowMoments, index_range
 
 __all__ = ["SHAPES", "guinier_search", "guinier_fit", "rod_length", "STATUS_PARAMETER"]
 
@@ -87,6 +87,7 @@ STATUS_PARAMETER = {
 
 _STATUS_DTYPE = "<U24"
 _CHUNK = 256
+_DECAY_MARGIN = 0.3
 
 
 def _check_shape(shape):
@@ -219,30 +220,34 @@ def _search(q, I, S, kind, k, limit, min_points, K, E, curvature_z, max_drift, s
 def _decay_bound(I, S, kind, limit):
     """Per-frame column bound beyond which no window can satisfy the limit.
 
-    For "compact": just after the third usable point whose ln I lies below that of
-    the first usable point by more than limit^2/3 + ln 2 (a Guinier curve has lost
-    that much only beyond q Rg = limit). The columns are read in growing blocks, so
-    the high-q part of a long curve is never touched. Rod and sheet: the full range.
+    For "compact": just after the third point (after the first positive one) whose
+    intensity lies below the first positive intensity times exp(-(limit^2/3 + 0.3)):
+    a Guinier curve has lost that much only beyond q Rg = 1.6 for the limit 1.3, a
+    Gaussian chain (which decays more slowly) beyond q Rg = 1.8. The columns are read
+    in growing blocks, frames already bounded are not read again, so the high-q part
+    of a long curve is never touched. Rod and sheet: the full range.
     """
     F, n_q = I.shape
-    if kind != "guinier":
-        return np.full(F, n_q, dtype=np.int64), n_q
-    drop = limit * limit / 3.0 + np.log(2.0)
+    bound = np.full(F, n_q, dtype=np.int64)
+    if kind != "guinier" or n_q == 0:
+        return bound, n_q
+    factor = np.exp(-(limit * limit / 3.0 + _DECAY_MARGIN))
+    todo = np.arange(F)
     c = min(n_q, 128)
-    rows = np.arange(F)
-    while True:
-        Ic = I[:, :c]
-        _, _, _, use = _flags(Ic, None if S is None else S[:, :c])
-        first = np.argmax(use, axis=-1)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            logI = np.log(np.where(use, Ic, 1.0))
-            below = use & (logI < logI[rows, first][:, None] - drop)
+    while todo.size:
+        Ic = I[:, :c] if todo.size == F else I[todo, :c]
+        pos = Ic > 0
+        first = np.argmax(pos, axis=-1)
+        thr = Ic[np.arange(todo.size), first] * factor
+        below = (Ic < thr[:, None]) & (np.arange(c)[None, :] > first[:, None])
         cnt = np.cumsum(below, axis=-1, dtype=np.int32)
         found = cnt[:, -1] >= 3
-        if found.all() or c == n_q:
-            bound = np.where(found, np.argmax(cnt >= 3, axis=-1) + 1, n_q)
-            return bound.astype(np.int64), int(bound.max())
+        bound[todo[found]] = np.argmax(cnt[found] >= 3, axis=-1) + 1
+        if c == n_q:
+            break
+        todo = todo[~found]
         c = min(n_q, 2 * c)
+    return bound, int(bound.max())
 
 
 def _search_chunk(
@@ -268,41 +273,55 @@ def _search_chunk(
     stops = np.minimum(stops, n_cut)
 
     mom = _moments(q, Ic, Sc, usable, kind, quadratic=True)
-    s3 = starts[:, :, None]
-    e3 = stops[:, None, :]
-    st = mom.search_stats(s3, e3)
-
     # blocking points (non-positive intensity, zero sigma) must not lie inside a window
     blocking = neg | zero
     blk = np.zeros((F, n_cut + 1), dtype=np.int32)
     np.cumsum(blocking, axis=-1, out=blk[:, 1:])
-    nblk = blk[rows[:, None], stops][:, None, :] - blk[rows[:, None], starts][:, :, None]
     idx = np.where(usable, np.arange(n_cut)[None, :], 0)
     last_use = np.maximum.accumulate(idx, axis=-1)
-    q_last = q[last_use[rows[:, None], np.maximum(stops - 1, 0)]][:, None, :]
+    q_last_all = q[last_use[rows[:, None], np.maximum(stops - 1, 0)]]
 
-    slope = st["slope"]
-    n = st["n_points"]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        # curvature: significance (sigma scaled by sqrt(chi2_red) when above 1) or size
-        var_scale = np.maximum(st["chi2_quadratic"] / np.maximum(n - 3.0, 1.0), 1.0)
-        c2 = st["c"] * st["c"]
-        c_var = st["c_var"] * var_scale
-        flat = (c2 <= curvature_z * curvature_z * c_var) | (np.abs(st["drift"]) <= max_drift)
-        inside = (q_last * q_last) * (-k * slope) <= limit * limit
-        geom = (s3 < e3) & (nblk == 0) & (n >= min_points - 0.5)
-        negative = slope < 0
-        accept = geom & negative & inside & flat
-        # score: estimated mean-squared error of the slope as an estimate of the
-        # slope at q = 0: its variance plus the squared departure c * lever that the
-        # quadratic term causes (c^2 estimated without its noise bias)
-        mse = st["slope_var"] * var_scale + np.maximum(c2 - c_var, 0.0) * st["lever"] ** 2
-        key = np.where(accept, -mse / (slope * slope), -np.inf).reshape(F, -1)
-    best = np.argmax(key, axis=-1)
-    ok = accept.reshape(F, -1)[rows, best]
-    bs, be = np.unravel_index(best, (K, E))
-    start = np.where(ok, starts[rows, bs], -1)
-    stop = np.where(ok, stops[rows, be], -1)
+    def evaluate(r, s2):
+        """Acceptance and score of the windows (starts s2 (len(r), k) x all stops)."""
+        e3 = stops[r][:, None, :]
+        s3 = s2[:, :, None]
+        st = mom.search_stats(s3, e3, rows=r)
+        nblk = blk[r[:, None], stops[r]][:, None, :] - blk[r[:, None], s2][:, :, None]
+        slope = st["slope"]
+        n = st["n_points"]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            # curvature: significance (sigma scaled by sqrt(chi2_red) when above 1) or size
+            var_scale = np.maximum(st["chi2_quadratic"] / np.maximum(n - 3.0, 1.0), 1.0)
+            c2 = st["c"] * st["c"]
+            c_var = st["c_var"] * var_scale
+            flat = (c2 <= curvature_z * curvature_z * c_var) | (np.abs(st["drift"]) <= max_drift)
+            inside = (q_last_all[r] ** 2)[:, None, :] * (-k * slope) <= limit * limit
+            geom = (s3 < e3) & (nblk == 0) & (n >= min_points - 0.5)
+            negative = slope < 0
+            accept = geom & negative & inside & flat
+            # score: estimated mean-squared error of the slope as an estimate of the
+            # slope at q = 0: its variance plus the squared departure c * lever that
+            # the quadratic term causes (c^2 estimated without its noise bias)
+            mse = st["slope_var"] * var_scale + np.maximum(c2 - c_var, 0.0) * st["lever"] ** 2
+            key = np.where(accept, -mse / (slope * slope), -np.inf).reshape(len(r), -1)
+        best = np.argmax(key, axis=-1)
+        ok_ = accept.reshape(len(r), -1)[np.arange(len(r)), best]
+        bs, be = np.unravel_index(best, (s2.shape[1], E))
+        return ok_, s2[np.arange(len(r)), bs], stops[r, be], (geom, negative, inside, flat, st["c"])
+
+    # stage 1: windows from the first usable point (compact) or from all starts (rod,
+    # sheet); stage 2, only for frames without an acceptable window: the later starts
+    K1 = 1 if shape == "compact" else K
+    ok, start, stop, diag = evaluate(rows, starts[:, :K1])
+    start = np.where(ok, start, -1)
+    stop = np.where(ok, stop, -1)
+    if K > K1 and not ok.all():
+        r2 = rows[~ok]
+        ok2, start2, stop2, _ = evaluate(r2, starts[r2, K1:])
+        ok[r2] = ok2
+        start[r2] = np.where(ok2, start2, -1)
+        stop[r2] = np.where(ok2, stop2, -1)
+    geom, negative, inside, flat, c_curv = diag
 
     status = np.full(F, "ok", dtype=_STATUS_DTYPE)
     fail = ~ok
@@ -310,7 +329,7 @@ def _search_chunk(
         # why a frame failed, judged on the windows from the first start
         g0 = geom[:, 0, :]
         any_geom = g0.any(axis=-1)
-        rising = (g0 & (~negative[:, 0, :] | ((st["c"][:, 0, :] > 0) & ~flat[:, 0, :]))).any(axis=-1)
+        rising = (g0 & (~negative[:, 0, :] | ((c_curv[:, 0, :] > 0) & ~flat[:, 0, :]))).any(axis=-1)
         short_inside = inside[:, 0, :][rows, np.argmax(g0, axis=-1)]
         has_block = blocking.any(axis=-1)
         first_block = np.argmax(blocking, axis=-1)
@@ -325,17 +344,33 @@ def _search_chunk(
         if empty.any():
             fr = sel[empty]
             full = np.isfinite(I[fr]) if S is None else np.isfinite(I[fr]) & np.isfinite(S[fr])
-            st = status[empty]
-            st[~full.any(axis=-1)] = "all_nan"
-            status[empty] = st
-    fit = _window_fit(mom, q, finite, neg, zero, usable, start, stop, Sc is None)
+            st_ = status[empty]
+            st_[~full.any(axis=-1)] = "all_nan"
+            status[empty] = st_
+    s_ = np.maximum(start, 0)[:, None]
+    e_ = np.maximum(stop, 0)[:, None]
+    fit = {key: v[:, 0] for key, v in mom.fit(s_, e_, scale_covariance=Sc is None).items()}
+    fit["q_min"] = np.where(ok, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
+    fit["q_max"] = np.where(ok, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
     return start, stop, status, fit
 
 
 def _moments(q, Ic, Sc, usable, kind, quadratic=False):
-    x, y, sy = linearize(q, Ic, Sc, kind)
-    y = np.where(usable, y, np.nan)
-    return WindowMoments(x, y, sy, quadratic=quadratic)
+    """Prefix sums of the linearised data: x = q^2, y = ln(q^p I) with p = 0, 1, 2 for
+    compact, rod, sheet; weights (I / sigma)^2 (first-order propagation, as
+    :func:`~saxsnb.analysis.linear.linearize`)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        y = np.log(np.where(usable, Ic, 1.0))
+        if kind == "rod":
+            y += np.log(q)
+        elif kind == "sheet":
+            y += 2.0 * np.log(q)
+        if Sc is None:
+            w = usable.astype(float)
+        else:
+            w = np.where(usable, Ic / Sc, 0.0)
+            w *= w
+    return WindowMoments.from_weights(q * q, y, w, usable, quadratic=quadratic)
 
 
 def _window_fit(mom, q, finite, neg, zero, usable, start, stop, scale):

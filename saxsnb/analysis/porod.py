@@ -27,7 +27,7 @@ import numpy as np
 from scipy import special
 
 from ..errors import SaxsInputError
-from .linear import index_range, weighted_linear_fit
+from .linear import index_range, line_fit_shared_x
 
 __all__ = [
     "default_porod_range",
@@ -88,17 +88,15 @@ def _window(q, I, S, q_range):
     return q[lo:hi], Iw, Sw, inside, start, stop, q_range
 
 
-def _common_status(q, I, S, Iw, Sw, inside, q_range, *, need_positive):
-    """Status per frame for a fixed-range fit, and the mask of usable points."""
+def _common_status(q, I, S, Dw, Sw, finite, q_range, *, need_positive):
+    """Status per frame for a fixed-range fit, and the mask of usable points
+    (``finite``: finite and in range; ``Dw``: the values that must be positive)."""
     F = I.shape[0]
-    finite = np.isfinite(Iw) & inside
-    if Sw is not None:
-        finite &= np.isfinite(Sw)
     zero = finite & (Sw <= 0) if Sw is not None else np.zeros_like(finite)
-    neg = finite & (Iw <= 0) if need_positive else np.zeros_like(finite)
-    usable = finite & ~zero & ~neg
+    neg = finite & (Dw <= 0) if need_positive else np.zeros_like(finite)
+    usable = finite & ~zero & ~neg if need_positive or Sw is not None else finite
     status = np.full(F, "ok", dtype=_STATUS_DTYPE)
-    status[usable.sum(-1) < 3] = "too_few_points"
+    status[np.count_nonzero(usable, axis=-1) < 3] = "too_few_points"
     status[zero.any(-1)] = "zero_sigma"
     status[neg.any(-1)] = "negative_intensity"
     empty = ~finite.any(-1)
@@ -160,15 +158,28 @@ def power_law_fit(q, intensity, sigma=None, *, q_range=None, background=0.0) -> 
     (4.0, 5.0)
     """
     q, I, S = _as_2d(q, intensity, sigma)
-    B = np.broadcast_to(np.asarray(background, dtype=float), (I.shape[0],))[:, None]
-    qw, Iw, Sw, inside, _, _, q_range = _window(q, I - 0.0, S, q_range)
-    Iw = Iw - B
-    status, usable = _common_status(q, I, S, Iw, Sw, inside, q_range, need_positive=True)
+    return _power_law(_prepare(q, I, S, q_range), background)
+
+
+def _prepare(q, I, S, q_range):
+    """The common column slice of the range, its in-range mask and the finite mask."""
+    qw, Iw, Sw, inside, _, _, q_range = _window(q, I, S, q_range)
+    finite = np.isfinite(Iw) & inside
+    if Sw is not None:
+        finite &= np.isfinite(Sw)
+    return q, I, S, qw, Iw, Sw, inside, finite, q_range
+
+
+def _power_law(prep, background):
+    q, I, S, qw, Iw, Sw, inside, finite, q_range = prep
+    F = I.shape[0]
+    B = np.broadcast_to(np.asarray(background, dtype=float), (F,))[:, None]
+    D = Iw - B
+    status, usable = _common_status(q, I, S, D, Sw, finite, q_range, need_positive=True)
     with np.errstate(divide="ignore", invalid="ignore"):
-        x = np.log(qw)[None, :]
-        y = np.where(usable, np.log(np.where(usable, Iw, 1.0)), np.nan)
-        sy = None if Sw is None else np.where(usable, Sw / Iw, np.nan)
-    fit = weighted_linear_fit(x, y, sy)
+        y = np.log(np.where(usable, D, 1.0))
+        w = np.where(usable, (D / Sw) ** 2, 0.0) if Sw is not None else usable.astype(float)
+    fit = line_fit_shared_x(np.log(qw), y, w, scale_covariance=Sw is None)
     good = status == "ok"
     q_lo, q_hi = _span(qw, usable)
     nan = np.nan
@@ -223,35 +234,37 @@ def porod_fit(q, intensity, sigma=None, *, q_range=None, background="fit") -> di
     (3.0, 0.01)
     """
     q, I, S = _as_2d(q, intensity, sigma)
+    return _porod(_prepare(q, I, S, q_range), background)
+
+
+def _porod(prep, background):
+    q, I, S, qw, Iw, Sw, inside, finite, q_range = prep
     F = I.shape[0]
-    qw, Iw, Sw, inside, _, _, q_range = _window(q, I, S, q_range)
-    status, usable = _common_status(q, I, S, Iw, Sw, inside, q_range, need_positive=False)
-    q4 = (qw**4)[None, :]
+    status, usable = _common_status(q, I, S, Iw, Sw, finite, q_range, need_positive=False)
+    q4 = qw**4
     nan = np.nan
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # weights of y = q^4 I: 1 / (q^4 sigma)^2
+        w = np.where(usable, 1.0 / (q4 * Sw) ** 2, 0.0) if Sw is not None else usable.astype(float)
     if isinstance(background, str):
         if background != "fit":
             raise SaxsInputError(
                 f"background must be 'fit' or a number, got {background!r}", parameter="background"
             )
-        y = np.where(usable, q4 * Iw, np.nan)
-        sy = None if Sw is None else np.where(usable, q4 * Sw, np.nan)
-        fit = weighted_linear_fit(np.broadcast_to(q4, Iw.shape), y, sy)
+        y = np.where(usable, q4 * Iw, 0.0)
+        fit = line_fit_shared_x(q4, y, w, scale_covariance=Sw is None)
         Kp, Ks = fit["intercept"], fit["intercept_sigma"]
         B, Bs, cov = fit["slope"], fit["slope_sigma"], fit["slope_intercept_cov"]
         chi2r, n = fit["chi2_reduced"], fit["n_points"]
     else:
         B = np.broadcast_to(np.asarray(background, dtype=float), (F,)).astype(float)
         y = np.where(usable, q4 * (Iw - B[:, None]), 0.0)
-        if Sw is None:
-            w = usable.astype(float)
-        else:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                w = np.where(usable, 1.0 / (q4 * Sw) ** 2, 0.0)
         n = usable.sum(-1)
         with np.errstate(divide="ignore", invalid="ignore"):
             S0 = w.sum(-1)
-            Kp = (w * y).sum(-1) / S0
-            chi2 = (w * np.where(usable, (y - Kp[:, None]) ** 2, 0.0)).sum(-1)
+            Kp = np.einsum("ij,ij->i", w, y) / S0
+            r = y - Kp[:, None]
+            chi2 = np.einsum("ij,ij->i", w * r, r)
             chi2r = np.where(n > 1, chi2 / np.maximum(n - 1, 1), nan)
             Ks = np.sqrt(1.0 / S0) if Sw is not None else np.sqrt(chi2r / S0)
         Bs = np.zeros(F)
@@ -294,9 +307,10 @@ def porod_analysis(q, intensity, sigma=None, *, q_range=None, background="fit") 
     >>> round(float(r["exponent"][0]), 9), round(float(r["porod_constant"][0]), 9)
     (4.0, 3.0)
     """
-    out = porod_fit(q, intensity, sigma, q_range=q_range, background=background)
-    given = 0.0 if isinstance(background, str) else background
-    pl = power_law_fit(q, intensity, sigma, q_range=q_range, background=given)
+    q, I, S = _as_2d(q, intensity, sigma)
+    prep = _prepare(q, I, S, q_range)
+    out = _porod(prep, background)
+    pl = _power_law(prep, 0.0 if isinstance(background, str) else background)
     for key in ("exponent", "exponent_sigma", "prefactor", "prefactor_sigma"):
         out[key] = pl[key]
     out["exponent_chi2_reduced"] = pl["chi2_reduced"]

@@ -1,0 +1,123 @@
+"""Benchmark: automatic Guinier + Porod over a whole series vs a per-frame lmfit loop.
+
+Usage: ``python benchmarks/bench_linear.py [n_frames]`` (or env ``SAXSNB_BENCH_FRAMES``);
+default 10,000 frames x 1,000 q points. The baseline fits one straight line per frame
+with lmfit (``LinearModel``, ln I vs q^2 on a fixed q range, weights from sigma), the
+plain way to do it; it is timed on a subset (at most 500 frames) and scaled linearly
+to the whole series, as the output says. Timings are wall-clock, best of ``repeats``
+runs after a warm-up on a small slice; the machine may be shared, so the ratio of two
+numbers measured in the same run is what counts. Target: >= 200x.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+
+import numpy as np
+
+
+def make_series(n_frames: int, n_q: int = 1000, seed: int = 0):
+    """Spheres of radius 2-5 nm on a flat background, counting-like noise (synthetic)."""
+    rng = np.random.default_rng(seed)
+    q = np.linspace(0.05, 5.0, n_q)
+    R = rng.uniform(2.0, 5.0, n_frames)
+    I = np.empty((n_frames, n_q))
+    for a in range(0, n_frames, 1000):  # bounded temporaries; data set-up, not timed
+        x = q[None, :] * R[a : a + 1000, None]
+        P = (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2
+        I[a : a + 1000] = 100.0 * P * (R[a : a + 1000, None] / 3.5) ** 6 + 1e-4
+    sigma = np.sqrt(I / 1e4 + (1e-3 * I) ** 2)
+    I += rng.normal(size=I.shape) * sigma
+    return q, I, sigma, np.sqrt(0.6) * R
+
+
+def vectorised(q, I, S):
+    """Automatic Guinier range and fit, then the Porod fit (background fitted, default
+    range: upper quarter of q) with the power-law exponent, on all frames at once."""
+    from saxsnb.analysis.guinier import guinier_fit
+    from saxsnb.analysis.porod import porod_analysis
+
+    g = guinier_fit(q, I, S)
+    p = porod_analysis(q, I, S)
+    return g, p
+
+
+def through_dask(ds, workers: int = 2, chunk: int = 2500):
+    """The same through the accessor on a dask-chunked series (threads scheduler)."""
+    import dask
+
+    lazy = ds.chunk({"frame": chunk})
+    g, p = lazy.saxs.guinier(), lazy.saxs.porod()
+    return dask.compute(g, p, scheduler="threads", num_workers=workers)
+
+
+def baseline(q, I, S, q_range=(0.05, 0.25)):
+    from lmfit.models import LinearModel
+
+    model = LinearModel()
+    m = (q >= q_range[0]) & (q <= q_range[1])
+    x = q[m] ** 2
+    out = np.empty(I.shape[0])
+    for f in range(I.shape[0]):  # the plain per-frame loop being compared against
+        y = np.log(I[f, m])
+        w = I[f, m] / S[f, m]
+        res = model.fit(y, model.make_params(slope=-1.0, intercept=0.0), x=x, weights=w)
+        out[f] = np.sqrt(-3 * res.params["slope"].value)
+    return out
+
+
+def best_time(func, *args, repeats: int = 3):
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        func(*args)
+        times.append(time.perf_counter() - t)
+    return min(times), times
+
+
+def main(argv=None) -> float:
+    argv = sys.argv[1:] if argv is None else argv
+    n = int(argv[0]) if argv else int(os.environ.get("SAXSNB_BENCH_FRAMES", 10_000))
+    q, I, S, rg_true = make_series(n)
+    vectorised(q, I[:50], S[:50])  # warm-up (imports, first allocations)
+    t_vec, all_vec = best_time(vectorised, q, I, S)
+    g, p = vectorised(q, I, S)
+    n_base = min(n, 500)
+    t0 = time.perf_counter()
+    baseline(q, I[:n_base], S[:n_base])
+    t_base_subset = time.perf_counter() - t0
+    t_base = t_base_subset * n / n_base
+    ok = np.mean(g["status"] == "ok")
+    err = np.nanmedian(np.abs(g["rg"] / rg_true - 1))
+    print(f"series: {n} frames x {q.size} q points")
+    print(f"vectorised automatic Guinier + Porod: {t_vec:.3f} s (best of {len(all_vec)}: "
+          + ", ".join(f"{t:.3f}" for t in all_vec) + ")")
+    print(f"  Guinier ok for {100 * ok:.1f} % of frames, median |Rg error| {100 * err:.2f} %, "
+          f"median n_points {np.median(g['n_points']):.0f}, median Porod exponent "
+          f"{np.nanmedian(p['exponent']):.2f}")
+    print(f"baseline lmfit, one fixed-range line per frame: {t_base_subset:.3f} s for {n_base} frames, "
+          f"scaled linearly to {n}: {t_base:.1f} s")
+    ratio = t_base / t_vec
+    print(f"ratio baseline / vectorised (one thread): {ratio:.0f}x (target >= 200x)")
+    try:
+        import dask  # noqa: F401
+
+        import saxsnb
+
+        ds = saxsnb.from_arrays(q, I, S)
+        workers = min(2, os.cpu_count() or 1)
+        through_dask(ds.isel(frame=slice(0, 50)), workers, 25)
+        t_dask, all_dask = best_time(through_dask, ds, workers, max(1, n // (2 * workers)))
+        print(f"accessor on a dask-chunked series, {workers} threads: {t_dask:.3f} s (best of "
+              f"{len(all_dask)}), ratio {t_base / t_dask:.0f}x")
+    except ImportError:
+        print("dask not installed: no threaded measurement")
+    print(f"load average during the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
+          "(other work on the machine slows both sides)")
+    return ratio
+
+
+if __name__ == "__main__":
+    main()
