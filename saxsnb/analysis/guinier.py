@@ -23,14 +23,16 @@ Guinier (1939, Ann. Phys. 12, 161) and Jacques & Trewhella (2010, Protein Sci. 1
 Automatic range (``q_range=None``), our criterion, evaluated for every frame and every
 candidate window at once through prefix sums (:class:`~saxsnb.analysis.linear.WindowMoments`):
 
-1. candidate windows ``[start, stop)`` on the q grid: for "compact" the starts are the
-   first ``n_starts`` usable points (default 3, so that one or two bad first points can
-   be skipped), for "rod"/"sheet" ``n_starts`` (default 16) starts spread over the
-   data, since their linear region lies at intermediate q; ``max_ends`` (default 32)
-   stops evenly spaced from ``min_points`` usable points after the first start up to
-   the third point where ln I lies more than ``limit^2 / 3 + 0.3`` below its first
-   value (a Guinier curve has lost that much only beyond q Rg = limit; the 0.3 is a
-   margin for curves that decay more slowly, such as chains);
+1. candidate windows ``[start, stop)`` on the q grid: for "compact" the windows start
+   at the first usable point, and only for frames where none of them is acceptable at
+   the next ``n_starts - 1`` usable points (default 3 starts in all, so one or two bad
+   first points can be skipped); for "rod"/"sheet" ``n_starts`` (default 16) starts
+   spread over the data, since their linear region lies at intermediate q;
+   ``max_ends`` (default 32) stops evenly spaced from ``min_points`` usable points
+   after the first start up to the third point where ln I lies more than
+   ``limit^2 / 3 + 0.3`` below its first value (a Guinier curve has lost that much
+   only beyond q Rg = limit; the 0.3 is a margin for curves that decay more slowly,
+   such as chains);
 2. a window is acceptable when it holds at least ``min_points`` usable points and no
    negative intensity or zero sigma, its slope is negative, ``q_max * R <= limit``
    with R from the window's own fit, and it shows no curvature: the quadratic term c
