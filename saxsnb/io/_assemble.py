@@ -296,6 +296,7 @@ def build_series(
             parameter="regrid",
         )
     unit = _resolve_q_unit(curves, q_unit)
+    Q = None
     if len({c.q.size for c in curves}) == 1:
         # the common case, checked for all files at once; the loop only names the culprit
         Q = np.stack([c.q for c in curves])
@@ -305,6 +306,7 @@ def build_series(
         fine = False
     if not fine:
         curves = [_check_q(c) for c in curves]
+        Q = None
     iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
     for c, u in iu[1:]:
         if u != iu[0][1]:
@@ -317,8 +319,11 @@ def build_series(
     lengths = {c.q.size for c in curves}
     same = False
     if len(lengths) == 1:
-        Q = np.stack([c.q for c in curves])
-        close = np.isclose(Q, q0, rtol=1e-9, atol=0.0).all(axis=1)
+        if Q is None:
+            Q = np.stack([c.q for c in curves])
+        close = (Q == q0).all(axis=1)
+        if not close.all():
+            close = np.isclose(Q, q0, rtol=1e-9, atol=0.0).all(axis=1)
         same = bool(close.all())
         first_bad = None if same else int(np.argmin(close))
     else:

@@ -75,33 +75,19 @@ def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     nm, ne = len(mant_cols), len(exp_cols)
     if nm > 15:
         return None
-    # one gather of every column that matters, then one range check per column
-    cols = mant_cols + exp_cols
-    lo = [48] * (nm + ne)
-    hi = [57] * (nm + ne)
-    orm = [0] * (nm + ne)
-    if dpos >= 0:
-        cols.append(dpos)
-        lo.append(46)
-        hi.append(46)
-        orm.append(0)
-    if epos < width:
-        cols.append(epos)
-        lo.append(101)
-        hi.append(101)
-        orm.append(0x20)
-    if exp_sign_col is not None:
-        cols.append(exp_sign_col)
-        lo.append(43)
-        hi.append(45)
-        orm.append(0)
-    g = chars[:, cols]
-    v = g | np.array(orm, dtype=np.uint8) if any(orm) else g
-    if not bool(((v >= np.array(lo, np.uint8)) & (v <= np.array(hi, np.uint8))).all()):
+    # digit columns are gathered into one contiguous array and checked with scalar
+    # operands (long inner loops); the few other columns are checked one by one
+    g = chars[:, mant_cols + exp_cols]
+    if not bool((g - np.uint8(48) < 10).all()):
         return None
+    if dpos >= 0 and not bool((chars[:, dpos] == 46).all()):
+        return None
+    if epos < width and not bool((chars[:, epos] | np.uint8(0x20) == 101).all()):
+        return None
+    sign = None
     if exp_sign_col is not None:
-        sign = g[:, -1]
-        if bool((sign == 44).any()):  # ',' lies between '+' and '-'
+        sign = chars[:, exp_sign_col]
+        if not bool((((sign - np.uint8(43)) | np.uint8(2)) == 2).all()):  # '+' (43) or '-' (45)
             return None
     # integer-valued float arithmetic on the raw bytes: sum(b_j 10^k) - 48 sum(10^k);
     # every partial sum is an integer < 2**53, hence exact
@@ -109,12 +95,18 @@ def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     m = np.einsum("ij,j->i", g[:, :nm], wm) - 48.0 * wm.sum()
     if ne:
         we = 10 ** np.arange(ne - 1, -1, -1, dtype=np.int64)
-        ex = np.einsum("ij,j->i", g[:, nm : nm + ne], we) - 48 * int(we.sum())
-        if exp_sign_col is not None:
-            ex = np.where(g[:, -1] == 45, -ex, ex)
-        p = ex - frac
+        ex = np.einsum("ij,j->i", g[:, nm : nm + ne], we) - (48 * int(we.sum()) + frac)
+        if sign is not None:
+            # '+' is 43 and '-' is 45: (44 - sign) is +1 or -1; the shift by frac is undone
+            ex += frac
+            ex *= np.subtract(44, sign, dtype=np.int64)
+            ex -= frac
+        p = ex
     else:
         p = np.full(n, -frac, dtype=np.int64)
+    lo, hi = int(p.min()), int(p.max())
+    if -22 <= lo and hi <= 0:  # the usual case: one exact division per token
+        return m / _POW10[-p], np.ones(n, dtype=bool)
     ok = np.abs(p) <= 22
     scale = _POW10[np.minimum(np.abs(p), 22)]
     vals = np.empty(n)
