@@ -381,3 +381,35 @@ def test_property_malformed_files_raise_only_our_errors(tmp_path, lines, junk):
         except SaxsError:
             return
     assert ds.sizes["frame"] == 1
+
+
+def test_write_dq_and_masked_points_round_trip(tmp_path, rng):
+    ds = _series(rng, 3)
+    ds["dq"] = (("frame", "q"), np.full((3, Q.size), 0.004), {"units": "1/nm", "long_name": "q resolution"})
+    mask = np.zeros((3, Q.size), dtype=bool)
+    mask[2, -2:] = True
+    ds["mask"] = (("frame", "q"), mask, {"long_name": "excluded points"})
+    write_text_series(ds, tmp_path)
+    with pytest.warns(SaxsWarning, match="2 points"):  # masked points are written as NaN
+        back = read_series(tmp_path)
+    np.testing.assert_allclose(back.dq.values, 0.004)
+    np.testing.assert_array_equal(back.mask.values, mask)
+    np.testing.assert_allclose(back.intensity.values[~mask], ds.intensity.values[~mask], rtol=6e-9)
+
+
+def test_write_in_inverse_angstrom_keeps_q(tmp_path, rng):
+    ds = _series(rng, 2).saxs.to_q_unit("1/A")
+    write_text_series(ds, tmp_path)
+    assert "# q_unit = 1/A" in (tmp_path / "frame_0000.dat").read_text()
+    back = read_series(tmp_path)
+    np.testing.assert_allclose(back.q.values, Q, rtol=6e-9)  # back in 1/nm
+
+
+@pytest.mark.parametrize("fmt", ["% .8e", "%+.6e", "%12.5f", "%.3e"])
+def test_signed_fixed_width_layouts(tmp_path, rng, fmt):
+    rows = np.column_stack([Q, rng.normal(size=Q.size) * 50, rng.random(Q.size) + 0.5])
+    path = _write(tmp_path / "s.dat", rows, fmt=fmt)
+    ds = read_series(path)
+    ref = np.loadtxt(path)  # numpy reference parser
+    np.testing.assert_array_equal(ds.intensity.values[0], ref[:, 1])
+    np.testing.assert_array_equal(ds.sigma.values[0], ref[:, 2])
