@@ -10,6 +10,7 @@ import saxsnb
 from saxsnb.analysis.reflections import q_positions
 from saxsnb.phase_overrides import apply_phase_overrides
 from saxsnb.widgets import PeaksPanel
+from saxsnb.widgets import _bq as bq
 
 
 @pytest.fixture(scope="module")
@@ -104,3 +105,27 @@ def test_explore_all_panels_linked_and_exported(cubic_series):
     assert d.show_code() == d.code_area.value
     fig = d.panels["peaks"].to_matplotlib()
     assert len(fig.axes) == 3
+
+
+def _check_drawable(panel):
+    """Point marks must hold finite coordinates only (a browser cannot place NaN)."""
+    for fig in panel.figures:
+        for mark in fig.marks:
+            if isinstance(mark, (bq.Scatter, bq.Label)):
+                assert np.all(np.isfinite(mark.x)) and np.all(np.isfinite(mark.y)), (panel.name, mark.labels)
+            elif isinstance(mark, bq.Lines) and mark.visible and np.size(mark.y):
+                assert np.isfinite(np.asarray(mark.y, dtype=float)).any(), (panel.name, mark.labels)
+
+
+def test_demo_dashboard_draws_only_finite_points():
+    series, background = saxsnb.demo.make_series("unfolding", seed=0)
+    ds = series.saxs.subtract(background)
+    d = saxsnb.explore(ds, background)
+    for f in (0, 20, 40):
+        d.frame = f
+        for p in d.panels.values():
+            _check_drawable(p)
+    d.panels["guinier"].apply_to_all = True
+    d.panels["kratky"].normalize = None
+    for p in d.panels.values():
+        _check_drawable(p)

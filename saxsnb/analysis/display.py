@@ -24,6 +24,7 @@ __all__ = [
     "KRATKY_REFERENCES",
     "scaled_q",
     "curve_at",
+    "finite_points",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -290,3 +291,28 @@ def curve_at(q, intensity, positions):
         np.where(np.isfinite(p), p, 0.0), np.asarray(q, dtype=float), np.asarray(intensity, dtype=float)
     )
     return np.where(np.isfinite(p), out, np.nan)
+
+
+def finite_points(x, y, *, positive: bool = False):
+    """The points of a scatter plot that can be drawn, with their original indices.
+
+    Parameters
+    ----------
+    x, y : arrays (n,)
+    positive : bool
+        Also drop points with ``y <= 0`` (for a logarithmic y axis).
+
+    Returns
+    -------
+    x, y, index : arrays of the kept points and their positions in the input.
+
+    >>> finite_points(np.array([1.0, 2.0, 3.0]), np.array([1.0, np.nan, -1.0]), positive=True)
+    (array([1.]), array([1.]), array([0]))
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    keep = np.isfinite(x) & np.isfinite(y)
+    if positive:
+        keep &= y > 0
+    idx = np.flatnonzero(keep)
+    return x[idx], y[idx], idx

@@ -8,7 +8,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import KRATKY_REFERENCES, scaled_q
+from ..analysis.display import KRATKY_REFERENCES, finite_points, scaled_q
 from . import _bq as bq
 from .base import PanelBase, make_figure
 from .palette import OKABE_ITO, ROLE
@@ -73,7 +73,7 @@ class KratkyPanel(PanelBase):
         self._xs, self._ys = xs, ys
         self.curve = bq.Lines(
             x=self.q,
-            y=np.full(self.q.size, np.nan),
+            y=np.zeros(self.q.size),
             scales={"x": xs, "y": ys},
             colors=[ROLE["data"]],
             stroke_width=1.5,
@@ -108,9 +108,11 @@ class KratkyPanel(PanelBase):
         self._x_axis, self._y_axis = fig.axes
         tx, ty = bq.LinearScale(), bq.LinearScale()
         scan = np.asarray(self.scan_values, dtype=float)
+        self._point_frames: dict = {}
+        self._x_state = "q"
         self.trend_peak = bq.Scatter(
-            x=scan,
-            y=np.full(self.n_frames, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": tx, "y": ty},
             colors=[ROLE["trend"]],
             default_size=16,
@@ -119,8 +121,8 @@ class KratkyPanel(PanelBase):
             unselected_style={"opacity": 1.0},
         )
         self.trend_level = bq.Scatter(
-            x=scan,
-            y=np.full(self.n_frames, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": tx, "y": ty},
             colors=[OKABE_ITO["blue"]],
             default_size=16,
@@ -170,10 +172,11 @@ class KratkyPanel(PanelBase):
         self._summary = None
         try:
             self._summary = self.ds.saxs.kratky_summary()
-            with self.trend_peak.hold_sync():
-                self.trend_peak.y = np.asarray(self._summary["peak_height"].values, dtype=float)
-            with self.trend_level.hold_sync():
-                self.trend_level.y = np.asarray(self._summary["level_high"].values, dtype=float)
+            for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
+                x, y, frames = finite_points(self.scan_values, self._summary[var].values)
+                with mark.hold_sync():
+                    mark.x, mark.y = x, y
+                self._point_frames[id(mark)] = frames
         except Exception as exc:  # shown in the status line
             self.report(exc, "Kratky summary of the series")
         return [self.toggle, fig, self.summary_text, tfig]
@@ -185,11 +188,12 @@ class KratkyPanel(PanelBase):
         self.toggle.value = "plain" if change["new"] is None else "rg"
         self._update()
 
-    def _on_trend_click(self, _mark, content) -> None:
+    def _on_trend_click(self, mark, content) -> None:
         data = content.get("data") or {}
         idx = data.get("index") if isinstance(data, dict) else None
-        if idx is not None and 0 <= int(idx) < self.n_frames:
-            self.frame = int(idx)
+        frames = self._point_frames.get(id(mark))
+        if idx is not None and frames is not None and 0 <= int(idx) < frames.size:
+            self.frame = int(frames[int(idx)])
 
     # ----------------------------------------------------------------- update
     def _series(self, normalize):
@@ -221,12 +225,17 @@ class KratkyPanel(PanelBase):
             x = scaled_q(self.q, np.array([rg]))[0]
         else:
             x = self.q
+        y = np.asarray(series.values[i], dtype=float)
+        state = "q"
+        if dimensionless:
+            state = "scaled" if np.isfinite(rg) else "empty"
+            if state == "empty":  # a browser cannot place NaN abscissae: draw nothing
+                x, y = np.zeros(0), np.zeros(0)
         with self.curve.hold_sync():
-            if dimensionless:
+            if state != "q" or self._x_state != "q":
                 self.curve.x = x
-            elif self._x_axis.label != f"q ({self.q_units})":
-                self.curve.x = x
-            self.curve.y = np.asarray(series.values[i], dtype=float)
+            self.curve.y = y
+        self._x_state = state
         if dimensionless:
             self._set_axes("q Rg", "(q Rg)^2 I / I0", visible=True)
             self._xs.min, self._xs.max = 0.0, float(min(np.nanmax(x), 12.0)) if np.isfinite(rg) else None

@@ -9,6 +9,7 @@ import numpy as np
 import traitlets
 
 from ..analysis.display import (
+    finite_points,
     line_coefficients,
     line_residuals,
     linear_x,
@@ -153,8 +154,8 @@ class LinearFitPanel(PanelBase):
             labels=["fitted points"],
         )
         self.fit_line = bq.Lines(
-            x=np.zeros(2),
-            y=np.full(2, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": xs, "y": ys},
             colors=[ROLE["fit"]],
             stroke_width=2.0,
@@ -197,9 +198,10 @@ class LinearFitPanel(PanelBase):
         # trend of the result against the scan (all frames, automatic range: computed once)
         tx, ty = bq.LinearScale(), bq.LinearScale()
         self._auto_series = None
+        self._point_frames: dict = {}
         self.trend = bq.Scatter(
-            x=np.asarray(self.scan_values, dtype=float),
-            y=np.full(self.n_frames, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": tx, "y": ty},
             colors=[ROLE["trend"]],
             default_size=16,
@@ -208,8 +210,8 @@ class LinearFitPanel(PanelBase):
             unselected_style={"opacity": 1.0},
         )
         self.trend_fixed = bq.Scatter(
-            x=np.asarray(self.scan_values, dtype=float),
-            y=np.full(self.n_frames, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": tx, "y": ty},
             colors=[OKABE_ITO["orange"]],
             default_size=16,
@@ -219,8 +221,8 @@ class LinearFitPanel(PanelBase):
             visible=False,
         )
         self.trend_current = bq.Scatter(
-            x=np.zeros(1),
-            y=np.full(1, np.nan),
+            x=np.zeros(0),
+            y=np.zeros(0),
             scales={"x": tx, "y": ty},
             colors=[ROLE["current"]],
             default_size=80,
@@ -285,8 +287,7 @@ class LinearFitPanel(PanelBase):
         except Exception as exc:  # shown in the status line
             self.report(exc, "automatic fit of the series")
             return
-        with self.trend.hold_sync():
-            self.trend.y = np.asarray(self._auto_series[self.size_var].values, dtype=float)
+        self._draw_points(self.trend, self._auto_series[self.size_var].values)
 
     # --------------------------------------------------------------- selector
     @traitlets.validate("q_range")
@@ -332,11 +333,20 @@ class LinearFitPanel(PanelBase):
         finally:
             self._syncing = False
 
-    def _on_trend_click(self, _mark, content) -> None:
+    def _draw_points(self, mark, values) -> None:
+        """Draw per-frame values against the scan (finite points only; a browser
+        cannot place a NaN), remembering which frame each drawn point is."""
+        x, y, frames = finite_points(self.scan_values, values)
+        with mark.hold_sync():
+            mark.x, mark.y = x, y
+        self._point_frames[id(mark)] = frames
+
+    def _on_trend_click(self, mark, content) -> None:
         data = content.get("data") or {}
         idx = data.get("index") if isinstance(data, dict) else None
-        if idx is not None and 0 <= int(idx) < self.n_frames:
-            self.frame = int(idx)
+        frames = self._point_frames.get(id(mark))
+        if idx is not None and frames is not None and 0 <= int(idx) < frames.size:
+            self.frame = int(frames[int(idx)])
 
     # ----------------------------------------------------------------- update
     def _on_choice(self, change) -> None:
@@ -366,9 +376,8 @@ class LinearFitPanel(PanelBase):
         self.status = "" if fstatus == "ok" else f"{self.frame_label(i)}: {fstatus}"
 
     def _draw_fixed_trend(self, res_all) -> None:
-        with self.trend_fixed.hold_sync():
-            self.trend_fixed.y = np.asarray(res_all[self.size_var].values, dtype=float)
-            self.trend_fixed.visible = True
+        self._draw_points(self.trend_fixed, res_all[self.size_var].values)
+        self.trend_fixed.visible = True
 
     def _draw(self, i: int, vals: dict) -> None:
         q = self.q
@@ -384,14 +393,15 @@ class LinearFitPanel(PanelBase):
             lo_view = 0.0
             hi_view = min(q[-1], 2.0 * q_hi) if np.isfinite(q_hi) else q[min(q.size - 1, q.size // 4)]
         view = (q >= lo_view) & (q <= hi_view)
-        x, y = self._lx[i][view], self._ly[i][view]
+        x, y, _ = finite_points(self._lx[i][view], self._ly[i][view])
         with self.data.hold_sync():
             self.data.x = x
             self.data.y = y
         inside = (
             (q >= q_lo) & (q <= q_hi) if np.isfinite(q_lo) and np.isfinite(q_hi) else np.zeros_like(q, bool)
         )
-        xin, yin, syin = self._lx[i][inside], self._ly[i][inside], self._lsy[i][inside]
+        xin, yin, kept = finite_points(self._lx[i][inside], self._ly[i][inside])
+        syin = self._lsy[i][inside][kept]
         a, b = line_coefficients(self.kind, vals)
         x_end = linear_x(max(hi_view, q_hi if np.isfinite(q_hi) else hi_view), self.transform)
         x_start = linear_x(lo_view, self.transform) if self.transform == "porod" else 0.0
@@ -399,17 +409,19 @@ class LinearFitPanel(PanelBase):
         _, res = line_residuals(xin, yin, syin, a, b)
         with self.in_range.hold_sync():
             self.in_range.x, self.in_range.y = xin, yin
+        lx, ly, _ = finite_points(np.array([x_start, x_end]), line)
         with self.fit_line.hold_sync():
-            self.fit_line.x, self.fit_line.y = np.array([x_start, x_end]), line
+            self.fit_line.x, self.fit_line.y = lx, ly
+        rx, ry, _ = finite_points(xin, res)
         with self.residuals.hold_sync():
-            self.residuals.x, self.residuals.y = xin, res
+            self.residuals.x, self.residuals.y = rx, ry
         if xin.size:
             with self.zero_line.hold_sync():
                 self.zero_line.x = np.array([xin[0], xin[-1]])
         self._move_selector(q_lo, q_hi)
+        cx, cy, _ = finite_points([float(self.scan_values[i])], [vals.get(self.size_var, np.nan)])
         with self.trend_current.hold_sync():
-            self.trend_current.x = np.array([float(self.scan_values[i])])
-            self.trend_current.y = np.array([vals.get(self.size_var, np.nan)])
+            self.trend_current.x, self.trend_current.y = cx, cy
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
         self.result_text.value = self._result_html(vals)
 

@@ -9,7 +9,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import curve_at, positive_range
+from ..analysis.display import curve_at, finite_points, positive_range
 from ..analysis.reflections import PHASES
 from ..phase_overrides import apply_phase_overrides
 from . import _bq as bq
@@ -357,14 +357,14 @@ class PeaksPanel(PanelBase):
             self.trend_current.x = np.array([v, v])
             self.trend_current.y = np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2)
         pos = self._pos[i]
-        ok = np.isfinite(pos)
         hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
-        y = curve_at(self.q, self._I[i], pos[ok])
+        # markers on the log axis: finite positions with a positive intensity only
+        px, py, kept = finite_points(pos, curve_at(self.q, self._I[i], pos), positive=True)
         with self.markers.hold_sync():
-            self.markers.x, self.markers.y = pos[ok], y
+            self.markers.x, self.markers.y = px, py
         with self.labels.hold_sync():
-            self.labels.x, self.labels.y = pos[ok], y
-            self.labels.text = [str(h) for h in hkl[ok]]
+            self.labels.x, self.labels.y = px, py
+            self.labels.text = [str(h) for h in hkl[kept]]
         self.table.value = self._table_html(i)
         self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
         status = str(res["status"].values[i])
