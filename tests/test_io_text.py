@@ -413,3 +413,29 @@ def test_signed_fixed_width_layouts(tmp_path, rng, fmt):
     ref = np.loadtxt(path)  # numpy reference parser
     np.testing.assert_array_equal(ds.intensity.values[0], ref[:, 1])
     np.testing.assert_array_equal(ds.sigma.values[0], ref[:, 2])
+
+
+def test_unreadable_file_is_named(tmp_path, monkeypatch):
+    import saxsnb.io.text as text
+
+    path = _write(tmp_path / "locked.dat", _curve())
+
+    def refuse(p, mode="r", *args, **kwargs):
+        raise PermissionError(13, "Permission denied", str(p))
+
+    monkeypatch.setattr(text, "open", refuse, raising=False)
+    with pytest.raises(SaxsFileError, match=r"locked\.dat.*cannot read the file: Permission denied"):
+        read_series(path)
+
+
+def test_byte_order_mark_and_progress_bar(tmp_path, capsys):
+    (tmp_path / "a.dat").write_bytes(b"\xef\xbb\xbf# q_unit = 1/A\n0.1 5 0.1\n0.2 4 0.1\n")
+    ds = read_series(tmp_path, progress=True)
+    np.testing.assert_allclose(ds.q.values, [1.0, 2.0])
+    assert "reading" in capsys.readouterr().err
+
+
+def test_multiline_sample_name_survives_text_round_trip(tmp_path):
+    ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]], sample="line one\nline two")
+    write_text_series(ds, tmp_path)
+    assert read_series(tmp_path).attrs["sample"] == "line one\nline two"

@@ -105,8 +105,10 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     The first line holding 2 to 4 numbers starts the body; every line before it is
     header. Raises :class:`SaxsFileError` for binary, empty or header-only files.
     """
-    if b"\x00" in data[:4096] or b"\x00" in data:
+    if b"\x00" in data:
         raise SaxsFileError("this is not a text file (it contains NUL bytes)", path=path)
+    if data.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
+        data = data[3:]
     pos = 0
     while True:
         m = _NUMROW.search(data, pos)

@@ -295,7 +295,7 @@ def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str =
     for key, value in ds.attrs.items():
         if key in ("source_files",):
             continue
-        if key in ("sample", "scan") and isinstance(value, str):
+        if key in ("sample", "scan") and isinstance(value, str) and "\n" not in value:
             const.append(f"# {key} = {value}")
         else:
             const.append(f"# attr.{key} = {json.dumps(_jsonable(value), ensure_ascii=False)}")
