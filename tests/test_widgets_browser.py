@@ -127,3 +127,15 @@ def test_explore_links_frames(series):
     exec(code, ns)
     xr.testing.assert_identical(ns["curve"], d.panels["curve"].result)
     assert explore is saxsnb.explore
+
+
+def test_single_frame_and_unlabelled_series(rng):
+    q = np.linspace(0.05, 3.0, 80)
+    I = 100 * np.exp(-((q * 3.0) ** 2) / 3) + 0.1  # Guinier form (Guinier 1939)
+    one = saxsnb.from_arrays(q, I, 0.01 * I)
+    d = saxsnb.explore(one, panels=("browser", "curve", "guinier", "kratky"))
+    assert all(p.status == "" for p in d.panels.values())
+    assert d.panels["browser"].heatmap.color.shape == (2, 80)
+    b = SeriesBrowser(saxsnb.from_arrays(q, np.vstack([I, 2 * I]), 0.01 * np.vstack([I, 2 * I])))
+    b.frame = 1
+    assert b.frame_label() == "frame 1" and b.scan_label == "frame"

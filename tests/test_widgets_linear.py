@@ -175,3 +175,14 @@ def test_kratky_panel_plain_toggle_and_trend_click(series):
     assert k.frame == 5
     np.testing.assert_allclose(k.trend_current.x, [50.0, 50.0])
     assert k.to_matplotlib().axes[0].get_xlabel() == "q Rg"
+
+
+def test_linear_panel_matplotlib_export(series):
+    p = LinearFitPanel(series, q_range=(0.05, 0.3))
+    fig = p.to_matplotlib()
+    ax, rax, tax = fig.axes
+    assert ax.get_xlabel() == "q^2 (1/nm)^2" and ax.get_ylabel() == "ln I"
+    fit = [line for line in ax.lines if line.get_color() == ROLE["fit"]]
+    assert len(fit) == 1
+    np.testing.assert_allclose(fit[0].get_ydata(), p.fit_line.y)
+    assert rax.get_ylabel() == "residual / sigma" and tax.get_xlabel() == "time (s)"

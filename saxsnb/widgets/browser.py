@@ -87,6 +87,10 @@ class SeriesBrowser(PanelBase):
         self._row_frames = centre[order]
         self._row_y = np.asarray(y, dtype=float)[order]
         logmap = omap["log10_intensity"][order]
+        if logmap.shape[0] == 1:  # one frame: a map of two identical rows (a 2-D image)
+            logmap = np.vstack([logmap, logmap])
+            self._row_frames = np.repeat(self._row_frames, 2)
+            self._row_y = self._row_y[0] + np.array([-0.5, 0.5])
 
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LinearScale()

@@ -411,9 +411,10 @@ class PeaksPanel(PanelBase):
     def _code_lines(self, target: str) -> list[str]:
         fo = ", ".join(f"{k}={v!r}" for k, v in sorted(self.find_options.items()))
         io = ", ".join(f"{k}={v!r}" for k, v in sorted(self.index_options.items()))
+        found = "found_peaks" if target == "peaks" else f"{target}_peaks"
         lines = [
-            f"{target}_peaks = ds.saxs.find_peaks({fo})",
-            f"{target} = ds.saxs.index_phases({target}_peaks{', ' + io if io else ''})",
+            f"{found} = ds.saxs.find_peaks({fo})",
+            f"{target} = ds.saxs.index_phases({found}{', ' + io if io else ''})",
         ]
         if self.overrides:
             ov = {
@@ -422,6 +423,6 @@ class PeaksPanel(PanelBase):
             }
             lines += [
                 "from saxsnb.phase_overrides import apply_phase_overrides",
-                f"{target} = apply_phase_overrides(ds, {target}, {target}_peaks, {ov!r})  # set by hand",
+                f"{target} = apply_phase_overrides(ds, {target}, {found}, {ov!r})  # set by hand",
             ]
         return lines
