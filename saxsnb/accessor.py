@@ -257,7 +257,7 @@ class SaxsAccessor:
         *,
         q_range: tuple[float, float] | None = None,
         min_prominence: float = 6.0,
-        profile: str = "gaussian",
+        profile: str = "pseudo_voigt",
         max_peaks: int = 16,
         baseline_width: float | None = None,
         track: bool = True,
@@ -675,7 +675,7 @@ class SaxsAccessor:
         """Peak and high-q shape of every frame's dimensionless Kratky plot.
 
         See :func:`saxsnb.analysis.kratky.kratky_summary` (``options``: peak_window,
-        half_width, bands, bell_level, rise_trend). Returns a Dataset on ``frame``:
+        half_width, bands, bell_level, rise_trend, fall_trend). Returns a Dataset on ``frame``:
         ``peak_qrg``, ``peak_height``, ``level_mid``, ``level_high``, ``trend``,
         ``qrg_max`` (all "1"), ``shape_class`` ("bell", "plateau", "rise",
         "undetermined"), and the ``rg``, ``i0`` used; sortable, e.g.

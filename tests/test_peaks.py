@@ -25,7 +25,7 @@ def test_fit_matches_curve_fit_on_same_window(rng):
     y = true + rng.normal(0, 1, q.size) * sig
     ci = int(np.argmin(np.abs(q - 1.0123)))
     wpts = 6.0  # window = +-round(2 * 6) = 12 points
-    res = fit_peaks(q, y[None], sig[None], np.array([[ci]]), np.array([[wpts]]))
+    res = fit_peaks(q, y[None], sig[None], np.array([[ci]]), np.array([[wpts]]), profile="gaussian")
     sl = slice(ci - 12, ci + 13)
 
     def model(x, c, w, h, b0, b1):
@@ -136,3 +136,14 @@ def test_blocks_equal_one_pass(rng):
     I[3] = np.nan
     with pytest.raises(SaxsFitError, match="frame 3"):
         find_peaks(Q, I, S, block=2, errors="raise")
+
+
+def test_shoulder_on_the_flank_of_a_strong_peak_is_found(rng):
+    # a peak 1/5 as high, 1.5 FWHM away: no local maximum of its own, only a shoulder
+    I, S = curve([1.0, 1.03], [100.0, 20.0], rng=rng)
+    res = find_peaks(Q, I[None], S[None])
+    assert res["n_peaks"][0] == 2
+    assert np.allclose(res["position"][0, :2], [1.0, 1.03], atol=2e-3)
+    assert np.all(np.isfinite(res["prominence"][0, :2]))
+    plain = find_peaks(Q, I[None], S[None], shoulders=False)
+    assert plain["n_peaks"][0] == 1

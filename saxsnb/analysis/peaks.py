@@ -151,8 +151,9 @@ def detect_peaks(
     max_peaks: int = 16,
     window: int = 41,
     smooth: float = 1.5,
+    shoulders: bool = True,
 ):
-    """Local maxima of baseline-subtracted curves, ranked by prominence.
+    """Local maxima (and shoulders) of baseline-subtracted curves, ranked by prominence.
 
     Parameters
     ----------
@@ -169,11 +170,15 @@ def detect_peaks(
         Points each side searched for the bases of a peak (odd).
     smooth : float
         Width (points) of the Gaussian smoothing applied before the search.
+    shoulders : bool
+        Also report shoulders: maxima of the negative second derivative that are not
+        near a local maximum (a weak peak on the flank of a strong one).
 
     Returns
     -------
     index : int array (n_frames, max_peaks), q index of each peak, -1 padded.
-    prominence : array (n_frames, max_peaks), in intensity units, NaN padded.
+    prominence : array (n_frames, max_peaks), in intensity units, NaN padded (also
+        NaN for shoulders, whose prominence is not defined).
     width_points : array (n_frames, max_peaks), estimated FWHM in points.
 
     Notes
@@ -184,7 +189,12 @@ def detect_peaks(
     ``window`` points on each side (the windowed prominence of topographic peak
     finding, as in ``scipy.signal.peak_prominences`` with ``wlen``; here the base
     search does not stop at a higher neighbouring peak, so a shoulder's prominence
-    is overestimated). Everything is array operations over all frames.
+    is overestimated). A shoulder is a maximum of ``-d2``, the second difference of
+    the smoothed curve (the classic resolution-enhancing derivative, Savitzky & Golay
+    1964, Anal. Chem. 36, 1627), that exceeds ``min_prominence`` times its own noise
+    (propagated from ``noise`` through the smoothing and differencing kernels) and
+    has no local maximum within ``2 min_separation`` points. Everything is array
+    operations over all frames.
     """
     r = np.asarray(residual, dtype=float)
     n_f, n_q = r.shape
@@ -207,6 +217,22 @@ def detect_peaks(
     prom = sm - np.maximum(left, right)
     ok = is_max & (prom > min_prominence * nz) & (sm > 0)
     score = np.where(ok, prom / np.maximum(nz, 1e-300), -np.inf)
+    shoulder = np.zeros_like(ok)
+    if shoulders and n_q > 4:
+        c = np.zeros_like(sm)
+        c[:, 1:-1] = -(sm[:, :-2] - 2.0 * sm[:, 1:-1] + sm[:, 2:])
+        # noise of -d2: sigma times the norm of the (smoothing then differencing) kernel
+        imp = np.zeros(8 * int(np.ceil(max(smooth, 1))) + 9)
+        imp[imp.size // 2] = 1.0
+        ker = ndimage.gaussian_filter1d(imp, smooth) if smooth > 0 else imp
+        kd2 = np.sqrt(np.sum((ker[:-2] - 2 * ker[1:-1] + ker[2:]) ** 2))
+        nd2 = np.broadcast_to(np.asarray(noise, dtype=float), r.shape) * kd2
+        is_c = c == ndimage.maximum_filter1d(c, size=2 * md + 1, axis=-1, mode="nearest")
+        near = ndimage.maximum_filter1d(is_max.astype(np.uint8), size=4 * md + 1, axis=-1) > 0
+        shoulder = is_c & ~near & (c > min_prominence * nd2) & (sm > min_prominence * nz)
+        shoulder[:, :2] = False
+        shoulder[:, -2:] = False
+        score = np.where(shoulder, c / np.maximum(nd2, 1e-300), score)
     k = min(int(max_peaks), n_q)
     if k < n_q:
         top = np.argpartition(-score, k - 1, axis=-1)[:, :k]
@@ -230,6 +256,15 @@ def detect_peaks(
     lpos = np.where(lb.any(-1), np.argmax(lb, axis=-1) + 1, half)
     rpos = np.where(rb.any(-1), np.argmax(rb, axis=-1) + 1, half)
     width_pts = np.where(good, np.maximum(lpos + rpos - 1, 1).astype(float), np.nan)
+    is_sh = good & shoulder[np.arange(n_f)[:, None], top]
+    if is_sh.any():
+        # a shoulder has no prominence of its own; its width is the frame's typical width
+        p = np.where(is_sh, np.nan, p)
+        normal = np.where(good & ~is_sh, width_pts, np.nan)
+        with np.errstate(all="ignore"):
+            typical = np.where(np.isfinite(normal).any(1), np.nanmedian(np.where(
+                np.isfinite(normal).any(1)[:, None], normal, 0.0), axis=1), 4.0)
+        width_pts = np.where(is_sh, typical[:, None], width_pts)
     if k < max_peaks:  # tiny q grids
         pad = max_peaks - k
         top = np.pad(top, ((0, 0), (0, pad)))
@@ -337,9 +372,11 @@ def fit_peaks(
     index,
     width_points,
     *,
-    profile: str = "gaussian",
+    profile: str = "pseudo_voigt",
     max_iter: int = 50,
     half_window: int | None = None,
+    start: dict | None = None,
+    others=None,
 ):
     """Fit every detected peak of every frame at once (batched Levenberg-Marquardt).
 
@@ -353,6 +390,13 @@ def fit_peaks(
     max_iter : int
     half_window : int, optional
         Largest half-width (points) of a fit window; default 40.
+    start : dict of arrays (n_frames, n_peaks), optional
+        ``position``, ``fwhm``, ``height`` (and ``eta``) of a previous fit, used as
+        starting values; with ``others``, a backfitting pass (see Notes).
+    others : array (n_frames, n_q), optional
+        Sum of the previously fitted peak profiles of each frame. Each peak is then
+        refitted on ``residual - others + own previous profile`` over its full
+        window, i.e. with its neighbours' fitted profiles removed.
 
     Returns
     -------
@@ -371,7 +415,9 @@ def fit_peaks(
     dp = J^T r`` for all peaks in one ``numpy.linalg.solve``, lambda adapted per peak.
     Uncertainties are ``sqrt(diag((J^T W J)^-1) * chi2_red)``, the covariance
     scaled by the reduced chi-square (as ``scipy.optimize.curve_fit`` with
-    ``absolute_sigma=False``). Areas: Gaussian ``h w sqrt(pi / (4 ln 2))``,
+    ``absolute_sigma=False``). Overlapping peaks are refined by backfitting
+    (Hastie & Tibshirani 1986, Stat. Sci. 1, 297): each peak is refitted on the data
+    minus its neighbours' current profiles. Areas: Gaussian ``h w sqrt(pi / (4 ln 2))``,
     Lorentzian ``h w pi / 2``, pseudo-Voigt the eta-weighted mix.
     """
     if profile not in PROFILES:
@@ -403,6 +449,12 @@ def fit_peaks(
     nxt[:, :-1] = np.where(good[:, 1:], idx[:, 1:], 10**9)
     lo_lim = np.maximum(ci - hw, (ci + prev[fi, pi]) // 2 + 1)
     hi_lim = np.minimum(ci + hw, (ci + nxt[fi, pi] + 1) // 2 - 1)
+    if others is not None:
+        others = np.asarray(others, dtype=float)
+    if start is not None:
+        st_c, st_w, st_h = (np.asarray(start[k], dtype=float)[fi, pi] for k in ("position", "fwhm", "height"))
+        st_e = np.asarray(start["eta"], dtype=float)[fi, pi] if "eta" in start else np.full(ci.size, 0.5)
+        st_e = np.where(np.isfinite(st_e), st_e, 0.5)
     # peaks are solved in groups of similar window size, so padding stays small
     all_f, all_p, all_c, all_w, all_h, all_lo, all_hi = fi, pi, ci, wpts, hw, lo_lim, hi_lim
     cuts = np.minimum(np.percentile(all_h, [60, 95]).astype(int), hmax)
@@ -413,12 +465,17 @@ def fit_peaks(
             continue
         fi, pi, ci, wpts, hw = all_f[g], all_p[g], all_c[g], all_w[g], all_h[g]
         lo_lim, hi_lim = all_lo[g], all_hi[g]
+        if start is not None:
+            sc, sw, sh, se = st_c[g], st_w[g], st_h[g], st_e[g]
         hpad = int(hw.max())
         cols = ci[:, None] + np.arange(-hpad, hpad + 1)[None, :]
         inside = (cols >= lo_lim[:, None]) & (cols <= hi_lim[:, None]) & (cols >= 0) & (cols < n_q)
         cols_c = np.clip(cols, 0, n_q - 1)
         x = q[cols_c]
         y = r[fi[:, None], cols_c]
+        if others is not None:
+            own = peak_profile(x, sc[:, None], sw[:, None], sh[:, None], se[:, None], profile=profile)
+            y = y - others[fi[:, None], cols_c] + own
         s = nz[fi[:, None], cols_c]
         inside &= np.isfinite(y) & np.isfinite(s) & (s > 0)
         wgt = np.where(inside, 1.0 / np.where(inside, s, 1.0), 0.0)
@@ -431,11 +488,13 @@ def fit_peaks(
         edge = np.where(inside, y, np.inf).min(axis=1)
         edge = np.where(np.isfinite(edge), edge, 0.0)
         h0 = np.maximum(r[fi, ci] - edge, 1e-12)
+        if start is not None:
+            c0, w0, h0 = sc, np.maximum(sw, 2 * dq), np.maximum(sh, 1e-12)
         k = 6 if profile == "pseudo_voigt" else 5
         p = np.zeros((ci.size, k))
         p[:, 0], p[:, 1], p[:, 2], p[:, 3] = c0, w0, h0, edge
         if k == 6:
-            p[:, 5] = 0.5
+            p[:, 5] = 0.5 if start is None else se
         cref = c0[:, None]
         wmin = 0.25 * dq
 
@@ -538,6 +597,30 @@ def fit_peaks(
     return out
 
 
+def _profile_sum(q, fit, profile, shape, reach: float = 4.0):
+    """Sum over peaks of the fitted profiles, per frame, on ``q`` (out to ``reach`` FWHM)."""
+    total = np.zeros(shape)
+    pos, w, h = fit["position"], fit["fwhm"], fit["height"]
+    ok = np.isfinite(pos) & np.isfinite(w) & np.isfinite(h)
+    if not ok.any():
+        return total
+    fi, pi = np.nonzero(ok)
+    n_q = q.size
+    dq = float(np.median(np.diff(q)))
+    c, ww, hh = pos[fi, pi], w[fi, pi], h[fi, pi]
+    e = fit["eta"][fi, pi] if "eta" in fit else np.full(c.size, np.nan)
+    e = np.where(np.isfinite(e), e, 0.5)
+    ci = np.clip(np.searchsorted(q, c), 0, n_q - 1)
+    half = int(min(np.ceil(reach * ww.max() / dq), n_q))
+    cols = ci[:, None] + np.arange(-half, half + 1)
+    inside = (cols >= 0) & (cols < n_q) & (np.abs(cols - ci[:, None]) <= reach * ww[:, None] / dq)
+    cols_c = np.clip(cols, 0, n_q - 1)
+    vals = peak_profile(q[cols_c], c[:, None], ww[:, None], hh[:, None], e[:, None], profile=profile)
+    flat = (fi[:, None] * n_q + cols_c)[inside]
+    total += np.bincount(flat, weights=vals[inside], minlength=total.size).reshape(shape)
+    return total
+
+
 # ------------------------------------------------------------------------ all in one
 def find_peaks(
     q,
@@ -546,10 +629,12 @@ def find_peaks(
     *,
     q_range: tuple[float, float] | None = None,
     min_prominence: float = 6.0,
-    profile: str = "gaussian",
+    profile: str = "pseudo_voigt",
     max_peaks: int = 16,
     baseline_width: float | None = None,
     min_separation: int = 3,
+    shoulders: bool = True,
+    backfit: bool = True,
     errors: str = "ignore",
     block: int = 512,
 ):
@@ -564,10 +649,13 @@ def find_peaks(
     min_prominence : float
         Detection threshold, in units of the noise of the smoothed curve (see
         :func:`detect_peaks`).
-    profile : "gaussian", "lorentzian" or "pseudo_voigt".
+    profile : "pseudo_voigt" (default; mixing eta fitted per peak, which covers the
+        Gaussian and Lorentzian shapes of real Bragg peaks), "gaussian" or "lorentzian".
     max_peaks : int, the most prominent peaks kept per frame.
     baseline_width : float, optional, 1/nm, see :func:`estimate_baseline`.
     min_separation : int, points.
+    shoulders : bool, also report shoulders (see :func:`detect_peaks`).
+    backfit : bool, refine overlapping peaks by backfitting (see :func:`fit_peaks`).
     errors : "ignore" (per-frame status) or "raise" (:class:`SaxsFitError` for a
         frame without usable data).
     block : int
@@ -600,7 +688,8 @@ def find_peaks(
     if I_all.shape[0] > block > 0:
         S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
         opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
-                    baseline_width=baseline_width, min_separation=min_separation, errors=errors, block=0)
+                    baseline_width=baseline_width, min_separation=min_separation, shoulders=shoulders,
+                    backfit=backfit, errors=errors, block=0)
         parts = []
         for b0 in range(0, I_all.shape[0], block):
             sl = slice(b0, b0 + block)
@@ -654,12 +743,32 @@ def find_peaks(
         min_separation=min_separation,
         max_peaks=int(max_peaks),
         window=window,
+        shoulders=shoulders,
     )
     index[~enough] = -1
     fit = fit_peaks(qs, resid, noise, index, wpts, profile=profile)
+    # overlapping peaks: two backfitting rounds, each peak refitted with its neighbours removed
+    pos, fw = fit["position"], fit["fwhm"]
+    with np.errstate(invalid="ignore"):
+        pair = (pos[:, 1:] - pos[:, :-1]) < 1.5 * (fw[:, 1:] + fw[:, :-1])
+    close = np.zeros(pos.shape, dtype=bool)
+    close[:, 1:] |= pair
+    close[:, :-1] |= pair
+    if backfit and close.any():
+        for _ in range(2):
+            total = _profile_sum(qs, fit, profile, resid.shape)
+            ci2 = np.clip(np.searchsorted(qs, np.nan_to_num(fit["position"])), 0, qs.size - 1)
+            idx2 = np.where(close & np.isfinite(fit["position"]), ci2, -1)
+            fit2 = fit_peaks(
+                qs, resid, noise, idx2, fit["fwhm"] / dq, profile=profile, start=fit, others=total
+            )
+            upd = close & np.isfinite(fit2["position"])
+            fit = {k: np.where(upd, fit2[k], v) for k, v in fit.items()}
     with np.errstate(invalid="ignore", divide="ignore"):
         nzp = np.take_along_axis(np.broadcast_to(noise, Is.shape), np.maximum(index, 0), axis=-1)
         prom_n = np.where(index >= 0, prom / nzp, np.nan)
+        # shoulders: the fitted height over the noise stands in for the prominence
+        prom_n = np.where((index >= 0) & np.isnan(prom), fit["height"] / nzp, prom_n)
     fit["prominence"] = prom_n
     # drop failed fits, sort by position, pad with NaN
     order = np.argsort(np.where(np.isfinite(fit["position"]), fit["position"], np.inf), axis=-1)
