@@ -420,10 +420,18 @@ def test_unreadable_file_is_named(tmp_path, monkeypatch):
 
     path = _write(tmp_path / "locked.dat", _curve())
 
-    def refuse(p, mode="r", *args, **kwargs):
-        raise PermissionError(13, "Permission denied", str(p))
+    class NoOpen:
+        """The os module, except that opening a file is refused (as for a file without
+        read permission, which the root user running CI could read anyway)."""
 
-    monkeypatch.setattr(text, "open", refuse, raising=False)
+        def __getattr__(self, name):
+            return getattr(os, name)
+
+        @staticmethod
+        def open(p, *args, **kwargs):
+            raise PermissionError(13, "Permission denied", str(p))
+
+    monkeypatch.setattr(text, "os", NoOpen())
     with pytest.raises(SaxsFileError, match=r"locked\.dat.*cannot read the file: Permission denied"):
         read_series(path)
 

@@ -87,8 +87,15 @@ def find_files(source) -> list[str]:
 
 def _read_bytes(path: str) -> bytes:
     try:
-        with open(path, "rb") as f:
-            return f.read()
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0))
+        try:
+            size = os.fstat(fd).st_size
+            parts = [os.read(fd, size + 1)]
+            while len(parts[-1]) > 0 and sum(map(len, parts)) > size:
+                parts.append(os.read(fd, 1 << 20))  # the file grew while being read
+            return b"".join(parts)
+        finally:
+            os.close(fd)
     except OSError as exc:
         raise SaxsFileError(f"cannot read the file: {exc.strerror or exc}", path=path) from exc
 
