@@ -102,6 +102,7 @@ def kratky_summary(
     bands=((3.0, 4.5), (4.5, 6.0)),
     bell_level: float = 0.6,
     rise_trend: float = 0.1,
+    fall_trend: float = 0.3,
 ) -> dict:
     """Peak and high-q behaviour of each frame's dimensionless Kratky plot.
 
@@ -119,12 +120,14 @@ def kratky_summary(
         around the maximum found.
     bands : two (lo, hi) pairs of q Rg
         ``level_mid`` and ``level_high`` are the mean dimensionless values in them.
-    bell_level, rise_trend : float
+    bell_level, rise_trend, fall_trend : float
         Class thresholds (our choice): "bell" when level_high < ``bell_level`` (the
         curve falls back: the Guinier form and a sphere are below 0.2 there, a Gaussian
-        chain about 1.9); otherwise "rise" when level_high / level_mid - 1 >
-        ``rise_trend`` (a thin rod rises by about 20 % between the bands, a Gaussian
-        chain by about 4 %), else "plateau".
+        chain about 1.9) or when it still falls clearly between the bands
+        (level_high / level_mid - 1 < -``fall_trend``, e.g. a folded-unfolded mixture);
+        otherwise "rise" when level_high / level_mid - 1 > ``rise_trend`` (a thin rod
+        rises by about 40 % between the bands, a Gaussian chain by about 4 %), else
+        "plateau".
 
     Returns
     -------
@@ -194,9 +197,10 @@ def kratky_summary(
         trend = level_high / level_mid - 1.0
     shape = np.full(F, "undetermined", dtype="<U12")
     known = (n_high > 0) & (n_mid > 0) & np.isfinite(rg_) & np.isfinite(i0_)
-    shape[known & (level_high < bell_level)] = "bell"
-    shape[known & (level_high >= bell_level) & (trend > rise_trend)] = "rise"
-    shape[known & (level_high >= bell_level) & (trend <= rise_trend)] = "plateau"
+    falls = (level_high < bell_level) | (trend < -fall_trend)
+    shape[known & falls] = "bell"
+    shape[known & ~falls & (trend > rise_trend)] = "rise"
+    shape[known & ~falls & (trend <= rise_trend)] = "plateau"
     has = finite.any(-1)
     qrg_max = np.where(has, np.where(finite, x, -np.inf).max(-1, initial=-np.inf), np.nan)
     return {
