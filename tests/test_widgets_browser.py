@@ -6,7 +6,7 @@ import traitlets
 import xarray as xr
 
 import saxsnb
-from saxsnb.analysis.display import errorbar_segments, overview_map
+from saxsnb.analysis.display import drawable_line, errorbar_segments, overview_map
 from saxsnb.widgets import CurvePanel, SeriesBrowser, explore
 
 
@@ -81,8 +81,13 @@ def test_curve_panel_marks_follow_frame(series):
     c = CurvePanel(ds, bg)
     c.frame = 4
     np.testing.assert_array_equal(c.curve.y, ds.intensity.values[4])
-    _, ey = errorbar_segments(ds.q.values, ds.intensity.values[4], ds.sigma.values[4], floor=c._floor)
+    ex, ey = drawable_line(
+        *errorbar_segments(ds.q.values, ds.intensity.values[4], ds.sigma.values[4], floor=c._floor),
+        positive=True,
+    )
+    np.testing.assert_array_equal(c.errorbars.x, ex)
     np.testing.assert_array_equal(c.errorbars.y, ey)
+    assert np.isfinite(c.errorbars.y[-1])  # ends on a bar, not on a gap
     assert c.background_line.visible
     np.testing.assert_array_equal(c.background_line.y, bg.intensity.values[0])
     xr.testing.assert_identical(c.result, ds.isel(frame=[4]))

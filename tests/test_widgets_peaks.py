@@ -108,19 +108,29 @@ def test_explore_all_panels_linked_and_exported(cubic_series):
 
 
 def _check_drawable(panel):
-    """Point marks must hold finite coordinates only (a browser cannot place NaN)."""
+    """What a browser can draw: point marks hold finite coordinates only, and every
+    line (each row of a 2-D Lines) ends on a real point, where bqplot puts its label."""
     for fig in panel.figures:
         for mark in fig.marks:
             if isinstance(mark, (bq.Scatter, bq.Label)):
                 assert np.all(np.isfinite(mark.x)) and np.all(np.isfinite(mark.y)), (panel.name, mark.labels)
-            elif isinstance(mark, bq.Lines) and mark.visible and np.size(mark.y):
-                assert np.isfinite(np.asarray(mark.y, dtype=float)).any(), (panel.name, mark.labels)
+            elif isinstance(mark, bq.Lines):
+                y = np.array(mark.y, dtype=float, ndmin=2)
+                x = np.broadcast_to(np.asarray(mark.x, dtype=float), y.shape)
+                assert y.shape[1] > 0, (panel.name, mark.labels)
+                last_x, last_y = x[:, -1], y[:, -1]
+                assert np.all(np.isfinite(last_x) & np.isfinite(last_y)), (panel.name, mark.labels)
+                if isinstance(mark.scales["y"], bq.LogScale):
+                    assert np.all(last_y > 0), (panel.name, mark.labels)
 
 
 def test_demo_dashboard_draws_only_finite_points():
     series, background = saxsnb.demo.make_series("unfolding", seed=0)
-    ds = series.saxs.subtract(background)
+    ds = series.saxs.subtract(background)  # negative intensities at high q after subtraction
     d = saxsnb.explore(ds, background)
+    d.panels["curve"].every = 10
+    for p in d.panels.values():
+        _check_drawable(p)
     for f in (0, 20, 40):
         d.frame = f
         for p in d.panels.values():

@@ -25,6 +25,8 @@ __all__ = [
     "scaled_q",
     "curve_at",
     "finite_points",
+    "drawable_line",
+    "drawable_lines",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -316,3 +318,81 @@ def finite_points(x, y, *, positive: bool = False):
         keep &= y > 0
     idx = np.flatnonzero(keep)
     return x[idx], y[idx], idx
+
+
+def _drawable(x, y, positive: bool):
+    ok = np.isfinite(x) & np.isfinite(y)
+    if positive:
+        with np.errstate(invalid="ignore"):
+            ok &= y > 0
+    return ok
+
+
+def drawable_line(x, y, *, positive: bool = False):
+    """End a polyline on a point a plotting library can place.
+
+    Interior undefined points (NaN, or y <= 0 on a log axis) are gaps and harmless,
+    but a browser plot places a line's label at its *last* point, which must be a
+    real point. This drops the undefined points at the end.
+
+    Parameters
+    ----------
+    x, y : arrays (n,)
+    positive : bool
+        y <= 0 counts as undefined (log axis).
+
+    Returns
+    -------
+    x, y trimmed after the last drawable point, or None when no point is drawable.
+
+    >>> drawable_line(np.array([1.0, 2.0, 3.0]), np.array([1.0, 2.0, -1.0]), positive=True)
+    (array([1., 2.]), array([1., 2.]))
+    >>> drawable_line(np.array([1.0]), np.array([np.nan])) is None
+    True
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    xb = np.broadcast_to(x, y.shape)
+    ok = np.flatnonzero(_drawable(xb, y, positive))
+    if ok.size == 0:
+        return None
+    end = ok[-1] + 1
+    return xb[:end], y[:end]
+
+
+def drawable_lines(x, y, *, positive: bool = False):
+    """Several polylines (rows) as 2-D x and y whose last points are all drawable.
+
+    The undefined points at the end of each row repeat the row's last drawable point
+    (a zero-length piece of line: nothing extra is drawn); a row with no drawable point
+    repeats the first drawable point of the whole set.
+
+    Parameters
+    ----------
+    x : array (n,) or (n_rows, n)
+    y : array (n_rows, n)
+
+    Returns
+    -------
+    x, y : arrays (n_rows, n), or None when nothing at all is drawable.
+
+    >>> x, y = drawable_lines(np.array([1.0, 2.0, 3.0]), np.array([[1.0, 2.0, np.nan], [1.0, 1.0, 1.0]]))
+    >>> x.tolist(), y.tolist()
+    ([[1.0, 2.0, 2.0], [1.0, 2.0, 3.0]], [[1.0, 2.0, 2.0], [1.0, 1.0, 1.0]])
+    """
+    y = np.array(y, dtype=float, ndmin=2)
+    x = np.array(np.broadcast_to(np.asarray(x, dtype=float), y.shape))
+    ok = _drawable(x, y, positive)
+    if not ok.any():
+        return None
+    n = y.shape[1]
+    last = n - 1 - np.argmax(ok[:, ::-1], axis=1)
+    has = ok.any(axis=1)
+    r0, c0 = np.argwhere(ok)[0]
+    rows = np.arange(y.shape[0])
+    lx = np.where(has, x[rows, last], x[r0, c0])
+    ly = np.where(has, y[rows, last], y[r0, c0])
+    tail = np.arange(n)[None, :] > np.where(has, last, -1)[:, None]
+    x = np.where(tail, lx[:, None], x)
+    y = np.where(tail, ly[:, None], y)
+    return x, y

@@ -34,6 +34,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
+from ..analysis.display import drawable_line
 from ..series import main_scan, validate
 from . import _bq as bq
 from .palette import ROLE
@@ -211,6 +212,27 @@ class PanelBase(widgets.VBox):
         self.set_trait("code", self.to_code())
         if self.code_area.layout.display != "none":
             self.code_area.value = self.code
+
+    @staticmethod
+    def _set_line(mark, x, y, *, positive: bool = False, show: bool = True) -> bool:
+        """Give a Lines mark new data ending on a drawable point (see
+        ``analysis.display.drawable_line``); x is only resent when it changed.
+
+        Returns False (and hides the mark, keeping its old data) when nothing is drawable.
+        """
+        out = drawable_line(x, y, positive=positive)
+        with mark.hold_sync():
+            if out is None:
+                mark.visible = False
+                return False
+            lx, ly = out
+            old = mark.x
+            if old is None or old.shape != lx.shape or not np.array_equal(old, lx):
+                mark.x = lx
+            mark.y = ly
+            if mark.visible != show:
+                mark.visible = show
+        return True
 
     def report(self, exc: BaseException, what: str = "") -> None:
         """Show an exception in the status line and keep it in ``last_error``."""

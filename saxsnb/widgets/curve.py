@@ -6,7 +6,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import errorbar_segments, positive_range
+from ..analysis.display import drawable_lines, errorbar_segments, positive_range
 from ..series import validate
 from . import _bq as bq
 from .base import PanelBase, make_figure
@@ -76,9 +76,11 @@ class CurvePanel(PanelBase):
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LogScale(min=lo, max=hi)
         self._xs, self._ys = xs, ys
+        # every Lines mark ends on a drawable point at all times (the browser places
+        # the line's label there): placeholders are finite, updates go through _set_line
         self.errorbars = bq.Lines(
-            x=np.repeat(self.q, 3),
-            y=np.full(3 * self.q.size, np.nan),
+            x=self.q,
+            y=np.full(self.q.size, hi),
             scales={"x": xs, "y": ys},
             colors=[ROLE["error"]],
             stroke_width=1.0,
@@ -86,7 +88,7 @@ class CurvePanel(PanelBase):
         )
         self.curve = bq.Lines(
             x=self.q,
-            y=np.full(self.q.size, np.nan),
+            y=np.full(self.q.size, hi),
             scales={"x": xs, "y": ys},
             colors=[ROLE["data"]],
             stroke_width=1.5,
@@ -94,7 +96,7 @@ class CurvePanel(PanelBase):
         )
         self.overlays = bq.Lines(
             x=self.q,
-            y=np.full((1, self.q.size), np.nan),
+            y=np.full((1, self.q.size), hi),
             scales={"x": xs, "y": ys},
             colors=SEQUENCE[1:],
             stroke_width=1.0,
@@ -103,7 +105,7 @@ class CurvePanel(PanelBase):
         )
         self.background_line = bq.Lines(
             x=self.q,
-            y=np.full(self.q.size, np.nan),
+            y=np.full(self.q.size, hi),
             scales={"x": xs, "y": ys},
             colors=[ROLE["background"]],
             line_style="dashed",
@@ -196,9 +198,10 @@ class CurvePanel(PanelBase):
 
     def _draw_overlays(self) -> None:
         frames = self.overlay_frames()
+        lines = drawable_lines(self.q, self._I[frames], positive=True) if frames else None
         with self.overlays.hold_sync():
-            if frames:
-                self.overlays.y = self._I[frames]
+            if lines is not None:
+                self.overlays.x, self.overlays.y = lines
                 self.overlays.labels = [self.frame_label(f) for f in frames]
                 self.overlays.visible = True
             else:
@@ -213,22 +216,18 @@ class CurvePanel(PanelBase):
 
     def _draw_background(self) -> None:
         bg = self.background
-        with self.background_line.hold_sync():
-            if bg is None or not self.show_background:
-                self.background_line.visible = False
-                return
-            k = self.frame if bg.sizes["frame"] == self.n_frames else 0
-            self.background_line.y = bg["intensity"].values[k]
-            self.background_line.visible = True
+        if bg is None or not self.show_background:
+            self.background_line.visible = False
+            return
+        k = self.frame if bg.sizes["frame"] == self.n_frames else 0
+        self._set_line(self.background_line, self.q, bg["intensity"].values[k], positive=True)
 
     # ----------------------------------------------------------------- frame
     def _update(self) -> None:
         i = self.frame
-        _x, ey = errorbar_segments(self.q, self._I[i], self._S[i], floor=self._floor)
-        with self.curve.hold_sync():
-            self.curve.y = self._I[i]
-        with self.errorbars.hold_sync():
-            self.errorbars.y = ey
+        ex, ey = errorbar_segments(self.q, self._I[i], self._S[i], floor=self._floor)
+        self._set_line(self.curve, self.q, self._I[i], positive=True)
+        self._set_line(self.errorbars, ex, ey, positive=True)
         self.figure.title = self.frame_label(i)
         if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:
             self._draw_background()

@@ -109,7 +109,6 @@ class KratkyPanel(PanelBase):
         tx, ty = bq.LinearScale(), bq.LinearScale()
         scan = np.asarray(self.scan_values, dtype=float)
         self._point_frames: dict = {}
-        self._x_state = "q"
         self.trend_peak = bq.Scatter(
             x=np.zeros(0),
             y=np.zeros(0),
@@ -226,16 +225,8 @@ class KratkyPanel(PanelBase):
         else:
             x = self.q
         y = np.asarray(series.values[i], dtype=float)
-        state = "q"
-        if dimensionless:
-            state = "scaled" if np.isfinite(rg) else "empty"
-            if state == "empty":  # a browser cannot place NaN abscissae: draw nothing
-                x, y = np.zeros(0), np.zeros(0)
-        with self.curve.hold_sync():
-            if state != "q" or self._x_state != "q":
-                self.curve.x = x
-            self.curve.y = y
-        self._x_state = state
+        # without Rg the dimensionless abscissa is undefined: the curve is hidden
+        self._set_line(self.curve, x, y)
         if dimensionless:
             self._set_axes("q Rg", "(q Rg)^2 I / I0", visible=True)
             self._xs.min, self._xs.max = 0.0, float(min(np.nanmax(x), 12.0)) if np.isfinite(rg) else None

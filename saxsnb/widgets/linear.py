@@ -154,8 +154,8 @@ class LinearFitPanel(PanelBase):
             labels=["fitted points"],
         )
         self.fit_line = bq.Lines(
-            x=np.zeros(0),
-            y=np.zeros(0),
+            x=np.zeros(2),
+            y=np.zeros(2),
             scales={"x": xs, "y": ys},
             colors=[ROLE["fit"]],
             stroke_width=2.0,
@@ -394,9 +394,7 @@ class LinearFitPanel(PanelBase):
             hi_view = min(q[-1], 2.0 * q_hi) if np.isfinite(q_hi) else q[min(q.size - 1, q.size // 4)]
         view = (q >= lo_view) & (q <= hi_view)
         x, y, _ = finite_points(self._lx[i][view], self._ly[i][view])
-        with self.data.hold_sync():
-            self.data.x = x
-            self.data.y = y
+        self._set_line(self.data, x, y)
         inside = (
             (q >= q_lo) & (q <= q_hi) if np.isfinite(q_lo) and np.isfinite(q_hi) else np.zeros_like(q, bool)
         )
@@ -410,8 +408,7 @@ class LinearFitPanel(PanelBase):
         with self.in_range.hold_sync():
             self.in_range.x, self.in_range.y = xin, yin
         lx, ly, _ = finite_points(np.array([x_start, x_end]), line)
-        with self.fit_line.hold_sync():
-            self.fit_line.x, self.fit_line.y = lx, ly
+        self._set_line(self.fit_line, lx, ly)
         rx, ry, _ = finite_points(xin, res)
         with self.residuals.hold_sync():
             self.residuals.x, self.residuals.y = rx, ry

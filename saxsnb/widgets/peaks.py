@@ -85,7 +85,7 @@ class PeaksPanel(PanelBase):
         xs, ys = bq.LinearScale(), bq.LogScale(min=lo, max=hi)
         self.curve = bq.Lines(
             x=self.q,
-            y=np.full(self.q.size, np.nan),
+            y=np.full(self.q.size, hi),
             scales={"x": xs, "y": ys},
             colors=[ROLE["data"]],
             stroke_width=1.2,
@@ -342,8 +342,7 @@ class PeaksPanel(PanelBase):
         i = self.frame
         if self.result is None:
             self._apply()
-        with self.curve.hold_sync():
-            self.curve.y = self._I[i]
+        self._set_line(self.curve, self.q, self._I[i], positive=True)
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
         v = float(self.scan_values[i])
         with self.map_current.hold_sync():
