@@ -283,3 +283,9 @@ def test_accessor_rod_with_length():
     assert "rg" not in rod.data_vars
     # finite length (q L = 12 .. 36) still bends ln(q I): radius only to a few %
     assert rod.radius.values[0] == pytest.approx(1.0, rel=0.06)
+
+
+def test_rod_status_on_a_sphere_is_not_aggregation():
+    q = np.linspace(0.05, 3.0, 300)
+    r = guinier_fit(q, 1e3 * sphere(q * 5.0) + 1e-3, np.full(300, 1e-3), shape="rod")
+    assert r["status"][0] in ("no_linear_region", "qrg_limit_exceeded")

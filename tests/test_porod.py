@@ -153,3 +153,20 @@ def test_accessor_porod_and_invariant(rng):
     lazy = ds.chunk({"frame": 1}).saxs.invariant(porod=given, volume_fraction=0.05).compute()
     for v in inv.data_vars:
         assert np.array_equal(lazy[v].values, inv[v].values, equal_nan=inv[v].dtype.kind == "f"), v
+
+
+def test_accessor_porod_errors(rng):
+    import saxsnb
+    from saxsnb.errors import SaxsFitError
+
+    q = np.linspace(0.5, 3.0, 100)
+    I = 2.0 / q**4 + 0.01
+    ds = saxsnb.from_arrays(q, np.stack([I, I]), 0.01 * np.stack([I, I]), scan={"time": [0.0, 5.0]})
+    with pytest.raises(SaxsFitError, match=r"frame 0 \(time = 0.0 s\).*range_outside_data") as err:
+        ds.saxs.porod(q_range=(10.0, 20.0), errors="raise")
+    assert err.value.parameter == "q_range"
+    with pytest.raises(SaxsInputError, match="background"):
+        ds.saxs.porod(background="flat")
+    res = ds.saxs.porod(q_range=(1.0, 3.0), background=np.array([0.01, 0.01]))
+    np.testing.assert_allclose(res.porod_constant.values, 2.0, rtol=1e-9)
+    np.testing.assert_allclose(res.exponent.values, 4.0, rtol=1e-9)

@@ -55,8 +55,8 @@ Statuses (``status`` output): ``"ok"``; ``"all_nan"`` (no finite point);
 ``"range_outside_data"`` (the q range misses the measured points); ``"too_few_points"``;
 ``"negative_intensity"`` (I <= 0 where a logarithm is needed); ``"zero_sigma"``;
 ``"positive_slope"`` (intensity rising with q over a fixed range);
-``"curvature_aggregation"`` (automatic: the lowest-q windows curve upwards or rise, the
-signature of aggregation or attraction); ``"qrg_limit_exceeded"`` (fixed range beyond
+``"curvature_aggregation"`` (automatic, compact: the lowest-q windows curve upwards or
+rise, the signature of aggregation or attraction); ``"qrg_limit_exceeded"`` (fixed range beyond
 the limit: numbers kept; automatic: even the shortest window exceeds it);
 ``"no_linear_region"`` (automatic: every window curves). Failed frames get NaN, except
 "qrg_limit_exceeded" with a fixed range.
@@ -332,6 +332,8 @@ def _search_chunk(
         g0 = geom[:, 0, :]
         any_geom = g0.any(axis=-1)
         rising = (g0 & (~negative[:, 0, :] | ((c_curv[:, 0, :] > 0) & ~flat[:, 0, :]))).any(axis=-1)
+        if shape != "compact":  # ln(q I), ln(q^2 I) rise at low q by nature: no aggregation sign
+            rising[:] = False
         short_inside = inside[:, 0, :][rows, np.argmax(g0, axis=-1)]
         has_block = blocking.any(axis=-1)
         first_block = np.argmax(blocking, axis=-1)
