@@ -261,13 +261,16 @@ class SaxsAccessor:
         max_peaks: int = 16,
         baseline_width: float | None = None,
         track: bool = True,
+        order_by: str | None = None,
         errors: str = "ignore",
     ) -> xr.Dataset:
         """Find, fit and track the Bragg peaks of every frame.
 
         Parameters are those of :func:`saxsnb.analysis.peaks.find_peaks` (q in 1/nm;
         ``min_prominence`` in units of the noise); ``track`` links peaks of consecutive
-        frames along the main scan (:func:`saxsnb.analysis.tracking.link_peaks`).
+        frames (:func:`saxsnb.analysis.tracking.link_peaks`) in the order of the
+        coordinate ``order_by`` (default: the main scan; give "time" or "frame" for a
+        heating-and-cooling cycle, where sorting by temperature would interleave legs).
 
         Returns
         -------
@@ -305,7 +308,8 @@ class SaxsAccessor:
         if not track:
             return out
         out = out.compute()
-        order = self._scan_order(out)
+        order = self._scan_order(out, order_by)
+        out.attrs["order_by"] = self._scan_name(out, order_by)
         t, _ = link_peaks(*(out[v].values[order] for v in ("position", "position_sigma", "fwhm")))
         trk = np.empty_like(t)
         trk[order] = t
@@ -320,6 +324,7 @@ class SaxsAccessor:
         tolerance: float = 0.01,
         use_scan_prior: bool = True,
         prior_weight: float = 1.0,
+        order_by: str | None = None,
     ) -> xr.Dataset:
         """Assign each frame's peaks to one phase or two coexisting phases.
 
@@ -327,8 +332,10 @@ class SaxsAccessor:
         ----------
         peaks : Dataset from :meth:`find_peaks` (computed with defaults if None).
         phases, max_phases, tolerance, use_scan_prior, prior_weight
-            See :func:`saxsnb.analysis.lattice.index_peaks`; the scan prior runs
-            along the main scan coordinate.
+            See :func:`saxsnb.analysis.lattice.index_peaks`.
+        order_by : str, optional
+            Coordinate along which the scan prior and re-tracking run (default: the
+            one used by :meth:`find_peaks`, else the main scan).
 
         Returns
         -------
@@ -345,7 +352,8 @@ class SaxsAccessor:
         if "position" not in pk.data_vars or "peak" not in pk.dims:
             raise SaxsInputError("peaks must be the Dataset of ds.saxs.find_peaks()", parameter="peaks")
         pk = pk.compute()
-        order = self._scan_order(pk)
+        order_by = order_by or pk.attrs.get("order_by")
+        order = self._scan_order(pk, order_by)
         params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
                       use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight))
         get = lambda v: pk[v].values[order] if v in pk.data_vars else None  # noqa: E731
@@ -374,6 +382,7 @@ class SaxsAccessor:
         out["lattice"].attrs["long_name"] = "d-spacing (lamellar) or cell edge a"
         out.attrs = provenance("index_phases", params)
         out.attrs["scan"] = self._scan_name(pk)
+        out.attrs["order_by"] = self._scan_name(pk, order_by)
         out.attrs["note"] = (
             "lattice from a weighted fit over the assigned peaks; frames with few peaks or a "
             "non-empty 'alternative' are ambiguous: read 'caveat'"
@@ -446,13 +455,15 @@ class SaxsAccessor:
         res = {k: json.loads(pm.attrs[k]) for k in ("transitions", "coexistence", "bonnet")}
         return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step)
 
-    def _scan_name(self, ds: xr.Dataset) -> str:
-        name = self.scan
+    def _scan_name(self, ds: xr.Dataset, name: str | None = None) -> str:
+        name = name or self.scan
+        if name != "frame" and name not in ds.coords:
+            raise SaxsInputError(f"no coordinate {name!r} to order frames by", parameter="order_by")
         return name if name in ds.coords else "frame"
 
-    def _scan_order(self, ds: xr.Dataset) -> np.ndarray:
-        """Frame order along the main scan coordinate (stable; NaN last)."""
-        name = self._scan_name(ds)
+    def _scan_order(self, ds: xr.Dataset, name: str | None = None) -> np.ndarray:
+        """Frame order along a scan coordinate (default the main scan; stable, NaN last)."""
+        name = self._scan_name(ds, name)
         v = ds[name].values
         if v.dtype.kind not in "fiu":
             return np.arange(ds.sizes["frame"])

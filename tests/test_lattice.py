@@ -236,8 +236,17 @@ def test_demo_outputs_layout_and_round_trip(demo_result, tmp_path):
     assert "temperature" in idx.coords
     text = ds.saxs.phase_report(pm)
     assert "Bonnet" in text and "coexistence" in text
+    import xarray as xr
+
     idx.to_netcdf(tmp_path / "idx.nc")
     pm.to_netcdf(tmp_path / "pm.nc")
+    with xr.open_dataset(tmp_path / "idx.nc") as back:
+        assert back["phase"].values.tolist() == idx["phase"].values.tolist()
+        assert np.array_equal(back["lattice"].values, idx["lattice"].values, equal_nan=True)
+        assert back["hkl"].values.tolist() == idx["hkl"].values.tolist()
+    with xr.open_dataset(tmp_path / "pm.nc") as back:
+        assert json.loads(back.attrs["transitions"]) == json.loads(pm.attrs["transitions"])
+        assert back["presence"].values.tolist() == pm["presence"].values.tolist()
 
 
 def test_batch_equals_loop_without_prior(rng):

@@ -147,3 +147,18 @@ def test_shoulder_on_the_flank_of_a_strong_peak_is_found(rng):
     assert np.all(np.isfinite(res["prominence"][0, :2]))
     plain = find_peaks(Q, I[None], S[None], shoulders=False)
     assert plain["n_peaks"][0] == 1
+
+
+def test_order_by_time_for_a_heating_cooling_cycle(rng):
+    # heating then cooling: sorting by temperature would interleave the two legs
+    pos = 1.0 + 0.004 * np.arange(5)
+    I, S = zip(*(curve([p], [80.0], rng=rng) for p in pos))
+    ds = saxsnb.from_arrays(Q, np.array(I), np.array(S),
+                            scan={"temperature": [20.0, 21, 22, 21, 20], "time": [0.0, 60, 120, 180, 240]})
+    by_time = ds.saxs.find_peaks(order_by="time")
+    assert set(by_time["track"].values[:, 0].tolist()) == {0}
+    assert by_time.attrs["order_by"] == "time"
+    by_temperature = ds.saxs.find_peaks()
+    assert len(set(by_temperature["track"].values[:, 0].tolist())) > 1
+    with pytest.raises(SaxsInputError, match="order_by"):
+        ds.saxs.find_peaks(order_by="pressure")

@@ -179,13 +179,16 @@ def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
     cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
     # keep the best _KEEP candidates with distinct lattices
-    keep = []
+    keep, kept_cost = [], []
     c = cost.copy()
+    rows = np.arange(B)
     for _ in range(_KEEP):
         j = np.argmin(c, axis=1)
         keep.append(j)
+        kept_cost.append(c[rows, j])  # inf when nothing distinct is left
         Lj = np.take_along_axis(L, j[:, None], 1)
-        same = np.abs(L / Lj - 1.0) <= tol
+        with np.errstate(invalid="ignore", divide="ignore"):
+            same = np.abs(L / Lj - 1.0) <= tol
         c = np.where(same, np.inf, c)
     J = np.stack(keep, axis=1)  # (B, K)
     take = lambda a: np.take_along_axis(a, J if a.ndim == 2 else J[..., None], 1)  # noqa: E731
@@ -196,7 +199,7 @@ def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
         "err": take(err),
         "miss": take(miss),
         "fit": take(fitc),
-        "cost": take(cost),
+        "cost": np.stack(kept_cost, axis=1),
     }
 
 
@@ -365,10 +368,11 @@ def index_peaks(
     ``lattice_sigma`` (nm: d for lamellar, a otherwise), ``score`` (share of the
     frame's peak strength explained by that phase, 0..1);
     per (frame, peak): ``hkl`` (str, "" unassigned), ``peak_phase`` (str);
-    per frame: ``alternative`` (str, close other explanations, ", "-separated, ""
-    when none), ``status``, ``cost``, ``margin`` (cost of the closest other
-    explanation minus the chosen one; NaN when none), ``n_unexplained``,
-    ``caveat`` (str).
+    per frame: ``alternative`` (str, up to three close other explanations, closest
+    first, ", "-separated, pairs written "A+B"; "" when none), ``status`` ("ok",
+    "unexplained_peaks", "no_phase_found", "not_enough_peaks_to_index",
+    "no_peaks"), ``cost``, ``margin`` (cost of the closest other explanation minus
+    the chosen one; NaN when none), ``n_unexplained``, ``caveat`` (str).
 
     Notes
     -----
@@ -542,7 +546,7 @@ def index_peaks(
     margin[~np.isfinite(margin)] = np.nan
     for i in np.nonzero((d < CLOSE_COST).any(1) & (ch_phase[:, 0] >= 0))[0]:
         ks = np.nonzero(d[i] < CLOSE_COST)[0]
-        ks = ks[np.argsort(d[i, ks], kind="stable")]
+        ks = ks[np.argsort(d[i, ks], kind="stable")][:3]
         alt[i] = ", ".join(key_names[int(k)] for k in ks)
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
