@@ -285,7 +285,10 @@ def test_accessor_rod_with_length():
     assert rod.radius.values[0] == pytest.approx(1.0, rel=0.06)
 
 
-def test_rod_status_on_a_sphere_is_not_aggregation():
+def test_rising_rod_plot_is_not_called_aggregation():
     q = np.linspace(0.05, 3.0, 300)
-    r = guinier_fit(q, 1e3 * sphere(q * 5.0) + 1e-3, np.full(300, 1e-3), shape="rod")
-    assert r["status"][0] in ("no_linear_region", "qrg_limit_exceeded")
+    I = q**-0.5  # ln(q I) rises everywhere: no cross-section region, but no aggregation either
+    r = guinier_fit(q, I, 0.01 * I, shape="rod")
+    assert r["status"][0] == "no_linear_region"
+    # compact: ln I vs q^2 of a power law curves upwards, as aggregates do
+    assert guinier_fit(q, I, 0.01 * I)["status"][0] == "curvature_aggregation"
