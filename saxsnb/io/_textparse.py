@@ -38,7 +38,7 @@ class RawFile:
 
     path: str
     name: str
-    body: bytes
+    body: bytes | memoryview
     first_line: int
     ncols: int
     meta: dict[str, str] = field(default_factory=dict)
@@ -139,11 +139,15 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
         text = data[:start].decode("utf-8")
     except UnicodeDecodeError:
         text = data[:start].decode("latin-1")
-    body = data[start:]
-    if b"#" in body:
-        body = re.sub(rb"#[^\n]*", b"", body)
-    if not body.endswith(b"\n"):
-        body += b"\n"
+    body: bytes | memoryview
+    if data.find(b"#", start) >= 0:
+        body = re.sub(rb"#[^\n]*", b"", data[start:])
+        if not body.endswith(b"\n"):
+            body += b"\n"
+    elif data.endswith(b"\n"):
+        body = memoryview(data)[start:]  # no copy; joined with the others later
+    else:
+        body = data[start:] + b"\n"
     raw = RawFile(path, name, body, data.count(b"\n", 0, start) + 1, len(tokens))
     _header(raw, text)
     return raw
@@ -151,7 +155,7 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
 
 def _line_errors(raw: RawFile) -> SaxsFileError:
     """Walk the body line by line and describe the first bad line."""
-    for k, line in enumerate(raw.body.split(b"\n")):
+    for k, line in enumerate(bytes(raw.body).split(b"\n")):
         line = line.strip()
         if not line:
             continue
@@ -168,6 +172,8 @@ def _line_errors(raw: RawFile) -> SaxsFileError:
                     )
                 return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
         if len(tokens) != raw.ncols:
+            if _COMMA_DECIMAL.match(line):
+                return SaxsFileError("numbers use a comma as decimal separator", path=raw.path, line=lineno)
             return SaxsFileError(
                 f"{len(tokens)} columns where the first data row has {raw.ncols}", path=raw.path, line=lineno
             )
@@ -180,10 +186,11 @@ def _fixed_layout(raws: list[RawFile]) -> dict[bytes, list[int]]:
     digits = bytes.maketrans(b"0123456789", b"0000000000")
     for i, r in enumerate(raws):
         body = r.body
-        L = body.find(b"\n") + 1
-        if L <= 1 or len(body) % L or body[L - 1 :: L].count(b"\n") != len(body) // L:
+        first = bytes(body[:256])
+        L = first.find(b"\n") + 1
+        if L <= 1 or len(body) % L or bytes(body[L - 1 :: L]).count(b"\n") != len(body) // L:
             continue
-        key = body[:L].translate(digits)
+        key = first[:L].translate(digits)
         groups.setdefault(key, []).append(i)
     return groups
 
@@ -259,7 +266,7 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
     for key, idx in _fixed_layout(raws).items():
         if len(tokenize(np.frombuffer(key, np.uint8))[0]) != raws[idx[0]].ncols:
             continue
-        data = _parse_fixed(raws[idx[0]].body[: len(key)], [raws[i].body for i in idx])
+        data = _parse_fixed(bytes(raws[idx[0]].body[: len(key)]), [raws[i].body for i in idx])
         if data is None:
             continue
         pos = 0
