@@ -5,6 +5,8 @@ import json
 import numpy as np
 import pytest
 from _synth_peaks import Q, curve, pattern_positions
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import saxsnb
 from saxsnb.analysis.lattice import index_peaks, phase_map
@@ -278,3 +280,17 @@ def test_accessor_bad_frames_and_dask(rng):
     idx_d = ds.chunk({"frame": 2}).saxs.index_phases()
     assert idx_d["phase"].values.tolist() == idx["phase"].values.tolist()
     assert np.allclose(idx_d["lattice"].values, idx["lattice"].values, equal_nan=True)
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.sampled_from(sorted(LATTICES)), st.floats(0.7, 1.4), st.integers(4, 7))
+def test_scaling_q_scales_the_lattice(phase, factor, n):
+    # invariance: multiplying every q by f divides the lattice parameter by f, same phase
+    a = LATTICES[phase][1]
+    qs = pattern_positions(phase, a, q_max=50.0, q_min=0.0)[:n][None]
+    one = index_peaks(qs)
+    two = index_peaks(qs * factor)
+    assert one["phase"].tolist() == two["phase"].tolist()
+    assert one["phase"][0, 0] == phase
+    assert two["lattice"][0, 0] == pytest.approx(one["lattice"][0, 0] / factor, rel=1e-9)
+    assert one["hkl"].tolist() == two["hkl"].tolist()
