@@ -4,9 +4,11 @@ import h5py
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from test_io_netcdf import rich_series
 
-from saxsnb.errors import SaxsFileError
+from saxsnb.errors import SaxsError, SaxsFileError
 from saxsnb.io import open_series, save_series
 
 Q = np.linspace(0.01, 0.3, 25)  # 1/A
@@ -146,3 +148,32 @@ def test_chunks(tmp_path, rng):
     lazy = open_series(tmp_path / "s.h5", chunks=2)
     assert lazy.intensity.chunks[0] == (2, 2)
     xr.testing.assert_identical(lazy.compute(), ds)
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    drop=st.sets(st.sampled_from(["canSAS_class", "units", "I", "Q", "Idev", "layout", "signal"])),
+    junk=st.binary(max_size=64),
+)
+def test_property_damaged_nxcansas_raises_only_our_errors(tmp_path, drop, junk):
+    path = tmp_path / "d.h5"
+    with h5py.File(path, "w") as f:
+        e = _entry(f, "entry", 300.0)
+        d = e.create_group("sasdata")
+        _sasdata(d, Q, np.exp(-Q), np.full(Q.size, 0.1))
+        if "canSAS_class" in drop:
+            del e.attrs["canSAS_class"], e.attrs["NX_class"]
+        if "units" in drop:
+            del d["Q"].attrs["units"]
+        for name in ("I", "Q", "Idev"):
+            if name in drop:
+                del d[name]
+        if "signal" in drop:
+            d.attrs["signal"] = "nothing"
+        if "layout" in drop:
+            d.attrs["saxsnb_layout"] = junk.decode("latin-1")
+    try:
+        ds = open_series(path)
+    except SaxsError:
+        return
+    assert ds.sizes["frame"] == 1

@@ -1,9 +1,13 @@
 """canSAS 1D XML reading (saxsnb.io.cansas_xml), without entity expansion."""
 
+import warnings
+
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
-from saxsnb.errors import SaxsFileError
+from saxsnb.errors import SaxsError, SaxsFileError, SaxsWarning
 from saxsnb.io import read_cansas_xml
 
 Q = np.linspace(0.01, 0.25, 12)  # 1/A
@@ -126,3 +130,39 @@ def test_chunks(tmp_path):
     path = tmp_path / "run.xml"
     path.write_text(_doc([(Q, 1.0, 25), (Q, 2.0, 35), (Q, 3.0, 45)]))
     assert read_cansas_xml(path, chunks=2).intensity.chunks[0] == (2, 1)
+
+
+_PIECES = [
+    "<SASroot>",
+    "</SASroot>",
+    "<SASentry>",
+    "</SASentry>",
+    "<SASdata>",
+    "</SASdata>",
+    "<Idata>",
+    "</Idata>",
+    "<Q unit='1/A'>0.1</Q>",
+    "<Q>0.2</Q>",
+    "<I>5</I>",
+    "<I>x</I>",
+    "<Idev>0.1</Idev>",
+    "<!DOCTYPE a>",
+    "<!ENTITY e 'x'>",
+    "&e;",
+    "&amp;",
+    "<?xml version='1.0'?>",
+    "\n",
+]
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.lists(st.one_of(st.sampled_from(_PIECES), st.text(max_size=8)), max_size=25), st.binary(max_size=8))
+def test_property_malformed_xml_raises_only_our_errors(tmp_path, pieces, junk):
+    path = tmp_path / "m.xml"
+    path.write_bytes("".join(pieces).encode("utf-8", "surrogatepass") + junk)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", SaxsWarning)
+        try:
+            read_cansas_xml(path, q_unit="1/A")
+        except SaxsError:
+            pass

@@ -245,7 +245,6 @@ def _coordinates(curves: list[Curve], pattern: str | None) -> tuple[dict, dict]:
                 keys.append(k)
     coords: dict[str, tuple[np.ndarray, str]] = {}
     attrs: dict[str, Any] = {}
-    n = len(curves)
     for key in keys:
         raw = [c.meta.get(key) for c in curves]
         parsed = [parse_header_value(v) if v not in (None, "") else (None, None) for v in raw]
@@ -273,7 +272,6 @@ def _coordinates(curves: list[Curve], pattern: str | None) -> tuple[dict, dict]:
         else:
             vals = np.array(["" if v is None else v for v in raw], dtype=object).astype(str)
             coords[name] = (vals, "")
-    del n
     return coords, attrs
 
 
