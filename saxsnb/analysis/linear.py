@@ -201,7 +201,7 @@ def weighted_linear_fit(x, y, sigma=None, *, scale_covariance: bool | None = Non
     return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, bool(scale_covariance))
 
 
-def line_fit_shared_x(x, y, w, *, scale_covariance: bool = False) -> dict:
+def line_fit_shared_x(x, y, w, *, scale_covariance: bool = False, n_points=None) -> dict:
     """Fast weighted line fits of many rows that share one abscissa.
 
     Parameters
@@ -214,6 +214,8 @@ def line_fit_shared_x(x, y, w, *, scale_covariance: bool = False) -> dict:
         Weights 1/sigma^2, 0 for excluded points.
     scale_covariance : bool
         As in :func:`weighted_linear_fit`.
+    n_points : int array (n_rows,), optional
+        The number of points with ``w > 0`` when the caller knows it.
 
     Returns
     -------
@@ -234,7 +236,7 @@ def line_fit_shared_x(x, y, w, *, scale_covariance: bool = False) -> dict:
     x = np.asarray(x, dtype=float)
     shift = float(x.mean()) if x.size else 0.0
     xc = x - shift
-    n = np.count_nonzero(w > 0, axis=-1)
+    n = np.count_nonzero(w > 0, axis=-1) if n_points is None else n_points
     S0 = w.sum(-1)
     wy = w * y
     Sx = np.einsum("ij,j->i", w, xc)

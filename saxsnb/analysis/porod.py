@@ -162,24 +162,41 @@ def power_law_fit(q, intensity, sigma=None, *, q_range=None, background=0.0) -> 
 
 
 def _prepare(q, I, S, q_range):
-    """The common column slice of the range, its in-range mask and the finite mask."""
+    """The common column slice of the range, its in-range mask, the finite mask, and
+    whether every point in range is finite with a positive sigma (then the fits skip
+    all masking: the common case, and the fast one)."""
     qw, Iw, Sw, inside, _, _, q_range = _window(q, I, S, q_range)
     finite = np.isfinite(Iw) & inside
     if Sw is not None:
         finite &= np.isfinite(Sw)
-    return q, I, S, qw, Iw, Sw, inside, finite, q_range
+    clean = bool(finite.all()) and finite.shape[1] >= 3 and (Sw is None or bool((Sw > 0).all()))
+    return q, I, S, qw, Iw, Sw, inside, finite, q_range, clean
 
 
 def _power_law(prep, background):
-    q, I, S, qw, Iw, Sw, inside, finite, q_range = prep
+    q, I, S, qw, Iw, Sw, inside, finite, q_range, clean = prep
     F = I.shape[0]
     B = np.broadcast_to(np.asarray(background, dtype=float), (F,))[:, None]
-    D = Iw - B
-    status, usable = _common_status(q, I, S, D, Sw, finite, q_range, need_positive=True)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        y = np.log(np.where(usable, D, 1.0))
-        w = np.where(usable, (D / Sw) ** 2, 0.0) if Sw is not None else usable.astype(float)
-    fit = line_fit_shared_x(np.log(qw), y, w, scale_covariance=Sw is None)
+    D = Iw - B if np.any(B != 0) else Iw
+    n_points = None
+    if clean and bool((D > 0).all()):
+        status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+        usable = finite
+        n_points = np.full(F, D.shape[1])
+        y = np.log(D)
+        w = D / Sw if Sw is not None else np.ones_like(D)
+        w *= w
+    else:
+        status, usable = _common_status(q, I, S, D, Sw, finite, q_range, need_positive=True)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            y = np.log(np.where(usable, D, 1.0))
+            if Sw is None:
+                w = usable.astype(float)
+            else:  # the same operations as the fast path, so that batch equals loop
+                w = D / Sw
+                w *= w
+                w = np.where(usable, w, 0.0)
+    fit = line_fit_shared_x(np.log(qw), y, w, scale_covariance=Sw is None, n_points=n_points)
     good = status == "ok"
     q_lo, q_hi = _span(qw, usable)
     nan = np.nan
@@ -238,21 +255,39 @@ def porod_fit(q, intensity, sigma=None, *, q_range=None, background="fit") -> di
 
 
 def _porod(prep, background):
-    q, I, S, qw, Iw, Sw, inside, finite, q_range = prep
+    q, I, S, qw, Iw, Sw, inside, finite, q_range, clean = prep
     F = I.shape[0]
-    status, usable = _common_status(q, I, S, Iw, Sw, finite, q_range, need_positive=False)
     q4 = qw**4
     nan = np.nan
-    with np.errstate(divide="ignore", invalid="ignore"):
-        # weights of y = q^4 I: 1 / (q^4 sigma)^2
-        w = np.where(usable, 1.0 / (q4 * Sw) ** 2, 0.0) if Sw is not None else usable.astype(float)
+    n_points = None
+    if clean:
+        status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+        usable = finite
+        n_points = np.full(F, Iw.shape[1])
+        if Sw is None:
+            w = np.ones_like(Iw)
+        else:
+            # weights of y = q^4 I: 1 / (q^4 sigma)^2
+            w = np.reciprocal(Sw)
+            w *= w
+            w /= (q4 * q4)[None, :]
+    else:
+        status, usable = _common_status(q, I, S, Iw, Sw, finite, q_range, need_positive=False)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            if Sw is None:
+                w = usable.astype(float)
+            else:  # the same operations as the fast path, so that batch equals loop
+                w = np.reciprocal(Sw)
+                w *= w
+                w /= (q4 * q4)[None, :]
+                w = np.where(usable, w, 0.0)
     if isinstance(background, str):
         if background != "fit":
             raise SaxsInputError(
                 f"background must be 'fit' or a number, got {background!r}", parameter="background"
             )
-        y = np.where(usable, q4 * Iw, 0.0)
-        fit = line_fit_shared_x(q4, y, w, scale_covariance=Sw is None)
+        y = Iw * q4 if clean else np.where(usable, q4 * Iw, 0.0)
+        fit = line_fit_shared_x(q4, y, w, scale_covariance=Sw is None, n_points=n_points)
         Kp, Ks = fit["intercept"], fit["intercept_sigma"]
         B, Bs, cov = fit["slope"], fit["slope_sigma"], fit["slope_intercept_cov"]
         chi2r, n = fit["chi2_reduced"], fit["n_points"]
