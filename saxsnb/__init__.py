@@ -36,6 +36,8 @@ __all__ = [
     "read_series",
     "open_series",
     "save_series",
+    "write_text_series",
+    "read_cansas_xml",
     "explore",
     "SaxsError",
     "SaxsInputError",
