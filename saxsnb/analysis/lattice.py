@@ -121,7 +121,7 @@ def _match(phase, q, L, tol):
     return s, np.where(s > 0, e, np.nan)
 
 
-def _refine(q, w, s):
+def _refine(q, w, s, sigma=True):
     """Weighted least squares of q = k sqrt(s); returns L = 1/k and sigma_L.
 
     Weights w = 1/sigma_q^2; sigma of k from (sum w s)^-1/2 scaled by sqrt(chi2_red)
@@ -134,6 +134,8 @@ def _refine(q, w, s):
     sw = np.sum(ww * s, axis=-1)
     with np.errstate(all="ignore"):
         k = np.sum(ww * qq * root, axis=-1) / sw
+        if not sigma:
+            return 1.0 / k, None
         n = m.sum(axis=-1)
         chi = np.sum(ww * (qq - k[..., None] * root) ** 2, axis=-1)
         red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
@@ -143,21 +145,19 @@ def _refine(q, w, s):
     return L, sL
 
 
-def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
+def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
     """Best ``_KEEP`` distinct lattices of one phase for each frame.
 
-    q, w, unexpl (B, P); q_lo (B,). Returns dict of arrays (B, K[, P]).
+    q, w, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,).
+    Returns dict of arrays (B, K[, P]).
     """
     s_list, _, rank, _ = _table(phase)
     B, P = q.shape
     na = min(_ANCHOR_REFLECTIONS, s_list.size)
-    # anchors: the strongest few peaks of the frame, each taken as one of the first reflections
-    na_p = min(_ANCHOR_PEAKS, P)
-    strong = np.argsort(-np.where(np.isfinite(q), strength, -np.inf), axis=1, kind="stable")[:, :na_p]
-    qa = np.take_along_axis(q, strong, 1)
+    na_p = qa.shape[1]
     L0 = (np.sqrt(s_list[:na])[None, None, :] / qa[:, :, None]).reshape(B, na_p * na)
     s, _ = _match(phase, q, np.nan_to_num(L0, nan=0.0), tol)
-    L, _ = _refine(q[:, None, :], w[:, None, :], s)
+    L, _ = _refine(q[:, None, :], w[:, None, :], s, sigma=False)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
     s, err = _match(phase, q, L, tol)
     L, sL = _refine(q[:, None, :], w[:, None, :], s)
@@ -173,7 +173,8 @@ def _single_phase(phase, q, w, unexpl, strength, q_lo, tol):
     inside = (qpred >= q_lo[:, None, None]) & (qpred <= q_hi[..., None])
     mc = np.array([MISS_COST[min(j, len(MISS_COST) - 1)] for j in range(s_list.size)])
     miss = np.sum(np.where(inside & ~seen, mc, 0.0), axis=-1)
-    fitc = 0.25 * np.nansum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
+    with np.errstate(invalid="ignore"):
+        fitc = 0.25 * np.sum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
     n_distinct = seen.sum(-1)
     valid = (n_distinct >= 2) & np.isfinite(L) & (L > 0) & (n_match == n_distinct)
     cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
@@ -211,7 +212,10 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol):
     with np.errstate(invalid="ignore", divide="ignore"):
         rho = np.where(present, np.clip(strength / smax, 0, 1), 0.0)
     unexpl = np.where(present, 1.0 + np.nan_to_num(rho), 0.0)
-    singles = [_single_phase(ph, q, w, unexpl, strength, q_lo, tol) for ph in phases]
+    # anchors: the strongest few peaks of the frame, each taken as one of the first reflections
+    strong = np.argsort(-np.where(present, strength, -np.inf), axis=1, kind="stable")[:, :_ANCHOR_PEAKS]
+    qa = np.take_along_axis(q, strong, 1)
+    singles = [_single_phase(ph, q, w, unexpl, qa, q_lo, tol) for ph in phases]
     ph_id = np.repeat(np.arange(len(phases)), _KEEP)
     cat = {k: np.concatenate([d[k] for d in singles], axis=1) for k in singles[0]}
     M = cat["L"].shape[1]
@@ -469,7 +473,12 @@ def index_peaks(
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
         rho[sl] = H["rho"]
         kk = min(Kv, cost.shape[1])
-        top = np.argsort(cost, axis=1, kind="stable")[:, :kk]
+        if kk < cost.shape[1]:
+            top = np.argpartition(cost, kk - 1, axis=1)[:, :kk]
+            inner = np.argsort(np.take_along_axis(cost, top, 1), axis=1, kind="stable")
+            top = np.take_along_axis(top, inner, 1)
+        else:
+            top = np.argsort(cost, axis=1, kind="stable")
 
         def tk(a, top=top):
             return np.take_along_axis(a, top.reshape(top.shape + (1,) * (a.ndim - 2)), 1)
@@ -481,8 +490,9 @@ def index_peaks(
         st_s[sl, :kk] = tk(H["s"])
         st_cost[sl, :kk] = tk(cost)
         keys = _key(H["phase"], nph)
-        for kv in np.unique(keys):
-            best_key[sl, kv] = np.where(keys == kv, cost, np.inf).min(1)
+        bk = np.full((keys.shape[0], nkeys), np.inf)
+        np.minimum.at(bk, (np.arange(keys.shape[0])[:, None], keys), cost)
+        best_key[sl] = bk
     # choose a state per frame
     choice = np.zeros(F, dtype=np.int64)  # states are sorted: 0 = frame's best
     informative = (n_obs >= 2) & np.isfinite(st_cost[:, 0]) & (st_phase[:, 0, 0] >= 0)
