@@ -212,9 +212,10 @@ def _parse_merged(a: np.ndarray, t: np.ndarray, starts: np.ndarray, ends: np.nda
     res = _parse_group(a.reshape(-1, step)[:, s0 : s0 + w])
     if res is None or not bool(res[1].all()):
         return None
-    other = [j for j in range(step) if not s0 <= j < s0 + w]
-    if other and not bool((a.reshape(-1, ntok, step)[:, :, other] == t.reshape(ntok, step)[:, other]).all()):
-        return None
+    a3, t3 = a.reshape(-1, ntok, step), t.reshape(ntok, step)
+    for lo, hi in ((0, s0), (s0 + w, step)):  # separator columns around each token
+        if hi > lo and not bool((a3[:, :, lo:hi] == t3[:, lo:hi]).all()):
+            return None
     return res[0].reshape(-1, ntok)
 
 
