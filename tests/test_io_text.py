@@ -191,7 +191,7 @@ def test_comments_blank_lines_and_crlf(tmp_path):
 def test_different_grids_are_an_error_naming_the_file(tmp_path):
     _write(tmp_path / "a.dat", _curve())
     _write(tmp_path / "b.dat", _curve(q=Q * 1.01))
-    with pytest.raises(SaxsFileError, match=r"b\.dat.*regrid="):
+    with pytest.raises(SaxsInputError, match=r"b\.dat: its q grid.*regrid="):
         read_series(tmp_path)
 
 
@@ -447,3 +447,12 @@ def test_multiline_sample_name_survives_text_round_trip(tmp_path):
     ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]], sample="line one\nline two")
     write_text_series(ds, tmp_path)
     assert read_series(tmp_path).attrs["sample"] == "line one\nline two"
+
+
+@pytest.mark.parametrize(
+    "header, factor",
+    [("# q [nm^-1]  I [1/cm]  sigma\n", 1.0), ("q(1/A),I,err\n", 10.0), ("# Q (A-1) I\n", 10.0)],
+)
+def test_q_unit_from_column_header(tmp_path, header, factor):
+    path = _write(tmp_path / "c.dat", _curve(), header=header, fmt="%.17g")
+    np.testing.assert_allclose(read_series(path).q.values, factor * Q, rtol=1e-15)  # 1/A = 10/nm

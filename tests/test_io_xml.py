@@ -7,7 +7,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from saxsnb.errors import SaxsError, SaxsFileError, SaxsWarning
+from saxsnb.errors import SaxsError, SaxsFileError, SaxsInputError, SaxsWarning
 from saxsnb.io import read_cansas_xml
 
 Q = np.linspace(0.01, 0.25, 12)  # 1/A
@@ -56,7 +56,7 @@ def test_entries_become_frames(tmp_path, ns):
 def test_different_grids_need_regrid(tmp_path):
     path = tmp_path / "g.xml"
     path.write_text(_doc([(Q, 1.0, 25), (Q * 1.05, 2.0, 35)]))
-    with pytest.raises(SaxsFileError, match=r"SASentry\[1\].*regrid="):
+    with pytest.raises(SaxsInputError, match=r"g\.xml: g\.xml:SASentry\[1\].*regrid="):
         read_cansas_xml(path)
     ds = read_cansas_xml(path, regrid="first")
     assert ds.mask.values[1, 0] and not ds.mask.values[0].any()

@@ -334,12 +334,12 @@ def build_series(
         D = _stack(curves, "dq", q0.size) if any(c.dq is not None for c in curves) else None
     elif regrid is None:
         bad = curves[first_bad]
-        raise SaxsFileError(
-            f"{_part(bad)}its q grid ({bad.q.size} points, {bad.q[0]:.6g}..{bad.q[-1]:.6g}) "
-            "differs from that of "
-            f"{curves[0].name} ({q0.size} points, {q0[0]:.6g}..{q0[-1]:.6g}); pass regrid='first' "
-            "(interpolate onto the first file's grid) or regrid='log' (common log grid)",
-            path=bad.path or bad.name,
+        raise SaxsInputError(
+            f"{bad.path or bad.name}: {_part(bad)}its q grid ({bad.q.size} points, "
+            f"{bad.q[0]:.6g}..{bad.q[-1]:.6g}) differs from that of {curves[0].name} ({q0.size} points, "
+            f"{q0[0]:.6g}..{q0[-1]:.6g}); pass regrid='first' (interpolate onto the first file's grid) "
+            "or regrid='log' (common log grid)",
+            parameter="regrid",
         )
     else:
         grid, I, S, D, regrid_desc = _regrid(curves, regrid)
