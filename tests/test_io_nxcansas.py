@@ -36,7 +36,7 @@ def test_written_file_follows_the_nxcansas_layout(tmp_path, rng):
         assert e["definition"].asstr()[()] == "NXcanSAS"
         d = e["sasdata01"]
         assert d.attrs["canSAS_class"] == "SASdata" and d.attrs["signal"] == "I"
-        assert list(d.attrs["I_axes"]) == ["temperature", "Q"]
+        assert d.attrs["I_axes"] == "temperature,Q"
         assert d["I"].shape == (4, 30) and d["I"].attrs["uncertainties"] == "Idev"
         assert d["Q"].attrs["units"] == "1/nm" and d["Q"].attrs["resolutions"] == "Qdev"
         assert d["temperature"].attrs["units"] == "degC"

@@ -7,7 +7,9 @@ Written layout (one stacked entry; the scan axis is the first axis of ``I``)::
         definition          "NXcanSAS"
         title, run          sample name, ""
         sasdata01/          NX_class=NXdata, canSAS_class=SASdata, signal="I",
-                            I_axes=[<scan>, "Q"], Q_indices=1, <scan>_indices=0
+                            I_axes="<scan>,Q" (comma-separated, as the standard's
+                            examples write it, from memory), Q_indices=1,
+                            <scan>_indices=0
             I      (frame, q)   units "1/cm" or "arbitrary", uncertainties="Idev"
             Idev   (frame, q)
             Q      (q,)         units "1/nm" (resolutions="Qdev" when dq exists)
@@ -80,7 +82,7 @@ def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
             e.create_dataset("run", data="", dtype=string)
             d = e.create_group("sasdata01")
             d.attrs.update({"NX_class": "NXdata", "canSAS_class": "SASdata", "signal": "I"})
-            d.attrs.create("I_axes", [scan, "Q"], dtype=string)
+            d.attrs["I_axes"] = f"{scan},Q"
             d.attrs["Q_indices"] = np.int32(1)
             d.attrs[f"{scan}_indices"] = np.int32(0)
             used = set(names.values())
