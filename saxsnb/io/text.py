@@ -135,7 +135,7 @@ def _read_batch(paths: list[str]) -> list[Curve]:
 
 
 def _curves(files: list[str], progress: bool | None) -> list[Curve]:
-    """Read and parse files in batches on two threads (numpy and file reads release the GIL)."""
+    """Read and parse files in batches on a few threads (file reads and numpy release the GIL)."""
     bar = _progress(len(files), progress)
     batches = [files[b : b + _BATCH] for b in range(0, len(files), _BATCH)]
     curves: list[Curve] = []
