@@ -292,3 +292,15 @@ def test_rising_rod_plot_is_not_called_aggregation():
     assert r["status"][0] == "no_linear_region"
     # compact: ln I vs q^2 of a power law curves upwards, as aggregates do
     assert guinier_fit(q, I, 0.01 * I)["status"][0] == "curvature_aggregation"
+
+
+def test_bad_first_points_are_skipped():
+    q = np.linspace(0.02, 1.0, 200)
+    I = 10.0 * np.exp(-((q * 2.5) ** 2) / 3)
+    I[:2] *= [0.3, 0.6]  # a beam-stop shadow on the first two points
+    found = guinier_search(q, I, 0.005 * I)
+    assert found["status"][0] == "ok" and found["start"][0] == 2
+    r = guinier_fit(q, I, 0.005 * I)
+    assert r["rg"][0] == pytest.approx(2.5, rel=1e-6)
+    only_first = guinier_fit(q, I, 0.005 * I, n_starts=1)
+    assert only_first["status"][0] != "ok"

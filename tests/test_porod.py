@@ -137,6 +137,7 @@ def test_accessor_porod_and_invariant(rng):
     I = np.array([sphere(q * r) * (4 / 3 * np.pi * r**3) ** 2 * 1e-4 for r in R]) + 0.002
     s = 1e-3 * I
     ds = saxsnb.from_arrays(q, I, s, scan={"time": [0.0, 10.0, 20.0]}, intensity_unit="1/cm")
+    before = ds.copy(deep=True)
     p = ds.saxs.porod((2.5, 4.0))
     assert p.porod_constant.attrs["units"] == "1/cm 1/nm^4" and p.exponent.attrs["units"] == "1"
     assert "time" in p.coords
@@ -150,6 +151,9 @@ def test_accessor_porod_and_invariant(rng):
     # Kp from a short oscillating tail is uncertain by a few %
     np.testing.assert_allclose(inv.porod_volume.values, 4 / 3 * np.pi * R**3, rtol=0.05)
     assert (inv.specific_surface_sigma > 0).all()
+    ds.saxs.kratky("rg")
+    ds.saxs.kratky_summary()
+    assert ds.identical(before)  # nothing the user loaded is modified
     lazy = ds.chunk({"frame": 1}).saxs.invariant(porod=given, volume_fraction=0.05).compute()
     for v in inv.data_vars:
         assert np.array_equal(lazy[v].values, inv[v].values, equal_nan=inv[v].dtype.kind == "f"), v

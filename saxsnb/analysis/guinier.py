@@ -39,7 +39,10 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis.linear.Wi
    of a fit ``y = a + b x + c x^2`` on the same window is either not significant
    (``|c| <= curvature_z * sigma_c``, sigma_c scaled by sqrt(chi2_red) when that
    exceeds 1) or small (the local slope changes by less than ``max_drift`` = 5 %
-   across the window: R^2 is stable against the range to that fraction);
+   across the window: R^2 is stable against the range to that fraction); and its first
+   point is no outlier (squared weighted residual from the window's line below 4^2
+   times the line's reduced chi-square, at least 1), so that a shadowed or
+   contaminated first point makes the search move to the next start;
 3. among acceptable windows the one with the smallest estimated mean-squared error
    of its slope as an estimate of the slope at q = 0 wins: var(b) (scaled as above)
    plus (c * lever)^2, where c * lever is the offset a quadratic term causes in a
@@ -90,6 +93,7 @@ STATUS_PARAMETER = {
 _STATUS_DTYPE = "<U24"
 _CHUNK = 256
 _DECAY_MARGIN = 0.3
+_OUTLIER_Z = 4.0
 
 
 def _check_shape(shape):
@@ -297,10 +301,15 @@ def _search_chunk(
             c2 = st["c"] * st["c"]
             c_var = st["c_var"] * var_scale
             flat = (c2 <= curvature_z * curvature_z * c_var) | (np.abs(st["drift"]) <= max_drift)
+            # the first point must not be an outlier of the window's line (beam-stop
+            # shadow, parasitic scattering): its squared weighted residual below
+            # outlier_z^2 times the line's reduced chi-square (at least 1)
+            line_scale = np.maximum(st["chi2_line"] / np.maximum(n - 2.0, 1.0), 1.0)
+            clean_start = st["first_residual2"] <= _OUTLIER_Z**2 * line_scale
             inside = (q_last_all[r] ** 2)[:, None, :] * (-k * slope) <= limit * limit
             geom = (s3 < e3) & (nblk == 0) & (n >= min_points - 0.5)
             negative = slope < 0
-            accept = geom & negative & inside & flat
+            accept = geom & negative & inside & flat & clean_start
             # score: estimated mean-squared error of the slope as an estimate of the
             # slope at q = 0: its variance plus the squared departure c * lever that
             # the quadratic term causes (c^2 estimated without its noise bias)

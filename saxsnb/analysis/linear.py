@@ -399,6 +399,7 @@ class WindowMoments:
         u = (x - self.x_ref[0] if n else x)[:, None]
         v = np.where(useT, y.T - self.y_ref, 0.0)
         self._build(useT, w.T, u, v, quadratic)
+        self._u, self._v, self._w = u[:, 0], v, w.T  # for first-point residuals
         return self
 
     def _build(self, useT, w, u, v, quadratic):
@@ -485,9 +486,12 @@ class WindowMoments:
         -------
         dict of arrays of the broadcast shape of ``start`` and ``stop``: ``slope``,
         ``slope_var``, ``n_points``, ``c``, ``c_var``, ``chi2_quadratic``, ``drift``,
-        ``lever``. Degenerate windows give NaN (compare with care). ``rows``
-        (optional int array) restricts the statistics to those frames; ``start`` and
-        ``stop`` then have ``len(rows)`` as their first dimension.
+        ``lever``, ``chi2_line`` (the straight line's chi-square) and, for objects
+        made by :meth:`from_weights`, ``first_residual2``: the squared weighted residual
+        of each window's first point from its straight line. Degenerate windows give
+        NaN (compare with care). ``rows`` (optional int array) restricts the
+        statistics to those frames; ``start`` and ``stop`` then have ``len(rows)`` as
+        their first dimension.
         """
         if not self.quadratic:
             raise SaxsInputError("built without quadratic=True", parameter="quadratic")
@@ -521,7 +525,14 @@ class WindowMoments:
                 "chi2_quadratic": Svv - Sv * Y - S0 * (bq * cuy + c * cu2y),
                 "drift": 2.0 * c * np.sqrt(12.0 * mu2) / bq,
                 "lever": mu3 / mu2 + 2.0 * (m + (self.x_ref if rows is None else self.x_ref[rows])[extra]),
+                "chi2_line": Svv - Sv * Y - S0 * slope * cuy,
             }
+            if hasattr(self, "_v"):
+                st = np.clip(np.asarray(start, dtype=np.int64), 0, max(self._v.shape[0] - 1, 0))
+                f = np.arange(self._F) if rows is None else np.asarray(rows)
+                f = f.reshape((-1,) + (1,) * (st.ndim - 1))
+                r0 = self._v[st, f] - Y - slope * (self._u[st] - m)
+                out["first_residual2"] = r0 * r0 * self._w[st, f]
         return out
 
     def curvature(self, start, stop):
