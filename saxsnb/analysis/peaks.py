@@ -75,13 +75,15 @@ def _noise_scale(intensity: np.ndarray, sigma: np.ndarray | None) -> np.ndarray:
             med = _row_median(np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.nan))
         else:
             med = np.full(intensity.shape[:-1], np.nan)
-        mad = _row_median(np.abs(np.diff(intensity, axis=-1))) * 1.4826 / np.sqrt(2.0)
-    med = np.where(med > 0, med, mad)
+        need = ~(med > 0)
+        if need.any():  # no usable sigma: from point-to-point differences (MAD)
+            d = np.abs(np.diff(intensity[need], axis=-1))
+            med[need] = _row_median(d) * 1.4826 / np.sqrt(2.0)
     return np.where(med > 0, med, 1.0)
 
 
 # -------------------------------------------------------------------------- baseline
-def estimate_baseline(q, intensity, sigma=None, *, width: float | None = None) -> np.ndarray:
+def estimate_baseline(q, intensity, sigma=None, *, width: float | None = None, _scale=None) -> np.ndarray:
     """Smooth diffuse background under Bragg peaks, for every frame at once.
 
     Parameters
@@ -128,7 +130,7 @@ def estimate_baseline(q, intensity, sigma=None, *, width: float | None = None) -
     if width is None:
         width = 0.05 * (q[-1] - q[0]) if n_q > 1 else 1.0
     w = min(_odd(max(width / dq, 15)), _odd(n_q))
-    c = _noise_scale(I, S)[..., None]
+    c = (_noise_scale(I, S) if _scale is None else np.asarray(_scale, dtype=float).reshape(-1))[..., None]
     y = np.arcsinh(_fill_nan(I) / c)
     ys = ndimage.uniform_filter1d(y, size=min(5, n_q), axis=-1, mode="nearest")
     opened = ndimage.maximum_filter1d(
@@ -211,9 +213,9 @@ def detect_peaks(
     half += half % 2  # even, so a centred window of half + 1 points is symmetric
     # left base window [i - half, i] is the centred window at i - half/2, right at i + half/2
     cmin = ndimage.minimum_filter1d(sm, size=half + 1, axis=-1, mode="nearest")
-    idx = np.arange(n_q)
-    left = cmin[:, np.clip(idx - half // 2, 0, n_q - 1)]
-    right = cmin[:, np.clip(idx + half // 2, 0, n_q - 1)]
+    h2 = min(half // 2, n_q - 1)
+    left = np.concatenate([np.repeat(cmin[:, :1], h2, axis=1), cmin[:, : n_q - h2]], axis=1)
+    right = np.concatenate([cmin[:, h2:], np.repeat(cmin[:, -1:], h2, axis=1)], axis=1)
     prom = sm - np.maximum(left, right)
     ok = is_max & (prom > min_prominence * nz) & (sm > 0)
     score = np.where(ok, prom / np.maximum(nz, 1e-300), -np.inf)
@@ -724,9 +726,9 @@ def find_peaks(
     if errors == "raise" and not enough.all():
         bad = int(np.nonzero(~enough)[0][0])
         raise SaxsFitError("fewer than 12 finite points in the searched q range", frame=bad)
-    base = estimate_baseline(qs, Is, Ss, width=baseline_width)
-    resid = np.where(finite, Is - base, np.nan)
     scale = _noise_scale(Is, Ss)[:, None]
+    base = estimate_baseline(qs, Is, Ss, width=baseline_width, _scale=scale)
+    resid = np.where(finite, Is - base, np.nan)
     if Ss is not None:
         noise = np.where(np.isfinite(Ss) & (Ss > 0), Ss, scale)
     else:

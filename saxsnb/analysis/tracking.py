@@ -91,7 +91,8 @@ def link_peaks(
             lab = np.asarray(labels)
             if lab.shape != q.shape:
                 raise SaxsInputError("labels must have the shape of position", parameter="labels")
-            allowed &= lab[:-1, :, None] == lab[1:, None, :]
+            code = np.unique(lab.ravel(), return_inverse=True)[1].reshape(lab.shape)  # ints compare fast
+            allowed &= code[:-1, :, None] == code[1:, None, :]
         cost = np.where(allowed, cost, np.inf)
         free_a = np.ones((F - 1, P), dtype=bool)
         free_b = np.ones((F - 1, P), dtype=bool)
