@@ -347,26 +347,30 @@ def build_series(
             D = None
 
     no_sigma = np.array([c.sigma is None for c in curves])
-    # masks stored in the source (NXcanSAS Mask): applied without a warning
-    known = np.zeros(I.shape, dtype=bool)
-    for i, c in enumerate(curves):
-        if c.mask is not None:
-            if same:
-                known[i] = c.mask
-            else:
-                known[i] = np.interp(grid, c.q, c.mask.astype(float), left=0.0, right=0.0) > 0
     file_bad = ~np.isfinite(I)
-    file_bad[~no_sigma] |= ~(S[~no_sigma] > 0)
-    file_bad &= ~known
+    if no_sigma.any():
+        file_bad[~no_sigma] |= ~(S[~no_sigma] > 0)
+    else:
+        file_bad |= ~(S > 0)
+    mask = file_bad
+    if any(c.mask is not None for c in curves):
+        # masks stored in the source (NXcanSAS Mask): applied without a warning
+        known = np.zeros(I.shape, dtype=bool)
+        for i, c in enumerate(curves):
+            if c.mask is not None:
+                if same:
+                    known[i] = c.mask
+                else:
+                    known[i] = np.interp(grid, c.q, c.mask.astype(float), left=0.0, right=0.0) > 0
+        file_bad &= ~known
+        mask = file_bad | known
     if regrid_desc is not None:
         # points outside a file's own q range are NaN by construction: masked, not warned
         outside = np.zeros_like(file_bad)
         for i, c in enumerate(curves):
             outside[i] = (grid < c.q[0] * (1 - 1e-12)) | (grid > c.q[-1] * (1 + 1e-12))
         file_bad &= ~outside
-        mask = file_bad | outside | known
-    else:
-        mask = file_bad | known
+        mask = mask | outside
     if file_bad.any():
         i = int(np.argmax(file_bad.any(axis=1)))
         warnings.warn(
