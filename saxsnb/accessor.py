@@ -260,6 +260,8 @@ class SaxsAccessor:
         profile: str = "pseudo_voigt",
         max_peaks: int = 16,
         baseline_width: float | None = None,
+        shoulders: bool = True,
+        backfit: bool = True,
         track: bool = True,
         order_by: str | None = None,
         errors: str = "ignore",
@@ -300,7 +302,8 @@ class SaxsAccessor:
         outputs["n_peaks"] = OutputSpec((), np.int64, "1")
         outputs["status"] = OutputSpec((), "<U24", None)
         params = dict(q_range=q_range, min_prominence=min_prominence, profile=profile,
-                      max_peaks=int(max_peaks), baseline_width=baseline_width, errors=errors)
+                      max_peaks=int(max_peaks), baseline_width=baseline_width, shoulders=bool(shoulders),
+                      backfit=bool(backfit), errors=errors)
         out = self._map_frames(_pk.find_peaks, outputs, operation="find_peaks", parameters=params, **params)
         q = ds["q"].values
         lo, hi = (q.min(), q.max()) if q_range is None else (q_range[0], q_range[1])

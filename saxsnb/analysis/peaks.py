@@ -2,9 +2,12 @@
 
 Everything works on a stack of curves ``intensity.shape == (n_frames, n_q)`` at once:
 the baseline is a morphological filter applied along q for all frames together,
-detection uses array operations (no per-frame ``scipy.signal.find_peaks`` loop) and
-all peaks of all frames are fitted together by one vectorised Levenberg-Marquardt
-iteration on a padded ``(n_peaks_total, window)`` array.
+detection (local maxima by prominence, shoulders from the second derivative) uses
+array operations (no per-frame ``scipy.signal.find_peaks`` loop), and all peaks of
+all frames are fitted together by one vectorised Levenberg-Marquardt iteration on a
+padded ``(n_peaks_total, window)`` array; overlapping peaks are then refined by two
+backfitting rounds. Large series are processed in blocks of frames (a loop over
+blocks, not frames).
 """
 
 from __future__ import annotations
