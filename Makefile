@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 PORT ?= 8888
 DEMO_DIR ?= demo-data
-APP_NB ?= notebooks/02-phase-ramp.ipynb
+APP_NB ?= notebooks/app-flow-growth.ipynb
 
 .PHONY: install demo demo-data test lint unit notebooks browser-deps app bench clean
 
@@ -28,9 +28,10 @@ demo: install demo-data
 	$(BIN)/python -m jupyterlab notebooks/01-quickstart.ipynb --ip=127.0.0.1 --port=$(PORT) \
 		$(if $(NOBROWSER),--no-browser,) --ServerApp.allow_root=True
 
-# A code-free page for collaborators (Voila), on 127.0.0.1.
-app: install demo-data
-	$(BIN)/python -m voila $(APP_NB) --Voila.ip=127.0.0.1 --port=$(PORT) \
+# A code-free page for collaborators (Voila: outputs only, no code), on 127.0.0.1.
+# Another notebook: `make app APP_NB=notebooks/02-phase-ramp.ipynb`; NOBROWSER=1 on a headless machine.
+app: install
+	$(BIN)/python -m voila $(APP_NB) --Voila.ip=127.0.0.1 --port=$(PORT) --Voila.port_retries=0 \
 		$(if $(NOBROWSER),--no-browser,)
 
 # Debian's chromium for the real-browser tests (CI runs as root).
