@@ -304,3 +304,11 @@ def test_bad_first_points_are_skipped():
     assert r["rg"][0] == pytest.approx(2.5, rel=1e-6)
     only_first = guinier_fit(q, I, 0.005 * I, n_starts=1)
     assert only_first["status"][0] != "ok"
+
+
+def test_automatic_without_sigma(rng):
+    q = np.linspace(0.02, 1.5, 300)
+    I = np.exp(-((q * 3.0) ** 2) / 3) * (1 + 0.01 * rng.normal(size=(4, 300)))
+    r = guinier_fit(q, I)  # unweighted; uncertainties from the scatter of the residuals
+    assert (r["status"] == "ok").all()
+    assert np.all(np.abs(r["rg"] - 3.0) < 4 * r["rg_sigma"])

@@ -3,6 +3,8 @@ surface to volume, power-law exponents of sphere, chain and rod tails."""
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from shapes_linear import debye, schulz_spheres, sphere, thin_rod
 
 from saxsnb.analysis.porod import (
@@ -174,3 +176,13 @@ def test_accessor_porod_errors(rng):
     res = ds.saxs.porod(q_range=(1.0, 3.0), background=np.array([0.01, 0.01]))
     np.testing.assert_allclose(res.porod_constant.values, 2.0, rtol=1e-9)
     np.testing.assert_allclose(res.exponent.values, 4.0, rtol=1e-9)
+
+
+@settings(max_examples=30, deadline=None)
+@given(kp=st.floats(1e-3, 1e3), b=st.floats(-1e-2, 1e-2), p=st.floats(1.0, 4.5))
+def test_exact_power_laws_are_recovered(kp, b, p):
+    q = np.linspace(1.0, 3.0, 60)
+    porod = porod_fit(q, kp / q**4 + b, q_range=(1.0, 3.0))
+    assert porod["porod_constant"][0] == pytest.approx(kp, rel=1e-6, abs=1e-9)
+    pl = power_law_fit(q, kp * q**-p, q_range=(1.0, 3.0))
+    assert pl["exponent"][0] == pytest.approx(p, rel=1e-9)
