@@ -625,6 +625,9 @@ class SaxsAccessor:
         from .analysis.porod import invariant as _invariant
 
         self._check_errors(errors)
+        if q_range is not None and np.shape(q_range) != (2,):
+            raise SaxsInputError("q_range of the measured part must be one (q_min, q_max)",
+                                 parameter="q_range")
         g = self.guinier() if guinier is None else guinier
         p = self.porod(porod_q_range, background=background) if porod is None else porod
         iu = self._ds["intensity"].attrs.get("units", "arb")
