@@ -62,6 +62,16 @@ def _table(phase: str):
     return s, ok, rank, labels
 
 
+@cache
+def _miss_tables(phase: str):
+    """Cumulative cost of the allowed reflections up to each s, and the cost by s."""
+    s_list, ok, rank, _ = _table(phase)
+    mc = np.array([MISS_COST[min(j, len(MISS_COST) - 1)] for j in range(s_list.size)])
+    by_s = np.zeros(ok.size)
+    by_s[s_list] = mc
+    return np.cumsum(by_s), by_s
+
+
 def lattice_from_metric(phase: str, metric):
     """Lattice parameter (nm) from the metric ``L`` with ``q = sqrt(s) / L``.
 
@@ -151,7 +161,7 @@ def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
     q, w, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,).
     Returns dict of arrays (B, K[, P]).
     """
-    s_list, _, rank, _ = _table(phase)
+    s_list = _table(phase)[0]
     B, P = q.shape
     na = min(_ANCHOR_REFLECTIONS, s_list.size)
     na_p = qa.shape[1]
@@ -162,21 +172,23 @@ def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
     s, err = _match(phase, q, L, tol)
     L, sL = _refine(q[:, None, :], w[:, None, :], s)
     matched = s > 0
-    n_match = matched.sum(-1)
-    # missing reflections: predicted inside [q_lo, highest matched q] but not observed
+    n_match = matched.sum(-1)  # one peak per reflection (see _match)
+    # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
+    # peak matches. Their cost is the cumulative cost of all allowed reflections in that
+    # range (a table over s) minus the cost of the matched ones.
+    cum_cost, mcost = _miss_tables(phase)
+    top = cum_cost.size - 1
     with np.errstate(invalid="ignore"):
         q_hi = np.where(matched, q[:, None, :], -np.inf).max(-1) * (1 + tol)
-        qpred = np.sqrt(s_list)[None, None, :] / L[..., None]
-    seen = np.zeros(s.shape[:-1] + (s_list.size + 1,), dtype=bool)
-    np.put_along_axis(seen, np.where(s > 0, rank[s], s_list.size), True, axis=-1)
-    seen = seen[..., :-1]
-    inside = (qpred >= q_lo[:, None, None]) & (qpred <= q_hi[..., None])
-    mc = np.array([MISS_COST[min(j, len(MISS_COST) - 1)] for j in range(s_list.size)])
-    miss = np.sum(np.where(inside & ~seen, mc, 0.0), axis=-1)
+        x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
+        x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, nan=0.0, posinf=0.0)
+    hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
+    lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
+    in_range = np.where(hi > lo, cum_cost[hi] - cum_cost[lo], 0.0)
+    miss = np.maximum(in_range - np.sum(mcost[s], axis=-1), 0.0)
     with np.errstate(invalid="ignore"):
         fitc = 0.25 * np.sum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
-    n_distinct = seen.sum(-1)
-    valid = (n_distinct >= 2) & np.isfinite(L) & (L > 0) & (n_match == n_distinct)
+    valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
     cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
     # keep the best _KEEP candidates with distinct lattices
