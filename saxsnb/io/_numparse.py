@@ -153,7 +153,8 @@ def parse_tokens(
             tok, pos = tok[inside], pos[inside]
             inside = pos < ends[tok]
             tok, pos = tok[inside], pos[inside]
-            multi |= np.bincount(tok, minlength=n) > 1
+            # a token with two '.' (or 'e') keeps one position: its group then fails
+            # the layout check in _parse_group and goes through float(), which rejects it
             out[tok] = np.clip(pos - s2[tok], 0, none)
     key = (np.clip(length, 0, none).astype(np.int16) << 10) | (dpos << 5) | epos
     key[multi] = -1
