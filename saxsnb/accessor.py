@@ -809,7 +809,8 @@ class SaxsAccessor:
 
         def _run(I_, S_, *extra):
             res = func(q.values, I_, S_, *extra, **kwargs)
-            return tuple(np.asarray(res[n]).astype(outputs[n].dtype, copy=False) for n in names)
+            out = tuple(np.asarray(res[n]).astype(outputs[n].dtype, copy=False) for n in names)
+            return out[0] if len(out) == 1 else out
 
         if I.chunks is not None:
             I = I.chunk({"q": -1})

@@ -65,3 +65,8 @@ def test_mask_becomes_nan_for_analysis(ds):
     I, _ = dm.saxs.masked()
     assert np.isnan(I.values[:, :10]).all() and np.isfinite(I.values[:, 10:]).all()
     assert np.isfinite(dm.intensity.values).all()  # the loaded data is not modified
+
+
+def test_map_frames_single_output(ds):
+    out = ds.saxs._map_frames(_frame_means, {"mean": OutputSpec(units="arb")}, operation="mean")
+    np.testing.assert_allclose(out["mean"].values, ds.intensity.values.mean(axis=1))
