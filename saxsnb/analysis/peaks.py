@@ -40,6 +40,8 @@ def _fill_nan(y: np.ndarray) -> np.ndarray:
     (forward then backward fill), vectorised over leading axes. All-NaN rows stay 0."""
     y = np.array(y, dtype=float, copy=True)
     good = np.isfinite(y)
+    if good.all():
+        return y
     n = y.shape[-1]
     idx = np.where(good, np.arange(n), 0)
     np.maximum.accumulate(idx, axis=-1, out=idx)
@@ -232,12 +234,21 @@ def detect_peaks(
         ker = ndimage.gaussian_filter1d(imp, smooth) if smooth > 0 else imp
         kd2 = np.sqrt(np.sum((ker[:-2] - 2 * ker[1:-1] + ker[2:]) ** 2))
         nd2 = np.broadcast_to(np.asarray(noise, dtype=float), r.shape) * kd2
-        is_c = c == ndimage.maximum_filter1d(c, size=2 * md + 1, axis=-1, mode="nearest")
-        near = ndimage.maximum_filter1d(is_max.astype(np.uint8), size=4 * md + 1, axis=-1) > 0
-        shoulder = is_c & ~near & (c > min_prominence * nd2) & (sm > min_prominence * nz)
-        shoulder[:, :2] = False
-        shoulder[:, -2:] = False
-        score = np.where(shoulder, c / np.maximum(nd2, 1e-300), score)
+        cand = (c > min_prominence * nd2) & (sm > min_prominence * nz)
+        cand[:, :2] = False
+        cand[:, -2:] = False
+        fi, qi = np.nonzero(cand)  # few points: the rest is done on them only
+        if fi.size:
+            offs = np.arange(-2 * md, 2 * md + 1)
+            cols = np.clip(qi[:, None] + offs, 0, n_q - 1)
+            cc = c[fi[:, None], cols]
+            # the largest -d2 within +-md, and no local maximum within +-2 md
+            top_c = np.all(cc[:, md:-md] <= cc[:, [2 * md]], axis=1)
+            far = ~is_max[fi[:, None], cols].any(axis=1)
+            keep = top_c & far
+            fi, qi = fi[keep], qi[keep]
+            shoulder[fi, qi] = True
+            score[fi, qi] = c[fi, qi] / np.maximum(nd2[fi, qi], 1e-300)
     k = min(int(max_peaks), n_q)
     if k < n_q:
         top = np.argpartition(-score, k - 1, axis=-1)[:, :k]
@@ -731,7 +742,8 @@ def find_peaks(
         raise SaxsFitError("fewer than 12 finite points in the searched q range", frame=bad)
     scale = _noise_scale(Is, Ss)[:, None]
     base = estimate_baseline(qs, Is, Ss, width=baseline_width, _scale=scale)
-    resid = np.where(finite, Is - base, np.nan)
+    all_finite = bool(finite.all())
+    resid = Is - base if all_finite else np.where(finite, Is - base, np.nan)
     if Ss is not None:
         noise = np.where(np.isfinite(Ss) & (Ss > 0), Ss, scale)
     else:
@@ -739,11 +751,11 @@ def find_peaks(
     dq = float(np.median(np.diff(qs)))
     bw = 0.05 * (qs[-1] - qs[0]) if baseline_width is None else baseline_width
     window = _odd(max(bw / dq, 15))
-    rf = np.where(finite, resid, 0.0)
+    rf = resid if all_finite else np.where(finite, resid, 0.0)
     index, prom, wpts = detect_peaks(
         qs,
         rf,
-        np.where(finite, noise, np.inf),
+        noise if all_finite else np.where(finite, noise, np.inf),
         min_prominence=min_prominence,
         min_separation=min_separation,
         max_peaks=int(max_peaks),
