@@ -208,7 +208,7 @@ def detect_peaks(
     sm = ndimage.gaussian_filter1d(r, smooth, axis=-1, mode="nearest") if smooth > 0 else r
     # noise of the smoothed curve for independent points: sigma / sqrt(2 sqrt(pi) s)
     factor = 1.0 / np.sqrt(2.0 * np.sqrt(np.pi) * smooth) if smooth > 0 else 1.0
-    nz = np.broadcast_to(np.asarray(noise, dtype=float), r.shape) * factor
+    noise_b = np.broadcast_to(np.asarray(noise, dtype=float), r.shape)
     md = max(int(min_separation), 1)
     is_max = sm == ndimage.maximum_filter1d(sm, size=2 * md + 1, axis=-1, mode="nearest")
     is_max[:, 1:] &= sm[:, 1:] > sm[:, :-1]
@@ -219,36 +219,41 @@ def detect_peaks(
     # left base window [i - half, i] is the centred window at i - half/2, right at i + half/2
     cmin = ndimage.minimum_filter1d(sm, size=half + 1, axis=-1, mode="nearest")
     h2 = min(half // 2, n_q - 1)
-    left = np.concatenate([np.repeat(cmin[:, :1], h2, axis=1), cmin[:, : n_q - h2]], axis=1)
-    right = np.concatenate([cmin[:, h2:], np.repeat(cmin[:, -1:], h2, axis=1)], axis=1)
-    prom = sm - np.maximum(left, right)
-    ok = is_max & (prom > min_prominence * nz) & (sm > 0)
-    score = np.where(ok, prom / np.maximum(nz, 1e-300), -np.inf)
-    shoulder = np.zeros_like(ok)
-    if shoulders and n_q > 4:
-        c = np.zeros_like(sm)
-        c[:, 1:-1] = -(sm[:, :-2] - 2.0 * sm[:, 1:-1] + sm[:, 2:])
+    # everything else only at the (few) local maxima and shoulder candidates
+    fi, qi = np.nonzero(is_max)
+    smv = sm[fi, qi]
+    nzv = noise_b[fi, qi] * factor
+    pv = smv - np.maximum(cmin[fi, np.maximum(qi - h2, 0)], cmin[fi, np.minimum(qi + h2, n_q - 1)])
+    okv = (pv > min_prominence * nzv) & (smv > 0)
+    fi, qi, pv, nzv = fi[okv], qi[okv], pv[okv], nzv[okv]
+    score = np.full(r.shape, -np.inf)
+    score[fi, qi] = pv / np.maximum(nzv, 1e-300)
+    prom = np.full(r.shape, np.nan)
+    prom[fi, qi] = pv
+    shoulder = np.zeros(r.shape, dtype=bool)
+    if shoulders and n_q > 4 * md + 4:
         # noise of -d2: sigma times the norm of the (smoothing then differencing) kernel
         imp = np.zeros(8 * int(np.ceil(max(smooth, 1))) + 9)
         imp[imp.size // 2] = 1.0
         ker = ndimage.gaussian_filter1d(imp, smooth) if smooth > 0 else imp
         kd2 = np.sqrt(np.sum((ker[:-2] - 2 * ker[1:-1] + ker[2:]) ** 2))
-        nd2 = np.broadcast_to(np.asarray(noise, dtype=float), r.shape) * kd2
-        cand = (c > min_prominence * nd2) & (sm > min_prominence * nz)
-        cand[:, :2] = False
-        cand[:, -2:] = False
-        fi, qi = np.nonzero(cand)  # few points: the rest is done on them only
+        c = np.zeros_like(sm)
+        c[:, 1:-1] = sm[:, 1:-1] * 2.0 - sm[:, :-2] - sm[:, 2:]
+        high = (sm > (min_prominence * factor) * noise_b) & (c > (min_prominence * kd2) * noise_b)
+        high[:, : 2 * md + 2] = False
+        high[:, -(2 * md + 2) :] = False
+        fi, qi = np.nonzero(high)
         if fi.size:
-            offs = np.arange(-2 * md, 2 * md + 1)
-            cols = np.clip(qi[:, None] + offs, 0, n_q - 1)
-            cc = c[fi[:, None], cols]
-            # the largest -d2 within +-md, and no local maximum within +-2 md
-            top_c = np.all(cc[:, md:-md] <= cc[:, [2 * md]], axis=1)
-            far = ~is_max[fi[:, None], cols].any(axis=1)
-            keep = top_c & far
+            offs = np.arange(-md - 1, md + 2)
+            win = sm[fi[:, None], qi[:, None] + offs]
+            cw = -(win[:, :-2] - 2.0 * win[:, 1:-1] + win[:, 2:])  # -d2 at offsets -md..md
+            cv = cw[:, md]
+            nd2 = noise_b[fi, qi] * kd2
+            far = ~is_max[fi[:, None], qi[:, None] + np.arange(-2 * md, 2 * md + 1)].any(axis=1)
+            keep = (cv > min_prominence * nd2) & np.all(cw <= cv[:, None], axis=1) & far
             fi, qi = fi[keep], qi[keep]
             shoulder[fi, qi] = True
-            score[fi, qi] = c[fi, qi] / np.maximum(nd2[fi, qi], 1e-300)
+            score[fi, qi] = cv[keep] / np.maximum(nd2[keep], 1e-300)
     k = min(int(max_peaks), n_q)
     if k < n_q:
         top = np.argpartition(-score, k - 1, axis=-1)[:, :k]
