@@ -112,6 +112,41 @@ def run_flow(probe, root: str, shots: str) -> dict:
     seen["rg_dragged"] = (rg2, s2)
     seen["result_text"] = text2
     assert rg2 != rg1, f"Rg text unchanged after the drag: {text2[:200]!r}"
+    check_validity_colour(result)
     panel = guinier_fig.locator("xpath=ancestor::div[contains(@class,'widget-vbox')][1]")
     probe.screenshot(f"{shots}-guinier-after-drag", panel)
     return seen
+
+
+# Colours of the q_max Rg line (saxsnb.widgets.palette, Okabe & Ito 2008): bluish green
+# inside the limit for elongated particles (0.8), orange up to the compact limit (1.3),
+# vermillion past it.
+VALIDITY_COLOURS = [(0.8, "rgb(0, 158, 115)"), (1.3, "rgb(230, 159, 0)"), (float("inf"), "rgb(213, 94, 0)")]
+
+
+def check_validity_colour(result) -> None:
+    """The q_max Rg line has the colour its value calls for."""
+    line = result.locator("span", has_text=re.compile(r"q_max Rg = "))
+    m = re.search(r"q_max Rg = ([-\d.e+]+)", line.inner_text())
+    assert m, line.inner_text()
+    qrg = float(m.group(1))
+    colour = next(c for limit, c in VALIDITY_COLOURS if qrg <= limit)
+    expect(line).to_have_css("color", colour)
+
+
+def click_map_row(probe, root: str, fraction: float = 0.5) -> int:
+    """Click the overview map at ``fraction`` of its height (from the top); return the
+    frame the slider moved to (checked against the curve panel's title)."""
+    page = probe.page
+    omap = figure(page, root, re.compile(r"^log10 intensity over the series"))
+    area = omap.locator("rect.plotarea_events")
+    area.scroll_into_view_if_needed()
+    box = area.bounding_box()
+    assert box is not None
+    handle = page.locator(f"{root} .widget-slider .noUi-handle[role=slider]").first
+    before = handle.get_attribute("aria-valuenow")
+    page.mouse.click(box["x"] + 0.5 * box["width"], box["y"] + fraction * box["height"])
+    expect(handle).not_to_have_attribute("aria-valuenow", before)
+    frame = int(float(handle.get_attribute("aria-valuenow")))
+    expect(figure(page, root, re.compile(rf"^position [\d.]+ mm \(frame {frame}\)$"))).to_have_count(1)
+    return frame
