@@ -75,7 +75,9 @@ def open_series(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
     path : str or Path
     chunks : int or dict, optional
         Return a dask-backed Dataset (an int means frames per chunk). Without it the
-        data are loaded into memory and the file is closed at once.
+        data are loaded into memory and the file is closed at once. With it, a NetCDF
+        file stays open for lazy reading until ``ds.close()``; NXcanSAS files are
+        always read into memory first, then chunked.
 
     Returns
     -------
