@@ -113,7 +113,7 @@ def _match(phase, q, L, tol):
     """
     nearest, root = _nearest_table(phase)
     x = q[:, None, :] * L[:, :, None]  # = sqrt of (q L)^2
-    i = np.nan_to_num(x * x * _GRID, nan=-1.0, posinf=-1.0)
+    i = np.nan_to_num(x * x * _GRID, copy=False, nan=-1.0, posinf=-1.0)
     i = np.clip(i, 0, nearest.size - 1).astype(np.intp)
     with np.errstate(invalid="ignore"):
         e = np.abs(x / root[i] - 1.0)
@@ -180,8 +180,8 @@ def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
     top = cum_cost.size - 1
     with np.errstate(invalid="ignore"):
         q_hi = np.where(matched, q[:, None, :], -np.inf).max(-1) * (1 + tol)
-        x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
-        x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, nan=0.0, posinf=0.0)
+        x_hi = np.nan_to_num((q_hi * L) ** 2, copy=False, nan=0.0, posinf=0.0, neginf=0.0)
+        x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, copy=False, nan=0.0, posinf=0.0)
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
     in_range = np.where(hi > lo, cum_cost[hi] - cum_cost[lo], 0.0)
@@ -337,7 +337,8 @@ def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
 
 
 def _key(phase_pair, n):
-    a, b = np.sort(phase_pair, axis=-1)[..., 0], np.sort(phase_pair, axis=-1)[..., 1]
+    a = np.minimum(phase_pair[..., 0], phase_pair[..., 1])
+    b = np.maximum(phase_pair[..., 0], phase_pair[..., 1])
     return (a + 1) * (n + 1) + (b + 1)
 
 
