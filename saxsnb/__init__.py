@@ -9,7 +9,7 @@
 __version__ = "0.1.0"
 
 from . import accessor as _accessor  # noqa: E402,F401  (registers ds.saxs)
-from .errors import SaxsError, SaxsFileError, SaxsFitError, SaxsInputError  # noqa: E402
+from .errors import InputError, SaxsError, SaxsFileError, SaxsFitError, SaxsInputError  # noqa: E402
 from .series import from_arrays, validate  # noqa: E402
 
 
@@ -39,6 +39,7 @@ __all__ = [
     "write_text_series",
     "read_cansas_xml",
     "explore",
+    "InputError",
     "SaxsError",
     "SaxsInputError",
     "SaxsFileError",

@@ -7,14 +7,22 @@ the bad item in a folder of thousands of curves.
 
 from __future__ import annotations
 
-__all__ = ["SaxsError", "SaxsInputError", "SaxsFileError", "SaxsFitError", "SaxsWarning"]
+__all__ = ["SaxsError", "InputError", "SaxsInputError", "SaxsFileError", "SaxsFitError", "SaxsWarning"]
 
 
-class SaxsError(Exception):
-    """Base class of every saxsnb error."""
+class SaxsError(ValueError):
+    """Base class of every saxsnb error (a ValueError: the input was not usable).
+
+    Also available as ``saxsnb.InputError``; ``except saxsnb.InputError`` catches
+    every error saxsnb raises about a file, a parameter or a frame.
+    """
 
 
-class SaxsInputError(SaxsError, ValueError):
+#: The family's public name: every saxsnb error is an ``InputError``.
+InputError = SaxsError
+
+
+class SaxsInputError(SaxsError):
     """An argument or a Dataset is not what saxsnb can work on.
 
     Parameters
@@ -38,7 +46,7 @@ class SaxsInputError(SaxsError, ValueError):
         self.frame = frame
 
 
-class SaxsFileError(SaxsError, OSError):
+class SaxsFileError(SaxsError):
     """A file cannot be read or written; the message names the file (and line)."""
 
     def __init__(self, message: str, *, path=None, line: int | None = None):
@@ -53,7 +61,7 @@ class SaxsFileError(SaxsError, OSError):
         self.line = line
 
 
-class SaxsFitError(SaxsError, ValueError):
+class SaxsFitError(SaxsError):
     """A fit failed for a frame when ``errors="raise"`` was asked for."""
 
     def __init__(self, message: str, *, frame=None, parameter: str | None = None):

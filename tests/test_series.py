@@ -102,3 +102,13 @@ def test_scan_with_units_pair_and_dataarray():
     T = xr.DataArray([300.0, 310.0], dims="frame", attrs={"units": "K"})
     ds = _series(n=2, scan={"temperature": T, "time": ([0.0, 60.0], "min")})
     assert ds.temperature.attrs["units"] == "K" and ds.time.attrs["units"] == "min"
+
+
+def test_one_exception_family_is_a_value_error():
+    # issue 2: every error is a saxsnb.InputError, a ValueError
+    from saxsnb.errors import SaxsFileError, SaxsFitError
+
+    for cls in (SaxsInputError, SaxsFileError, SaxsFitError):
+        assert issubclass(cls, saxsnb.InputError) and issubclass(cls, ValueError)
+    with pytest.raises(saxsnb.InputError):
+        saxsnb.read_series("no-such-folder-anywhere/*.dat")
