@@ -34,11 +34,14 @@ app: install
 	$(BIN)/python -m voila $(APP_NB) --Voila.ip=127.0.0.1 --port=$(PORT) --Voila.port_retries=0 \
 		$(if $(NOBROWSER),--no-browser,)
 
-# Debian's chromium for the real-browser tests (CI runs as root).
+# Debian's chromium (/usr/bin/chromium, the path tests/browser uses) for the real-browser
+# tests; CI runs as root, elsewhere sudo is used. Never `playwright install`.
 browser-deps:
-	@command -v chromium >/dev/null 2>&1 || test -x /usr/bin/chromium || \
+	@test -x /usr/bin/chromium || \
 		{ echo "installing Debian chromium for the browser tests"; \
-		  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; }
+		  if [ "$$(id -u)" = 0 ]; then AS=; else AS=sudo; fi; \
+		  $$AS apt-get update -qq && \
+		  $$AS env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; }
 
 lint: install
 	$(BIN)/ruff check .

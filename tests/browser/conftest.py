@@ -120,7 +120,6 @@ def _jupyter_env(root: Path) -> dict:
     # The kernel must be this venv's Python (it has saxsnb installed).
     env["PATH"] = os.path.dirname(sys.executable) + os.pathsep + env.get("PATH", "")
     env.pop("JUPYTER_TOKEN", None)
-    env["PYTHONWARNINGS"] = "ignore"  # server-side deprecation chatter is not under test
     env["MPLBACKEND"] = "Agg"
     return env
 
@@ -260,15 +259,28 @@ class Probe:
 
     # -- page helpers shared by the tests --------------------------------------------
 
+    OUTPUT_PROBLEM = (
+        '[data-mime-type="application/vnd.jupyter.stderr"], '
+        '[data-mime-type="application/vnd.jupyter.error"]'
+    )
+
     def wait_for_lines(self, n: int = 1, root: str = "body", timeout: float = 90_000) -> None:
-        """Wait until ``n`` bqplot lines under ``root`` have a drawn path."""
+        """Wait until ``n`` bqplot lines under ``root`` have a drawn path.
+
+        Stops early, with the notebook's message, when the page shows an error or
+        stderr output instead (a failing notebook would otherwise only time out).
+        """
         self.page.wait_for_function(
-            """([root, n]) => {
+            """([root, n, bad]) => {
+                if (document.querySelector(bad)) return true;
                 const ps = document.querySelectorAll(root + ' svg.svg-figure g.curve path.line');
                 return [...ps].filter(p => /^M[-\\d.e]+,/.test(p.getAttribute('d') || '')).length >= n;
             }""",
-            arg=[root, n], timeout=timeout,
+            arg=[root, n, self.OUTPUT_PROBLEM], timeout=timeout,
         )
+        shown = self.page.locator(self.OUTPUT_PROBLEM)
+        if shown.count():
+            raise AssertionError(f"the notebook wrote an error or stderr: {shown.first.inner_text()[:800]}")
 
     def wait_attr_changes(self, locator, attr: str, old: str | None, timeout: float = 30_000) -> str:
         """Wait until ``locator``'s attribute differs from ``old``; return the new value.
@@ -325,6 +337,11 @@ class Probe:
             out.append(f"external requests answered from outside 127.0.0.1: {self.escaped[:5]}")
         if self.blocked:
             out.append(f"the page tried to reach outside 127.0.0.1: {self.blocked[:5]}")
+        # the notebook's own output: no traceback and no stderr text (warnings, progress
+        # bars) on a page meant for people who do not read Python
+        shown = self.page.locator(self.OUTPUT_PROBLEM)
+        if shown.count():
+            out.append(f"error/stderr output on the page: {shown.first.inner_text()[:300]!r}")
         errs = [m for m in self.console_errors if not _harmless(m, self)]
         if errs:
             out.append(f"console errors: {errs[:5]}")
