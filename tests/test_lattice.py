@@ -294,3 +294,10 @@ def test_scaling_q_scales_the_lattice(phase, factor, n):
     assert one["phase"][0, 0] == phase
     assert two["lattice"][0, 0] == pytest.approx(one["lattice"][0, 0] / factor, rel=1e-9)
     assert one["hkl"].tolist() == two["hkl"].tolist()
+
+
+def test_unusable_positions_are_ignored_in_place():
+    # negative, infinite and NaN positions count as no peak; per-peak outputs keep input order
+    res = index_peaks(np.array([[-1.0, 2.0, np.inf, 1.0, np.nan]]))
+    assert res["phase"][0, 0] == "lamellar"
+    assert res["hkl"][0].tolist() == ["", "002", "", "001", ""]

@@ -441,7 +441,13 @@ def index_peaks(
         raise SaxsInputError("tolerance must be between 0 and 0.1", parameter="tolerance")
     q = np.atleast_2d(np.asarray(position, dtype=float)).copy()
     F, P = q.shape
+    if P == 0:  # no peak column at all
+        q = np.full((F, 1), np.nan)
+        P = 1
+        position_sigma = strength = None
     # work on peaks sorted by q (NaN last); per-peak outputs are put back in input order
+    with np.errstate(invalid="ignore"):
+        q[~(np.isfinite(q) & (q > 0))] = np.nan  # unusable positions count as no peak
     order = np.argsort(np.where(np.isfinite(q), q, np.inf), axis=1, kind="stable")
     inverse = np.argsort(order, axis=1)
     q = np.take_along_axis(q, order, 1)
@@ -450,8 +456,6 @@ def index_peaks(
         position_sigma = np.take_along_axis(position_sigma, order, 1)
     if strength is not None:
         strength = np.take_along_axis(np.broadcast_to(np.asarray(strength, float), (F, P)), order, 1)
-    with np.errstate(invalid="ignore"):
-        q[~(np.isfinite(q) & (q > 0))] = np.nan
     present = np.isfinite(q)
     sig = np.full_like(q, np.nan) if position_sigma is None else np.asarray(position_sigma, dtype=float)
     fallback = tolerance * np.nan_to_num(q) / 3.0
