@@ -567,8 +567,8 @@ def index_peaks(
     bk = best_key.copy()
     bk[rows, ch_key] = np.inf
     bk[:, 0] = np.inf  # "nothing" is not an alternative
-    d = bk - ch_cost[:, None]
     with np.errstate(invalid="ignore"):
+        d = bk - ch_cost[:, None]
         margin = np.where(np.isfinite(d).any(1), np.min(np.where(np.isfinite(d), d, np.inf), 1), np.nan)
     margin[~np.isfinite(margin)] = np.nan
     for i in np.nonzero((d < CLOSE_COST).any(1) & (ch_phase[:, 0] >= 0))[0]:
