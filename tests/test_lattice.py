@@ -301,3 +301,17 @@ def test_unusable_positions_are_ignored_in_place():
     res = index_peaks(np.array([[-1.0, 2.0, np.inf, 1.0, np.nan]]))
     assert res["phase"][0, 0] == "lamellar"
     assert res["hkl"][0].tolist() == ["", "002", "", "001", ""]
+
+
+def test_weak_coexisting_phase_found_when_none_of_its_peaks_is_among_the_strongest():
+    # Pn3m with eight strong peaks and a hexagonal phase just appearing (three weak peaks)
+    cub = pattern_positions("Pn3m", 9.0)[:8]
+    hexa = pattern_positions("hexagonal", 5.3)[:3]
+    q = np.concatenate([cub, hexa])
+    strength = np.concatenate([np.full(8, 100.0), np.full(3, 5.0)])
+    o = np.argsort(q)
+    res = index_peaks(q[o][None], None, strength[o][None])
+    got = dict(zip(res["phase"][0], res["lattice"][0]))
+    assert set(got) == {"Pn3m", "hexagonal"}
+    assert got["hexagonal"] == pytest.approx(5.3, rel=1e-6)
+    assert res["score"][0].tolist()[1] < 0.1  # hexagonal: a small share of the peak strength

@@ -216,8 +216,13 @@ def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
     }
 
 
-def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol):
-    """All one- and two-phase explanations of each frame with their costs."""
+def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None):
+    """All one- and two-phase explanations of each frame with their costs.
+
+    ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
+    explain these peaks (e.g. the ones a first pass left unexplained); their costs are
+    then recomputed over all peaks.
+    """
     B, P = q.shape
     present = np.isfinite(q)
     smax = np.where(present, strength, -np.inf).max(-1, keepdims=True)
@@ -225,11 +230,18 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol):
         rho = np.where(present, np.clip(strength / smax, 0, 1), 0.0)
     unexpl = np.where(present, 1.0 + np.nan_to_num(rho), 0.0)
     # anchors: the strongest few peaks of the frame, each taken as one of the first reflections
-    strong = np.argsort(-np.where(present, strength, -np.inf), axis=1, kind="stable")[:, :_ANCHOR_PEAKS]
+    strong = np.argsort(-np.where(present, strength, -np.inf), axis=1, kind="stable")[:, :n_anchor]
     qa = np.take_along_axis(q, strong, 1)
-    singles = [_single_phase(ph, q, w, unexpl, qa, q_lo, tol) for ph in phases]
+    rank_unexpl = unexpl if focus is None else np.where(focus, unexpl, 0.0)
+    if focus is not None:  # anchor on the focus peaks first
+        order = np.argsort(-np.where(present, strength + np.where(focus, 1e300, 0.0), -np.inf), axis=1)
+        qa = np.take_along_axis(q, order[:, :n_anchor], 1)
+    singles = [_single_phase(ph, q, w, rank_unexpl, qa, q_lo, tol) for ph in phases]
     ph_id = np.repeat(np.arange(len(phases)), _KEEP)
     cat = {k: np.concatenate([d[k] for d in singles], axis=1) for k in singles[0]}
+    if focus is not None:  # true costs: every unexplained peak counts
+        extra = np.sum(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0), axis=-1)
+        cat["cost"] = cat["cost"] + extra
     M = cat["L"].shape[1]
     hyp_phase = [np.full((B, 1, 2), -1)]
     hyp_L = [np.full((B, 1, 2), np.nan)]
@@ -478,10 +490,12 @@ def index_peaks(
     st_cost = np.full((F, Kv), np.inf)
     best_key = np.full((F, nkeys), np.inf)
     rho = np.zeros((F, P))
-    for b0 in range(0, F, block):
-        sl = slice(b0, min(F, b0 + block))
+    def explain(frames, n_anchor, focus=None):
+        """Hypotheses for the frames ``frames`` (indices); fills the state arrays."""
+        sl = frames
         pb = max(int(n_obs[sl].max()), 1)  # peaks are sorted, NaN last: drop empty columns
-        H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance)
+        H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance,
+                        n_anchor, None if focus is None else focus[:, :pb])
         if pb < P:
             for key, fill in (("slot", -1), ("s", 0)):
                 H[key] = np.concatenate([H[key], np.full(H[key].shape[:2] + (P - pb,), fill)], axis=2)
@@ -489,6 +503,12 @@ def index_peaks(
         cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
         rho[sl] = H["rho"]
+        if focus is not None:  # a second pass: keep the states of the first pass in the running
+            previous = {"phase": st_phase, "L": st_L, "sL": st_sL, "slot": st_slot, "s": st_s}
+            for key, old_ in previous.items():
+                H[key] = np.concatenate([H[key], old_[sl]], axis=1)
+            cost = np.concatenate([cost, st_cost[sl]], axis=1)
+            H["phase"] = np.ascontiguousarray(H["phase"])
         kk = min(Kv, cost.shape[1])
         if kk < cost.shape[1]:
             top = np.argpartition(cost, kk - 1, axis=1)[:, :kk]
@@ -497,7 +517,7 @@ def index_peaks(
         else:
             top = np.argsort(cost, axis=1, kind="stable")
 
-        def tk(a, top=top):
+        def tk(a):
             return np.take_along_axis(a, top.reshape(top.shape + (1,) * (a.ndim - 2)), 1)
 
         st_phase[sl, :kk] = tk(H["phase"])
@@ -507,9 +527,21 @@ def index_peaks(
         st_s[sl, :kk] = tk(H["s"])
         st_cost[sl, :kk] = tk(cost)
         keys = _key(H["phase"], nph)
-        bk = np.full((keys.shape[0], nkeys), np.inf)
+        bk = np.full((keys.shape[0], nkeys), np.inf) if focus is None else best_key[sl]
         np.minimum.at(bk, (np.arange(keys.shape[0])[:, None], keys), cost)
         best_key[sl] = bk
+
+    for b0 in range(0, F, block):
+        explain(np.arange(b0, min(F, b0 + block)), _ANCHOR_PEAKS)
+    # frames whose best explanation leaves two or more peaks unexplained and that have
+    # more peaks than anchors: again with every peak as an anchor, so that a weak
+    # coexisting phase (none of its peaks among the strongest) can still be found
+    if max_phases >= 2:
+        unexplained = present & (st_slot[:, 0] < 0)
+        again = np.nonzero((unexplained.sum(-1) >= 2) & (n_obs > 2))[0]
+        for b0 in range(0, again.size, block):
+            rows_ = again[b0 : b0 + block]
+            explain(rows_, P, unexplained[rows_])
     # choose a state per frame
     choice = np.zeros(F, dtype=np.int64)  # states are sorted: 0 = frame's best
     informative = (n_obs >= 2) & np.isfinite(st_cost[:, 0]) & (st_phase[:, 0, 0] >= 0)
