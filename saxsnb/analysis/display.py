@@ -27,6 +27,8 @@ __all__ = [
     "finite_points",
     "drawable_line",
     "drawable_lines",
+    "fill_missing",
+    "log_ticks",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -396,3 +398,40 @@ def drawable_lines(x, y, *, positive: bool = False):
     x = np.where(tail, lx[:, None], x)
     y = np.where(tail, ly[:, None], y)
     return x, y
+
+
+def fill_missing(a):
+    """Replace non-finite entries of a map by its smallest finite value (for a colour
+    map, which has no colour for "missing"); all-missing maps become zeros.
+
+    Returns
+    -------
+    filled : array like ``a``
+    missing : bool array, True where a value was filled in
+
+    >>> filled, missing = fill_missing(np.array([[1.0, np.nan], [3.0, 2.0]]))
+    >>> filled.tolist(), missing.tolist()
+    ([[1.0, 1.0], [3.0, 2.0]], [[False, True], [False, False]])
+    """
+    a = np.asarray(a, dtype=float)
+    ok = np.isfinite(a)
+    low = a[ok].min() if ok.any() else 0.0
+    return np.where(ok, a, low), ~ok
+
+
+def log_ticks(lo: float, hi: float) -> np.ndarray:
+    """Tick positions of a logarithmic axis from ``lo`` to ``hi`` (both > 0): the
+    decades, plus 2 and 5 times them when the range spans fewer than three decades.
+
+    >>> log_ticks(0.03, 3.0).tolist()
+    [0.05, 0.1, 0.2, 0.5, 1.0, 2.0]
+    >>> log_ticks(1e-3, 1e3).tolist()
+    [0.001, 0.01, 0.1, 1.0, 10.0, 100.0, 1000.0]
+    """
+    if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo < hi):
+        return np.array([])
+    k0, k1 = int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi)))
+    mult = (1.0,) if k1 - k0 > 3 else (1.0, 2.0, 5.0)
+    t = np.array([m * 10.0**k for k in range(k0, k1 + 1) for m in mult])
+    t = t[(t >= lo * (1 - 1e-9)) & (t <= hi * (1 + 1e-9))]
+    return np.round(t, 12)

@@ -34,7 +34,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..analysis.display import drawable_line
+from ..analysis.display import drawable_line, log_ticks
 from ..series import main_scan, validate
 from . import _bq as bq
 from .palette import ROLE
@@ -55,11 +55,32 @@ def make_figure(
     title: str = "",
     height: str = "300px",
     interaction=None,
+    x_range: tuple[float, float] | None = None,
+    y_range: tuple[float, float] | None = None,
+    x_limits: tuple[float, float] | None = None,
 ) -> bq.Figure:
-    """A bqplot Figure with labelled bottom and left axes and our margins."""
+    """A bqplot Figure with labelled bottom and left axes and our margins.
+
+    ``x_range`` / ``y_range`` (data ranges of log axes) give decade ticks instead of
+    bqplot's crowded default; ``x_limits`` fixes the x range (trend plots span the
+    whole scan whatever is drawn). No ``num_ticks``: bqplot 0.13 then spaces ticks
+    evenly over the domain and fails to format them when the domain is a single value.
+    """
+    if x_limits is not None and all(np.isfinite(x_limits)):
+        lo, hi = float(x_limits[0]), float(x_limits[1])
+        pad = 0.02 * (hi - lo) if hi > lo else 0.5
+        x_scale.min, x_scale.max = lo - pad, hi + pad
+    xkw: dict = {}
+    ykw: dict = {"label_offset": "50px"}
+    for scale, rng, kw in ((x_scale, x_range, xkw), (y_scale, y_range, ykw)):
+        if isinstance(scale, bq.LogScale) and rng is not None:
+            ticks = log_ticks(*rng)
+            if ticks.size >= 2:
+                kw["tick_values"] = ticks
+                kw["tick_format"] = "~g"
     axes = [
-        bq.Axis(scale=x_scale, label=x_label, grid_lines="none"),
-        bq.Axis(scale=y_scale, label=y_label, side="left", grid_lines="none"),
+        bq.Axis(scale=x_scale, label=x_label, grid_lines="none", **xkw),
+        bq.Axis(scale=y_scale, label=y_label, side="left", grid_lines="none", **ykw),
     ]
     kw = {"interaction": interaction} if interaction is not None else {}
     return bq.Figure(
@@ -200,6 +221,13 @@ class PanelBase(widgets.VBox):
         return f"{self.scan} {text}{unit} (frame {i})"
 
     @property
+    def scan_limits(self) -> tuple[float, float]:
+        """Smallest and largest scan value (for the x range of trend plots)."""
+        v = np.asarray(self.scan_values, dtype=float)
+        v = v[np.isfinite(v)]
+        return (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+
+    @property
     def scan_label(self) -> str:
         """Axis label of the scan coordinate with its units."""
         if self.scan == "frame":
@@ -230,6 +258,26 @@ class PanelBase(widgets.VBox):
             if old is None or old.shape != lx.shape or not np.array_equal(old, lx):
                 mark.x = lx
             mark.y = ly
+            if mark.visible != show:
+                mark.visible = show
+        return True
+
+    @staticmethod
+    def _set_points(mark, x, y, *, show: bool = True, **extra) -> bool:
+        """Give a Scatter or Label mark new points; with no point the mark is hidden
+        and keeps its old data (bqplot cannot compute an axis range from a mark that
+        turns empty). ``extra`` sets other traits (e.g. ``text``) with the points.
+
+        Returns False when there was nothing to draw.
+        """
+        with mark.hold_sync():
+            if np.size(x) == 0:
+                if mark.visible:
+                    mark.visible = False
+                return False
+            mark.x, mark.y = x, y
+            for k, v in extra.items():
+                setattr(mark, k, v)
             if mark.visible != show:
                 mark.visible = show
         return True

@@ -7,7 +7,7 @@ import html
 import ipywidgets as widgets
 import numpy as np
 
-from ..analysis.display import overview_map
+from ..analysis.display import fill_missing, overview_map
 from . import _bq as bq
 from .base import PanelBase, make_figure
 from .palette import MAP_SCHEME, ROLE
@@ -91,6 +91,7 @@ class SeriesBrowser(PanelBase):
             logmap = np.vstack([logmap, logmap])
             self._row_frames = np.repeat(self._row_frames, 2)
             self._row_y = self._row_y[0] + np.array([-0.5, 0.5])
+        logmap, missing = fill_missing(logmap)
 
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LinearScale()
@@ -106,10 +107,16 @@ class SeriesBrowser(PanelBase):
         q_edges = np.array([qx[0], np.sqrt(qx[0] * qx[-1]) if qx[0] > 0 else 0.5 * (qx[0] + qx[-1]), qx[-1]])
         y_edges = self._edges(self._row_y)
         self.rows = bq.GridHeatMap(
-            color=np.full((self._row_y.size, 2), np.nan),
+            # invisible click targets: every cell gets the value 0 of a transparent scale
+            # (bqplot colours NaN cells black: null_color only applies to None)
+            color=np.zeros((self._row_y.size, 2)),
             row=y_edges,
             column=q_edges,
-            scales={"row": ys, "column": xs, "color": bq.ColorScale(min=0.0, max=1.0)},
+            scales={
+                "row": ys,
+                "column": xs,
+                "color": bq.ColorScale(colors=["transparent", "transparent"], min=0.0, max=1.0),
+            },
             null_color="transparent",
             stroke="transparent",
             opacity=1.0,
@@ -136,17 +143,23 @@ class SeriesBrowser(PanelBase):
             y_label=ylab,
             title="log10 intensity over the series (click a row)",
             height="320px",
+            x_range=(float(qx[0]), float(qx[-1])),
         )
         fig.axes = [*fig.axes, caxis]
         fig.fig_margin = {**fig.fig_margin, "right": 70}
         self.figures = [fig]
-        note = ""
+        notes = []
         if omap["row_step"] > 1 or omap["col_step"] > 1:
-            note = (
+            notes.append(
                 f"Map downsampled for the browser: blocks of {omap['row_step']} frame(s) x "
                 f"{omap['col_step']} q point(s) averaged (log10 I); the curves are not."
             )
-        self.map_note = widgets.HTML(f"<small>{html.escape(note)}</small>")
+        if missing.any():
+            notes.append(
+                f"{int(missing.sum())} map cell(s) without a positive intensity are drawn "
+                "in the lowest colour."
+            )
+        self.map_note = widgets.HTML(f"<small>{html.escape(' '.join(notes))}</small>")
         return [widgets.HBox([self.play, self.slider]), self.label, fig, self.map_note]
 
     def _monotonic(self) -> bool:

@@ -121,6 +121,8 @@ class CurvePanel(PanelBase):
             y_label=f"I ({self.intensity_units})",
             title="current frame",
             height="320px",
+            x_range=(float(self.q[self.q > 0].min()), float(self.q.max())) if np.any(self.q > 0) else None,
+            y_range=(lo, hi),
         )
         self.figures = [fig]
         self.overlay_text = widgets.Text(

@@ -154,9 +154,10 @@ class KratkyPanel(PanelBase):
             x_label=self.scan_label,
             y_label="dimensionless Kratky value",
             title="Kratky shape over the series (click a point)",
-            height="220px",
+            height="250px",
+            x_limits=self.scan_limits,
         )
-        tfig.legend_location = "top-left"
+        tfig.legend_location = "top-right"
         for m in (self.trend_peak, self.trend_level):
             m.display_legend = True
         self.figures = [fig, tfig]

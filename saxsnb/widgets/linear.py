@@ -193,10 +193,11 @@ class LinearFitPanel(PanelBase):
             rys,
             x_label=f"{xq} {xunit}",
             y_label="residual / sigma",
-            height="150px",
+            height="190px",
         )
         # trend of the result against the scan (all frames, automatic range: computed once)
         tx, ty = bq.LinearScale(), bq.LinearScale()
+        self._trend_y = ty
         self._auto_series = None
         self._point_frames: dict = {}
         self.trend = bq.Scatter(
@@ -220,9 +221,11 @@ class LinearFitPanel(PanelBase):
             labels=["range applied to all"],
             visible=False,
         )
+        # never empty (an axis with no data at all breaks bqplot's tick format):
+        # hidden instead when the current value is undefined
         self.trend_current = bq.Scatter(
-            x=np.zeros(0),
-            y=np.zeros(0),
+            x=np.array([float(self.scan_limits[0])]),
+            y=np.zeros(1),
             scales={"x": tx, "y": ty},
             colors=[ROLE["current"]],
             default_size=80,
@@ -238,7 +241,8 @@ class LinearFitPanel(PanelBase):
             x_label=self.scan_label,
             y_label=f"{self.size_label} ({unit})",
             title=f"{self.size_label} over the series (click a point)",
-            height="220px",
+            height="250px",
+            x_limits=self.scan_limits,
         )
         self.figures = [fig, rfig, tfig]
 
@@ -288,6 +292,8 @@ class LinearFitPanel(PanelBase):
             self.report(exc, "automatic fit of the series")
             return
         self._draw_points(self.trend, self._auto_series[self.size_var].values)
+        if not self._point_frames[id(self.trend)].size:  # nothing fitted: give the axis a range
+            self._trend_y.min, self._trend_y.max = 0.0, 1.0
 
     # --------------------------------------------------------------- selector
     @traitlets.validate("q_range")
@@ -333,13 +339,13 @@ class LinearFitPanel(PanelBase):
         finally:
             self._syncing = False
 
-    def _draw_points(self, mark, values) -> None:
+    def _draw_points(self, mark, values) -> bool:
         """Draw per-frame values against the scan (finite points only; a browser
         cannot place a NaN), remembering which frame each drawn point is."""
         x, y, frames = finite_points(self.scan_values, values)
-        with mark.hold_sync():
-            mark.x, mark.y = x, y
-        self._point_frames[id(mark)] = frames
+        shown = self._set_points(mark, x, y)
+        self._point_frames[id(mark)] = frames if shown else np.zeros(0, dtype=int)
+        return shown
 
     def _on_trend_click(self, mark, content) -> None:
         data = content.get("data") or {}
@@ -377,7 +383,6 @@ class LinearFitPanel(PanelBase):
 
     def _draw_fixed_trend(self, res_all) -> None:
         self._draw_points(self.trend_fixed, res_all[self.size_var].values)
-        self.trend_fixed.visible = True
 
     def _draw(self, i: int, vals: dict) -> None:
         q = self.q
@@ -405,20 +410,17 @@ class LinearFitPanel(PanelBase):
         x_start = linear_x(lo_view, self.transform) if self.transform == "porod" else 0.0
         line, _ = line_residuals(np.array([x_start, x_end]), np.zeros(2), None, a, b)
         _, res = line_residuals(xin, yin, syin, a, b)
-        with self.in_range.hold_sync():
-            self.in_range.x, self.in_range.y = xin, yin
+        self._set_points(self.in_range, xin, yin)
         lx, ly, _ = finite_points(np.array([x_start, x_end]), line)
         self._set_line(self.fit_line, lx, ly)
         rx, ry, _ = finite_points(xin, res)
-        with self.residuals.hold_sync():
-            self.residuals.x, self.residuals.y = rx, ry
+        self._set_points(self.residuals, rx, ry)
         if xin.size:
             with self.zero_line.hold_sync():
                 self.zero_line.x = np.array([xin[0], xin[-1]])
         self._move_selector(q_lo, q_hi)
         cx, cy, _ = finite_points([float(self.scan_values[i])], [vals.get(self.size_var, np.nan)])
-        with self.trend_current.hold_sync():
-            self.trend_current.x, self.trend_current.y = cx, cy
+        self._set_points(self.trend_current, cx, cy)
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
         self.result_text.value = self._result_html(vals)
 

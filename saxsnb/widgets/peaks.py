@@ -116,6 +116,7 @@ class PeaksPanel(PanelBase):
             y_label=f"I ({self.intensity_units})",
             title=self.title,
             height="300px",
+            y_range=(lo, hi),
         )
         self.table = widgets.HTML("")
         # maps over the scan
@@ -182,6 +183,7 @@ class PeaksPanel(PanelBase):
             y_label=f"peak position q ({self.q_units})",
             title="tracked peaks by assigned phase (click a point)",
             height="260px",
+            x_limits=self.scan_limits,
         )
         tfig = make_figure(
             [*self.trend_marks.values(), self.boundaries, self.trend_current],
@@ -191,6 +193,7 @@ class PeaksPanel(PanelBase):
             y_label="lattice parameter (nm)",
             title="lattice parameter (d or a) and phase boundaries",
             height="260px",
+            x_limits=self.scan_limits,
         )
         mfig.legend_location = tfig.legend_location = "top-right"
         self.figures = [fig, mfig, tfig]
@@ -300,15 +303,11 @@ class PeaksPanel(PanelBase):
             key = "" if ph == "unassigned" else ph
             sel = np.isfinite(pos) & (pphase == key)
             m = self.map_marks[ph]
-            with m.hold_sync():
-                m.x, m.y = scan[frames_2d[sel]], pos[sel]
-                m.display_legend = bool(sel.any())
+            self._set_points(m, scan[frames_2d[sel]], pos[sel], display_legend=bool(sel.any()))
             self._map_frames_of[id(m)] = frames_2d[sel]
             t = self.trend_marks[ph]
             tsel = np.isfinite(lat) & (lphase == key) if key else np.zeros(lat.shape, bool)
-            with t.hold_sync():
-                t.x, t.y = scan[frames_slot[tsel]], lat[tsel]
-                t.display_legend = bool(tsel.any())
+            self._set_points(t, scan[frames_slot[tsel]], lat[tsel], display_legend=bool(tsel.any()))
             self._map_frames_of[id(t)] = frames_slot[tsel]
         self._draw_boundaries(lat)
 
@@ -359,11 +358,8 @@ class PeaksPanel(PanelBase):
         hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
         # markers on the log axis: finite positions with a positive intensity only
         px, py, kept = finite_points(pos, curve_at(self.q, self._I[i], pos), positive=True)
-        with self.markers.hold_sync():
-            self.markers.x, self.markers.y = px, py
-        with self.labels.hold_sync():
-            self.labels.x, self.labels.y = px, py
-            self.labels.text = [str(h) for h in hkl[kept]]
+        self._set_points(self.markers, px, py)
+        self._set_points(self.labels, px, py, text=[str(h) for h in hkl[kept]])
         self.table.value = self._table_html(i)
         self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
         status = str(res["status"].values[i])
