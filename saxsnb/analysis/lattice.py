@@ -412,7 +412,10 @@ def index_peaks(
     is refined by weighted least squares of
     ``q_i = sqrt(s_i) / L`` (weights ``1 / sigma_i^2``; sigma of L from the normal
     equation, scaled by sqrt of the reduced chi-square when above one). A phase
-    needs at least two peaks with distinct indices.
+    needs at least two peaks with distinct indices. Frames whose best explanation
+    leaves two or more peaks unexplained get a second pass anchored on those peaks
+    (every peak an anchor), so a weak coexisting phase is found even when none of its
+    peaks is among the strongest.
 
     *Cost* of an explanation (lower is better): each unexplained peak costs
     ``1 + strength / max strength``; each allowed reflection that should appear
