@@ -197,7 +197,6 @@ class LinearFitPanel(PanelBase):
         )
         # trend of the result against the scan (all frames, automatic range: computed once)
         tx, ty = bq.LinearScale(), bq.LinearScale()
-        self._trend_y = ty
         self._auto_series = None
         self._point_frames: dict = {}
         self.trend = bq.Scatter(
@@ -292,8 +291,6 @@ class LinearFitPanel(PanelBase):
             self.report(exc, "automatic fit of the series")
             return
         self._draw_points(self.trend, self._auto_series[self.size_var].values)
-        if not self._point_frames[id(self.trend)].size:  # nothing fitted: give the axis a range
-            self._trend_y.min, self._trend_y.max = 0.0, 1.0
 
     # --------------------------------------------------------------- selector
     @traitlets.validate("q_range")

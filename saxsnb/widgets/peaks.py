@@ -394,8 +394,9 @@ class PeaksPanel(PanelBase):
                 extra.append(f"{label}: {e(get(k))}")
         n_pk = int(np.isfinite(self._pos[i]).sum())
         extra.append(f"{n_pk} peak(s) found")
+        style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"
         return (
-            f"<table style='border-collapse:collapse'><tr><th>phase</th><th>lattice</th>"
+            f"{style}<table class='saxsnb-phases'><tr><th>phase</th><th>lattice</th>"
             f"<th>score</th></tr>{body}</table><small>{'<br>'.join(extra)}</small>"
         )
 
