@@ -77,7 +77,7 @@ class SeriesBrowser(PanelBase):
         self.label = widgets.HTML("")
 
         omap = overview_map(
-            self.q, self.ds["intensity"].values, max_rows=self._max_rows, max_cols=self._max_cols
+            self.q, self.ds.saxs.masked()[0].values, max_rows=self._max_rows, max_cols=self._max_cols
         )
         self.overview = omap
         centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
