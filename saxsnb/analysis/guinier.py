@@ -70,6 +70,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
+from ._arrays import as_frames
 from .linear import WindowMoments, index_range
 
 __all__ = ["SHAPES", "guinier_search", "guinier_fit", "rod_length", "STATUS_PARAMETER"]
@@ -100,27 +101,6 @@ def _check_shape(shape):
     if shape not in SHAPES:
         raise SaxsInputError(f"unknown shape {shape!r}; use one of {list(SHAPES)}", parameter="shape")
     return SHAPES[shape]
-
-
-def _as_2d(q, intensity, sigma):
-    q = np.asarray(q, dtype=float)
-    I = np.asarray(intensity, dtype=float)
-    single = I.ndim == 1
-    if single:
-        I = I[None, :]
-    if I.ndim != 2 or I.shape[-1] != q.size or q.ndim != 1:
-        raise SaxsInputError(
-            f"intensity has shape {np.shape(intensity)}; expected (n_frames, {q.size}) to match q",
-            parameter="intensity",
-        )
-    S = None
-    if sigma is not None:
-        S = np.asarray(sigma, dtype=float)
-        if S.ndim == 1:
-            S = S[None, :]
-        if S.shape != I.shape:
-            raise SaxsInputError(f"sigma has shape {S.shape}; expected {I.shape}", parameter="sigma")
-    return q, I, S, single
 
 
 def _flags(I, S):
@@ -188,7 +168,7 @@ def guinier_search(
     limit = float(default_limit if qrg_limit is None else qrg_limit)
     if min_points < 3:
         raise SaxsInputError("min_points must be at least 3", parameter="min_points")
-    q, I, S, _ = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     if n_starts is None:
         n_starts = 3 if shape == "compact" else 16
     found, _ = _search(q, I, S, kind, k, limit, min_points, int(n_starts), int(max_ends),
@@ -493,7 +473,7 @@ def guinier_fit(
     """
     kind, default_limit, k = _check_shape(shape)
     limit = float(default_limit if qrg_limit is None else qrg_limit)
-    q, I, S, _ = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     F, n_q = I.shape
     if q_range is None:
         if min_points < 3:

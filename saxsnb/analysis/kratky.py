@@ -22,23 +22,11 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
+from ._arrays import as_frames
 
 __all__ = ["kratky", "kratky_summary", "SHAPE_CLASSES"]
 
 SHAPE_CLASSES = ("bell", "plateau", "rise", "undetermined")
-
-
-def _as_2d(q, intensity):
-    q = np.asarray(q, dtype=float)
-    I = np.asarray(intensity, dtype=float)
-    if I.ndim == 1:
-        I = I[None, :]
-    if q.ndim != 1 or I.ndim != 2 or I.shape[1] != q.size:
-        raise SaxsInputError(
-            f"intensity has shape {np.shape(intensity)}; expected (n_frames, {q.size}) to match q",
-            parameter="intensity",
-        )
-    return q, I
 
 
 def kratky(q, intensity, sigma=None, *, rg=None, i0=None):
@@ -66,7 +54,7 @@ def kratky(q, intensity, sigma=None, *, rg=None, i0=None):
     >>> kratky(q, [[4.0, 1.0]], rg=[2.0], i0=[4.0]).tolist()
     [[1.0, 1.0]]
     """
-    q, I = _as_2d(q, intensity)
+    q, I, _, _ = as_frames(q, intensity)
     if (rg is None) != (i0 is None):
         raise SaxsInputError("give both rg and i0 for the dimensionless form", parameter="rg")
     if rg is None:
@@ -144,7 +132,7 @@ def kratky_summary(
     >>> round(float(s["peak_qrg"][0]), 4), round(float(s["peak_height"][0]), 4), str(s["shape_class"][0])
     (1.7321, 1.1036, 'bell')
     """
-    q, I = _as_2d(q, intensity)
+    q, I, _, _ = as_frames(q, intensity)
     F, n = I.shape
     rg_ = np.broadcast_to(np.asarray(rg, dtype=float), (F,))
     i0_ = np.broadcast_to(np.asarray(i0, dtype=float), (F,))

@@ -27,6 +27,7 @@ import numpy as np
 from scipy import special
 
 from ..errors import SaxsInputError
+from ._arrays import as_frames
 from .linear import index_range, line_fit_shared_x
 
 __all__ = [
@@ -39,26 +40,6 @@ __all__ = [
 ]
 
 _STATUS_DTYPE = "<U24"
-
-
-def _as_2d(q, intensity, sigma):
-    q = np.asarray(q, dtype=float)
-    I = np.asarray(intensity, dtype=float)
-    if I.ndim == 1:
-        I = I[None, :]
-    if q.ndim != 1 or I.ndim != 2 or I.shape[1] != q.size:
-        raise SaxsInputError(
-            f"intensity has shape {np.shape(intensity)}; expected (n_frames, {q.size}) to match q",
-            parameter="intensity",
-        )
-    S = None
-    if sigma is not None:
-        S = np.asarray(sigma, dtype=float)
-        if S.ndim == 1:
-            S = S[None, :]
-        if S.shape != I.shape:
-            raise SaxsInputError(f"sigma has shape {S.shape}; expected {I.shape}", parameter="sigma")
-    return q, I, S
 
 
 def default_porod_range(q) -> tuple[float, float]:
@@ -157,7 +138,7 @@ def power_law_fit(q, intensity, sigma=None, *, q_range=None, background=0.0) -> 
     >>> round(float(r["exponent"][0]), 9), round(float(r["prefactor"][0]), 9)
     (4.0, 5.0)
     """
-    q, I, S = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     return _power_law(_prepare(q, I, S, q_range), background)
 
 
@@ -250,7 +231,7 @@ def porod_fit(q, intensity, sigma=None, *, q_range=None, background="fit") -> di
     >>> round(float(r["porod_constant"][0]), 9), round(float(r["background"][0]), 9)
     (3.0, 0.01)
     """
-    q, I, S = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     return _porod(_prepare(q, I, S, q_range), background)
 
 
@@ -342,7 +323,7 @@ def porod_analysis(q, intensity, sigma=None, *, q_range=None, background="fit") 
     >>> round(float(r["exponent"][0]), 9), round(float(r["porod_constant"][0]), 9)
     (4.0, 3.0)
     """
-    q, I, S = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     prep = _prepare(q, I, S, q_range)
     out = _porod(prep, background)
     pl = _power_law(prep, 0.0 if isinstance(background, str) else background)
@@ -460,7 +441,7 @@ def invariant(
     >>> round(float(r["invariant"][0]), 5), round(float(3 * np.sqrt(3 * np.pi) / 4), 5)
     (2.30249, 2.30249)
     """
-    q, I, S = _as_2d(q, intensity, sigma)
+    q, I, S, _ = as_frames(q, intensity, sigma)
     F = I.shape[0]
 
     def per_frame(v):
