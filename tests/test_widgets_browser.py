@@ -123,8 +123,10 @@ def test_matplotlib_export(series):
 def test_explore_links_frames(series):
     ds, bg = series
     d = saxsnb.explore(ds, bg, panels=("browser", "curve"))
-    assert list(d.panels) == ["browser", "curve"]
+    assert list(d.panels.keys()) == ["browser", "curve"]
     assert d.panels[0] is d.panels["browser"]
+    assert list(d.panels) == [d.panels["browser"], d.panels["curve"]]  # iterating gives panels
+    assert all(d.panels[p] is p for p in d.panels) and dict(d.panels)["curve"] is d.panels[1]
     d.panels["browser"].slider.value = 6
     assert d.frame == 6 and d.panels["curve"].frame == 6
     code = d.to_code()

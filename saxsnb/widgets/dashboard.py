@@ -22,15 +22,32 @@ class PanelSet(dict):
     """The panels of a dashboard: a dict ``name -> panel`` in display order.
 
     Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"`` (those
-    asked for). Iterating gives the names, as for any dict; use ``.values()`` for the
-    panels, ``.items()`` for pairs, or an integer position: ``panels[0]`` is the first
-    panel (the browser).
+    asked for): ``panels["guinier"]``, ``panels.keys()``, ``panels.items()``,
+    ``panels.values()``, ``"peaks" in panels`` and ``dict(panels)`` behave as for
+    any dict. To be friendly to code that expects a list, iterating gives the
+    *panels* (``for panel in dash.panels``, ``list(dash.panels)``), an integer gives
+    the panel at that position (``panels[0]`` is the browser), and indexing with a
+    panel returns it, so ``for p in panels: panels[p]`` works too.
+
+    Examples
+    --------
+    >>> ps = PanelSet(a=1, b=2)
+    >>> list(ps), list(ps.keys()), ps[1], ps["a"]
+    ([1, 2], ['a', 'b'], 2, 1)
     """
 
+    def __iter__(self):
+        return iter(list(self.values()))
+
     def __getitem__(self, key):
-        if isinstance(key, int):
+        if isinstance(key, int) and not isinstance(key, bool):
             return list(self.values())[key]
-        return super().__getitem__(key)
+        if isinstance(key, str):
+            return super().__getitem__(key)
+        for v in self.values():
+            if v is key:
+                return v
+        raise KeyError(key)
 
 
 class Dashboard(widgets.VBox):
