@@ -1,17 +1,41 @@
 """Interactive linked panels (ipywidgets 8 + bqplot) over a SAXS series.
 
-``saxsnb.explore(ds)`` shows all panels linked on one current frame; each panel also
-works on its own. Every panel has the traits ``frame`` (int), ``result`` (read-only
-Dataset), ``status`` (str, "" when no error) and ``code``, and ``to_code()`` returning
-Python that reproduces ``result`` from a series bound to the name ``ds``.
+``saxsnb.explore(ds, background=None)`` shows every panel linked on one current frame
+and returns a :class:`Dashboard` (an ``ipywidgets.VBox``); ``dashboard.panels`` is a
+:class:`PanelSet`, a dict ``"browser" | "curve" | "guinier" | "kratky" | "peaks" ->
+panel`` that also iterates over the panels and takes integer positions. Each panel
+also works alone:
+
+- :class:`SeriesBrowser` (slider, play button, clickable overview map),
+- :class:`CurvePanel` (I(q) +- sigma on log-log axes, overlays, background),
+- :class:`LinearFitPanel` (``kind="guinier" | "rod" | "sheet" | "porod"``; brush
+  selector for the q range, residuals, result text, trend over the scan),
+- :class:`KratkyPanel` (plain or dimensionless, reference levels, shape trend),
+- :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides).
+
+Every panel (:class:`PanelBase`) has the traits ``frame`` (int), ``result`` (read-only
+xarray.Dataset for the current choices), ``status`` (str, "" when no error; also shown
+in ``panel.status_line``) and ``code`` (read-only str), and the methods ``to_code()``
+(Python that reproduces ``result`` from the series bound to the name ``ds``; it
+starts with ``import saxsnb`` and assigns ``result``), ``show_code()`` (what the
+"Export code" button does), ``save_png()`` / ``save_svg()`` (browser only) and
+``to_matplotlib()`` (a matplotlib Figure of the same plots, no browser needed).
+Range-selecting panels also have ``q_range`` ((q_min, q_max) in 1/nm, or None for the
+automatic range) and ``selector`` (a bqplot BrushIntervalSelector on the linearised
+x axis, q^2 or q^4).
+
 Panels show and select; every number comes from :mod:`saxsnb.accessor` and
-:mod:`saxsnb.analysis`.
+:mod:`saxsnb.analysis` (display transforms in :mod:`saxsnb.analysis.display`).
+A new panel (e.g. P(r)) is one new module: subclass :class:`PanelBase`.
 """
 
 from .base import PanelBase
 from .browser import SeriesBrowser
 from .curve import CurvePanel
 from .dashboard import Dashboard, PanelSet, explore
+from .kratky import KratkyPanel
+from .linear import LinearFitPanel
+from .peaks import PeaksPanel
 
 __all__ = [
     "explore",
@@ -24,13 +48,3 @@ __all__ = [
     "KratkyPanel",
     "PeaksPanel",
 ]
-
-
-def __getattr__(name):
-    # Panels whose analysis lands later are imported on first use.
-    modules = {"LinearFitPanel": "linear", "KratkyPanel": "kratky", "PeaksPanel": "peaks"}
-    if name in modules:
-        import importlib
-
-        return getattr(importlib.import_module(f".{modules[name]}", __name__), name)
-    raise AttributeError(f"module 'saxsnb.widgets' has no attribute {name!r}")

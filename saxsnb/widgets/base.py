@@ -175,6 +175,11 @@ class PanelBase(widgets.VBox):
         tools = widgets.HBox([self.export_button, self.png_button, self.svg_button])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
         self.observe(self._handle_frame, "frame")
+        # CSS hooks for page tests and styling: the panel and each of its figures
+        self.add_class("saxsnb-panel")
+        self.add_class(f"saxsnb-{self.name}")
+        for k, fig in enumerate(self.figures):
+            fig.add_class(f"saxsnb-{self.name}-figure-{k}")
         self.layout.border = "1px solid #dddddd"
         self.layout.padding = "4px"
         if frame:

@@ -128,30 +128,17 @@ class Dashboard(widgets.VBox):
 def _factories():
     from .browser import SeriesBrowser
     from .curve import CurvePanel
+    from .kratky import KratkyPanel
+    from .linear import LinearFitPanel
+    from .peaks import PeaksPanel
 
-    out = {
+    return {
         "browser": lambda ds, bg: SeriesBrowser(ds),
         "curve": lambda ds, bg: CurvePanel(ds, bg),
+        "guinier": lambda ds, bg: LinearFitPanel(ds, kind="guinier"),
+        "kratky": lambda ds, bg: KratkyPanel(ds),
+        "peaks": lambda ds, bg: PeaksPanel(ds),
     }
-    try:
-        from .linear import LinearFitPanel
-
-        out["guinier"] = lambda ds, bg: LinearFitPanel(ds, kind="guinier")
-    except ImportError:  # pragma: no cover - panel module not present yet
-        pass
-    try:
-        from .kratky import KratkyPanel
-
-        out["kratky"] = lambda ds, bg: KratkyPanel(ds)
-    except ImportError:  # pragma: no cover
-        pass
-    try:
-        from .peaks import PeaksPanel
-
-        out["peaks"] = lambda ds, bg: PeaksPanel(ds)
-    except ImportError:  # pragma: no cover
-        pass
-    return out
 
 
 def explore(
@@ -191,7 +178,7 @@ def explore(
         raise SaxsInputError(
             f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}", parameter="panels"
         )
-    built = {name: make[name](ds, background) for name in panels if name in make}
+    built = {name: make[name](ds, background) for name in panels}
     dash = Dashboard(built)
     if frame:
         dash.frame = int(frame)
