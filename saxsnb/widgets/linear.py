@@ -132,7 +132,6 @@ class LinearFitPanel(PanelBase):
     def _build(self):
         I, S = self.ds.saxs.masked()
         self._I, self._S = I.values, S.values
-        self._lx, self._ly, self._lsy = linearize(self.q, self._I, self._S, kind=self.transform)
         xs, ys = bq.LinearScale(), bq.LinearScale()
         self._xs, self._ys = xs, ys
         self.data = bq.Lines(
@@ -395,21 +394,22 @@ class LinearFitPanel(PanelBase):
             lo_view = 0.0
             hi_view = min(q[-1], 2.0 * q_hi) if np.isfinite(q_hi) else q[min(q.size - 1, q.size // 4)]
         view = (q >= lo_view) & (q <= hi_view)
-        x, y, _ = finite_points(self._lx[i][view], self._ly[i][view])
+        lx, ly, lsy = linearize(self.q, self._I[i], self._S[i], kind=self.transform)  # this frame only
+        x, y, _ = finite_points(lx[view], ly[view])
         self._set_line(self.data, x, y)
         inside = (
             (q >= q_lo) & (q <= q_hi) if np.isfinite(q_lo) and np.isfinite(q_hi) else np.zeros_like(q, bool)
         )
-        xin, yin, kept = finite_points(self._lx[i][inside], self._ly[i][inside])
-        syin = self._lsy[i][inside][kept]
+        xin, yin, kept = finite_points(lx[inside], ly[inside])
+        syin = lsy[inside][kept]
         a, b = line_coefficients(self.kind, vals)
         x_end = linear_x(max(hi_view, q_hi if np.isfinite(q_hi) else hi_view), self.transform)
         x_start = linear_x(lo_view, self.transform) if self.transform == "porod" else 0.0
         line, _ = line_residuals(np.array([x_start, x_end]), np.zeros(2), None, a, b)
         _, res = line_residuals(xin, yin, syin, a, b)
         self._set_points(self.in_range, xin, yin)
-        lx, ly, _ = finite_points(np.array([x_start, x_end]), line)
-        self._set_line(self.fit_line, lx, ly)
+        fx, fy, _ = finite_points(np.array([x_start, x_end]), line)
+        self._set_line(self.fit_line, fx, fy)
         rx, ry, _ = finite_points(xin, res)
         self._set_points(self.residuals, rx, ry)
         if xin.size:
