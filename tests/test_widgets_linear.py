@@ -169,6 +169,9 @@ def test_kratky_panel_plain_toggle_and_trend_click(series):
     xr.testing.assert_identical(k.result, series.isel(frame=[0]).saxs.kratky().to_dataset(name="kratky"))
     np.testing.assert_allclose(k.curve.y, series.q.values**2 * series.intensity.values[0])
     assert not k.references.visible
+    # fixed ranges per form: the hidden reference lines do not stretch the plain plot
+    assert k._xs.max == pytest.approx(series.q.values.max() * 1.02)
+    assert k._ys.max < 2.0 * np.nanpercentile(series.q.values**2 * series.intensity.values, 99.5)
     k.toggle.value = "rg"
     assert k.normalize == "rg" and k.references.visible
     k._on_trend_click(k.trend_peak, {"data": {"index": 5}})
@@ -186,3 +189,15 @@ def test_linear_panel_matplotlib_export(series):
     assert len(fit) == 1
     np.testing.assert_allclose(fit[0].get_ydata(), p.fit_line.y)
     assert rax.get_ylabel() == "residual / sigma" and tax.get_xlabel() == "time (s)"
+
+
+def test_failed_automatic_range_clears_the_brush(rng):
+    q = np.linspace(0.05, 2.0, 120)
+    I = 1.0 + 5.0 * q**2  # rises with q: no Guinier region
+    ds = saxsnb.from_arrays(q, np.vstack([I, I]), 0.01 * np.vstack([I, I]))
+    p = LinearFitPanel(ds, q_range=(0.1, 0.3))
+    np.testing.assert_allclose(p.selector.selected, [0.01, 0.09])
+    p.q_range = None
+    assert p.selector.selected is None and p.q_range is None
+    assert p.status.endswith(str(p.result.status.values[0])) and p.result.status.values[0] != "ok"
+    assert "n/a" in p.result_text.value

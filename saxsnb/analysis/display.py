@@ -29,6 +29,7 @@ __all__ = [
     "drawable_lines",
     "fill_missing",
     "log_ticks",
+    "value_range",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -435,3 +436,36 @@ def log_ticks(lo: float, hi: float) -> np.ndarray:
     t = np.array([m * 10.0**k for k in range(k0, k1 + 1) for m in mult])
     t = t[(t >= lo * (1 - 1e-9)) & (t <= hi * (1 + 1e-9))]
     return np.round(t, 12)
+
+
+def value_range(values, *, lower: float = 0.5, upper: float = 99.5, pad: float = 0.05, include=()):
+    """A fixed linear-axis range holding almost all finite values (and ``include``).
+
+    Parameters
+    ----------
+    values : array
+    lower, upper : float
+        Percentiles (0-100) used as the ends, so a few outliers do not squash the plot.
+    pad : float
+        Fraction of the span added at each end.
+    include : sequence of float
+        Values the range must contain (e.g. 0, or a reference level).
+
+    Returns
+    -------
+    (lo, hi) floats; (0, 1) when there is no finite value.
+
+    >>> value_range(np.array([0.0, 1.0, 2.0, np.nan]), lower=0, upper=100, pad=0.0, include=(3.0,))
+    (0.0, 3.0)
+    """
+    a = np.asarray(values, dtype=float).ravel()
+    a = a[np.isfinite(a)]
+    ends = [float(v) for v in include]
+    if a.size:
+        lo, hi = np.percentile(a, [lower, upper])
+        ends += [float(lo), float(hi)]
+    if not ends:
+        return (0.0, 1.0)
+    lo, hi = min(ends), max(ends)
+    span = hi - lo if hi > lo else max(abs(hi), 1.0)
+    return (lo - pad * span, hi + pad * span)

@@ -8,7 +8,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import KRATKY_REFERENCES, finite_points, scaled_q
+from ..analysis.display import KRATKY_REFERENCES, finite_points, scaled_q, value_range
 from . import _bq as bq
 from .base import PanelBase, make_figure
 from .palette import OKABE_ITO, ROLE
@@ -230,12 +230,11 @@ class KratkyPanel(PanelBase):
         self._set_line(self.curve, x, y)
         if dimensionless:
             self._set_axes("q Rg", "(q Rg)^2 I / I0", visible=True)
-            self._xs.min, self._xs.max = 0.0, float(min(np.nanmax(x), 12.0)) if np.isfinite(rg) else None
         else:
             self._set_axes(
                 f"q ({self.q_units})", f"q^2 I ({self.intensity_units} {self.q_units}^2)", visible=False
             )
-            self._xs.min, self._xs.max = None, None
+        self._set_ranges(series)
         with self.trend_current.hold_sync():
             v = float(self.scan_values[i])
             self.trend_current.x = np.array([v, v])
@@ -246,6 +245,31 @@ class KratkyPanel(PanelBase):
             if not dimensionless or np.isfinite(rg)
             else (f"{self.frame_label(i)}: no Guinier Rg, the dimensionless plot is undefined")
         )
+
+    def _set_ranges(self, series) -> None:
+        """Fixed axis ranges per form, the same for every frame (curves compare while
+        stepping; hidden reference lines do not stretch the plain plot)."""
+        key = self.normalize or "plain"
+        if getattr(self, "_range_key", None) == key:
+            return
+        values = np.asarray(series.values, dtype=float)
+        if key == "rg":
+            rg = (
+                np.asarray(self._summary["rg"].values, dtype=float)
+                if self._summary is not None and "rg" in self._summary
+                else np.array([self._rg(k) for k in range(self.n_frames)])
+            )
+            top = float(self.q.max() * np.nanmax(rg)) if np.isfinite(rg).any() else 12.0
+            xr_ = (0.0, min(top, 12.0))
+            yr = value_range(values, include=(0.0, KRATKY_REFERENCES["chain_plateau"] * 1.1))
+        else:
+            xr_ = (0.0, float(self.q.max()) * 1.02)
+            yr = value_range(values, include=(0.0,))
+        with self._xs.hold_sync():
+            self._xs.min, self._xs.max = xr_
+        with self._ys.hold_sync():
+            self._ys.min, self._ys.max = yr
+        self._range_key = key
 
     def _rg(self, i: int) -> float:
         if "_rg_series" not in self._series_cache:

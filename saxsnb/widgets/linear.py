@@ -324,6 +324,13 @@ class LinearFitPanel(PanelBase):
 
     def _move_selector(self, q_lo: float, q_hi: float) -> None:
         if not (np.isfinite(q_lo) and np.isfinite(q_hi)):
+            # no range to show (the automatic search failed): clear the brush
+            if self.selector.selected is not None:
+                self._syncing = True
+                try:
+                    self.selector.selected = None
+                finally:
+                    self._syncing = False
             return
         target = linear_x(np.array([q_lo, q_hi]), self.transform)
         cur = self.selector.selected
@@ -439,7 +446,7 @@ class LinearFitPanel(PanelBase):
         if self.kind in LIMITS:
             qr = vals.get("qrg_max", np.nan)
             soft, hard = LIMITS[self.kind]
-            colour = ROLE["ok"]
+            colour = ROLE["ok"] if np.isfinite(qr) else ROLE["reference"]
             note = ""
             if np.isfinite(qr) and qr > hard:
                 colour, note = ROLE["warning"], f" past the validity limit {hard}"
