@@ -101,49 +101,108 @@ def _nearest_table(phase: str):
     return nearest, np.sqrt(np.maximum(nearest, 1).astype(float))
 
 
-def _match(phase, q, L, tol):
+@cache
+def _phase_set(phases: tuple):
+    """Lookup tables of several phases concatenated, so all phases are matched at once.
+
+    Returns a dict: ``near`` / ``root`` (the :func:`_nearest_table` of each phase end to
+    end, ``n_off`` / ``n_top`` the start and last index of each), ``cum`` / ``mc`` (the
+    :func:`_miss_tables`, ``c_off`` / ``c_top``), ``first`` (nph, 3) sqrt of the first
+    allowed s of each phase, and ``s_root`` = sqrt(s) by s.
+    """
+    parts = {k: [] for k in ("near", "root", "cum", "mc", "n_off", "n_top", "c_off", "c_top", "first")}
+    n_pos = c_pos = 0
+    smax = 0
+    for ph in phases:
+        nearest, root = _nearest_table(ph)
+        cum, by_s = _miss_tables(ph)
+        s_list = _table(ph)[0]
+        if s_list.size < _ANCHOR_REFLECTIONS:  # pragma: no cover - every table is longer
+            raise ValueError(f"{ph}: fewer than {_ANCHOR_REFLECTIONS} reflections")
+        smax = max(smax, int(s_list.max()))
+        for key, val in (("near", nearest), ("root", root), ("cum", cum), ("mc", by_s)):
+            parts[key].append(val)
+        parts["n_off"].append(n_pos)
+        parts["n_top"].append(nearest.size - 1)
+        parts["c_off"].append(c_pos)
+        parts["c_top"].append(cum.size - 1)
+        parts["first"].append(np.sqrt(s_list[:_ANCHOR_REFLECTIONS]))
+        n_pos += nearest.size
+        c_pos += cum.size
+    near = np.concatenate(parts["near"])
+    return {
+        "near": near.astype(np.int16 if near.max() < 2**15 else np.int64),
+        "root": np.concatenate(parts["root"]),
+        "cum": np.concatenate(parts["cum"]),
+        "mc": np.concatenate(parts["mc"]),
+        "n_off": np.array(parts["n_off"], dtype=np.intp),
+        "n_top": np.array(parts["n_top"], dtype=float),
+        "c_off": np.array(parts["c_off"], dtype=np.intp),
+        "c_top": np.array(parts["c_top"], dtype=float),
+        "first": np.stack(parts["first"]),
+        "s_root": np.sqrt(np.arange(smax + 1, dtype=float)),
+    }
+
+
+def _match(tabs, ph_of, q, L, tol, err=True):
     """Nearest allowed s for each observed q under metric L.
 
-    q (B, P) NaN padded, sorted; L (B, C). Returns s (B, C, P) int (0 = none) and the
-    relative error |q L / sqrt(s) - 1| (B, C, P), NaN where unassigned.
+    q (B, P) NaN padded, sorted; L (B, N), candidate n a metric of phase ``ph_of[n]``
+    (tables from :func:`_phase_set`). Returns s (B, N, P) int (0 = none) and the relative
+    error |q L / sqrt(s) - 1| (B, N, P), NaN where unassigned (None with ``err=False``).
     """
-    nearest, root = _nearest_table(phase)
     x = q[:, None, :] * L[:, :, None]  # = sqrt of (q L)^2
-    i = np.nan_to_num(x * x * _GRID, copy=False, nan=-1.0, posinf=-1.0)
-    i = np.clip(i, 0, nearest.size - 1).astype(np.intp)
+    y = x * x
+    y *= _GRID
+    # NaN / beyond the table -> the last entry, which holds no reflection
+    np.fmin(y, tabs["n_top"][ph_of][None, :, None], out=y)
+    i = y.astype(np.intp)
+    i += tabs["n_off"][ph_of][None, :, None]
+    s = tabs["near"][i]
+    e = tabs["root"][i]
     with np.errstate(invalid="ignore"):
-        e = np.abs(x / root[i] - 1.0)
-    s = np.where((e <= tol) & (nearest[i] > 0), nearest[i], 0)
-    e = np.where(s > 0, e, np.inf)
+        np.divide(x, e, out=e)
+    e -= 1.0
+    np.abs(e, out=e)
+    s *= e <= tol
     # one observed peak per reflection: q is sorted, so two peaks claiming the same s are
     # neighbours; keep the closer one
-    same = (s[..., 1:] == s[..., :-1]) & (s[..., 1:] > 0)
+    same = s[..., 1:] == s[..., :-1]
+    same &= s[..., 1:] > 0
     if same.any():
         right_worse = same & (e[..., 1:] >= e[..., :-1])
         drop = np.zeros(s.shape, dtype=bool)
         drop[..., 1:] |= right_worse
         drop[..., :-1] |= same & ~right_worse
-        s = np.where(drop, 0, s)
-    return s, np.where(s > 0, e, np.nan)
+        s[drop] = 0
+    if not err:
+        return s, None
+    e[s == 0] = np.nan
+    return s, e
 
 
-def _refine(q, w, s, sigma=True):
+def _refine(s, w, q0, wq, s_root, sigma=True, finite=True):
     """Weighted least squares of q = k sqrt(s); returns L = 1/k and sigma_L.
 
-    Weights w = 1/sigma_q^2; sigma of k from (sum w s)^-1/2 scaled by sqrt(chi2_red)
-    when chi2_red > 1 (more than one peak).
+    s (..., P) assigned s (0 = none); w weights 1/sigma_q^2, q0 positions (NaN -> 0),
+    wq = w q0, all broadcastable to s; ``finite``: w and wq are finite, so unassigned
+    peaks drop out as 0 * finite. Sigma of k from (sum w s)^-1/2 scaled by
+    sqrt(chi2_red) when chi2_red > 1 (more than one peak).
     """
     m = s > 0
-    root = np.sqrt(s.astype(float))
-    ww = np.where(m, w, 0.0)
-    qq = np.where(m, np.nan_to_num(q), 0.0)
-    sw = np.sum(ww * s, axis=-1)
+    root = s_root[s]
+    if not finite:
+        w, wq = np.where(m, w, 0.0), np.where(m, wq, 0.0)
+    sw = np.sum(w * s, axis=-1)
     with np.errstate(all="ignore"):
-        k = np.sum(ww * qq * root, axis=-1) / sw
+        k = np.sum(wq * root, axis=-1) / sw
         if not sigma:
             return 1.0 / k, None
         n = m.sum(axis=-1)
-        chi = np.sum(ww * (qq - k[..., None] * root) ** 2, axis=-1)
+        d = q0 - k[..., None] * root
+        d *= d
+        d *= np.where(m, w, 0.0)
+        chi = np.sum(d, axis=-1)
         red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
         sk = np.sqrt(np.maximum(red, 1.0) / sw)
         L = 1.0 / k
@@ -151,55 +210,57 @@ def _refine(q, w, s, sigma=True):
     return L, sL
 
 
-def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
-    """Best ``_KEEP`` distinct lattices of one phase for each frame.
+def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
+    """Best ``_KEEP`` distinct lattices of every phase for each frame.
 
-    q, w, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,).
-    Returns dict of arrays (B, K[, P]).
+    q, w, q0, wq, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,).
+    Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by phase.
     """
-    s_list = _table(phase)[0]
     B, P = q.shape
-    na = min(_ANCHOR_REFLECTIONS, s_list.size)
-    na_p = qa.shape[1]
-    L0 = (np.sqrt(s_list[:na])[None, None, :] / qa[:, :, None]).reshape(B, na_p * na)
-    s, _ = _match(phase, q, np.nan_to_num(L0, nan=0.0), tol)
-    L, _ = _refine(q[:, None, :], w[:, None, :], s, sigma=False)
+    nph, na = tabs["first"].shape
+    C = qa.shape[1] * na  # candidates per phase: each anchor as each first reflection
+    ph_of = np.repeat(np.arange(nph), C)
+    L0 = (tabs["first"][None, :, None, :] / qa[:, None, :, None]).reshape(B, nph * C)
+    w3, q03, wq3 = w[:, None, :], q0[:, None, :], wq[:, None, :]
+    s, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, err=False)
+    L, _ = _refine(s, w3, q03, wq3, tabs["s_root"], sigma=False, finite=finite)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
-    s, err = _match(phase, q, L, tol)
-    L, sL = _refine(q[:, None, :], w[:, None, :], s)
+    s, err = _match(tabs, ph_of, q, L, tol)
+    L, sL = _refine(s, w3, q03, wq3, tabs["s_root"], finite=finite)
     matched = s > 0
     n_match = matched.sum(-1)  # one peak per reflection (see _match)
     # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
     # peak matches. Their cost is the cumulative cost of all allowed reflections in that
     # range (a table over s) minus the cost of the matched ones.
-    cum_cost, mcost = _miss_tables(phase)
-    top = cum_cost.size - 1
+    cum_cost, mcost = tabs["cum"], tabs["mc"]
+    top = tabs["c_top"][ph_of][None, :]
+    off = tabs["c_off"][ph_of][None, :]
     with np.errstate(invalid="ignore"):
         q_hi = np.where(matched, q[:, None, :], -np.inf).max(-1) * (1 + tol)
         x_hi = np.nan_to_num((q_hi * L) ** 2, copy=False, nan=0.0, posinf=0.0, neginf=0.0)
         x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, copy=False, nan=0.0, posinf=0.0)
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
-    in_range = np.where(hi > lo, cum_cost[hi] - cum_cost[lo], 0.0)
-    miss = np.maximum(in_range - np.sum(mcost[s], axis=-1), 0.0)
+    in_range = np.where(hi > lo, cum_cost[hi + off] - cum_cost[lo + off], 0.0)
+    miss = np.maximum(in_range - np.sum(mcost[s + off[..., None]], axis=-1), 0.0)
     with np.errstate(invalid="ignore"):
         fitc = 0.25 * np.sum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
     valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
     cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
-    # keep the best _KEEP candidates with distinct lattices
+    # keep the best _KEEP candidates of each phase with distinct lattices
+    c = cost.reshape(B, nph, C)
+    L3 = L.reshape(B, nph, C)
     keep, kept_cost = [], []
-    c = cost.copy()
-    rows = np.arange(B)
     for _ in range(_KEEP):
-        j = np.argmin(c, axis=1)
+        j = np.argmin(c, axis=2)[..., None]  # (B, nph, 1)
         keep.append(j)
-        kept_cost.append(c[rows, j])  # inf when nothing distinct is left
-        Lj = np.take_along_axis(L, j[:, None], 1)
+        kept_cost.append(np.take_along_axis(c, j, 2))  # inf when nothing distinct is left
+        Lj = np.take_along_axis(L3, j, 2)
         with np.errstate(invalid="ignore", divide="ignore"):
-            same = np.abs(L / Lj - 1.0) <= tol
+            same = np.abs(L3 / Lj - 1.0) <= tol
         c = np.where(same, np.inf, c)
-    J = np.stack(keep, axis=1)  # (B, K)
+    J = (np.concatenate(keep, axis=2) + (np.arange(nph) * C)[None, :, None]).reshape(B, nph * _KEEP)
     take = lambda a: np.take_along_axis(a, J if a.ndim == 2 else J[..., None], 1)  # noqa: E731
     return {
         "L": take(L),
@@ -208,16 +269,51 @@ def _single_phase(phase, q, w, unexpl, qa, q_lo, tol):
         "err": take(err),
         "miss": take(miss),
         "fit": take(fitc),
-        "cost": np.stack(kept_cost, axis=1),
+        "cost": np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP),
     }
 
 
+@cache
+def _hypothesis_table(nph: int, max_phases: int):
+    """The explanations tried in every frame, in a fixed order.
+
+    Column 0 is "nothing", then each kept single-phase candidate (``nph * _KEEP``), then
+    (``max_phases`` 2) each pair of candidates of different phases. Returns ``phase``
+    (H, 2) phase numbers (-1 none), ``ia`` / ``ib`` (H,) the candidates combined (M =
+    none), ``pair`` (H,) bool, the pair candidates ``a``, ``b``, and the best-key
+    grouping (``order``, ``starts``, ``ukeys``) of the columns.
+    """
+    M = nph * _KEEP
+    ph_id = np.repeat(np.arange(nph), _KEEP)
+    phase = [np.array([[-1, -1]]), np.stack([ph_id, np.full(M, -1)], -1)]
+    ia = [np.array([M]), np.arange(M)]
+    ib = [np.array([M]), np.full(M, M)]
+    a = b = np.zeros(0, dtype=np.intp)
+    if max_phases >= 2:
+        a, b = np.triu_indices(M, 1)
+        diff = ph_id[a] != ph_id[b]
+        a, b = a[diff], b[diff]
+        phase.append(np.stack([ph_id[a], ph_id[b]], -1))
+        ia.append(a)
+        ib.append(b)
+    phase = np.concatenate(phase)
+    ia, ib = np.concatenate(ia), np.concatenate(ib)
+    pair = np.arange(ia.size) > M
+    keys = _key(phase, nph)
+    order = np.argsort(keys, kind="stable")
+    ukeys, starts = np.unique(keys[order], return_index=True)
+    return {"phase": phase, "ia": ia, "ib": ib, "pair": pair, "a": a, "b": b, "M": M,
+            "order": order, "starts": starts, "ukeys": ukeys}
+
+
 def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None):
-    """All one- and two-phase explanations of each frame with their costs.
+    """Costs of all one- and two-phase explanations of each frame.
 
     ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
     explain these peaks (e.g. the ones a first pass left unexplained); their costs are
-    then recomputed over all peaks.
+    then recomputed over all peaks. Returns ``cost`` (B, H) in the order of
+    :func:`_hypothesis_table`, ``rho`` (B, P), and what :func:`_states` needs to build
+    the explanations chosen.
     """
     B, P = q.shape
     present = np.isfinite(q)
@@ -232,81 +328,86 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     if focus is not None:  # anchor on the focus peaks first
         order = np.argsort(-np.where(present, strength + np.where(focus, 1e300, 0.0), -np.inf), axis=1)
         qa = np.take_along_axis(q, order[:, :n_anchor], 1)
-    singles = [_single_phase(ph, q, w, rank_unexpl, qa, q_lo, tol) for ph in phases]
-    ph_id = np.repeat(np.arange(len(phases)), _KEEP)
-    cat = {k: np.concatenate([d[k] for d in singles], axis=1) for k in singles[0]}
+    q0 = np.where(present, q, 0.0)
+    wq = w * q0
+    finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
+    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol)
     if focus is not None:  # true costs: every unexplained peak counts
         extra = np.sum(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0), axis=-1)
         cat["cost"] = cat["cost"] + extra
-    M = cat["L"].shape[1]
-    hyp_phase = [np.full((B, 1, 2), -1)]
-    hyp_L = [np.full((B, 1, 2), np.nan)]
-    hyp_sL = [np.full((B, 1, 2), np.nan)]
-    hyp_slot = [np.full((B, 1, P), -1)]
-    hyp_s = [np.zeros((B, 1, P), dtype=np.int64)]
-    hyp_cost = [unexpl.sum(-1)[:, None]]
-    # single phases
-    hyp_phase.append(np.broadcast_to(np.stack([ph_id, np.full(M, -1)], -1), (B, M, 2)))
-    hyp_L.append(np.stack([cat["L"], np.full((B, M), np.nan)], -1))
-    hyp_sL.append(np.stack([cat["sL"], np.full((B, M), np.nan)], -1))
-    hyp_slot.append(np.where(cat["s"] > 0, 0, -1))
-    hyp_s.append(cat["s"])
-    hyp_cost.append(cat["cost"])
+    tab = _hypothesis_table(len(phases), max_phases)
+    M = tab["M"]
+    cost = [unexpl.sum(-1)[:, None], cat["cost"]]
+    sub = np.zeros(B, dtype=bool)
     if max_phases >= 2:
-        a, b = np.triu_indices(M, 1)
-        diff = ph_id[a] != ph_id[b]
-        a, b = a[diff], b[diff]
-        npair = a.size
+        a, b = tab["a"], tab["b"]
+        pair_cost = np.full((B, a.size), np.inf)
         # a pair can only help where the best single phase leaves two or more peaks unexplained
         best = np.argmin(cat["cost"], axis=1)
         n_best = (np.take_along_axis(cat["s"], best[:, None, None], 1)[:, 0] > 0).sum(-1)
         n_best = np.where(np.isfinite(cat["cost"][np.arange(B), best]), n_best, 0)
-        sub = np.nonzero(present.sum(-1) - n_best >= 2)[0]
-        pair_phase = np.broadcast_to(np.stack([ph_id[a], ph_id[b]], -1), (B, npair, 2))
-        pair_L = np.full((B, npair, 2), np.nan)
-        pair_sL = np.full((B, npair, 2), np.nan)
-        pair_slot = np.full((B, npair, P), -1)
-        pair_s = np.zeros((B, npair, P), dtype=np.int64)
-        pair_cost = np.full((B, npair), np.inf)
-        if sub.size:
-            c_s, c_err = cat["s"][sub], cat["err"][sub]
-            sa, sb = c_s[:, a], c_s[:, b]
-            ea = np.where(sa > 0, c_err[:, a], np.inf)
-            eb = np.where(sb > 0, c_err[:, b], np.inf)
-            to_a = (sa > 0) & (ea <= eb)
-            to_b = (sb > 0) & ~to_a
-            only_a = ((sa > 0) & (sb == 0)).sum(-1)
-            only_b = ((sb > 0) & (sa == 0)).sum(-1)
-            explained = to_a | to_b
-            cs = cat["cost"][sub]
-            cost = (
-                np.sum(np.where(explained, 0.0, unexpl[sub][:, None, :]), -1)
-                + cat["miss"][sub][:, a]
-                + cat["miss"][sub][:, b]
-                + cat["fit"][sub][:, a]
-                + cat["fit"][sub][:, b]
+        sub = present.sum(-1) - n_best >= 2
+        rows = np.nonzero(sub)[0]
+        if rows.size:
+            m = cat["s"][rows] > 0
+            ma, mb = m[:, a], m[:, b]
+            # each peak goes to the phase of the two that fits it better, so a peak is
+            # explained when either matches it
+            explained = ma | mb
+            only_a = (ma & ~mb).sum(-1)
+            only_b = (mb & ~ma).sum(-1)
+            cs = cat["cost"][rows]
+            miss, fit = cat["miss"][rows], cat["fit"][rows]
+            pc = (
+                np.sum(np.where(explained, 0.0, unexpl[rows][:, None, :]), -1)
+                + miss[:, a]
+                + miss[:, b]
+                + fit[:, a]
+                + fit[:, b]
                 + PHASE_COST
             )
             ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b])
-            pair_L[sub] = np.stack([cat["L"][sub][:, a], cat["L"][sub][:, b]], -1)
-            pair_sL[sub] = np.stack([cat["sL"][sub][:, a], cat["sL"][sub][:, b]], -1)
-            pair_slot[sub] = np.where(to_a, 0, np.where(to_b, 1, -1))
-            pair_s[sub] = np.where(to_a, sa, np.where(to_b, sb, 0))
-            pair_cost[sub] = np.where(ok, cost, np.inf)
-        hyp_phase.append(pair_phase)
-        hyp_L.append(pair_L)
-        hyp_sL.append(pair_sL)
-        hyp_slot.append(pair_slot)
-        hyp_s.append(pair_s)
-        hyp_cost.append(pair_cost)
+            pair_cost[rows] = np.where(ok, pc, np.inf)
+        cost.append(pair_cost)
+    return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}
+
+
+def _states(H, sel, P):
+    """The explanations ``sel`` (B, k) (columns of ``H["cost"]``) of each frame.
+
+    Returns ``phase``, ``L``, ``sL`` (B, k, 2) and ``slot``, ``s`` (B, k, P): the peaks
+    of a pair go to the phase that fits them better; a pair is only built in frames
+    where it was tried (else it holds nothing).
+    """
+    tab, cat, M = H["tab"], H["cat"], H["M"]
+    B = sel.shape[0]
+    ia, ib = tab["ia"][sel], tab["ib"][sel]
+    none = tab["pair"][sel] & ~H["sub"][:, None]
+    ia, ib = np.where(none, M, ia), np.where(none, M, ib)
+    pb = cat["s"].shape[2]
+
+    def ext(a, fill):
+        return np.concatenate([a, np.full((B, 1) + a.shape[2:], fill, dtype=a.dtype)], axis=1)
+
+    def pick(a, idx):
+        return np.take_along_axis(a, idx if a.ndim == 2 else idx[..., None], 1)
+
+    Lx, sLx, sx, ex = ext(cat["L"], np.nan), ext(cat["sL"], np.nan), ext(cat["s"], 0), ext(cat["err"], np.nan)
+    sa, sb = pick(sx, ia), pick(sx, ib)
+    ea = np.where(sa > 0, pick(ex, ia), np.inf)
+    eb = np.where(sb > 0, pick(ex, ib), np.inf)
+    to_a = (sa > 0) & (ea <= eb)
+    to_b = (sb > 0) & ~to_a
+    slot = np.full((B, sel.shape[1], P), -1)
+    s = np.zeros((B, sel.shape[1], P), dtype=np.int64)
+    slot[..., :pb] = np.where(to_a, 0, np.where(to_b, 1, -1))
+    s[..., :pb] = np.where(to_a, sa, np.where(to_b, sb, 0))
     return {
-        "phase": np.concatenate(hyp_phase, 1),
-        "L": np.concatenate(hyp_L, 1),
-        "sL": np.concatenate(hyp_sL, 1),
-        "slot": np.concatenate(hyp_slot, 1),
-        "s": np.concatenate(hyp_s, 1),
-        "cost": np.concatenate(hyp_cost, 1),
-        "rho": rho,
+        "phase": tab["phase"][sel],
+        "L": np.stack([pick(Lx, ia), pick(Lx, ib)], -1),
+        "sL": np.stack([pick(sLx, ia), pick(sLx, ib)], -1),
+        "slot": slot,
+        "s": s,
     }
 
 
@@ -474,6 +575,10 @@ def index_peaks(
         sig = np.where(np.isfinite(sig) & (sig > 0), sig, fallback)
         sig = np.maximum(sig, 1e-6 * np.nan_to_num(q))
         w = np.where(present, 1.0 / np.where(present, sig, 1.0) ** 2, 0.0)
+    q0 = np.where(present, q, 0.0)
+    wq = w * q0
+    finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
+    s_root = _phase_set(phases)["s_root"]
     st = np.ones_like(q) if strength is None else np.asarray(strength, dtype=float)
     st = np.where(present & np.isfinite(st) & (st > 0), st, np.where(present, 1e-3, 0.0))
     qlo = np.zeros(F) if q_min is None else np.broadcast_to(np.asarray(q_min, dtype=float), (F,))
@@ -495,19 +600,13 @@ def index_peaks(
         pb = max(int(n_obs[sl].max()), 1)  # peaks are sorted, NaN last: drop empty columns
         H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance,
                         n_anchor, None if focus is None else focus[:, :pb])
-        if pb < P:
-            for key, fill in (("slot", -1), ("s", 0)):
-                H[key] = np.concatenate([H[key], np.full(H[key].shape[:2] + (P - pb,), fill)], axis=2)
-            H["rho"] = np.concatenate([H["rho"], np.zeros((H["rho"].shape[0], P - pb))], axis=1)
         cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
-        rho[sl] = H["rho"]
+        rho[sl, :pb] = H["rho"]
+        rho[sl, pb:] = 0.0
+        n_new = cost.shape[1]
         if focus is not None:  # a second pass: keep the states of the first pass in the running
-            previous = {"phase": st_phase, "L": st_L, "sL": st_sL, "slot": st_slot, "s": st_s}
-            for key, old_ in previous.items():
-                H[key] = np.concatenate([H[key], old_[sl]], axis=1)
             cost = np.concatenate([cost, st_cost[sl]], axis=1)
-            H["phase"] = np.ascontiguousarray(H["phase"])
         kk = min(Kv, cost.shape[1])
         if kk < cost.shape[1]:
             top = np.argpartition(cost, kk - 1, axis=1)[:, :kk]
@@ -515,19 +614,25 @@ def index_peaks(
             top = np.take_along_axis(top, inner, 1)
         else:
             top = np.argsort(cost, axis=1, kind="stable")
-
-        def tk(a):
-            return np.take_along_axis(a, top.reshape(top.shape + (1,) * (a.ndim - 2)), 1)
-
-        st_phase[sl, :kk] = tk(H["phase"])
-        st_L[sl, :kk] = tk(H["L"])
-        st_sL[sl, :kk] = tk(H["sL"])
-        st_slot[sl, :kk] = tk(H["slot"])
-        st_s[sl, :kk] = tk(H["s"])
-        st_cost[sl, :kk] = tk(cost)
-        keys = _key(H["phase"], nph)
-        bk = np.full((keys.shape[0], nkeys), np.inf) if focus is None else best_key[sl]
-        np.minimum.at(bk, (np.arange(keys.shape[0])[:, None], keys), cost)
+        new = _states(H, np.where(top < n_new, top, 0), P)
+        if focus is not None:  # the states kept from the first pass
+            old = top >= n_new
+            prev = np.where(old, top - n_new, 0)
+            for key, arr in (("phase", st_phase), ("L", st_L), ("sL", st_sL), ("slot", st_slot), ("s", st_s)):
+                o = np.take_along_axis(arr[sl], prev.reshape(prev.shape + (1,) * (arr.ndim - 2)), 1)
+                new[key] = np.where(old.reshape(old.shape + (1,) * (arr.ndim - 2)), o, new[key])
+        st_phase[sl, :kk] = new["phase"]
+        st_L[sl, :kk] = new["L"]
+        st_sL[sl, :kk] = new["sL"]
+        st_slot[sl, :kk] = new["slot"]
+        st_s[sl, :kk] = new["s"]
+        st_cost[sl, :kk] = np.take_along_axis(cost, top, 1)
+        # lowest cost of each label set: the columns of the table have fixed label sets
+        tab = H["tab"]
+        bk = np.full((len(sl), nkeys), np.inf)
+        bk[:, tab["ukeys"]] = np.minimum.reduceat(cost[:, tab["order"]], tab["starts"], axis=1)
+        if focus is not None:  # the first pass's states are already in best_key
+            bk = np.minimum(bk, best_key[sl])
         best_key[sl] = bk
 
     for b0 in range(0, F, block):
@@ -562,7 +667,7 @@ def index_peaks(
     tot = rho.sum(-1)
     for j in range(2):
         sj = np.where(ch_slot == j, ch_s, 0)
-        L, sL = _refine(q, w, sj)
+        L, sL = _refine(sj, w, q0, wq, s_root, finite=finite)
         with np.errstate(invalid="ignore", divide="ignore"):
             score[:, j] = np.where(tot > 0, np.where(ch_slot == j, rho, 0).sum(-1) / tot, 0.0)
         for k, ph in enumerate(phases):
