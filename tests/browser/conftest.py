@@ -120,7 +120,6 @@ def _jupyter_env(root: Path) -> dict:
     # The kernel must be this venv's Python (it has saxsnb installed).
     env["PATH"] = os.path.dirname(sys.executable) + os.pathsep + env.get("PATH", "")
     env.pop("JUPYTER_TOKEN", None)
-    env["MPLBACKEND"] = "Agg"
     return env
 
 

@@ -2,6 +2,7 @@
 
 import pytest
 from app_flow import NOTEBOOK, click_map_row, run_flow
+from playwright.sync_api import expect
 
 
 @pytest.mark.browser
@@ -20,3 +21,30 @@ def test_voila_app_step_and_drag(servers, probe):
     probe.screenshot("voila-page")
     probe.assert_clean()
     print(seen)
+
+
+SCENARIOS = sorted(p for p in NOTEBOOK.parent.glob("*.ipynb") if p != NOTEBOOK)
+
+
+@pytest.mark.browser
+@pytest.mark.parametrize("notebook", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_voila_scenario_notebook_renders(servers, probe, notebook):
+    """Every scenario notebook is a clean page in Voila (what `make app APP_NB=...` serves):
+    it runs, its figures and widgets show, nothing goes wrong in the browser."""
+    server = servers.voila(notebook)
+    page = probe.page
+    page.set_viewport_size({"width": 1400, "height": 1600})
+    page.goto(f"{server.url}/?token={server.token}", timeout=120_000)  # load = every cell ran
+    page.locator("h1").first.wait_for()
+    # widget outputs (if any) rendered; bqplot figures drawn
+    n_views = page.locator('script[type="application/vnd.jupyter.widget-view+json"]').count()
+    if n_views:
+        expect(page.locator(".jupyter-widgets").first).to_be_visible(timeout=60_000)
+    if page.locator("div.bqplot.figure").count():
+        probe.wait_for_lines(1)
+    figures = page.locator(".jp-RenderedImage img, div.bqplot.figure")
+    assert figures.count() > 0, "no figure on the page"
+    figures.first.scroll_into_view_if_needed()
+    expect(figures.first).to_be_visible()
+    probe.screenshot(f"voila-{notebook.stem}")
+    probe.assert_clean()
