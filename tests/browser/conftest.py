@@ -6,9 +6,11 @@ Recipe: /work/shared/BROWSER-TESTING.md. Pieces:
 - ``browser`` (session): one ``sync_playwright()`` per process (a second one fails).
   A missing /usr/bin/chromium or Playwright FAILS the test with a clear message: a silent
   skip would hide that the interactive notebook was never checked.
-- ``voila_server`` / ``lab_server``: factories that start a server on a free port with
-  every Jupyter config/runtime/settings/workspace dir in the test's tmp folder, wait
-  until it is ready, and kill and wait for it at teardown.
+- ``servers``: ``servers.voila(notebook)`` / ``servers.lab(notebook_dir)`` start a
+  server (``sys.executable -m voila`` / ``-m jupyterlab``, so this venv's packages) on a
+  free 127.0.0.1 port with a token and every Jupyter config/runtime/data/settings/
+  workspace dir in the test's tmp folder, wait until it is ready (Voila: a TCP connect,
+  since a GET would run the notebook; Lab: ``/api/status``), and stop it at teardown.
 - ``probe``: a fresh page whose every request not to 127.0.0.1 is intercepted, recorded
   and aborted (the Voila template's CDN icon stylesheets are answered with an empty
   stylesheet instead), and whose console errors and page errors are collected.
