@@ -264,7 +264,7 @@ class KratkyPanel(PanelBase):
             yr = value_range(values, include=(0.0, KRATKY_REFERENCES["chain_plateau"] * 1.1))
         else:
             xr_ = (0.0, float(self.q.max()) * 1.02)
-            yr = value_range(values, include=(0.0,))
+            yr = value_range(values, upper=99.9, include=(0.0,))
         with self._xs.hold_sync():
             self._xs.min, self._xs.max = xr_
         with self._ys.hold_sync():

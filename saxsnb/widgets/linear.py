@@ -14,6 +14,7 @@ from ..analysis.display import (
     line_residuals,
     linear_x,
     q_from_linear_x,
+    value_range,
 )
 from ..analysis.linear import linearize
 from ..errors import SaxsInputError
@@ -175,6 +176,7 @@ class LinearFitPanel(PanelBase):
             height="300px",
         )
         rxs, rys = bq.LinearScale(), bq.LinearScale()
+        self._rxs, self._rys = rxs, rys
         self.residuals = bq.Scatter(
             x=np.zeros(0), y=np.zeros(0), scales={"x": rxs, "y": rys}, colors=[ROLE["data"]], default_size=12
         )
@@ -422,11 +424,29 @@ class LinearFitPanel(PanelBase):
         if xin.size:
             with self.zero_line.hold_sync():
                 self.zero_line.x = np.array([xin[0], xin[-1]])
+        # the view is set explicitly: marks hidden for lack of data keep their old
+        # points, which must not stretch the axes
+        self._set_view(self._xs, (x_start, x_end), pad=0.02)
+        self._set_view(self._ys, value_range(np.concatenate([y, fy]), lower=0, upper=100, pad=0.05))
+        if rx.size:
+            self._set_view(self._rxs, (float(rx.min()), float(rx.max())), pad=0.03)
+            self._set_view(self._rys, value_range(ry, lower=0, upper=100, pad=0.1, include=(0.0,)))
         self._move_selector(q_lo, q_hi)
         cx, cy, _ = finite_points([float(self.scan_values[i])], [vals.get(self.size_var, np.nan)])
         self._set_points(self.trend_current, cx, cy)
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
         self.result_text.value = self._result_html(vals)
+
+    @staticmethod
+    def _set_view(scale, rng, pad: float = 0.0) -> None:
+        lo, hi = float(rng[0]), float(rng[1])
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            return
+        span = hi - lo if hi > lo else max(abs(hi), 1.0)
+        lo, hi = lo - pad * span, hi + pad * span
+        if scale.min != lo or scale.max != hi:
+            with scale.hold_sync():
+                scale.min, scale.max = lo, hi
 
     def _result_html(self, vals: dict) -> str:
         unit = self._size_unit()
