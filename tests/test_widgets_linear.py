@@ -201,3 +201,12 @@ def test_failed_automatic_range_clears_the_brush(rng):
     assert p.selector.selected is None and p.q_range is None
     assert p.status.endswith(str(p.result.status.values[0])) and p.result.status.values[0] != "ok"
     assert "n/a" in p.result_text.value
+
+
+def test_panels_on_a_dask_series(series):
+    lazy = series.chunk({"frame": 2})
+    p = LinearFitPanel(lazy, q_range=(0.05, 0.3), frame=3)
+    xr.testing.assert_identical(p.result.compute(), series.isel(frame=[3]).saxs.guinier(q_range=(0.05, 0.3)))
+    k = KratkyPanel(lazy, frame=3)
+    direct = series.isel(frame=[3]).saxs.kratky(normalize="rg").to_dataset(name="kratky")
+    xr.testing.assert_identical(k.result.compute(), direct)

@@ -171,7 +171,7 @@ class KratkyPanel(PanelBase):
         self.summary_text = widgets.HTML("")
         self._summary = None
         try:
-            self._summary = self.ds.saxs.kratky_summary()
+            self._summary = self.ds.saxs.kratky_summary().compute()
             for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
                 x, y, frames = finite_points(self.scan_values, self._summary[var].values)
                 with mark.hold_sync():
@@ -204,7 +204,7 @@ class KratkyPanel(PanelBase):
         """
         key = normalize or "plain"
         if key not in self._series_cache:
-            self._series_cache[key] = self.ds.saxs.kratky(normalize=normalize)
+            self._series_cache[key] = self.ds.saxs.kratky(normalize=normalize).compute()
         return self._series_cache[key]
 
     def _update(self) -> None:

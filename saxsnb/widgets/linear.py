@@ -282,7 +282,7 @@ class LinearFitPanel(PanelBase):
         if key not in self._cache:
             if len(self._cache) >= 6:
                 self._cache.pop(next(k for k in self._cache if k is not None))
-            self._cache[key] = self._call(self.ds, key)
+            self._cache[key] = self._call(self.ds, key).compute()  # once, also for a dask series
         return self._cache[key]
 
     def _compute_trend(self) -> None:
