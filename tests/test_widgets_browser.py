@@ -146,3 +146,11 @@ def test_single_frame_and_unlabelled_series(rng):
     b = SeriesBrowser(saxsnb.from_arrays(q, np.vstack([I, 2 * I]), 0.01 * np.vstack([I, 2 * I])))
     b.frame = 1
     assert b.frame_label() == "frame 1" and b.scan_label == "frame"
+
+
+def test_curve_panel_rejects_a_background_on_another_grid(series):
+    ds, _ = series
+    q = np.linspace(0.1, 2.0, 30)
+    other = saxsnb.from_arrays(q, np.ones((1, 30)), np.full((1, 30), 0.1))
+    c = CurvePanel(ds, other)
+    assert c.background is None and "q grid" in c.status and not c.background_line.visible

@@ -57,6 +57,18 @@ class CurvePanel(PanelBase):
 
     def __init__(self, ds, background=None, *, frame: int = 0, overlay=(), every: int = 0, **kwargs):
         self.background = None if background is None else validate(background)
+        self._background_note = ""
+        if self.background is not None:
+            bq_ = self.background["q"].values
+            if bq_.shape != ds["q"].values.shape or not np.allclose(bq_, ds["q"].values, rtol=1e-9):
+                self._background_note = "the background has another q grid: not drawn (regrid it first)"
+                self.background = None
+            elif self.background.sizes["frame"] not in (1, ds.sizes["frame"]):
+                self._background_note = (
+                    f"the background has {self.background.sizes['frame']} frames (need 1 or "
+                    f"{ds.sizes['frame']}): not drawn"
+                )
+                self.background = None
         self._init_overlay = [int(v) for v in overlay]
         self._init_every = int(every)
         super().__init__(ds, frame=frame, **kwargs)
@@ -234,7 +246,7 @@ class CurvePanel(PanelBase):
         if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:
             self._draw_background()
         self._set_result(self.ds.isel(frame=self.shown_frames()))
-        self.status = ""
+        self.status = self._background_note
 
     def _code_lines(self, target: str) -> list[str]:
         frames = self.shown_frames()
