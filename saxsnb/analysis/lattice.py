@@ -422,27 +422,37 @@ def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
     F, K = cost.shape
     if F == 0:
         return np.zeros(0, dtype=np.int64)
-    pa, pb = phase[:-1, :, None, :, None], phase[1:, None, :, None, :]
-    La, Lb = L[:-1, :, None, :, None], L[1:, None, :, None, :]
-    same = (pa == pb) & (pa >= 0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        dl = np.abs(np.log(Lb / La))
-    jump = np.where(same, jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2), 0.0)
+    ph = phase.astype(np.int8) if phase.size and phase.max() < 127 else phase
+    # state a (frame t, ka) -> state b (frame t+1, kb); slot sa of a holds the phase of slot
+    # sb of b: a phase kept, which costs a jump (the two slots of a state hold different
+    # phases, so at most two of the four slot pairs match and their sum is exact)
+    jump = np.zeros((F - 1, K, K))
+    kept = np.zeros((F - 1, K, K, 2), dtype=bool)
+    for sa in range(2):
+        for sb in range(2):
+            pa, pb = ph[:-1, :, None, sa], ph[1:, None, :, sb]
+            t, ka, kb = np.nonzero((pa == pb) & (pa >= 0))
+            with np.errstate(invalid="ignore", divide="ignore"):
+                dl = np.abs(np.log(L[t + 1, kb, sb] / L[t, ka, sa]))
+            jump[t, ka, kb] += jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2)
+            kept[t, ka, kb, sa] = True
     n_a = (phase[:-1] >= 0).sum(-1)[:, :, None]
     n_b = (phase[1:] >= 0).sum(-1)[:, None, :]
-    n_same = same.any(-1).sum(-1)
-    trans = weight * (jump.sum((-1, -2)) + switch_cost * (n_a + n_b - 2 * n_same))
+    n_same = kept.sum(-1)
+    trans = weight * (jump + switch_cost * (n_a + n_b - 2 * n_same))
     back = np.zeros((F, K), dtype=np.int64)
-    acc = cost[0].copy()
+    acc = np.empty((F, K))  # least cost of a path ending in each state
+    acc[0] = cost[0]
+    add, amin = np.add, np.minimum.reduce
     for t in range(1, F):
-        tot = acc[:, None] + trans[t - 1]
-        back[t] = np.argmin(tot, axis=0)
-        acc = tot[back[t], np.arange(K)] + cost[t]
-    path = np.zeros(F, dtype=np.int64)
-    path[-1] = int(np.argmin(acc))
+        tot = add(acc[t - 1, :, None], trans[t - 1])
+        tot.argmin(0, out=back[t])
+        add(amin(tot, 0), cost[t], out=acc[t])  # the minimum is the value at the argmin
+    path = [int(np.argmin(acc[-1]))]
+    bk = back.tolist()
     for t in range(F - 1, 0, -1):
-        path[t - 1] = back[t, path[t]]
-    return path
+        path.append(bk[t][path[-1]])
+    return np.array(path[::-1], dtype=np.int64)
 
 
 def _key(phase_pair, n):
