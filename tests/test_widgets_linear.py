@@ -86,9 +86,15 @@ def test_analysis_errors_show_in_status(series):
     p = LinearFitPanel(series)
     p.q_range = (0.5000, 0.5001)  # fewer than 3 points
     assert "too_few_points" in p.status and "too_few_points" in p.status_line.value
+    before = p.result
     p.q_range = (0.3, 0.3)  # rejected by the accessor: q_min must be below q_max
     assert "SaxsInputError" in p.status and "q_range" in p.status
     assert isinstance(p.last_error, SaxsInputError)
+    # the result and its code stay those of the last accepted range
+    assert p.result is before
+    ns = {"ds": series}
+    exec(p.to_code(), ns)
+    xr.testing.assert_identical(ns["result"], p.result)
     p.auto_button.click()
     assert p.q_range is None and p.status == ""
     with pytest.raises(SaxsInputError):

@@ -118,16 +118,20 @@ class LinearFitPanel(PanelBase):
             return ds.saxs.porod(q_range=q_range)
         return ds.saxs.guinier(q_range=q_range, shape=self.shape)
 
-    def _call_code(self, source: str) -> str:
-        qr = "None" if self.q_range is None else f"({self.q_range[0]!r}, {self.q_range[1]!r})"
+    def _call_code(self, source: str, q_range) -> str:
+        qr = "None" if q_range is None else f"({q_range[0]!r}, {q_range[1]!r})"
         if self.method == "porod":
             return f"{source}.saxs.porod(q_range={qr})"
         return f"{source}.saxs.guinier(q_range={qr}, shape={self.shape!r})"
 
     def _code_lines(self, target: str) -> list[str]:
-        if self.apply_to_all:
-            return [f"{target} = {self._call_code('ds')}  # every frame"]
-        return [f"{target} = {self._call_code(f'ds.isel(frame=[{self.frame}])')}  # {self.frame_label()}"]
+        # the choices behind the current ``result`` (a range the analysis rejected is
+        # shown in ``status`` but is not part of the result, nor of its code)
+        q_range, every, frame = getattr(self, "_result_choice", (self.q_range, self.apply_to_all, self.frame))
+        if every:
+            return [f"{target} = {self._call_code('ds', q_range)}  # every frame"]
+        call = self._call_code(f"ds.isel(frame=[{frame}])", q_range)
+        return [f"{target} = {call}  # {self.frame_label(frame)}"]
 
     # ------------------------------------------------------------------- build
     def _build(self):
@@ -373,6 +377,7 @@ class LinearFitPanel(PanelBase):
         except Exception as exc:
             self.report(exc, "fit")
             return
+        self._result_choice = (self.q_range, self.apply_to_all, i)
         if self.apply_to_all:
             if not frame_only or self.result is not series:
                 self._set_result(series)
