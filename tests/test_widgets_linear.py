@@ -216,3 +216,12 @@ def test_panels_on_a_dask_series(series):
     k = KratkyPanel(lazy, frame=3)
     direct = series.isel(frame=[3]).saxs.kratky(normalize="rg").to_dataset(name="kratky")
     xr.testing.assert_identical(k.result.compute(), direct)
+
+
+def test_kratky_panel_falls_back_to_plain_without_guinier_region():
+    q = np.linspace(0.05, 2.0, 120)
+    I = 1.0 + 5.0 * q**2  # rises with q: no Guinier region, no Rg
+    ds = saxsnb.from_arrays(q, np.vstack([I, I]), 0.01 * np.vstack([I, I]))
+    k = KratkyPanel(ds)
+    assert k.normalize is None and k.toggle.value == "plain" and k.status == ""
+    assert KratkyPanel(ds, normalize="rg").status.endswith("the dimensionless plot is undefined")

@@ -23,10 +23,12 @@ class KratkyPanel(PanelBase):
     ----------
     ds : xarray.Dataset
         The series.
-    normalize : None or "rg"
+    normalize : None, "rg" or "auto"
         None: plain Kratky plot q^2 I against q. "rg": dimensionless (q Rg)^2 I / I0
         against q Rg, with Rg and I0 from the automatic Guinier fit
         (``ds.saxs.kratky(normalize="rg")``; Durand et al. 2010, J. Struct. Biol. 169, 45).
+        "auto" (default): "rg" when the automatic Guinier fit succeeds for some frame,
+        else None (e.g. a series of Bragg peaks without a Guinier region).
     frame : int
         Initial frame.
 
@@ -54,7 +56,7 @@ class KratkyPanel(PanelBase):
 
     normalize = traitlets.Unicode(None, allow_none=True)
 
-    def __init__(self, ds, *, normalize: str | None = "rg", frame: int = 0, **kwargs):
+    def __init__(self, ds, *, normalize: str | None = "auto", frame: int = 0, **kwargs):
         self._init_normalize = normalize
         self._series_cache: dict = {}
         super().__init__(ds, frame=frame, **kwargs)
@@ -68,6 +70,14 @@ class KratkyPanel(PanelBase):
 
     # ------------------------------------------------------------------ build
     def _build(self):
+        self._summary = None
+        try:
+            self._summary = self.ds.saxs.kratky_summary().compute()
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "Kratky summary of the series")
+        if self._init_normalize == "auto":
+            rg = None if self._summary is None else np.asarray(self._summary["rg"].values, dtype=float)
+            self._init_normalize = "rg" if rg is not None and np.isfinite(rg).any() else None
         self.normalize = self._init_normalize
         xs, ys = bq.LinearScale(), bq.LinearScale()
         self._xs, self._ys = xs, ys
@@ -169,16 +179,11 @@ class KratkyPanel(PanelBase):
         )
         self.toggle.observe(self._on_toggle, "value")
         self.summary_text = widgets.HTML("")
-        self._summary = None
-        try:
-            self._summary = self.ds.saxs.kratky_summary().compute()
+        if self._summary is not None:
             for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
                 x, y, frames = finite_points(self.scan_values, self._summary[var].values)
-                with mark.hold_sync():
-                    mark.x, mark.y = x, y
-                self._point_frames[id(mark)] = frames
-        except Exception as exc:  # shown in the status line
-            self.report(exc, "Kratky summary of the series")
+                if self._set_points(mark, x, y):
+                    self._point_frames[id(mark)] = frames
         return [self.toggle, fig, self.summary_text, tfig]
 
     def _on_toggle(self, change) -> None:
