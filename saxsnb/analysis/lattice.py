@@ -103,25 +103,27 @@ def _nearest_table(phase: str):
 
 @cache
 def _phase_set(phases: tuple):
-    """Lookup tables of several phases concatenated, so all phases are matched at once.
+    """Lookup tables of several phases end to end, so all phases are matched at once.
 
-    Returns a dict: ``near`` / ``root`` (the :func:`_nearest_table` of each phase end to
-    end, ``n_off`` / ``n_top`` the start and last index of each), ``cum`` / ``mc`` (the
-    :func:`_miss_tables`, ``c_off`` / ``c_top``), ``first`` (nph, 3) sqrt of the first
-    allowed s of each phase, and ``s_root`` = sqrt(s) by s.
+    Returns a dict: ``s`` / ``root`` / ``mc``, for each entry of the
+    :func:`_nearest_table` of each phase, the nearest allowed s (float, 0 = none), its
+    square root and its :data:`MISS_COST`; ``n_off`` / ``n_top`` the first and last
+    entry of each phase; ``cum`` the cumulative miss cost by s of each phase
+    (:func:`_miss_tables`) end to end, ``c_off`` / ``c_top`` likewise; ``first``
+    (n_phases, 3) sqrt of the first allowed s of each phase.
     """
-    parts = {k: [] for k in ("near", "root", "cum", "mc", "n_off", "n_top", "c_off", "c_top", "first")}
+    parts = {k: [] for k in ("s", "root", "mc", "cum", "n_off", "n_top", "c_off", "c_top", "first")}
     n_pos = c_pos = 0
-    smax = 0
     for ph in phases:
         nearest, root = _nearest_table(ph)
         cum, by_s = _miss_tables(ph)
         s_list = _table(ph)[0]
         if s_list.size < _ANCHOR_REFLECTIONS:  # pragma: no cover - every table is longer
             raise ValueError(f"{ph}: fewer than {_ANCHOR_REFLECTIONS} reflections")
-        smax = max(smax, int(s_list.max()))
-        for key, val in (("near", nearest), ("root", root), ("cum", cum), ("mc", by_s)):
-            parts[key].append(val)
+        parts["s"].append(nearest.astype(float))
+        parts["root"].append(root)
+        parts["mc"].append(by_s[nearest])  # by_s[0] = 0: no reflection, no cost
+        parts["cum"].append(cum)
         parts["n_off"].append(n_pos)
         parts["n_top"].append(nearest.size - 1)
         parts["c_off"].append(c_pos)
@@ -129,68 +131,87 @@ def _phase_set(phases: tuple):
         parts["first"].append(np.sqrt(s_list[:_ANCHOR_REFLECTIONS]))
         n_pos += nearest.size
         c_pos += cum.size
-    near = np.concatenate(parts["near"])
-    return {
-        "near": near.astype(np.int16 if near.max() < 2**15 else np.int64),
-        "root": np.concatenate(parts["root"]),
-        "cum": np.concatenate(parts["cum"]),
-        "mc": np.concatenate(parts["mc"]),
-        "n_off": np.array(parts["n_off"], dtype=np.intp),
-        "n_top": np.array(parts["n_top"], dtype=float),
-        "c_off": np.array(parts["c_off"], dtype=np.intp),
-        "c_top": np.array(parts["c_top"], dtype=float),
-        "first": np.stack(parts["first"]),
-        "s_root": np.sqrt(np.arange(smax + 1, dtype=float)),
-    }
+    out = {k: np.concatenate(parts[k]) for k in ("s", "root", "mc", "cum")}
+    out.update(
+        n_off=np.array(parts["n_off"], dtype=np.intp),
+        n_top=np.array(parts["n_top"], dtype=float),
+        c_off=np.array(parts["c_off"], dtype=np.intp),
+        c_top=np.array(parts["c_top"], dtype=float),
+        first=np.stack(parts["first"]),
+    )
+    return out
+
+
+def _sum_peaks(a):
+    """Sum over the last (peak) axis, one peak after the other.
+
+    Padding with zeros does not change the result, so it does not depend on how many
+    peaks the other frames of a block have (``np.sum`` switches to pairwise summation
+    from 8 terms on).
+    """
+    out = a[..., 0].copy()
+    for j in range(1, a.shape[-1]):
+        out += a[..., j]
+    return out
 
 
 def _match(tabs, ph_of, q, L, tol, err=True):
-    """Nearest allowed s for each observed q under metric L.
+    """Nearest allowed s for each observed q under each candidate metric L.
 
     q (B, P) NaN padded, sorted; L (B, N), candidate n a metric of phase ``ph_of[n]``
-    (tables from :func:`_phase_set`). Returns s (B, N, P) int (0 = none) and the relative
-    error |q L / sqrt(s) - 1| (B, N, P), NaN where unassigned (None with ``err=False``).
+    (tables from :func:`_phase_set`). Arrays are laid out (B, P, N), candidates last.
+    Returns ``s`` (float, 0 = none), ``root`` = sqrt(s) (0 = none), ``mc`` the miss
+    cost of s (0 = none) and ``err`` the relative error |q L / sqrt(s) - 1| (NaN =
+    none); ``mc`` and ``err`` are None with ``err=False``.
     """
-    x = q[:, None, :] * L[:, :, None]  # = sqrt of (q L)^2
+    x = q[:, :, None] * L[:, None, :]  # = sqrt of (q L)^2
     y = x * x
     y *= _GRID
     # NaN / beyond the table -> the last entry, which holds no reflection
-    np.fmin(y, tabs["n_top"][ph_of][None, :, None], out=y)
+    np.fmin(y, tabs["n_top"][ph_of], out=y)
     i = y.astype(np.intp)
-    i += tabs["n_off"][ph_of][None, :, None]
-    s = tabs["near"][i]
-    e = tabs["root"][i]
+    i += tabs["n_off"][ph_of]
+    s = tabs["s"].take(i)
+    root = tabs["root"].take(i)
+    e = x
     with np.errstate(invalid="ignore"):
-        np.divide(x, e, out=e)
+        np.divide(x, root, out=e)
     e -= 1.0
     np.abs(e, out=e)
-    s *= e <= tol
+    ok = e <= tol
+    s *= ok
     # one observed peak per reflection: q is sorted, so two peaks claiming the same s are
     # neighbours; keep the closer one
-    same = s[..., 1:] == s[..., :-1]
-    same &= s[..., 1:] > 0
+    same = s[:, 1:] == s[:, :-1]
+    same &= s[:, 1:] > 0
     if same.any():
-        right_worse = same & (e[..., 1:] >= e[..., :-1])
+        right_worse = same & (e[:, 1:] >= e[:, :-1])
         drop = np.zeros(s.shape, dtype=bool)
-        drop[..., 1:] |= right_worse
-        drop[..., :-1] |= same & ~right_worse
-        s[drop] = 0
+        drop[:, 1:] |= right_worse
+        drop[:, :-1] |= same & ~right_worse
+        ok &= ~drop
+        s *= ok
+    root *= ok
     if not err:
-        return s, None
-    e[s == 0] = np.nan
-    return s, e
+        return s, root, None, None
+    mc = tabs["mc"].take(i)
+    mc *= ok
+    e[~ok] = np.nan
+    return s, root, mc, e
 
 
-def _refine(s, w, q0, wq, s_root, sigma=True, finite=True):
+def _refine(s, w, q0, wq, root=None, sigma=True, finite=True):
     """Weighted least squares of q = k sqrt(s); returns L = 1/k and sigma_L.
 
-    s (..., P) assigned s (0 = none); w weights 1/sigma_q^2, q0 positions (NaN -> 0),
-    wq = w q0, all broadcastable to s; ``finite``: w and wq are finite, so unassigned
-    peaks drop out as 0 * finite. Sigma of k from (sum w s)^-1/2 scaled by
-    sqrt(chi2_red) when chi2_red > 1 (more than one peak).
+    s (..., P) assigned s (0 = none), ``root`` its square root (default computed); w
+    weights 1/sigma_q^2, q0 positions (NaN -> 0), wq = w q0, all broadcastable to s;
+    ``finite``: w and wq are finite, so unassigned peaks drop out as 0 * finite. Sigma
+    of k from (sum w s)^-1/2 scaled by sqrt(chi2_red) when chi2_red > 1 (more than one
+    peak).
     """
     m = s > 0
-    root = s_root[s]
+    if root is None:
+        root = np.sqrt(s.astype(float))
     if not finite:
         w, wq = np.where(m, w, 0.0), np.where(m, wq, 0.0)
     sw = np.sum(w * s, axis=-1)
@@ -210,6 +231,30 @@ def _refine(s, w, q0, wq, s_root, sigma=True, finite=True):
     return L, sL
 
 
+def _refine_candidates(s, root, w, q0, wq, sigma=True, finite=True):
+    """:func:`_refine` for arrays laid out (B, P, N) (w, q0, wq (B, P, 1)); sums run
+    over the peak axis one peak after the other."""
+    if not finite:
+        m = s > 0
+        w, wq = np.where(m, w, 0.0), np.where(m, wq, 0.0)
+    sw = (w * s).sum(axis=1)  # a middle axis: summed one peak after the other
+    with np.errstate(all="ignore"):
+        k = (wq * root).sum(axis=1) / sw
+        if not sigma:
+            return 1.0 / k, None
+        m = s > 0
+        n = m.sum(axis=1)
+        d = q0 - k[:, None, :] * root
+        d *= d
+        d *= np.where(m, w, 0.0)
+        chi = d.sum(axis=1)
+        red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
+        sk = np.sqrt(np.maximum(red, 1.0) / sw)
+        L = 1.0 / k
+        sL = sk / k**2
+    return L, sL
+
+
 def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
     """Best ``_KEEP`` distinct lattices of every phase for each frame.
 
@@ -221,32 +266,34 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
     C = qa.shape[1] * na  # candidates per phase: each anchor as each first reflection
     ph_of = np.repeat(np.arange(nph), C)
     L0 = (tabs["first"][None, :, None, :] / qa[:, None, :, None]).reshape(B, nph * C)
-    w3, q03, wq3 = w[:, None, :], q0[:, None, :], wq[:, None, :]
-    s, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, err=False)
-    L, _ = _refine(s, w3, q03, wq3, tabs["s_root"], sigma=False, finite=finite)
+    w3, q03, wq3 = w[:, :, None], q0[:, :, None], wq[:, :, None]
+    s, root, _, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, err=False)
+    L, _ = _refine_candidates(s, root, w3, q03, wq3, sigma=False, finite=finite)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
-    s, err = _match(tabs, ph_of, q, L, tol)
-    L, sL = _refine(s, w3, q03, wq3, tabs["s_root"], finite=finite)
+    s, root, mc, err = _match(tabs, ph_of, q, L, tol)
+    L, sL = _refine_candidates(s, root, w3, q03, wq3, finite=finite)
     matched = s > 0
-    n_match = matched.sum(-1)  # one peak per reflection (see _match)
+    n_match = matched.sum(1)  # one peak per reflection (see _match)
     # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
     # peak matches. Their cost is the cumulative cost of all allowed reflections in that
     # range (a table over s) minus the cost of the matched ones.
-    cum_cost, mcost = tabs["cum"], tabs["mc"]
-    top = tabs["c_top"][ph_of][None, :]
-    off = tabs["c_off"][ph_of][None, :]
+    cum_cost = tabs["cum"]
+    top = tabs["c_top"][ph_of]
+    off = tabs["c_off"][ph_of]
     with np.errstate(invalid="ignore"):
-        q_hi = np.where(matched, q[:, None, :], -np.inf).max(-1) * (1 + tol)
+        q_hi = np.where(matched, q[:, :, None], -np.inf).max(1) * (1 + tol)
         x_hi = np.nan_to_num((q_hi * L) ** 2, copy=False, nan=0.0, posinf=0.0, neginf=0.0)
         x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, copy=False, nan=0.0, posinf=0.0)
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
     in_range = np.where(hi > lo, cum_cost[hi + off] - cum_cost[lo + off], 0.0)
-    miss = np.maximum(in_range - np.sum(mcost[s + off[..., None]], axis=-1), 0.0)
+    miss = np.maximum(in_range - mc.sum(1), 0.0)
     with np.errstate(invalid="ignore"):
-        fitc = 0.25 * np.sum(np.where(matched, (err / tol) ** 2, 0.0), axis=-1)
+        e2 = err / tol
+        e2 *= e2
+        fitc = 0.25 * np.where(matched, e2, 0.0).sum(1)
     valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
-    cost = np.sum(np.where(matched, 0.0, unexpl[:, None, :]), axis=-1) + miss + fitc
+    cost = np.where(matched, 0.0, unexpl[:, :, None]).sum(1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
     # keep the best _KEEP candidates of each phase with distinct lattices
     c = cost.reshape(B, nph, C)
@@ -261,12 +308,17 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
             same = np.abs(L3 / Lj - 1.0) <= tol
         c = np.where(same, np.inf, c)
     J = (np.concatenate(keep, axis=2) + (np.arange(nph) * C)[None, :, None]).reshape(B, nph * _KEEP)
-    take = lambda a: np.take_along_axis(a, J if a.ndim == 2 else J[..., None], 1)  # noqa: E731
+
+    def take(a):
+        if a.ndim == 2:
+            return np.take_along_axis(a, J, 1)
+        return np.take_along_axis(a, J[:, None, :], 2).transpose(0, 2, 1)  # (B, M, P)
+
     return {
         "L": take(L),
         "sL": take(sL),
-        "s": take(s),
-        "err": take(err),
+        "s": take(s).astype(np.int64),
+        "err": np.ascontiguousarray(take(err)),
         "miss": take(miss),
         "fit": take(fitc),
         "cost": np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP),
@@ -333,11 +385,11 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
     cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol)
     if focus is not None:  # true costs: every unexplained peak counts
-        extra = np.sum(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0), axis=-1)
+        extra = _sum_peaks(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0))
         cat["cost"] = cat["cost"] + extra
     tab = _hypothesis_table(len(phases), max_phases)
     M = tab["M"]
-    cost = [unexpl.sum(-1)[:, None], cat["cost"]]
+    cost = [_sum_peaks(unexpl)[:, None], cat["cost"]]
     sub = np.zeros(B, dtype=bool)
     if max_phases >= 2:
         a, b = tab["a"], tab["b"]
@@ -359,7 +411,7 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
             cs = cat["cost"][rows]
             miss, fit = cat["miss"][rows], cat["fit"][rows]
             pc = (
-                np.sum(np.where(explained, 0.0, unexpl[rows][:, None, :]), -1)
+                _sum_peaks(np.where(explained, 0.0, unexpl[rows][:, None, :]))
                 + miss[:, a]
                 + miss[:, b]
                 + fit[:, a]
@@ -453,6 +505,30 @@ def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
     for t in range(F - 1, 0, -1):
         path.append(bk[t][path[-1]])
     return np.array(path[::-1], dtype=np.int64)
+
+
+#: Work-array size (elements) aimed at per block of frames: about 1 MB, cache sized.
+_BLOCK_ELEMENTS = 2**17
+
+
+def _blocks(rows, n_obs, n_anchor, nph, block):
+    """Split ``rows`` into blocks of frames with the same number of peaks.
+
+    No padded peak columns are carried along, and the block size follows the size of
+    the (frames, peaks, candidates) work arrays, at most ``block`` frames. Results do
+    not depend on the blocks (sums over peaks run one peak after the other).
+    """
+    rows = rows[np.argsort(n_obs[rows], kind="stable")]
+    n_sorted = n_obs[rows]
+    edges = np.flatnonzero(np.diff(n_sorted)) + 1
+    for grp in np.split(rows, edges):
+        if grp.size == 0:
+            continue
+        n = max(int(n_obs[grp[0]]), 1)
+        per_frame = n * nph * _ANCHOR_REFLECTIONS * min(n_anchor, n)
+        size = int(min(max(_BLOCK_ELEMENTS // per_frame, 16), max(block, 1)))
+        for b0 in range(0, grp.size, size):
+            yield grp[b0 : b0 + size]
 
 
 def _key(phase_pair, n):
@@ -588,7 +664,6 @@ def index_peaks(
     q0 = np.where(present, q, 0.0)
     wq = w * q0
     finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
-    s_root = _phase_set(phases)["s_root"]
     st = np.ones_like(q) if strength is None else np.asarray(strength, dtype=float)
     st = np.where(present & np.isfinite(st) & (st > 0), st, np.where(present, 1e-3, 0.0))
     qlo = np.zeros(F) if q_min is None else np.broadcast_to(np.asarray(q_min, dtype=float), (F,))
@@ -645,16 +720,15 @@ def index_peaks(
             bk = np.minimum(bk, best_key[sl])
         best_key[sl] = bk
 
-    for b0 in range(0, F, block):
-        explain(np.arange(b0, min(F, b0 + block)), _ANCHOR_PEAKS)
+    for rows_ in _blocks(np.arange(F), n_obs, _ANCHOR_PEAKS, nph, block):
+        explain(rows_, _ANCHOR_PEAKS)
     # frames whose best explanation leaves two or more peaks unexplained and that have
     # more peaks than anchors: again with every peak as an anchor, so that a weak
     # coexisting phase (none of its peaks among the strongest) can still be found
     if max_phases >= 2:
         unexplained = present & (st_slot[:, 0] < 0)
         again = np.nonzero((unexplained.sum(-1) >= 2) & (n_obs > 2))[0]
-        for b0 in range(0, again.size, block):
-            rows_ = again[b0 : b0 + block]
+        for rows_ in _blocks(again, n_obs, P, nph, block):
             explain(rows_, P, unexplained[rows_])
     # choose a state per frame
     choice = np.zeros(F, dtype=np.int64)  # states are sorted: 0 = frame's best
@@ -677,7 +751,7 @@ def index_peaks(
     tot = rho.sum(-1)
     for j in range(2):
         sj = np.where(ch_slot == j, ch_s, 0)
-        L, sL = _refine(sj, w, q0, wq, s_root, finite=finite)
+        L, sL = _refine(sj, w, q0, wq, finite=finite)
         with np.errstate(invalid="ignore", divide="ignore"):
             score[:, j] = np.where(tot > 0, np.where(ch_slot == j, rho, 0).sum(-1) / tot, 0.0)
         for k, ph in enumerate(phases):
