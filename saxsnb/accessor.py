@@ -415,7 +415,8 @@ class SaxsAccessor:
         names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or (
             "lamellar", "hexagonal", "Pn3m", "Im3m", "Ia3d", "Fd3m", "Pm3n", "Fm3m")
         scan = idx.attrs.get("scan") or self._scan_name(idx)
-        x = idx[scan].values if scan in idx.coords else idx["frame"].values
+        x = self._scan_values(scan, idx.sizes["frame"])
+        x = idx["frame"].values if x is None else x
         known = ~np.isin(idx["status"].values, ["no_data", "not_enough_peaks_to_index", "no_phase_found"])
         m = phase_map(idx["phase"].values, x, known=known, lattice=idx["lattice"].values,
                       lattice_sigma=idx["lattice_sigma"].values, score=idx["score"].values, phases=names)
@@ -453,21 +454,36 @@ class SaxsAccessor:
 
         pm = self.phase_map() if pmap is None else pmap
         scan = pm.attrs.get("scan", "frame")
-        x = np.sort(np.asarray(pm[scan].values, dtype=float)) if scan in pm.coords else None
+        xs = self._scan_values(scan, pm.sizes["frame"])
+        x = None if xs is None or xs.dtype.kind not in "fiu" else np.sort(xs.astype(float))
         step = float(np.median(np.diff(x))) if x is not None and x.size > 1 else None
         res = {k: json.loads(pm.attrs[k]) for k in ("transitions", "coexistence", "bonnet")}
         return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step)
 
     def _scan_name(self, ds: xr.Dataset, name: str | None = None) -> str:
+        # scan coordinates are looked up on the series: a result may hold a variable
+        # of the same name (a peak "position" on a "position" scan)
+        src = self._ds
         name = name or self.scan
-        if name != "frame" and name not in ds.coords:
+        if name != "frame" and name not in src.coords:
             raise SaxsInputError(f"no coordinate {name!r} to order frames by", parameter="order_by")
-        return name if name in ds.coords else "frame"
+        return name if name in src.coords else "frame"
+
+    def _scan_values(self, name: str, n_frames: int) -> np.ndarray | None:
+        src = self._ds
+        if name in src.coords and src.sizes["frame"] == n_frames:
+            return np.asarray(src[name].values)
+        return None
 
     def _scan_order(self, ds: xr.Dataset, name: str | None = None) -> np.ndarray:
-        """Frame order along a scan coordinate (default the main scan; stable, NaN last)."""
-        name = self._scan_name(ds, name)
-        v = ds[name].values
+        """Frame order along a scan coordinate (default the main scan; stable, NaN last).
+
+        The values are read from the series itself: results share its frame axis, and
+        a result variable may carry the scan coordinate's name.
+        """
+        src = self._ds if self._ds.sizes["frame"] == ds.sizes["frame"] else ds
+        name = self._scan_name(src, name)
+        v = src[name].values
         if v.dtype.kind not in "fiu":
             return np.arange(ds.sizes["frame"])
         return np.argsort(np.where(np.isfinite(v), v, np.inf), kind="stable")
@@ -804,6 +820,12 @@ class SaxsAccessor:
         """
         ds = self._ds
         I, S = self.masked()
+        # scan coordinates are re-attached at the end, so an output may share a name
+        # with one (a peak "position" on a "position" scan)
+        I, S = I.reset_coords(drop=True), S.reset_coords(drop=True)
+        extra_args = tuple(
+            a.reset_coords(drop=True) if isinstance(a, xr.DataArray) else a for a in extra_args
+        )
         q = ds["q"]
         names = list(outputs)
 
@@ -844,8 +866,13 @@ class SaxsAccessor:
             data_vars[n] = da.assign_attrs(attrs)
         out = xr.Dataset(data_vars)
         for c in self.scan_coords:
-            out = out.assign_coords({c: ds[c]})
-        out = out.assign_coords(frame=ds["frame"])
+            if c in out.data_vars:  # keep both: the scan coordinate gets a prefix
+                out = out.assign_coords(
+                    {f"scan_{c}": ds[c].reset_coords(drop=True).assign_attrs(scan_coordinate=c)}
+                )
+            else:
+                out = out.assign_coords({c: ds[c].reset_coords(drop=True)})
+        out = out.assign_coords(frame=ds["frame"].reset_coords(drop=True))
         out.attrs = provenance(operation, parameters or kwargs)
         return out
 

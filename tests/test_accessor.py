@@ -70,3 +70,16 @@ def test_mask_becomes_nan_for_analysis(ds):
 def test_map_frames_single_output(ds):
     out = ds.saxs._map_frames(_frame_means, {"mean": OutputSpec(units="arb")}, operation="mean")
     np.testing.assert_allclose(out["mean"].values, ds.intensity.values.mean(axis=1))
+
+
+def test_output_named_like_a_scan_coordinate_keeps_both():
+    q = np.linspace(0.1, 2.0, 20)
+    ds = saxsnb.from_arrays(q, np.ones((3, 20)), np.ones((3, 20)), scan={"position": [0.0, 1.0, 2.0]})
+
+    def f(q, I, S):
+        return {"position": np.full(I.shape[0], 0.5)}
+
+    out = ds.saxs._map_frames(f, {"position": OutputSpec(units="1/nm")}, operation="f")
+    assert out["position"].attrs["units"] == "1/nm"
+    np.testing.assert_array_equal(out["scan_position"].values, [0.0, 1.0, 2.0])
+    assert out["scan_position"].attrs["scan_coordinate"] == "position"
