@@ -328,6 +328,7 @@ class SaxsAccessor:
         use_scan_prior: bool = True,
         prior_weight: float = 1.0,
         order_by: str | None = None,
+        max_relative_width: float = 0.1,
     ) -> xr.Dataset:
         """Assign each frame's peaks to one phase or two coexisting phases.
 
@@ -339,6 +340,12 @@ class SaxsAccessor:
         order_by : str, optional
             Coordinate along which the scan prior and re-tracking run (default: the
             one used by :meth:`find_peaks`, else the main scan).
+        max_relative_width : float
+            Peaks with FWHM / position above this are not taken as Bragg reflections
+            and are left out of indexing (counted in ``n_broad``). Form-factor maxima
+            of particles (relative widths ~0.2-0.6) would otherwise be indexed as a
+            lattice; mesophase reflections are typically far sharper (the demo phase
+            ramp: 0.004-0.09). Common practice; raise it for small, disordered domains.
 
         Returns
         -------
@@ -360,8 +367,16 @@ class SaxsAccessor:
         params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
                       use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight))
         get = lambda v: pk[v].values[order] if v in pk.data_vars else None  # noqa: E731
-        res = index_peaks(get("position"), get("position_sigma"), get("prominence"),
+        pos = get("position")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            broad = get("fwhm") / pos > float(max_relative_width) if "fwhm" in pk.data_vars else pos != pos
+        pos = np.where(broad, np.nan, pos)
+        res = index_peaks(pos, get("position_sigma"), get("prominence"),
                           q_min=pk.attrs.get("q_min"), **params)
+        res["n_broad"] = broad.sum(axis=-1)
+        only_broad = (res["n_broad"] > 0) & ~np.isfinite(pos).any(axis=-1)
+        res["status"] = np.where(only_broad, "no_bragg_peaks", res["status"])
+        params["max_relative_width"] = float(max_relative_width)
         lab = np.char.add(np.char.add(res["peak_phase"], " "), res["hkl"])
         trk, _ = link_peaks(get("position"), get("position_sigma"), get("fwhm"),
                             labels=np.where(res["hkl"] != "", lab, ""))
@@ -374,7 +389,7 @@ class SaxsAccessor:
                 "score": ("frame", "slot"), "hkl": ("frame", "peak"), "peak_phase": ("frame", "peak"),
                 "track": ("frame", "peak")}
         units = {"lattice": "nm", "lattice_sigma": "nm", "score": "1", "cost": "1", "margin": "1",
-                 "n_unexplained": "1", "track": "1"}
+                 "n_unexplained": "1", "track": "1", "n_broad": "1"}
         out = xr.Dataset(
             {k: (dims.get(k, ("frame",)), np.asarray(v)[inv], {"units": units[k]} if k in units else {})
              for k, v in res.items()}
