@@ -155,35 +155,59 @@ def _sum_peaks(a):
     return out
 
 
-def _match(tabs, ph_of, q, L, tol, err=True):
+class _Scratch:
+    """Work arrays reused from one block of frames to the next.
+
+    Touching freshly allocated memory costs page faults (several times the arithmetic
+    done on it here), so the large (frames, peaks, candidates) arrays of one call of
+    :func:`index_peaks` live in a few buffers that every block reuses. Only scratch
+    space is kept, never a result.
+    """
+
+    def __init__(self):
+        self._buf = {}
+
+    def __call__(self, name, shape, dtype=float):
+        n = int(np.prod(shape))
+        b = self._buf.get(name)
+        if b is None or b.size < n:
+            b = self._buf[name] = np.empty(n, dtype=dtype)
+        return b[:n].reshape(shape)
+
+
+def _match(tabs, ph_of, q, L, tol, ws, err=True):
     """Nearest allowed s for each observed q under each candidate metric L.
 
     q (B, P) NaN padded, sorted; L (B, N), candidate n a metric of phase ``ph_of[n]``
-    (tables from :func:`_phase_set`). Arrays are laid out (B, P, N), candidates last.
-    Returns ``s`` (float, 0 = none), ``root`` = sqrt(s) (0 = none), ``mc`` the miss
-    cost of s (0 = none) and ``err`` the relative error |q L / sqrt(s) - 1| (NaN =
-    none); ``mc`` and ``err`` are None with ``err=False``.
+    (tables from :func:`_phase_set`); ``ws`` a :class:`_Scratch`. Arrays are laid out
+    (B, P, N), candidates last. Returns ``s`` (float, 0 = none), ``root`` = sqrt(s)
+    (0 = none), ``ok`` (s > 0), ``mc`` the miss cost of s (0 = none) and ``err`` the
+    relative error |q L / sqrt(s) - 1| (NaN = none); ``mc`` and ``err`` are None with
+    ``err=False``. The arrays are views of ``ws`` buffers, valid until the next call.
     """
-    x = q[:, :, None] * L[:, None, :]  # = sqrt of (q L)^2
-    y = x * x
+    shape = (q.shape[0], q.shape[1], L.shape[1])
+    x = np.multiply(q[:, :, None], L[:, None, :], out=ws("x", shape))  # = sqrt of (q L)^2
+    y = np.multiply(x, x, out=ws("y", shape))
     y *= _GRID
     # NaN / beyond the table -> the last entry, which holds no reflection
     np.fmin(y, tabs["n_top"][ph_of], out=y)
-    i = y.astype(np.intp)
+    i = ws("i", shape, np.intp)
+    np.copyto(i, y, casting="unsafe")  # truncation, as astype
     i += tabs["n_off"][ph_of]
-    s = tabs["s"].take(i)
-    root = tabs["root"].take(i)
+    s = tabs["s"].take(i, out=ws("s", shape), mode="clip")  # i is within the table
+    root = tabs["root"].take(i, out=ws("root", shape), mode="clip")
     e = x
     with np.errstate(invalid="ignore"):
         np.divide(x, root, out=e)
     e -= 1.0
     np.abs(e, out=e)
-    ok = e <= tol
+    ok = np.less_equal(e, tol, out=ws("ok", shape, bool))
     s *= ok
     # one observed peak per reflection: q is sorted, so two peaks claiming the same s are
     # neighbours; keep the closer one
-    same = s[:, 1:] == s[:, :-1]
-    same &= s[:, 1:] > 0
+    sh = (shape[0], shape[1] - 1, shape[2])
+    same = np.equal(s[:, 1:], s[:, :-1], out=ws("same", sh, bool))
+    same &= np.greater(s[:, 1:], 0.0, out=ws("pos", sh, bool))
     if same.any():
         right_worse = same & (e[:, 1:] >= e[:, :-1])
         drop = np.zeros(s.shape, dtype=bool)
@@ -193,11 +217,11 @@ def _match(tabs, ph_of, q, L, tol, err=True):
         s *= ok
     root *= ok
     if not err:
-        return s, root, None, None
-    mc = tabs["mc"].take(i)
+        return s, root, ok, None, None
+    mc = tabs["mc"].take(i, out=ws("mc", shape), mode="clip")
     mc *= ok
-    e[~ok] = np.nan
-    return s, root, mc, e
+    np.copyto(e, np.nan, where=np.logical_not(ok, out=ws("nok", shape, bool)))
+    return s, root, ok, mc, e
 
 
 def _refine(s, w, q0, wq, root=None, sigma=True, finite=True):
@@ -231,22 +255,22 @@ def _refine(s, w, q0, wq, root=None, sigma=True, finite=True):
     return L, sL
 
 
-def _refine_candidates(s, root, w, q0, wq, sigma=True, finite=True):
-    """:func:`_refine` for arrays laid out (B, P, N) (w, q0, wq (B, P, 1)); sums run
-    over the peak axis one peak after the other."""
+def _refine_candidates(s, root, ok, w, q0, wq, ws, sigma=True, finite=True):
+    """:func:`_refine` for arrays laid out (B, P, N) (w, q0, wq (B, P, 1)), ``ok`` =
+    s > 0; sums run over the peak axis one peak after the other."""
     if not finite:
-        m = s > 0
-        w, wq = np.where(m, w, 0.0), np.where(m, wq, 0.0)
-    sw = (w * s).sum(axis=1)  # a middle axis: summed one peak after the other
+        w, wq = np.where(ok, w, 0.0), np.where(ok, wq, 0.0)
+    t = np.multiply(w, s, out=ws("t", s.shape))
+    sw = t.sum(axis=1)  # a middle axis: summed one peak after the other
     with np.errstate(all="ignore"):
-        k = (wq * root).sum(axis=1) / sw
+        k = np.multiply(wq, root, out=t).sum(axis=1) / sw
         if not sigma:
             return 1.0 / k, None
-        m = s > 0
-        n = m.sum(axis=1)
-        d = q0 - k[:, None, :] * root
+        n = ok.sum(axis=1)
+        d = np.multiply(k[:, None, :], root, out=t)
+        np.subtract(q0, d, out=d)
         d *= d
-        d *= np.where(m, w, 0.0)
+        d *= np.multiply(w, ok, out=ws("t2", s.shape))  # w where assigned, else 0
         chi = d.sum(axis=1)
         red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
         sk = np.sqrt(np.maximum(red, 1.0) / sw)
@@ -255,11 +279,12 @@ def _refine_candidates(s, root, w, q0, wq, sigma=True, finite=True):
     return L, sL
 
 
-def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
+def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
     """Best ``_KEEP`` distinct lattices of every phase for each frame.
 
-    q, w, q0, wq, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,).
-    Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by phase.
+    q, w, q0, wq, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,); ``ws`` a
+    :class:`_Scratch`. Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by
+    phase.
     """
     B, P = q.shape
     nph, na = tabs["first"].shape
@@ -267,12 +292,11 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
     ph_of = np.repeat(np.arange(nph), C)
     L0 = (tabs["first"][None, :, None, :] / qa[:, None, :, None]).reshape(B, nph * C)
     w3, q03, wq3 = w[:, :, None], q0[:, :, None], wq[:, :, None]
-    s, root, _, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, err=False)
-    L, _ = _refine_candidates(s, root, w3, q03, wq3, sigma=False, finite=finite)
+    s, root, ok, _, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, ws, err=False)
+    L, _ = _refine_candidates(s, root, ok, w3, q03, wq3, ws, sigma=False, finite=finite)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
-    s, root, mc, err = _match(tabs, ph_of, q, L, tol)
-    L, sL = _refine_candidates(s, root, w3, q03, wq3, finite=finite)
-    matched = s > 0
+    s, root, matched, mc, err = _match(tabs, ph_of, q, L, tol, ws)
+    L, sL = _refine_candidates(s, root, matched, w3, q03, wq3, ws, finite=finite)
     n_match = matched.sum(1)  # one peak per reflection (see _match)
     # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
     # peak matches. Their cost is the cumulative cost of all allowed reflections in that
@@ -280,20 +304,25 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol):
     cum_cost = tabs["cum"]
     top = tabs["c_top"][ph_of]
     off = tabs["c_off"][ph_of]
+    t = ws("t", s.shape)
+    t.fill(-np.inf)
+    np.copyto(t, q[:, :, None], where=matched)
     with np.errstate(invalid="ignore"):
-        q_hi = np.where(matched, q[:, :, None], -np.inf).max(1) * (1 + tol)
+        q_hi = t.max(1) * (1 + tol)
         x_hi = np.nan_to_num((q_hi * L) ** 2, copy=False, nan=0.0, posinf=0.0, neginf=0.0)
         x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, copy=False, nan=0.0, posinf=0.0)
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
     in_range = np.where(hi > lo, cum_cost[hi + off] - cum_cost[lo + off], 0.0)
     miss = np.maximum(in_range - mc.sum(1), 0.0)
+    unmatched = ws("nok", s.shape, bool)  # = ~matched, left by _match
     with np.errstate(invalid="ignore"):
-        e2 = err / tol
+        e2 = np.divide(err, tol, out=t)
         e2 *= e2
-        fitc = 0.25 * np.where(matched, e2, 0.0).sum(1)
+        np.copyto(e2, 0.0, where=unmatched)
+        fitc = 0.25 * e2.sum(1)
     valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
-    cost = np.where(matched, 0.0, unexpl[:, :, None]).sum(1) + miss + fitc
+    cost = np.multiply(unexpl[:, :, None], unmatched, out=t).sum(1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
     # keep the best _KEEP candidates of each phase with distinct lattices
     c = cost.reshape(B, nph, C)
@@ -358,14 +387,14 @@ def _hypothesis_table(nph: int, max_phases: int):
             "order": order, "starts": starts, "ukeys": ukeys}
 
 
-def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None):
+def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None, ws=None):
     """Costs of all one- and two-phase explanations of each frame.
 
     ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
     explain these peaks (e.g. the ones a first pass left unexplained); their costs are
-    then recomputed over all peaks. Returns ``cost`` (B, H) in the order of
-    :func:`_hypothesis_table`, ``rho`` (B, P), and what :func:`_states` needs to build
-    the explanations chosen.
+    then recomputed over all peaks. ``ws``: a :class:`_Scratch` shared by the blocks.
+    Returns ``cost`` (B, H) in the order of :func:`_hypothesis_table`, ``rho`` (B, P),
+    and what :func:`_states` needs to build the explanations chosen.
     """
     B, P = q.shape
     present = np.isfinite(q)
@@ -383,7 +412,8 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     q0 = np.where(present, q, 0.0)
     wq = w * q0
     finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
-    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol)
+    ws = _Scratch() if ws is None else ws
+    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol, ws)
     if focus is not None:  # true costs: every unexplained peak counts
         extra = _sum_peaks(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0))
         cat["cost"] = cat["cost"] + extra
@@ -679,12 +709,14 @@ def index_peaks(
     st_cost = np.full((F, Kv), np.inf)
     best_key = np.full((F, nkeys), np.inf)
     rho = np.zeros((F, P))
+    scratch = _Scratch()
+
     def explain(frames, n_anchor, focus=None):
         """Hypotheses for the frames ``frames`` (indices); fills the state arrays."""
         sl = frames
         pb = max(int(n_obs[sl].max()), 1)  # peaks are sorted, NaN last: drop empty columns
         H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance,
-                        n_anchor, None if focus is None else focus[:, :pb])
+                        n_anchor, None if focus is None else focus[:, :pb], scratch)
         cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
         rho[sl, :pb] = H["rho"]
