@@ -223,23 +223,22 @@ def detect_peaks(
     pv = smv - np.maximum(cmin[fi, np.maximum(qi - h2, 0)], cmin[fi, np.minimum(qi + h2, n_q - 1)])
     okv = (pv > min_prominence * nzv) & (smv > 0)
     fi, qi, pv, nzv = fi[okv], qi[okv], pv[okv], nzv[okv]
-    score = np.full(r.shape, -np.inf)
-    score[fi, qi] = pv / np.maximum(nzv, 1e-300)
-    prom = np.full(r.shape, np.nan)
-    prom[fi, qi] = pv
-    shoulder = np.zeros(r.shape, dtype=bool)
+    # candidates as lists: frame, q index, score, prominence (NaN for shoulders), shoulder
+    cand = [(fi, qi, pv / np.maximum(nzv, 1e-300), pv, np.zeros(fi.size, dtype=bool))]
     if shoulders and n_q > 4 * md + 4:
         # noise of -d2: sigma times the norm of the (smoothing then differencing) kernel
         imp = np.zeros(8 * int(np.ceil(max(smooth, 1))) + 9)
         imp[imp.size // 2] = 1.0
         ker = ndimage.gaussian_filter1d(imp, smooth) if smooth > 0 else imp
         kd2 = np.sqrt(np.sum((ker[:-2] - 2 * ker[1:-1] + ker[2:]) ** 2))
-        c = np.zeros_like(sm)
-        c[:, 1:-1] = sm[:, 1:-1] * 2.0 - sm[:, :-2] - sm[:, 2:]
-        high = (sm > (min_prominence * factor) * noise_b) & (c > (min_prominence * kd2) * noise_b)
+        # high enough, then (at those few points) curved enough: -d2 above its noise
+        high = sm > (min_prominence * factor) * noise_b
         high[:, : 2 * md + 2] = False
         high[:, -(2 * md + 2) :] = False
         fi, qi = np.nonzero(high)
+        cval = sm[fi, qi] * 2.0 - sm[fi, qi - 1] - sm[fi, qi + 1]
+        curved = cval > (min_prominence * kd2) * noise_b[fi, qi]
+        fi, qi = fi[curved], qi[curved]
         if fi.size:
             offs = np.arange(-md - 1, md + 2)
             win = sm[fi[:, None], qi[:, None] + offs]
@@ -249,32 +248,49 @@ def detect_peaks(
             far = ~is_max[fi[:, None], qi[:, None] + np.arange(-2 * md, 2 * md + 1)].any(axis=1)
             keep = (cv > min_prominence * nd2) & np.all(cw <= cv[:, None], axis=1) & far
             fi, qi = fi[keep], qi[keep]
-            shoulder[fi, qi] = True
-            score[fi, qi] = cv[keep] / np.maximum(nd2[keep], 1e-300)
+            cand.append((fi, qi, cv[keep] / np.maximum(nd2[keep], 1e-300), np.full(fi.size, np.nan),
+                         np.ones(fi.size, dtype=bool)))
+    c_f, c_q, c_score, c_prom, c_sh = (np.concatenate(a) for a in zip(*cand))
     k = min(int(max_peaks), n_q)
-    if k < n_q:
+    # frames with more than k candidates keep the k highest scores (argpartition over the
+    # frame's score row); all candidates of the other frames are kept
+    many = np.bincount(c_f, minlength=n_f) > k
+    if many.any():
+        loc = np.cumsum(many) - 1
+        in_many = many[c_f]
+        score = np.full((int(many.sum()), n_q), -np.inf)
+        score[loc[c_f[in_many]], c_q[in_many]] = c_score[in_many]
         top = np.argpartition(-score, k - 1, axis=-1)[:, :k]
-    else:
-        top = np.argsort(-score, axis=-1, kind="stable")[:, :k]
-    good = np.take_along_axis(score, top, axis=-1) > -np.inf
-    top = np.where(good, top, n_q + 1)
-    top = np.sort(top, axis=-1)
-    good = top <= n_q
-    top = np.where(good, top, 0)
-    p = np.where(good, np.take_along_axis(prom, top, axis=-1), np.nan)
+        chosen = np.zeros(score.shape, dtype=bool)
+        np.put_along_axis(chosen, top, np.take_along_axis(score, top, axis=-1) > -np.inf, axis=-1)
+        sel = ~in_many
+        sel[in_many] = chosen[loc[c_f[in_many]], c_q[in_many]]
+        c_f, c_q, c_prom, c_sh = c_f[sel], c_q[sel], c_prom[sel], c_sh[sel]
+    order = np.lexsort((c_q, c_f))  # by frame, then by q
+    c_f, c_q, c_prom, c_sh = c_f[order], c_q[order], c_prom[order], c_sh[order]
+    start = np.searchsorted(c_f, np.arange(n_f))
+    slot = np.arange(c_f.size) - start[c_f]
+    top = np.zeros((n_f, k), dtype=np.intp)
+    good = np.zeros((n_f, k), dtype=bool)
+    p = np.full((n_f, k), np.nan)
+    shoulder = np.zeros((n_f, k), dtype=bool)
+    top[c_f, slot] = c_q
+    good[c_f, slot] = True
+    p[c_f, slot] = c_prom
+    shoulder[c_f, slot] = c_sh
     # FWHM estimate: half-prominence crossings of the smoothed curve near each peak
     offs = np.arange(-half, half + 1)
-    cols = np.clip(top[..., None] + offs, 0, n_q - 1)
-    rows = np.arange(n_f)[:, None, None]
-    g = sm[rows, cols]
-    level = (sm[np.arange(n_f)[:, None], top] - 0.5 * np.nan_to_num(p))[..., None]
+    cols = np.clip(c_q[:, None] + offs, 0, n_q - 1)
+    g = sm[c_f[:, None], cols]
+    level = (sm[c_f, c_q] - 0.5 * np.nan_to_num(c_prom))[:, None]
     below = g < level
-    lb = below[..., :half][..., ::-1]
-    rb = below[..., half + 1 :]
+    lb = below[:, :half][:, ::-1]
+    rb = below[:, half + 1 :]
     lpos = np.where(lb.any(-1), np.argmax(lb, axis=-1) + 1, half)
     rpos = np.where(rb.any(-1), np.argmax(rb, axis=-1) + 1, half)
-    width_pts = np.where(good, np.maximum(lpos + rpos - 1, 1).astype(float), np.nan)
-    is_sh = good & shoulder[np.arange(n_f)[:, None], top]
+    width_pts = np.full((n_f, k), np.nan)
+    width_pts[c_f, slot] = np.maximum(lpos + rpos - 1, 1).astype(float)
+    is_sh = shoulder
     if is_sh.any():
         # a shoulder has no prominence of its own; its width is the frame's typical width
         p = np.where(is_sh, np.nan, p)
