@@ -75,6 +75,18 @@ def link_peaks(
     wid = np.zeros_like(q) if fwhm is None else np.asarray(fwhm, dtype=float)
     if sig.shape != q.shape or wid.shape != q.shape:
         raise SaxsInputError("position_sigma and fwhm must have the shape of position", parameter="position")
+    used = np.flatnonzero(ok.any(axis=0))
+    n_used = int(used[-1]) + 1 if used.size else 0
+    if F > 1 and 0 < n_used < P:  # trailing columns without peaks (NaN padding) cannot link
+        if labels is not None and np.shape(labels) != q.shape:
+            raise SaxsInputError("labels must have the shape of position", parameter="labels")
+        track, prev = link_peaks(
+            q[:, :n_used], sig[:, :n_used], wid[:, :n_used],
+            labels=None if labels is None else np.asarray(labels)[:, :n_used],
+            n_sigma=n_sigma, width_fraction=width_fraction, max_rounds=max_rounds,
+        )
+        pad = ((0, 0), (0, P - n_used))
+        return np.pad(track, pad, constant_values=-1), np.pad(prev, pad, constant_values=-1)
     sig = np.where(np.isfinite(sig), sig, 0.0)
     wid = np.where(np.isfinite(wid), wid, 0.0)
     prev = np.full((F, P), -1, dtype=np.int64)
