@@ -181,9 +181,10 @@ def _match(tabs, ph_of, q, L, tol, ws, err=True):
     q (B, P) NaN padded, sorted; L (B, N), candidate n a metric of phase ``ph_of[n]``
     (tables from :func:`_phase_set`); ``ws`` a :class:`_Scratch`. Arrays are laid out
     (B, P, N), candidates last. Returns ``s`` (float, 0 = none), ``root`` = sqrt(s)
-    (0 = none), ``ok`` (s > 0), ``mc`` the miss cost of s (0 = none) and ``err`` the
-    relative error |q L / sqrt(s) - 1| (NaN = none); ``mc`` and ``err`` are None with
-    ``err=False``. The arrays are views of ``ws`` buffers, valid until the next call.
+    (0 = none), ``ok`` (s > 0), ``nok`` (not ok), ``mc`` the miss cost of s (0 = none)
+    and ``err`` the relative error |q L / sqrt(s) - 1| (meaningless where not ok);
+    ``nok``, ``mc`` and ``err`` are None with ``err=False``. The arrays are views of
+    ``ws`` buffers, valid until the next call.
     """
     shape = (q.shape[0], q.shape[1], L.shape[1])
     x = np.multiply(q[:, :, None], L[:, None, :], out=ws("x", shape))  # = sqrt of (q L)^2
@@ -217,11 +218,10 @@ def _match(tabs, ph_of, q, L, tol, ws, err=True):
         s *= ok
     root *= ok
     if not err:
-        return s, root, ok, None, None
+        return s, root, ok, None, None, None
     mc = tabs["mc"].take(i, out=ws("mc", shape), mode="clip")
     mc *= ok
-    np.copyto(e, np.nan, where=np.logical_not(ok, out=ws("nok", shape, bool)))
-    return s, root, ok, mc, e
+    return s, root, ok, np.logical_not(ok, out=ws("nok", shape, bool)), mc, e
 
 
 def _refine(s, w, q0, wq, root=None, sigma=True, finite=True):
@@ -292,10 +292,10 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
     ph_of = np.repeat(np.arange(nph), C)
     L0 = (tabs["first"][None, :, None, :] / qa[:, None, :, None]).reshape(B, nph * C)
     w3, q03, wq3 = w[:, :, None], q0[:, :, None], wq[:, :, None]
-    s, root, ok, _, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, ws, err=False)
+    s, root, ok, _, _, _ = _match(tabs, ph_of, q, np.nan_to_num(L0, nan=0.0), tol, ws, err=False)
     L, _ = _refine_candidates(s, root, ok, w3, q03, wq3, ws, sigma=False, finite=finite)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
-    s, root, matched, mc, err = _match(tabs, ph_of, q, L, tol, ws)
+    s, root, matched, unmatched, mc, err = _match(tabs, ph_of, q, L, tol, ws)
     L, sL = _refine_candidates(s, root, matched, w3, q03, wq3, ws, finite=finite)
     n_match = matched.sum(1)  # one peak per reflection (see _match)
     # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
@@ -305,22 +305,21 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
     top = tabs["c_top"][ph_of]
     off = tabs["c_off"][ph_of]
     t = ws("t", s.shape)
-    t.fill(-np.inf)
-    np.copyto(t, q[:, :, None], where=matched)
     with np.errstate(invalid="ignore"):
-        q_hi = t.max(1) * (1 + tol)
+        # q > 0, so 0 (no match) stands in for -inf: both give x_hi = 0 below
+        q_hi = np.multiply(q0[:, :, None], matched, out=t).max(1) * (1 + tol)
         x_hi = np.nan_to_num((q_hi * L) ** 2, copy=False, nan=0.0, posinf=0.0, neginf=0.0)
         x_lo = np.nan_to_num((q_lo[:, None] * L) ** 2, copy=False, nan=0.0, posinf=0.0)
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
     in_range = np.where(hi > lo, cum_cost[hi + off] - cum_cost[lo + off], 0.0)
     miss = np.maximum(in_range - mc.sum(1), 0.0)
-    unmatched = ws("nok", s.shape, bool)  # = ~matched, left by _match
-    with np.errstate(invalid="ignore"):
-        e2 = np.divide(err, tol, out=t)
-        e2 *= e2
-        np.copyto(e2, 0.0, where=unmatched)
-        fitc = 0.25 * e2.sum(1)
+    # (err / tol)^2 where matched (err <= tol there), 0 elsewhere (fmin also maps NaN)
+    e2 = np.fmin(err, tol, out=t)
+    e2 /= tol
+    e2 *= e2
+    e2 *= matched
+    fitc = 0.25 * e2.sum(1)
     valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
     cost = np.multiply(unexpl[:, :, None], unmatched, out=t).sum(1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
@@ -343,11 +342,12 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
             return np.take_along_axis(a, J, 1)
         return np.take_along_axis(a, J[:, None, :], 2).transpose(0, 2, 1)  # (B, M, P)
 
+    s_kept = take(s).astype(np.int64)
     return {
         "L": take(L),
         "sL": take(sL),
-        "s": take(s).astype(np.int64),
-        "err": np.ascontiguousarray(take(err)),
+        "s": s_kept,
+        "err": np.where(s_kept > 0, take(err), np.nan),
         "miss": take(miss),
         "fit": take(fitc),
         "cost": np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP),
