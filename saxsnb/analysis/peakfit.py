@@ -260,7 +260,7 @@ def fit_peaks(
             if act.size == 0:
                 break
             A, g = normal(Jw[act], res[act])
-            D = np.einsum("nkk->nk", A)
+            D = A.diagonal(axis1=1, axis2=2)
             la = lam[act]
             Ad = A + (la[:, None] * (D + 1e-12 * D.max(axis=1, keepdims=True) + 1e-300))[:, :, None] * eye
             with np.errstate(all="ignore"):

@@ -74,7 +74,8 @@ def _noise_scale(intensity: np.ndarray, sigma: np.ndarray | None) -> np.ndarray:
     """Per-frame typical noise: median of sigma, else from point-to-point differences."""
     with np.errstate(invalid="ignore"):
         if sigma is not None:
-            med = _row_median(np.where(np.isfinite(sigma) & (sigma > 0), sigma, np.nan))
+            usable = np.isfinite(sigma) & (sigma > 0)
+            med = np.median(sigma, axis=-1) if usable.all() else _row_median(np.where(usable, sigma, np.nan))
         else:
             med = np.full(intensity.shape[:-1], np.nan)
         need = ~(med > 0)
@@ -207,7 +208,15 @@ def detect_peaks(
     factor = 1.0 / np.sqrt(2.0 * np.sqrt(np.pi) * smooth) if smooth > 0 else 1.0
     noise_b = np.broadcast_to(np.asarray(noise, dtype=float), r.shape)
     md = max(int(min_separation), 1)
-    is_max = sm == ndimage.maximum_filter1d(sm, size=2 * md + 1, axis=-1, mode="nearest")
+    if np.isfinite(sm).all():  # the maximum of its +-md window: not below any point of it
+        is_max = np.ones(sm.shape, dtype=bool)
+        for d in range(1, min(md, n_q - 1) + 1):
+            is_max[:, d:] &= sm[:, d:] >= sm[:, :-d]
+            is_max[:, :-d] &= sm[:, :-d] >= sm[:, d:]
+            is_max[:, :d] &= sm[:, :d] >= sm[:, :1]  # beyond the ends: the end values
+            is_max[:, -d:] &= sm[:, -d:] >= sm[:, -1:]
+    else:
+        is_max = sm == ndimage.maximum_filter1d(sm, size=2 * md + 1, axis=-1, mode="nearest")
     is_max[:, 1:] &= sm[:, 1:] > sm[:, :-1]
     is_max[:, 0] = False
     is_max[:, -1] = False
