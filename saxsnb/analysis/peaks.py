@@ -413,8 +413,13 @@ def find_peaks(
         raise SaxsInputError(
             f"q_range {q_range} leaves {int(sel.sum())} points; need at least 12", parameter="q_range"
         )
-    qs, Is = q[sel], I[:, sel]
-    Ss = None if S is None else S[:, sel]
+    # the searched part of the curves, C-ordered: selecting columns by a mask gives a
+    # Fortran-ordered copy, on which every operation along q is several times slower
+    if sel.all():
+        qs, Is, Ss = q, I, S  # only read below
+    else:
+        qs, Is = q[sel], np.ascontiguousarray(I[:, sel])
+        Ss = None if S is None else np.ascontiguousarray(S[:, sel])
     finite = np.isfinite(Is)
     enough = finite.sum(axis=1) >= 12
     if errors == "raise" and not enough.all():
