@@ -457,8 +457,10 @@ def find_peaks(
     close[:, 1:] |= pair
     close[:, :-1] |= pair
     if backfit and close.any():
+        busy = close.any(axis=1)[:, None]  # the other peaks' profiles are needed only here
         for _ in range(2):
-            total = _profile_sum(qs, fit, profile, resid.shape)
+            shapes = {k: np.where(busy, fit[k], np.nan) for k in ("position", "fwhm", "height", "eta")}
+            total = _profile_sum(qs, shapes, profile, resid.shape)
             ci2 = np.clip(np.searchsorted(qs, np.nan_to_num(fit["position"])), 0, qs.size - 1)
             idx2 = np.where(close & np.isfinite(fit["position"]), ci2, -1)
             fit2 = fit_peaks(
