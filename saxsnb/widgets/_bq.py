@@ -40,4 +40,24 @@ __all__ = [
     "LogScale",
     "Scatter",
     "BrushIntervalSelector",
+    "clickable_points",
 ]
+
+
+def clickable_points(scales, colour, label, *, size=16, marker="circle", **options):
+    """An empty Scatter whose points can be clicked (to jump to a frame), drawn fully
+    opaque whether selected or not."""
+    import numpy as np
+
+    options.setdefault("interactions", {"click": "select"})
+    options.setdefault("unselected_style", {"opacity": 1.0})
+    return Scatter(
+        x=np.zeros(0),
+        y=np.zeros(0),
+        scales=scales,
+        colors=[colour],
+        default_size=size,
+        marker=marker,
+        labels=[label],
+        **options,
+    )

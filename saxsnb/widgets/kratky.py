@@ -119,26 +119,10 @@ class KratkyPanel(PanelBase):
         tx, ty = bq.LinearScale(), bq.LinearScale()
         scan = np.asarray(self.scan_values, dtype=float)
         self._point_frames: dict = {}
-        self.trend_peak = bq.Scatter(
-            x=np.zeros(0),
-            y=np.zeros(0),
-            scales={"x": tx, "y": ty},
-            colors=[ROLE["trend"]],
-            default_size=16,
-            labels=["peak height"],
-            interactions={"click": "select"},
-            unselected_style={"opacity": 1.0},
-        )
-        self.trend_level = bq.Scatter(
-            x=np.zeros(0),
-            y=np.zeros(0),
-            scales={"x": tx, "y": ty},
-            colors=[OKABE_ITO["blue"]],
-            default_size=16,
-            marker="square",
-            labels=["high-q level (q Rg 4.5-6)"],
-            interactions={"click": "select"},
-            unselected_style={"opacity": 1.0},
+        trend_scales = {"x": tx, "y": ty}
+        self.trend_peak = bq.clickable_points(trend_scales, ROLE["trend"], "peak height")
+        self.trend_level = bq.clickable_points(
+            trend_scales, OKABE_ITO["blue"], "high-q level (q Rg 4.5-6)", marker="square"
         )
         self.trend_current = bq.Lines(
             x=np.zeros(2),

@@ -204,26 +204,11 @@ class LinearFitPanel(PanelBase):
         tx, ty = bq.LinearScale(), bq.LinearScale()
         self._auto_series = None
         self._point_frames: dict = {}
-        self.trend = bq.Scatter(
-            x=np.zeros(0),
-            y=np.zeros(0),
-            scales={"x": tx, "y": ty},
-            colors=[ROLE["trend"]],
-            default_size=16,
-            interactions={"click": "select"},
-            labels=["automatic range"],
-            unselected_style={"opacity": 1.0},
-        )
-        self.trend_fixed = bq.Scatter(
-            x=np.zeros(0),
-            y=np.zeros(0),
-            scales={"x": tx, "y": ty},
-            colors=[OKABE_ITO["orange"]],
-            default_size=16,
-            marker="square",
-            interactions={"click": "select"},
-            labels=["range applied to all"],
-            visible=False,
+        trend_scales = {"x": tx, "y": ty}
+        self.trend = bq.clickable_points(trend_scales, ROLE["trend"], "automatic range")
+        self.trend_fixed = bq.clickable_points(
+            trend_scales, OKABE_ITO["orange"], "range applied to all", marker="square",
+            unselected_style={}, visible=False,
         )
         # never empty (an axis with no data at all breaks bqplot's tick format):
         # hidden instead when the current value is undefined

@@ -126,28 +126,8 @@ class PeaksPanel(PanelBase):
         self.map_marks, self.trend_marks = {}, {}
         for k, ph in enumerate(self._phase_names):
             colour = ROLE["background"] if ph == "unassigned" else phase_colour(k)
-            m = bq.Scatter(
-                x=np.zeros(0),
-                y=np.zeros(0),
-                scales={"x": mx, "y": my},
-                colors=[colour],
-                default_size=10,
-                labels=[ph],
-                display_legend=False,
-                interactions={"click": "select"},
-                unselected_style={"opacity": 1.0},
-            )
-            t = bq.Scatter(
-                x=np.zeros(0),
-                y=np.zeros(0),
-                scales={"x": lx, "y": ly},
-                colors=[colour],
-                default_size=14,
-                labels=[ph],
-                display_legend=False,
-                interactions={"click": "select"},
-                unselected_style={"opacity": 1.0},
-            )
+            m = bq.clickable_points({"x": mx, "y": my}, colour, ph, size=10, display_legend=False)
+            t = bq.clickable_points({"x": lx, "y": ly}, colour, ph, size=14, display_legend=False)
             m.on_element_click(self._on_point_click)
             t.on_element_click(self._on_point_click)
             self.map_marks[ph], self.trend_marks[ph] = m, t
