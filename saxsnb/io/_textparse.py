@@ -180,6 +180,22 @@ def _line_errors(raw: RawFile) -> SaxsFileError:
     return SaxsFileError("cannot read the numbers", path=raw.path)
 
 
+def _newlines_after(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+    """Number of newlines between each token and the next (or the end of ``a``)."""
+    nxt = np.empty_like(starts)
+    nxt[:-1] = starts[1:]
+    nxt[-1:] = a.size
+    gap = nxt - ends
+    # the usual separator is one byte: a newline or not
+    nlgap = (a[np.minimum(ends, a.size - 1)] == 10).view(np.int8).astype(np.int64)
+    nlgap[gap <= 0] = 0
+    long = np.flatnonzero(gap > 1)
+    if long.size:
+        nl = np.flatnonzero(a == 10)
+        nlgap[long] = np.searchsorted(nl, nxt[long]) - np.searchsorted(nl, ends[long])
+    return nlgap
+
+
 def _fixed_layout(raws: list[RawFile]) -> dict[bytes, list[int]]:
     """Group files whose body lines all have the byte layout of their first line."""
     groups: dict[bytes, list[int]] = {}
@@ -282,10 +298,9 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
         a = np.frombuffer(buf, dtype=np.uint8)
         starts, ends = tokenize(a)
         vals, bad = parse_tokens(buf, a, starts, ends)
-        nl = np.flatnonzero(a == 10)
-        tok_line = np.searchsorted(nl, starts)
+        nlgap = _newlines_after(a, starts, ends)
+        line = np.cumsum(nlgap) - nlgap  # newlines from the first token to each token
         file_tok = np.searchsorted(starts, offsets)
-        file_line = np.searchsorted(nl, offsets)
         for k, i in enumerate(rest):
             raw = raws[i]
             t0, t1 = file_tok[k], file_tok[k + 1]
@@ -293,10 +308,11 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
             n = t1 - t0
             if n == 0 or n % nc or bad[t0:t1].any():
                 raise _line_errors(raw)
-            lines = tok_line[t0:t1].reshape(-1, nc)
-            if (nc > 1 and not bool((lines == lines[:, :1]).all())) or bool(
-                (np.diff(lines[:, 0]) <= 0).any()
-            ):
+            gaps = nlgap[t0:t1].reshape(-1, nc)
+            # every row on one line: no newline inside a row, at least one after it
+            if (nc > 1 and bool(gaps[:, :-1].any())) or not bool(gaps[:-1, -1].all()):
                 raise _line_errors(raw)
-            results[i] = (vals[t0:t1].reshape(-1, nc), raw.first_line + lines[:, 0] - file_line[k])
+            lead = buf.count(b"\n", int(offsets[k]), int(starts[t0]))
+            rows = line[t0:t1:nc] - line[t0]
+            results[i] = (vals[t0:t1].reshape(-1, nc), raw.first_line + lead + rows)
     return results  # type: ignore[return-value]
