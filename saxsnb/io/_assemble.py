@@ -295,16 +295,22 @@ def build_series(
         )
     unit = _resolve_q_unit(curves, q_unit)
     Q = None
+    exact = False
     if len({c.q.size for c in curves}) == 1:
         # the common case, checked for all files at once; the loop only names the culprit
         Q = np.stack([c.q for c in curves])
+        q0 = curves[0].q
         with np.errstate(invalid="ignore"):
-            fine = bool(np.isfinite(Q).all() and (Q > 0).all() and (np.diff(Q, axis=1) > 0).all())
+            # one grid for all (the usual case): checking it once checks them all
+            exact = bool((Q[1:] == q0).all())
+            rows = Q[:1] if exact else Q
+            fine = bool(np.isfinite(rows).all() and (rows > 0).all() and (np.diff(rows, axis=1) > 0).all())
     else:
         fine = False
     if not fine:
         curves = [_check_q(c) for c in curves]
         Q = None
+        exact = False
     iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
     for c, u in iu[1:]:
         if u != iu[0][1]:
@@ -319,7 +325,7 @@ def build_series(
     if len(lengths) == 1:
         if Q is None:
             Q = np.stack([c.q for c in curves])
-        close = (Q == q0).all(axis=1)
+        close = np.ones(len(curves), dtype=bool) if exact else (Q == q0).all(axis=1)
         if not close.all():
             close = np.isclose(Q, q0, rtol=1e-9, atol=0.0).all(axis=1)
         same = bool(close.all())

@@ -277,6 +277,12 @@ def _parse_fixed(template: bytes, bodies: list[bytes]) -> np.ndarray | None:
     return np.stack(out, axis=1)
 
 
+def _columns(data: np.ndarray) -> np.ndarray:
+    """The same (rows, columns) values laid out column by column, so that each column
+    of a file is contiguous (stacking the files' columns into a series is then a copy)."""
+    return np.ascontiguousarray(data.T).T
+
+
 def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
     """Numbers of each file body as ``(data (n_rows, n_cols), line_numbers)``."""
     results: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(raws)
@@ -286,6 +292,7 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
         data = _parse_fixed(bytes(raws[idx[0]].body[: len(key)]), [raws[i].body for i in idx])
         if data is None:
             continue
+        data = _columns(data)
         pos = 0
         for i in idx:
             n = len(raws[i].body) // len(key)
@@ -314,5 +321,5 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
                 raise _line_errors(raw)
             lead = buf.count(b"\n", int(offsets[k]), int(starts[t0]))
             rows = line[t0:t1:nc] - line[t0]
-            results[i] = (vals[t0:t1].reshape(-1, nc), raw.first_line + lead + rows)
+            results[i] = (_columns(vals[t0:t1].reshape(-1, nc)), raw.first_line + lead + rows)
     return results  # type: ignore[return-value]
