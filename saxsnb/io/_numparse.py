@@ -45,8 +45,11 @@ def tokenize(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.flatnonzero(d == -1), np.flatnonzero(d == 1)
 
 
-def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
-    """Parse rows of equal layout; return (values, ok) or None if layouts differ."""
+def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, np.ndarray] | None:
+    """Parse rows of equal layout; return (values, ok) or None if layouts differ.
+
+    ``checked=True``: the caller has already verified that every row has the layout of
+    the first (digits where it has digits, the same '.', 'e' and '+'/'-' elsewhere)."""
     n, width = chars.shape
     tmpl = chars[0]
     lower = tmpl | 0x20
@@ -78,32 +81,32 @@ def _parse_group(chars: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     # digit columns are gathered into one contiguous array and checked with scalar
     # operands (long inner loops); the few other columns are checked one by one
     g = chars[:, mant_cols + exp_cols]
-    if not bool((g - np.uint8(48) < 10).all()):
-        return None
-    if dpos >= 0 and not bool((chars[:, dpos] == 46).all()):
-        return None
-    if epos < width and not bool((chars[:, epos] | np.uint8(0x20) == 101).all()):
-        return None
-    sign = None
-    if exp_sign_col is not None:
-        sign = chars[:, exp_sign_col]
-        if not bool((((sign - np.uint8(43)) | np.uint8(2)) == 2).all()):  # '+' (43) or '-' (45)
+    sign = None if exp_sign_col is None else chars[:, exp_sign_col]
+    if not checked:
+        if not bool((g - np.uint8(48) < 10).all()):
             return None
+        if dpos >= 0 and not bool((chars[:, dpos] == 46).all()):
+            return None
+        if epos < width and not bool((chars[:, epos] | np.uint8(0x20) == 101).all()):
+            return None
+        if sign is not None and not bool((((sign - np.uint8(43)) | np.uint8(2)) == 2).all()):
+            return None  # not '+' (43) or '-' (45)
     # integer-valued float arithmetic on the raw bytes: sum(b_j 10^k) - 48 sum(10^k);
     # every partial sum is an integer < 2**53, hence exact
     wm = 10.0 ** np.arange(nm - 1, -1, -1)
     m = np.einsum("ij,j->i", g[:, :nm], wm) - 48.0 * wm.sum()
     if ne:
-        we = 10 ** np.arange(ne - 1, -1, -1, dtype=np.int64)
-        ex = np.einsum("ij,j->i", g[:, nm : nm + ne], we) - (48 * int(we.sum()) + frac)
+        # at most 3 digits and a sign: small integers, exact in int16
+        p = np.subtract(g[:, nm], 48, dtype=np.int16)
+        for j in range(nm + 1, nm + ne):
+            p *= 10
+            p += g[:, j]
+            p -= 48
         if sign is not None:
-            # '+' is 43 and '-' is 45: (44 - sign) is +1 or -1; the shift by frac is undone
-            ex += frac
-            ex *= np.subtract(44, sign, dtype=np.int64)
-            ex -= frac
-        p = ex
+            p *= np.subtract(44, sign, dtype=np.int16)  # '+' is 43, '-' is 45
+        p -= frac
     else:
-        p = np.full(n, -frac, dtype=np.int64)
+        p = np.full(n, -frac, dtype=np.int16)
     lo, hi = int(p.min()), int(p.max())
     if -22 <= lo and hi <= 0:  # the usual case: one exact division per token
         return m / _POW10[-p], np.ones(n, dtype=bool)
