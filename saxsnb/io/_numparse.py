@@ -119,6 +119,16 @@ def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, 
     return vals, ok
 
 
+def _owner(starts: np.ndarray, pos: np.ndarray) -> np.ndarray:
+    """Index of the last of the sorted ``starts`` at or before each of the sorted ``pos``
+    (-1 if none): ``np.searchsorted(starts, pos, side="right") - 1``, by merging the two
+    sorted runs (a stable sort finds them and merges in one pass) unless ``pos`` is short."""
+    if 4 * pos.size < starts.size:
+        return np.searchsorted(starts, pos, side="right") - 1
+    order = np.argsort(np.concatenate([starts, pos]), kind="stable")
+    return np.flatnonzero(order >= starts.size) - np.arange(pos.size) - 1
+
+
 def parse_tokens(
     buf: bytes, a: np.ndarray, starts: np.ndarray, ends: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -149,9 +159,13 @@ def parse_tokens(
     dpos = np.full(n, none, dtype=np.int16)
     epos = np.full(n, none, dtype=np.int16)
     multi = (length <= 0) | (length > _MAX_LEN)
-    for pos, out in ((np.flatnonzero(a == 46), dpos), (np.flatnonzero((a | 0x20) == 101), epos)):
+    has_e = buf.find(b"e") >= 0 or buf.find(b"E") >= 0  # memchr: cheaper than a numpy pass
+    for char, out in ((46, dpos), (101, epos)):  # '.', 'e' or 'E'
+        if char == 101 and not has_e:
+            continue
+        pos = np.flatnonzero(a == 46) if char == 46 else np.flatnonzero((a | 0x20) == 101)
         if pos.size:
-            tok = np.searchsorted(starts, pos, side="right") - 1
+            tok = _owner(starts, pos)
             inside = tok >= 0
             tok, pos = tok[inside], pos[inside]
             inside = pos < ends[tok]
