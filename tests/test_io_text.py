@@ -456,3 +456,28 @@ def test_multiline_sample_name_survives_text_round_trip(tmp_path):
 def test_q_unit_from_column_header(tmp_path, header, factor):
     path = _write(tmp_path / "c.dat", _curve(), header=header, fmt="%.17g")
     np.testing.assert_allclose(read_series(path).q.values, factor * Q, rtol=1e-15)  # 1/A = 10/nm
+
+
+def test_equal_width_columns_with_different_layouts(tmp_path):
+    # every row the same length, but the columns differ in layout ("2.2323" vs "811596"):
+    # each column must be parsed with its own layout; Python's float is the reference
+    rows = ["0.1000 811596 0.5000", "0.2000 702113 0.2500", "0.3000 612000 0.1250"]
+    path = tmp_path / "w.dat"
+    path.write_text("# q_unit = 1/nm\n" + "\n".join(rows) + "\n")
+    ds = read_series(path)
+    expect = [[float(t) for t in r.split()] for r in rows]
+    np.testing.assert_array_equal(ds.intensity.values[0], [r[1] for r in expect])
+    np.testing.assert_array_equal(ds.sigma.values[0], [r[2] for r in expect])
+
+
+@pytest.mark.parametrize("pos, byte", [(20, "x"), (25, ","), (26, "*"), (1, "-")])
+def test_fixed_layout_row_with_a_bad_byte_names_its_line(tmp_path, pos, byte):
+    # rows of one byte layout except one of the same length with one byte changed
+    # (a digit, an exponent sign, a separator): the error names the file and its line
+    good = [f"{0.1 * (k + 1):.8e} {2.0:.8e} {0.1:.8e}" for k in range(5)]
+    bad = good[3][:pos] + byte + good[3][pos + 1 :]
+    path = tmp_path / "b.dat"
+    path.write_text("# q_unit = 1/nm\n" + "\n".join(good[:3] + [bad] + good[4:]) + "\n")
+    with pytest.raises(SaxsFileError) as info:
+        read_series(path)
+    assert info.value.line == 5 and info.value.path == str(path)

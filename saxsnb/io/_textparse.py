@@ -197,14 +197,17 @@ def _newlines_after(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.n
 
 
 def _fixed_layout(raws: list[RawFile]) -> dict[bytes, list[int]]:
-    """Group files whose body lines all have the byte layout of their first line."""
+    """Group files whose body is a whole number of lines as long as their first line, by
+    the byte layout of that line."""
     groups: dict[bytes, list[int]] = {}
     digits = bytes.maketrans(b"0123456789", b"0000000000")
     for i, r in enumerate(raws):
         body = r.body
         first = bytes(body[:256])
         L = first.find(b"\n") + 1
-        if L <= 1 or len(body) % L or bytes(body[L - 1 :: L]).count(b"\n") != len(body) // L:
+        # the other lines are checked with the group's bytes (a mismatch sends the
+        # group to the token parser)
+        if L <= 1 or len(body) % L or body[-1] != 10:
             continue
         key = first[:L].translate(digits)
         groups.setdefault(key, []).append(i)
@@ -225,6 +228,9 @@ def _parse_merged(a: np.ndarray, t: np.ndarray, starts: np.ndarray, ends: np.nda
         or t[s0] in (43, 45)
     ):
         return None
+    lo = _template_bounds(t)[0].reshape(ntok, step)[:, s0 : s0 + w]
+    if not bool((lo == lo[0]).all()):  # the tokens differ in layout
+        return None
     if not _matches_template(a, t):
         return None
     res = _parse_group(a.reshape(-1, step)[:, s0 : s0 + w], checked=True)
@@ -233,16 +239,24 @@ def _parse_merged(a: np.ndarray, t: np.ndarray, starts: np.ndarray, ends: np.nda
     return res[0].reshape(-1, ntok)
 
 
-def _matches_template(a: np.ndarray, t: np.ndarray) -> bool:
-    """Whether every row of the byte matrix ``a`` is laid out like ``t``: a digit where
-    ``t`` has a digit, '+' or '-' where ``t`` has an exponent sign, the same byte
-    elsewhere. One pass over the bytes, in cache-sized blocks of rows."""
+def _template_bounds(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per byte of the template row: lowest allowed byte, width of the allowed range and
+    a bit to set first (exponent signs: '+' - 43 = 0 and '-' - 43 = 2, but ',' - 43 = 1)."""
     digit = (t >= 48) & (t <= 57)
     esign = np.zeros(t.size, dtype=bool)
     esign[1:] = ((t[1:] == 43) | (t[1:] == 45)) & ((t[:-1] | 0x20) == 101)
     lo = np.where(digit, 48, np.where(esign, 43, t)).astype(np.uint8)
     span = np.where(digit, 9, np.where(esign, 2, 0)).astype(np.uint8)
-    orm = np.where(esign, 2, 0).astype(np.uint8)  # '+' - 43 = 0 and '-' - 43 = 2, ',' - 43 = 1
+    orm = np.where(esign, 2, 0).astype(np.uint8)
+    return lo, span, orm
+
+
+def _matches_template(a: np.ndarray, t: np.ndarray) -> bool:
+    """Whether every row of the byte matrix ``a`` is laid out like ``t``: a digit where
+    ``t`` has a digit, '+' or '-' where ``t`` has an exponent sign, the same byte
+    elsewhere. One pass over the bytes, in cache-sized blocks of rows."""
+    lo, span, orm = _template_bounds(t)
+    esign = orm > 0
     L = t.size
     k = max(1, 4096 // L)  # rows per line of the blocks: long inner loops
     full = a.shape[0] // k
