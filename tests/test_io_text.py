@@ -481,3 +481,14 @@ def test_fixed_layout_row_with_a_bad_byte_names_its_line(tmp_path, pos, byte):
     with pytest.raises(SaxsFileError) as info:
         read_series(path)
     assert info.value.line == 5 and info.value.path == str(path)
+
+
+
+@pytest.mark.parametrize("body", ["inf inf inf\n", "nan nan\n", "nan 1.0 1.0\nnan 2.0 1.0\n"])
+def test_rows_of_equal_layout_made_of_nan_or_inf(tmp_path, body):
+    # every row laid out alike, but with words rather than digits: q is not a number
+    path = tmp_path / "n.dat"
+    path.write_text("# q_unit = 1/nm\n" + body)
+    with pytest.raises(SaxsFileError, match="finite") as info:
+        read_series(path)
+    assert info.value.path == str(path) and info.value.line == 2

@@ -49,7 +49,8 @@ def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, 
     """Parse rows of equal layout; return (values, ok) or None if layouts differ.
 
     ``checked=True``: the caller has already verified that every row has the layout of
-    the first (digits where it has digits, the same '.', 'e' and '+'/'-' elsewhere)."""
+    the first (digits where it has digits, the same '.', 'e' and '+'/'-' elsewhere);
+    only the first row is checked here."""
     n, width = chars.shape
     tmpl = chars[0]
     lower = tmpl | 0x20
@@ -80,6 +81,8 @@ def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, 
         return None
     # digit columns are gathered into one contiguous array and checked with scalar
     # operands (long inner loops); the few other columns are checked one by one
+    if checked and not all(48 <= tmpl[j] <= 57 for j in mant_cols + exp_cols):
+        return None  # e.g. "nan": the rows are like the first, which is not a number
     g = chars[:, mant_cols + exp_cols]
     sign = None if exp_sign_col is None else chars[:, exp_sign_col]
     if not checked:
