@@ -45,12 +45,35 @@ def tokenize(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.flatnonzero(d == -1), np.flatnonzero(d == 1)
 
 
-def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, np.ndarray] | None:
+def _swar_digits(src: np.ndarray, offset: int, stride: int, n: int, k: int) -> np.ndarray:
+    """Value of the ``k`` (1..8) decimal digits that end 8 bytes after ``offset + i * stride``
+    in the contiguous uint8 array ``src``, for i < n, as uint64: the 8 bytes are read as
+    one little-endian word, the bytes before the digits masked out, and digit pairs,
+    quadruples and octets combined by multiply-and-shift (no lane overflows: 99, 9999,
+    99999999)."""
+    word = np.ndarray((n,), dtype="<u8", buffer=src, offset=offset, strides=(stride,))
+    keep = np.uint64(((1 << (8 * k)) - 1) << (8 * (8 - k)))
+    v = word & keep
+    v -= np.uint64(0x3030303030303030) & keep
+    v = v * np.uint64(10) + (v >> np.uint64(8))
+    v &= np.uint64(0x00FF00FF00FF00FF)
+    v = v * np.uint64(100) + (v >> np.uint64(16))
+    v &= np.uint64(0x0000FFFF0000FFFF)
+    v = v * np.uint64(10000) + (v >> np.uint64(32))
+    v &= np.uint64(0xFFFFFFFF)
+    return v
+
+
+def _parse_group(
+    chars: np.ndarray, checked: bool = False, src: tuple[np.ndarray, int] | None = None
+) -> tuple[np.ndarray, np.ndarray] | None:
     """Parse rows of equal layout; return (values, ok) or None if layouts differ.
 
     ``checked=True``: the caller has already verified that every row has the layout of
     the first (digits where it has digits, the same '.', 'e' and '+'/'-' elsewhere);
-    only the first row is checked here."""
+    only the first row is checked here. ``src=(array, offset)``: ``chars`` is a view of
+    the contiguous uint8 ``array``, row i starting at ``offset + i * chars.strides[0]``
+    (lets the fraction digits be read 8 at a time, see :func:`_swar_digits`)."""
     n, width = chars.shape
     tmpl = chars[0]
     lower = tmpl | 0x20
@@ -83,8 +106,9 @@ def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, 
     # operands (long inner loops); the few other columns are checked one by one
     if checked and not all(48 <= tmpl[j] <= 57 for j in mant_cols + exp_cols):
         return None  # e.g. "nan": the rows are like the first, which is not a number
-    g = chars[:, mant_cols + exp_cols]
     sign = None if exp_sign_col is None else chars[:, exp_sign_col]
+    swar = checked and src is not None and dpos >= 0 and 1 <= frac <= 8 and src[1] + epos >= 8 and dpos <= 7
+    g = None if swar else chars[:, mant_cols + exp_cols]
     if not checked:
         if not bool((g - np.uint8(48) < 10).all()):
             return None
@@ -96,14 +120,20 @@ def _parse_group(chars: np.ndarray, checked: bool = False) -> tuple[np.ndarray, 
             return None  # not '+' (43) or '-' (45)
     # integer-valued float arithmetic on the raw bytes: sum(b_j 10^k) - 48 sum(10^k);
     # every partial sum is an integer < 2**53, hence exact
-    wm = 10.0 ** np.arange(nm - 1, -1, -1)
-    m = np.einsum("ij,j->i", g[:, :nm], wm) - 48.0 * wm.sum()
+    if swar:
+        # fraction digits 8 at a time; the few integer digits column by column
+        m = _swar_digits(src[0], src[1] + epos - 8, chars.strides[0], n, frac).astype(np.float64)
+        for j in range(dpos):
+            m += (chars[:, j] - np.float64(48)) * 10.0 ** (frac + dpos - 1 - j)
+    else:
+        wm = 10.0 ** np.arange(nm - 1, -1, -1)
+        m = np.einsum("ij,j->i", g[:, :nm], wm) - 48.0 * wm.sum()
     if ne:
         # at most 3 digits and a sign: small integers, exact in int16
-        p = np.subtract(g[:, nm], 48, dtype=np.int16)
-        for j in range(nm + 1, nm + ne):
+        p = np.subtract(chars[:, exp_cols[0]], 48, dtype=np.int16)
+        for j in exp_cols[1:]:
             p *= 10
-            p += g[:, j]
+            p += chars[:, j]
             p -= 48
         if sign is not None:
             p *= np.subtract(44, sign, dtype=np.int16)  # '+' is 43, '-' is 45

@@ -233,7 +233,7 @@ def _parse_merged(a: np.ndarray, t: np.ndarray, starts: np.ndarray, ends: np.nda
         return None
     if not _matches_template(a, t):
         return None
-    res = _parse_group(a.reshape(-1, step)[:, s0 : s0 + w], checked=True)
+    res = _parse_group(a.reshape(-1, step)[:, s0 : s0 + w], checked=True, src=(a, s0))
     if res is None or not bool(res[1].all()):
         return None
     return res[0].reshape(-1, ntok)
