@@ -26,7 +26,8 @@ _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
 _COMMA_NUM = rb"[-+]?\d+,\d+(?:[eE][-+]?\d+)?"
 _COMMA_DECIMAL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
-_KEYVAL = re.compile(r"^[ \t#]*([A-Za-z_][\w .\-]*?)[ \t]*[=:][ \t]*(.*?)[ \t\r]*$", re.M)
+# key and value without their trailing blanks (stripped after the match: no backtracking)
+_KEYVAL = re.compile(r"^[ \t#]*([A-Za-z_][\w .\-]*)[ \t]*[=:][ \t]*([^\n]*)", re.M)
 _QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ]\s*[\(\[]\s*([^\)\]]+?)\s*[\)\]]")
 _Q_KEYS = {"q_unit", "q_units", "qunit", "qunits", "unit_q", "q_axis_unit"}
 _I_KEYS = {"intensity_unit", "intensity_units", "i_unit", "i_units", "unit_i"}
@@ -77,7 +78,8 @@ def _classify_key(raw_key: str) -> tuple[str, str]:
 
 def _header(raw: RawFile, text: str) -> None:
     for raw_key, value in _KEYVAL.findall(text):
-        kind, key = _classify_key(raw_key)
+        value = value.rstrip(" \t\r")
+        kind, key = _classify_key(raw_key.rstrip(" \t"))
         if not key:
             continue
         if kind == "meta":
