@@ -9,3 +9,10 @@ import saxsnb  # noqa: F401  (registers the .saxs accessor)
 @pytest.fixture
 def rng():
     return np.random.default_rng(1234)
+
+# Property tests draw the same examples on every run and every machine, so a CI result
+# can be reproduced; no example database is written into the checkout.
+from hypothesis import settings  # noqa: E402
+
+settings.register_profile("saxsnb", derandomize=True, database=None)
+settings.load_profile("saxsnb")
