@@ -492,3 +492,12 @@ def test_rows_of_equal_layout_made_of_nan_or_inf(tmp_path, body):
     with pytest.raises(SaxsFileError, match="finite") as info:
         read_series(path)
     assert info.value.path == str(path) and info.value.line == 2
+
+
+def test_decimal_comma_with_semicolon_columns_is_refused(tmp_path):
+    # "0.01;5,0;0.1": with ';' between columns the comma can only be a decimal comma
+    p = tmp_path / "semi.csv"
+    p.write_text("# q_unit = 1/nm\n0.01;5,0;0.1\n0.02;4,0;0.1\n")
+    with pytest.raises(SaxsFileError, match="comma as decimal") as err:
+        saxsnb.read_series(p)
+    assert err.value.line == 2 and "semi.csv" in str(err.value)

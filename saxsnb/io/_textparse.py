@@ -25,7 +25,15 @@ __all__ = ["RawFile", "split_file", "parse_bodies"]
 _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
 _COMMA_NUM = rb"[-+]?\d+,\d+(?:[eE][-+]?\d+)?"
-_COMMA_DECIMAL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
+_COMMA_ALL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
+# with ';' separating the columns, a comma between digits can only be a decimal comma
+_COMMA_WITH_SEMICOLON = re.compile(rb"^(?=[^\n]*;)[^\n]*\d,\d")
+
+
+def _is_comma_decimal(line: bytes) -> bool:
+    """True for a row whose numbers use a decimal comma (all of them, or any of them when
+    ';' separates the columns)."""
+    return bool(_COMMA_ALL.match(line) or _COMMA_WITH_SEMICOLON.match(line))
 # key and value without their trailing blanks (stripped after the match: no backtracking)
 _KEYVAL = re.compile(r"^[ \t#]*([A-Za-z_][\w .\-]*)[ \t]*[=:][ \t]*([^\n]*)", re.M)
 _QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ]\s*[\(\[]\s*([^\)\]]+?)\s*[\)\]]")
@@ -121,7 +129,7 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
         end = data.find(b"\n", start)
         end = len(data) if end < 0 else end
         line = data[start:end].split(b"#", 1)[0].strip()
-        if _COMMA_DECIMAL.match(line):
+        if _is_comma_decimal(line):
             raise SaxsFileError(
                 "numbers use a comma as decimal separator; convert them to a decimal point",
                 path=path,
@@ -168,13 +176,13 @@ def _line_errors(raw: RawFile) -> SaxsFileError:
         for t in tokens:
             if not _floatable([t]):
                 shown = t.decode("utf-8", "replace")
-                if _COMMA_DECIMAL.match(line):
+                if _is_comma_decimal(line):
                     return SaxsFileError(
                         "numbers use a comma as decimal separator", path=raw.path, line=lineno
                     )
                 return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
         if len(tokens) != raw.ncols:
-            if _COMMA_DECIMAL.match(line):
+            if _is_comma_decimal(line):
                 return SaxsFileError("numbers use a comma as decimal separator", path=raw.path, line=lineno)
             return SaxsFileError(
                 f"{len(tokens)} columns where the first data row has {raw.ncols}", path=raw.path, line=lineno
