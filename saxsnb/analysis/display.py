@@ -30,6 +30,10 @@ __all__ = [
     "fill_missing",
     "log_ticks",
     "value_range",
+    "colour_bar_ticks",
+    "STATUS_MESSAGES",
+    "status_message",
+    "describe_status",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -469,3 +473,114 @@ def value_range(values, *, lower: float = 0.5, upper: float = 99.5, pad: float =
     lo, hi = min(ends), max(ends)
     span = hi - lo if hi > lo else max(abs(hi), 1.0)
     return (lo - pad * span, hi + pad * span)
+
+
+def colour_bar_ticks(values, *, max_ticks: int = 5):
+    """Fixed range and a few round tick values for the colour bar of a log10 map.
+
+    Parameters
+    ----------
+    values : array
+        The map (log10 of an intensity); non-finite entries are ignored.
+    max_ticks : int
+        Most ticks returned.
+
+    Returns
+    -------
+    lo, hi : float
+        Smallest and largest finite value (the colour scale range; 0, 1 when none).
+    ticks : array
+        Whole decades inside ``[lo, hi]``, every 1, 2, 5, 10, ... of them so that at
+        most ``max_ticks`` remain; when the range holds fewer than two whole decades,
+        the ends rounded inwards to one decimal and their middle.
+
+    Examples
+    --------
+    >>> lo, hi, t = colour_bar_ticks(np.array([[-3.2, 0.5], [np.nan, 2.7]]))
+    >>> lo, hi, t.tolist()
+    (-3.2, 2.7, [-2.0, 0.0, 2.0])
+    >>> colour_bar_ticks(np.array([2.31, 2.79]))[2].tolist()
+    [2.4, 2.6, 2.7]
+    """
+    a = np.asarray(values, dtype=float)
+    a = a[np.isfinite(a)]
+    if a.size == 0:
+        return 0.0, 1.0, np.array([0.0, 1.0])
+    lo, hi = float(a.min()), float(a.max())
+    if hi <= lo:
+        hi = lo + 1.0
+    k0, k1 = int(np.ceil(lo)), int(np.floor(hi))
+    if k1 - k0 + 1 >= 2:
+        n = k1 - k0 + 1
+        steps = [m * 10**e for e in range(0, 6) for m in (1, 2, 5)]
+        step = next(s for s in steps if (n - 1) // s + 1 <= max(int(max_ticks), 2))
+        first = int(np.ceil(k0 / step) * step)
+        ticks = np.arange(first, k1 + 1, step, dtype=float)
+        if ticks.size >= 2:
+            return lo, hi, ticks
+    a0, a1 = np.ceil(lo * 10) / 10, np.floor(hi * 10) / 10
+    ticks = np.unique(np.round([a0, 0.5 * (a0 + a1), a1], 1)) if a1 > a0 else np.array([lo, hi])
+    return lo, hi, ticks
+
+
+#: Plain-language text of the per-frame ``status`` codes of the analyses (for people;
+#: the codes stay in the results). ``{size}`` and ``{limit}`` are filled in by
+#: :func:`status_message` (default Rg and 1.3, the compact-particle Guinier limit).
+STATUS_MESSAGES = {
+    "all_nan": "no finite intensity in this frame",
+    "no_data": "no usable intensity in this frame",
+    "range_outside_data": "the chosen q range misses the measured points",
+    "too_few_points": "fewer than 3 usable points in the q range: widen the range",
+    "negative_intensity": "intensity at or below zero in the range: its logarithm is undefined "
+    "(check the background subtraction)",
+    "zero_sigma": "some points in the range have sigma = 0 and cannot be weighted",
+    "positive_slope": "the intensity rises with q over this range: not a Guinier region",
+    "curvature_aggregation": "the lowest-q points curve upwards (a sign of aggregation or "
+    "attraction): no Guinier fit",
+    "qrg_limit_exceeded": "q_max\u00b7{size} above the validity limit {limit}: the range is too "
+    "long for a Guinier fit",
+    "no_linear_region": "no straight low-q stretch found: every candidate range curves",
+    "no_guinier": "no Guinier region at low q",
+    "no_porod_constant": "no Porod region at high q",
+    "negative_porod_constant": "the Porod constant came out negative (check the background)",
+    "no_peaks": "no Bragg peaks found in this frame",
+    "no_bragg_peaks": "no Bragg peaks found in this frame (only broad features, e.g. particle "
+    "form-factor maxima)",
+    "not_enough_peaks_to_index": "only one peak: at least two are needed to index a lattice",
+    "no_phase_found": "the peaks fit none of the known phases",
+    "unexplained_peaks": "some peaks are not explained by the assigned phase(s)",
+    "override": "phase set by hand",
+}
+
+
+def status_message(code: str, *, size: str = "Rg", limit: float = 1.3) -> str:
+    """Plain-language text of a ``status`` code (the code itself when unknown).
+
+    >>> status_message("too_few_points")
+    'fewer than 3 usable points in the q range: widen the range'
+    >>> status_message("qrg_limit_exceeded", size="Rc", limit=1.0)
+    'q_max\u00b7Rc above the validity limit 1.0: the range is too long for a Guinier fit'
+    >>> status_message("something_new")
+    'something_new'
+    """
+    text = STATUS_MESSAGES.get(str(code))
+    return str(code) if text is None else text.format(size=size, limit=limit)
+
+
+def describe_status(text: str, **context) -> str:
+    """A panel's status line with a trailing status code replaced by its message.
+
+    ``"position 2 mm (frame 1): too_few_points"`` becomes
+    ``"position 2 mm (frame 1): fewer than 3 usable points ..."``; other text (error
+    messages) is returned unchanged. ``context`` goes to :func:`status_message`.
+
+    >>> describe_status("frame 3: no_peaks")
+    'frame 3: no Bragg peaks found in this frame'
+    >>> describe_status("fit: SaxsInputError: bad q_range")
+    'fit: SaxsInputError: bad q_range'
+    """
+    head, sep, tail = str(text).rpartition(": ")
+    code = tail.strip()
+    if code in STATUS_MESSAGES:
+        return f"{head}{sep}{status_message(code, **context)}"
+    return str(text)

@@ -7,7 +7,7 @@ import html
 import ipywidgets as widgets
 import numpy as np
 
-from ..analysis.display import fill_missing, overview_map
+from ..analysis.display import colour_bar_ticks, fill_missing, overview_map
 from . import _bq as bq
 from .base import PanelBase, make_figure
 from .palette import MAP_SCHEME, ROLE
@@ -95,7 +95,9 @@ class SeriesBrowser(PanelBase):
 
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LinearScale()
-        cs = bq.ColorScale(scheme=MAP_SCHEME)
+        # fixed colour range and a few whole-decade ticks: the colour bar never re-ticks
+        c_lo, c_hi, c_ticks = colour_bar_ticks(logmap)
+        cs = bq.ColorScale(scheme=MAP_SCHEME, min=c_lo, max=c_hi)
         self.heatmap = bq.HeatMap(
             x=omap["q"],
             y=self._row_y,
@@ -132,7 +134,9 @@ class SeriesBrowser(PanelBase):
             colors=[ROLE["current"]],
             stroke_width=2.0,
         )
-        caxis = bq.ColorAxis(scale=cs, label="log10 I", side="right")
+        caxis = bq.ColorAxis(
+            scale=cs, label="log10 I", side="right", tick_values=c_ticks, tick_format="~g"
+        )
         ylab = self.scan_label if self._row_axis_is_scan else "frame"
         marks = [self.heatmap] + ([self.rows] if self._row_y.size >= 2 else []) + [self.marker]
         fig = make_figure(
@@ -142,7 +146,8 @@ class SeriesBrowser(PanelBase):
             x_label=f"q ({self.q_units})",
             y_label=ylab,
             title="log10 intensity over the series (click a row)",
-            height="320px",
+            # bqplot draws a vertical colour bar 200 px shorter than the plot area
+            height="440px",
             x_range=(float(qx[0]), float(qx[-1])),
         )
         fig.axes = [*fig.axes, caxis]
