@@ -1,5 +1,7 @@
 """Python-side tests of the linear-fit (Guinier, Porod) and Kratky panels (no browser)."""
 
+import html
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -77,7 +79,10 @@ def test_validity_limit_colour(series):
     p = LinearFitPanel(series, frame=5)
     p.q_range = (0.05, 0.5)  # q_max Rg = 2.25 > 1.3 (Guinier 1939; Jacques & Trewhella 2010)
     assert ROLE["warning"] in p.result_text.value and "validity limit" in p.result_text.value
-    assert "qrg_limit_exceeded" in p.status
+    assert "qrg_limit_exceeded" in p.status  # the trait keeps the code
+    # what people read: plain words, in the panel's line and in the dashboard's
+    assert "qrg_limit_exceeded" not in p.status_line.value
+    assert "above the validity limit 1.3" in p.status_line.value and "Rg" in p.status_text
     p.q_range = (0.02, 0.15)  # q_max Rg = 0.68
     assert ROLE["ok"] in p.result_text.value
 
@@ -85,7 +90,9 @@ def test_validity_limit_colour(series):
 def test_analysis_errors_show_in_status(series):
     p = LinearFitPanel(series)
     p.q_range = (0.5000, 0.5001)  # fewer than 3 points
-    assert "too_few_points" in p.status and "too_few_points" in p.status_line.value
+    assert "too_few_points" in p.status and "too_few_points" not in p.status_line.value
+    assert p.status_text == f"{p.frame_label()}: fewer than 3 usable points in the q range: widen the range"
+    assert p.status_text in html.unescape(p.status_line.value)
     before = p.result
     p.q_range = (0.3, 0.3)  # rejected by the accessor: q_min must be below q_max
     assert "SaxsInputError" in p.status and "q_range" in p.status
@@ -225,3 +232,12 @@ def test_kratky_panel_falls_back_to_plain_without_guinier_region():
     k = KratkyPanel(ds)
     assert k.normalize is None and k.toggle.value == "plain" and k.status == ""
     assert KratkyPanel(ds, normalize="rg").status.endswith("the dimensionless plot is undefined")
+
+
+def test_dashboard_status_line_in_plain_words(series):
+    d = saxsnb.explore(series, panels=("curve", "guinier"), frame=5)
+    g = d.panels["guinier"]
+    g.q_range = (0.05, 0.5)  # q_max Rg past 1.3 (Guinier 1939; Jacques & Trewhella 2010)
+    assert g.status.endswith("qrg_limit_exceeded")
+    assert "qrg_limit_exceeded" not in d.status_line.value
+    assert "guinier: " in d.status_line.value and "above the validity limit 1.3" in d.status_line.value

@@ -9,8 +9,10 @@ whose state lives in traits:
 ``result`` (xarray.Dataset, read only)
     The analysis Dataset for the current choices, set by the panel only.
 ``status`` (str)
-    The last error or warning of the panel ("" when none), also shown in the panel's
-    status line (``panel.status_line``, an HTML widget).
+    The last error or warning of the panel ("" when none); a frame's analysis status
+    keeps its code (e.g. ``"frame 3: too_few_points"``). The panel's status line
+    (``panel.status_line``, an HTML widget) shows it in plain words
+    (``panel.status_text``, via ``analysis.display.describe_status``).
 ``code`` (str, read only)
     Python source that reproduces ``result`` without widgets (see :meth:`to_code`).
 
@@ -34,7 +36,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..analysis.display import drawable_line, log_ticks
+from ..analysis.display import describe_status, drawable_line, log_ticks
 from ..series import main_scan, validate
 from . import _bq as bq
 from .palette import ROLE
@@ -293,9 +295,18 @@ class PanelBase(widgets.VBox):
         prefix = f"{what}: " if what else ""
         self.status = f"{prefix}{type(exc).__name__}: {exc}"
 
+    def _status_context(self) -> dict:
+        """Values filled into status messages (see ``analysis.display.status_message``)."""
+        return {}
+
+    @property
+    def status_text(self) -> str:
+        """``status`` in plain words: a trailing status code replaced by its message."""
+        return describe_status(self.status, **self._status_context()) if self.status else ""
+
     @traitlets.observe("status")
     def _show_status(self, change) -> None:
-        text = change["new"]
+        text = self.status_text
         if text:
             self.status_line.value = (
                 f'<span style="color:{ROLE["warning"]}">&#9888; {html.escape(text)}</span>'

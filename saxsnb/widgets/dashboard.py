@@ -99,7 +99,7 @@ class Dashboard(widgets.VBox):
         return rows
 
     def _collect_status(self, change=None) -> None:
-        parts = [f"{name}: {p.status}" for name, p in self.panels.items() if p.status]
+        parts = [f"{name}: {p.status_text}" for name, p in self.panels.items() if p.status]
         self.status_line.value = "<br>".join(html.escape(t) for t in parts)
 
     def to_code(self) -> str:

@@ -256,6 +256,11 @@ class LinearFitPanel(PanelBase):
         self._compute_trend()
         return [fig, rfig, self.result_text, widgets.HBox([self.auto_button, self.apply_button]), tfig]
 
+    def _status_context(self) -> dict:
+        if self.kind in LIMITS:
+            return {"size": self.size_label, "limit": LIMITS[self.kind][1]}
+        return {}
+
     def _size_unit(self) -> str:
         if self.kind == "porod":
             return f"{self.intensity_units} nm^-4"
