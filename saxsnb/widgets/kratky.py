@@ -151,9 +151,18 @@ class KratkyPanel(PanelBase):
             height="250px",
             x_limits=self.scan_limits,
         )
-        tfig.legend_location = "top-right"
-        for m in (self.trend_peak, self.trend_level):
-            m.display_legend = True
+        # the key sits under the plot (a legend box inside would hide points)
+        key = [
+            (ROLE["trend"], "&#9679;", "peak height"),
+            (OKABE_ITO["blue"], "&#9632;", "high-q level (q Rg 4.5-6)"),
+            (OKABE_ITO["orange"], "- -", "globule peak 3/e"),
+            (OKABE_ITO["black"], "- -", "chain plateau 2"),
+        ]
+        self.trend_key = widgets.HTML(
+            "<small>"
+            + " &nbsp; ".join(f'<span style="color:{c}">{sym}</span> {t}' for c, sym, t in key)
+            + "</small>"
+        )
         self.figures = [fig, tfig]
         self.toggle = widgets.ToggleButtons(
             options=[("q^2 I", "plain"), ("(q Rg)^2 I / I0", "rg")],
@@ -168,7 +177,7 @@ class KratkyPanel(PanelBase):
                 x, y, frames = finite_points(self.scan_values, self._summary[var].values)
                 if self._set_points(mark, x, y):
                     self._point_frames[id(mark)] = frames
-        return [self.toggle, fig, self.summary_text, tfig]
+        return [self.toggle, fig, self.summary_text, tfig, self.trend_key]
 
     def _on_toggle(self, change) -> None:
         self.normalize = None if change["new"] == "plain" else "rg"
