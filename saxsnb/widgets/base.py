@@ -96,6 +96,11 @@ def make_figure(
     )
 
 
+def control_row(children: Sequence[widgets.Widget]) -> widgets.HBox:
+    """A row of controls that wraps onto more lines in a narrow panel (no label is cut)."""
+    return widgets.HBox(list(children), layout=widgets.Layout(flex_flow="row wrap", align_items="center"))
+
+
 class DatasetTrait(traitlets.Instance):
     """An ``xarray.Dataset`` trait that notifies on every new object.
 
@@ -174,7 +179,7 @@ class PanelBase(widgets.VBox):
         self.png_button.on_click(lambda _b: self.save_png())
         self.svg_button.on_click(lambda _b: self.save_svg())
         body = self._build()
-        tools = widgets.HBox([self.export_button, self.png_button, self.svg_button])
+        tools = control_row([self.export_button, self.png_button, self.svg_button])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
         self.observe(self._handle_frame, "frame")
         # CSS hooks for page tests and styling: the panel and each of its figures

@@ -9,7 +9,7 @@ import numpy as np
 
 from ..analysis.display import colour_bar_ticks, fill_missing, overview_map
 from . import _bq as bq
-from .base import PanelBase, make_figure
+from .base import PanelBase, control_row, make_figure
 from .palette import MAP_SCHEME, ROLE
 
 __all__ = ["SeriesBrowser"]
@@ -165,7 +165,7 @@ class SeriesBrowser(PanelBase):
                 "in the lowest colour."
             )
         self.map_note = widgets.HTML(f"<small>{html.escape(' '.join(notes))}</small>")
-        return [widgets.HBox([self.play, self.slider]), self.label, fig, self.map_note]
+        return [control_row([self.play, self.slider]), self.label, fig, self.map_note]
 
     def _monotonic(self) -> bool:
         v = self.scan_values

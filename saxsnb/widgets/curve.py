@@ -9,7 +9,7 @@ import traitlets
 from ..analysis.display import drawable_lines, errorbar_segments, positive_range
 from ..series import validate
 from . import _bq as bq
-from .base import PanelBase, make_figure
+from .base import PanelBase, control_row, make_figure
 from .palette import ROLE, SEQUENCE
 
 __all__ = ["CurvePanel"]
@@ -143,6 +143,7 @@ class CurvePanel(PanelBase):
             description="overlay frames",
             continuous_update=False,
             style={"description_width": "initial"},
+            layout=widgets.Layout(width="18em", min_width="12em"),
         )
         self.every_box = widgets.BoundedIntText(
             value=0,
@@ -150,16 +151,21 @@ class CurvePanel(PanelBase):
             max=max(self.n_frames, 1),
             description="every n-th (0 off)",
             style={"description_width": "initial"},
-            layout=widgets.Layout(width="11em"),
+            layout=widgets.Layout(width="13em", min_width="13em"),
         )
         self.background_box = widgets.Checkbox(
-            value=True, description="background", disabled=self.background is None, indent=False
+            value=True,
+            description="background",
+            disabled=self.background is None,
+            indent=False,
+            layout=widgets.Layout(width="auto", min_width="8em"),
         )
         self.overlay_text.observe(self._parse_overlay, "value")
         widgets.link((self.every_box, "value"), (self, "every"))
         widgets.link((self.background_box, "value"), (self, "show_background"))
         self.overlay_note = widgets.HTML("")
-        controls = widgets.HBox([self.overlay_text, self.every_box, self.background_box])
+        # the row wraps in narrow panels instead of cutting labels off
+        controls = control_row([self.overlay_text, self.every_box, self.background_box])
         self._draw_background()
         return [fig, controls, self.overlay_note]
 

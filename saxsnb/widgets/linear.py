@@ -19,7 +19,7 @@ from ..analysis.display import (
 from ..analysis.linear import linearize
 from ..errors import SaxsInputError
 from . import _bq as bq
-from .base import PanelBase, make_figure
+from .base import PanelBase, control_row, make_figure
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["LinearFitPanel", "KINDS"]
@@ -80,7 +80,9 @@ class LinearFitPanel(PanelBase):
     selector : bqplot.interacts.BrushIntervalSelector
         On the x scale of the linearised plot, whose values are q^2 (q^4 for Porod):
         ``selector.selected = [q_lo**2, q_hi**2]``.
-    data, in_range, fit_line, residuals, trend, trend_fixed, trend_current : bqplot marks
+    data, data_points, in_range, fit_line, residuals, trend, trend_fixed, trend_current : bqplot marks
+        ``data`` is a faint line through the points, ``data_points`` the points drawn
+        over the (dashed) fit line so they stay visible.
     result_text : ipywidgets.HTML
         Size +- sigma, I0 +- sigma, q range, q_max R (coloured past the validity limit).
     """
@@ -145,9 +147,17 @@ class LinearFitPanel(PanelBase):
             scales={"x": xs, "y": ys},
             colors=[ROLE["data"]],
             stroke_width=1.0,
-            marker="circle",
-            marker_size=6,
+            opacities=[0.5],
             labels=["data"],
+        )
+        # the data points, drawn over the fit line (which stays the last Lines mark)
+        self.data_points = bq.Scatter(
+            x=np.zeros(0),
+            y=np.zeros(0),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["data"]],
+            default_size=10,
+            labels=["data points"],
         )
         self.in_range = bq.Scatter(
             x=np.zeros(0),
@@ -162,7 +172,9 @@ class LinearFitPanel(PanelBase):
             y=np.zeros(2),
             scales={"x": xs, "y": ys},
             colors=[ROLE["fit"]],
-            stroke_width=2.0,
+            stroke_width=1.5,
+            line_style="dashed",
+            opacities=[0.85],
             labels=["fit"],
         )
         self.selector = bq.BrushIntervalSelector(scale=xs, marks=[self.data], color=ROLE["selected"])
@@ -170,7 +182,7 @@ class LinearFitPanel(PanelBase):
         qu = self.q_units
         xunit = f"({qu})^4" if self.transform == "porod" else f"({qu})^2"
         fig = make_figure(
-            [self.data, self.in_range, self.fit_line],
+            [self.data, self.fit_line, self.data_points, self.in_range],
             xs,
             ys,
             x_label=f"{xq} {xunit}",
@@ -254,7 +266,7 @@ class LinearFitPanel(PanelBase):
         self.selector.observe(self._on_brushing, "brushing")
         self.selector.observe(self._on_selected, "selected")
         self._compute_trend()
-        return [fig, rfig, self.result_text, widgets.HBox([self.auto_button, self.apply_button]), tfig]
+        return [fig, rfig, self.result_text, control_row([self.auto_button, self.apply_button]), tfig]
 
     def _status_context(self) -> dict:
         if self.kind in LIMITS:
@@ -401,6 +413,7 @@ class LinearFitPanel(PanelBase):
         lx, ly, lsy = linearize(self.q, self._I[i], self._S[i], kind=self.transform)  # this frame only
         x, y, _ = finite_points(lx[view], ly[view])
         self._set_line(self.data, x, y)
+        self._set_points(self.data_points, x, y)
         inside = (
             (q >= q_lo) & (q <= q_hi) if np.isfinite(q_lo) and np.isfinite(q_hi) else np.zeros_like(q, bool)
         )

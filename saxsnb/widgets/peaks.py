@@ -13,7 +13,7 @@ from ..analysis.display import curve_at, finite_points, positive_range
 from ..analysis.reflections import PHASES
 from ..phase_overrides import apply_phase_overrides
 from . import _bq as bq
-from .base import PanelBase, make_figure
+from .base import PanelBase, control_row, make_figure
 from .palette import ROLE, phase_colour
 
 __all__ = ["PeaksPanel"]
@@ -200,9 +200,7 @@ class PeaksPanel(PanelBase):
         self.override_button.on_click(lambda _b: self._override_from_controls())
         self.clear_button.on_click(lambda _b: self.clear_override())
         self.overrides_text = widgets.HTML("")
-        controls = widgets.HBox(
-            [self.phase_choice, self.lattice_box, self.override_button, self.clear_button]
-        )
+        controls = control_row([self.phase_choice, self.lattice_box, self.override_button, self.clear_button])
         self._analyse()
         return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.map_note]
 
