@@ -155,3 +155,29 @@ def test_demo_dashboard_is_drawable(scenario):
     d.panels["kratky"].normalize = None
     for p in d.panels.values():
         _check_drawable(p)
+
+
+def test_peaks_panel_says_when_there_are_no_bragg_peaks():
+    # a growing-particle series: only broad form-factor maxima, no Bragg peak (demo data)
+    ds = saxsnb.demo.make_series("unfolding")[0]
+    p = PeaksPanel(ds)
+    assert str(p.result.status.values[0]) == "no_peaks"  # the code stays in the result
+    assert p.status.endswith("no_peaks")
+    assert p.status_text.endswith("no Bragg peaks found in this frame")
+    assert "no_peaks" not in p.status_line.value
+    assert "no Bragg peaks found in this frame" in p.table.value
+    assert "no frame could be indexed" in p.table.value
+    p.frame = 5
+    assert "no Bragg peaks found in this frame" in p.table.value
+    d = saxsnb.explore(ds, panels=("curve", "peaks"))
+    assert "peaks: " in d.status_line.value and "no Bragg peaks found" in d.status_line.value
+
+
+def test_peaks_panel_broad_features_are_not_bragg_peaks():
+    ds = saxsnb.demo.make_series("flow-growth")[0]
+    p = PeaksPanel(ds)
+    st = p.result.status.values.astype(str)
+    k = int(np.flatnonzero(st == "no_bragg_peaks")[0])
+    p.frame = k
+    assert "only broad features" in p.status_text and "no_bragg_peaks" not in p.status_line.value
+    assert "broad (not Bragg peaks)" in p.table.value and "no frame could be indexed" in p.table.value

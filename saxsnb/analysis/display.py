@@ -34,6 +34,7 @@ __all__ = [
     "STATUS_MESSAGES",
     "status_message",
     "describe_status",
+    "indexing_summary",
 ]
 
 #: Abscissa of each linearised plot, as a power of q (Guinier-type laws use q^2;
@@ -549,7 +550,7 @@ STATUS_MESSAGES = {
     "not_enough_peaks_to_index": "only one peak: at least two are needed to index a lattice",
     "no_phase_found": "the peaks fit none of the known phases",
     "unexplained_peaks": "some peaks are not explained by the assigned phase(s)",
-    "override": "phase set by hand",
+    "override": "override (phase set by hand)",
 }
 
 
@@ -584,3 +585,39 @@ def describe_status(text: str, **context) -> str:
     if code in STATUS_MESSAGES:
         return f"{head}{sep}{status_message(code, **context)}"
     return str(text)
+
+
+#: Statuses of ``index_phases`` for a frame that has a phase assignment.
+INDEXED_STATUSES = ("ok", "unexplained_peaks", "override")
+
+
+def indexing_summary(status) -> str:
+    """One line on a series where no frame has a phase: "" when some frame has one.
+
+    Parameters
+    ----------
+    status : array (n_frames,) of str
+        The ``status`` of ``ds.saxs.index_phases`` (or with overrides applied).
+
+    Returns
+    -------
+    str, e.g. ``"no frame could be indexed: no Bragg peaks found in this frame (3 of 4
+    frames); ..."``, reasons by decreasing count.
+
+    >>> for part in indexing_summary(np.array(["no_peaks", "no_peaks", "no_phase_found"])).split("; "):
+    ...     print(part)
+    no frame could be indexed: no Bragg peaks found (2 of 3 frames)
+    the peaks fit none of the known phases (1 of 3 frames)
+    >>> indexing_summary(np.array(["ok", "no_peaks"]))
+    ''
+    """
+    st = np.asarray(status).astype(str).ravel()
+    if st.size == 0 or np.isin(st, INDEXED_STATUSES).any():
+        return ""
+    codes, counts = np.unique(st, return_counts=True)
+    order = np.argsort(-counts, kind="stable")
+    parts = [
+        f"{status_message(codes[k]).replace(' in this frame', '')} ({counts[k]} of {st.size} frames)"
+        for k in order
+    ]
+    return "no frame could be indexed: " + "; ".join(parts)

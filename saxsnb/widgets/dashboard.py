@@ -70,6 +70,7 @@ class Dashboard(widgets.VBox):
         self.status_line = widgets.HTML("")
         for p in self.panels.values():
             p.observe(self._collect_status, "status")
+        self._collect_status()  # statuses set while the panels were built
         self.export_button = widgets.Button(
             description="Export all code", icon="code", layout=widgets.Layout(width="auto")
         )

@@ -9,7 +9,14 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import curve_at, finite_points, positive_range
+from ..analysis.display import (
+    INDEXED_STATUSES,
+    curve_at,
+    finite_points,
+    indexing_summary,
+    positive_range,
+    status_message,
+)
 from ..analysis.reflections import PHASES
 from ..phase_overrides import apply_phase_overrides
 from . import _bq as bq
@@ -263,6 +270,7 @@ class PeaksPanel(PanelBase):
         except Exception as exc:
             self.report(exc, "override")
             return
+        self._indexing_summary = indexing_summary(res["status"].values) if "status" in res else ""
         self._set_result(res)
         self._draw_maps()
 
@@ -364,14 +372,25 @@ class PeaksPanel(PanelBase):
                 if np.isfinite(score)
                 else f"<tr><td>{e(ph)}</td><td>{what} = {lat_t} nm</td><td>n/a</td></tr>"
             )
-        body = "".join(rows) or "<tr><td colspan=3>no phase assigned</td></tr>"
         get = lambda k: str(res[k].values[i]) if k in res else ""  # noqa: E731
+        status = get("status")
+        # a frame without a phase says why in plain words (the code stays in result.status)
+        why = "no phase assigned" if status in ("", *INDEXED_STATUSES) else status_message(status)
+        body = "".join(rows) or f"<tr><td colspan=3><b>{e(why)}</b></td></tr>"
         extra = []
-        for k, label in (("status", "status"), ("alternative", "alternatives"), ("caveat", "caveat")):
+        if status and status != "ok" and rows:
+            extra.append(f"status: {e(status_message(status))}")
+        for k, label in (("alternative", "alternatives"), ("caveat", "caveat")):
             if get(k):
                 extra.append(f"{label}: {e(get(k))}")
         n_pk = int(np.isfinite(self._pos[i]).sum())
-        extra.append(f"{n_pk} peak(s) found")
+        n_broad = int(res["n_broad"].values[i]) if "n_broad" in res else 0
+        extra.append(
+            f"{n_pk} peak(s) found" + (f", {n_broad} of them broad (not Bragg peaks)" if n_broad else "")
+        )
+        summary = getattr(self, "_indexing_summary", "")
+        if summary:
+            extra.append(f"<b>{e(summary)}</b>: the peak and lattice maps stay empty")
         style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"
         return (
             f"{style}<table class='saxsnb-phases'><tr><th>phase</th><th>lattice</th>"
