@@ -390,7 +390,7 @@ class PeaksPanel(PanelBase):
         )
         summary = getattr(self, "_indexing_summary", "")
         if summary:
-            extra.append(f"<b>{e(summary)}</b>: the peak and lattice maps stay empty")
+            extra.append(f"<b>{e(summary)}</b>: the lattice plot stays empty")
         style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"
         return (
             f"{style}<table class='saxsnb-phases'><tr><th>phase</th><th>lattice</th>"
