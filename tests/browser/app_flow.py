@@ -2,7 +2,7 @@
 
 Figures are found by their titles (bqplot ``text.mainheading``), which the panels set:
 the curve panel's title is the current frame ("position 0 mm (frame 0)"), the Guinier
-panel's starts with "Guinier fit (compact)". The panels carry no CSS class of their own.
+panel's starts with "Guinier fit (compact)".
 """
 
 from __future__ import annotations

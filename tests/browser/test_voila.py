@@ -2,6 +2,7 @@
 
 import pytest
 from app_flow import NOTEBOOK, click_map_row, run_flow
+from playwright.sync_api import TimeoutError as PlaywrightTimeout
 from playwright.sync_api import expect
 
 
@@ -40,10 +41,15 @@ def test_voila_scenario_notebook_renders(servers, probe, notebook):
     n_views = page.locator('script[type="application/vnd.jupyter.widget-view+json"]').count()
     if n_views:
         expect(page.locator(".jupyter-widgets").first).to_be_visible(timeout=60_000)
+    # outputs arrive progressively after the load event: wait for the first figure
+    # (a matplotlib image or a bqplot figure) instead of counting at once
+    figures = page.locator(".jp-RenderedImage img, div.bqplot.figure")
+    try:
+        figures.first.wait_for(state="attached", timeout=120_000)
+    except PlaywrightTimeout:
+        raise AssertionError("no figure on the page within 120 s") from None
     if page.locator("div.bqplot.figure").count():
         probe.wait_for_lines(1)
-    figures = page.locator(".jp-RenderedImage img, div.bqplot.figure")
-    assert figures.count() > 0, "no figure on the page"
     figures.first.scroll_into_view_if_needed()
     expect(figures.first).to_be_visible()
     probe.screenshot(f"voila-{notebook.stem}")
