@@ -1,7 +1,7 @@
 """Real-browser harness: headless Debian Chromium driven by Playwright, against a Voila or
 JupyterLab server started on 127.0.0.1 inside the test.
 
-Recipe: /work/shared/BROWSER-TESTING.md. Pieces:
+Recipe: ../shared/BROWSER-TESTING.md (beside the repository). Pieces:
 
 - ``browser`` (session): one ``sync_playwright()`` per process (a second one fails).
   A missing /usr/bin/chromium or Playwright FAILS the test with a clear message: a silent
