@@ -101,6 +101,7 @@ def test_long_cylinder_cross_section():
     qa = np.linspace(0.05, 3.0, 300)
     auto = guinier_fit(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
     assert auto["status"][0] == "ok"
+    # REFERENCES.md (from memory): cylinder cross-section Rc^2 = R^2 / 2
     assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.01)
 
 

@@ -71,6 +71,7 @@ def test_noisy_peak_and_batch_equals_loop(rng):
     I = np.exp(-((Q[None, :] * rg[:, None]) ** 2) / 3) * 5.0
     I = I * (1 + 0.01 * rng.normal(size=I.shape))
     s = kratky_summary(Q, I, rg=rg, i0=np.full(3, 5.0))
+    # Durand et al. (2010), J. Struct. Biol. 169, 45: Guinier-form peak at qRg = sqrt(3), height 3/e
     np.testing.assert_allclose(s["peak_qrg"], np.sqrt(3), atol=0.03)
     np.testing.assert_allclose(s["peak_height"], 3 / np.e, atol=0.01)
     for f in range(3):

@@ -121,6 +121,7 @@ def test_coexisting_bicontinuous_cubics_at_bonnet_ratio():
     assert got["Pn3m"] == pytest.approx(a_p, rel=2e-3)
     assert got["Ia3d"] == pytest.approx(a_g, rel=2e-3)
     m = phase_map(res["phase"], np.array([25.0]), lattice=res["lattice"], lattice_sigma=res["lattice_sigma"])
+    # Bonnet ratio a(Ia3d)/a(Pn3m) = 1.576 (Anderson, Gruner & Leibler 1988, PNAS 85, 5364; from memory)
     assert m["bonnet_ratio"][0] == pytest.approx(1.576, rel=3e-3)
     assert m["bonnet_expected"][0] == pytest.approx(1.576)
 

@@ -126,7 +126,7 @@ def test_apply_range_to_all_frames(series):
 def test_trend_click_jumps_to_frame(series):
     p = LinearFitPanel(series)
     np.testing.assert_array_equal(p.trend.y, series.saxs.guinier().rg.values)
-    p._on_trend_click(p.trend, {"event": "element_click", "data": {"index": 4}})
+    p._on_point_click(p.trend, {"event": "element_click", "data": {"index": 4}})
     assert p.frame == 4
 
 
@@ -187,7 +187,7 @@ def test_kratky_panel_plain_toggle_and_trend_click(series):
     assert k._ys.max < 2.0 * np.nanpercentile(series.q.values**2 * series.intensity.values, 99.5)
     k.toggle.value = "rg"
     assert k.normalize == "rg" and k.references.visible
-    k._on_trend_click(k.trend_peak, {"data": {"index": 5}})
+    k._on_point_click(k.trend_peak, {"data": {"index": 5}})
     assert k.frame == 5
     np.testing.assert_allclose(k.trend_current.x, [50.0, 50.0])
     assert k.to_matplotlib().axes[0].get_xlabel() == "q Rg"

@@ -294,6 +294,15 @@ class PanelBase(widgets.VBox):
                 mark.visible = show
         return True
 
+    def _on_point_click(self, mark, content) -> None:
+        """Jump to the frame of a clicked point. Panels record, per mark, the frame of
+        each drawn point in ``self._point_frames[id(mark)]``."""
+        data = content.get("data") or {}
+        idx = data.get("index") if isinstance(data, dict) else None
+        frames = getattr(self, "_point_frames", {}).get(id(mark))
+        if idx is not None and frames is not None and 0 <= int(idx) < len(frames):
+            self.frame = int(frames[int(idx)])
+
     def report(self, exc: BaseException, what: str = "") -> None:
         """Show an exception in the status line and keep it in ``last_error``."""
         self.last_error = exc

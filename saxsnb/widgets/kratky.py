@@ -140,7 +140,7 @@ class KratkyPanel(PanelBase):
             stroke_width=1.0,
         )
         for m in (self.trend_peak, self.trend_level):
-            m.on_element_click(self._on_trend_click)
+            m.on_element_click(self._on_point_click)
         tfig = make_figure(
             [self.trend_refs, self.trend_peak, self.trend_level, self.trend_current],
             tx,
@@ -185,13 +185,6 @@ class KratkyPanel(PanelBase):
     def _on_normalize(self, change) -> None:
         self.toggle.value = "plain" if change["new"] is None else "rg"
         self._update()
-
-    def _on_trend_click(self, mark, content) -> None:
-        data = content.get("data") or {}
-        idx = data.get("index") if isinstance(data, dict) else None
-        frames = self._point_frames.get(id(mark))
-        if idx is not None and frames is not None and 0 <= int(idx) < frames.size:
-            self.frame = int(frames[int(idx)])
 
     # ----------------------------------------------------------------- update
     def _series(self, normalize):

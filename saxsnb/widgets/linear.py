@@ -233,7 +233,7 @@ class LinearFitPanel(PanelBase):
             marker="diamond",
         )
         for m in (self.trend, self.trend_fixed):
-            m.on_element_click(self._on_trend_click)
+            m.on_element_click(self._on_point_click)
         unit = self._size_unit()
         tfig = make_figure(
             [self.trend, self.trend_fixed, self.trend_current],
@@ -357,13 +357,6 @@ class LinearFitPanel(PanelBase):
         shown = self._set_points(mark, x, y)
         self._point_frames[id(mark)] = frames if shown else np.zeros(0, dtype=int)
         return shown
-
-    def _on_trend_click(self, mark, content) -> None:
-        data = content.get("data") or {}
-        idx = data.get("index") if isinstance(data, dict) else None
-        frames = self._point_frames.get(id(mark))
-        if idx is not None and frames is not None and 0 <= int(idx) < frames.size:
-            self.frame = int(frames[int(idx)])
 
     # ----------------------------------------------------------------- update
     def _on_choice(self, change) -> None:

@@ -138,7 +138,7 @@ class PeaksPanel(PanelBase):
             m.on_element_click(self._on_point_click)
             t.on_element_click(self._on_point_click)
             self.map_marks[ph], self.trend_marks[ph] = m, t
-        self._map_frames_of: dict = {}
+        self._point_frames: dict = {}
         self.map_current = bq.Lines(
             x=np.zeros(2),
             y=np.array([self.q[0], self.q[-1]]),
@@ -290,11 +290,11 @@ class PeaksPanel(PanelBase):
             sel = np.isfinite(pos) & (pphase == key)
             m = self.map_marks[ph]
             self._set_points(m, scan[frames_2d[sel]], pos[sel], display_legend=bool(sel.any()))
-            self._map_frames_of[id(m)] = frames_2d[sel]
+            self._point_frames[id(m)] = frames_2d[sel]
             t = self.trend_marks[ph]
             tsel = np.isfinite(lat) & (lphase == key) if key else np.zeros(lat.shape, bool)
             self._set_points(t, scan[frames_slot[tsel]], lat[tsel], display_legend=bool(tsel.any()))
-            self._map_frames_of[id(t)] = frames_slot[tsel]
+            self._point_frames[id(t)] = frames_slot[tsel]
         self._draw_boundaries(lat)
 
     def _draw_boundaries(self, lat) -> None:
@@ -314,13 +314,6 @@ class PeaksPanel(PanelBase):
             self.boundaries.x = np.array([[x, x] for x in xs])
             self.boundaries.y = np.array([[lo, hi]] * len(xs))
             self.boundaries.visible = True
-
-    def _on_point_click(self, mark, content) -> None:
-        data = content.get("data") or {}
-        idx = data.get("index") if isinstance(data, dict) else None
-        frames = self._map_frames_of.get(id(mark))
-        if idx is not None and frames is not None and 0 <= int(idx) < len(frames):
-            self.frame = int(frames[int(idx)])
 
     # ----------------------------------------------------------------- update
     def _update(self) -> None:
