@@ -36,11 +36,11 @@ def make_series(n_frames: int, n_q: int = 1000, seed: int = 0):
 def vectorised(q, I, S):
     """Automatic Guinier range and fit, then the Porod fit (background fitted, default
     range: upper quarter of q) with the power-law exponent, on all frames at once."""
-    from saxsnb.analysis.guinier import guinier_fit
-    from saxsnb.analysis.porod import porod_analysis
+    from saxsnb.analysis._guinier import guinier
+    from saxsnb.analysis._porod import porod
 
-    g = guinier_fit(q, I, S)
-    p = porod_analysis(q, I, S)
+    g = guinier(q, I, S)
+    p = porod(q, I, S)
     return g, p
 
 

@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from ._jsonsafe import to_json_safe
 from .errors import SaxsInputError
 
 __all__ = [
@@ -341,7 +342,7 @@ def add_history(ds: xr.Dataset, operation: str, **parameters) -> xr.Dataset:
     entry = json.dumps(
         {
             "operation": operation,
-            "parameters": _jsonable(parameters),
+            "parameters": to_json_safe(parameters),
             "version": __version__,
             "time": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         },
@@ -351,17 +352,3 @@ def add_history(ds: xr.Dataset, operation: str, **parameters) -> xr.Dataset:
     out.attrs = dict(ds.attrs)
     out.attrs["history"] = list(ds.attrs.get("history", [])) + [entry]
     return out
-
-
-def _jsonable(obj):
-    if isinstance(obj, Mapping):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if obj is None or isinstance(obj, (bool, int, float, str)):
-        return obj
-    return repr(obj)

@@ -46,11 +46,11 @@ def _frame_means(q, I, S, *, power=1.0):
         return {"mean": np.nanmean(I**power, axis=-1), "qI": q * I}
 
 
-def test_map_frames_numpy_and_dask_agree(ds):
+def test_apply_numpy_and_dask_agree(ds):
     pytest.importorskip("dask")
     outputs = {"mean": OutputSpec(units="arb"), "qI": OutputSpec(dims=("q",))}
-    a = ds.saxs._map_frames(_frame_means, outputs, operation="mean", power=2.0)
-    b = ds.chunk({"frame": 2}).saxs._map_frames(_frame_means, outputs, operation="mean", power=2.0)
+    a = ds.saxs._apply(_frame_means, outputs, operation="mean", power=2.0)
+    b = ds.chunk({"frame": 2}).saxs._apply(_frame_means, outputs, operation="mean", power=2.0)
     assert b["mean"].chunks is not None
     xr.testing.assert_allclose(a, b.compute())
     np.testing.assert_allclose(a["mean"].values, (ds.intensity.values**2).mean(axis=1))
@@ -67,8 +67,8 @@ def test_mask_becomes_nan_for_analysis(ds):
     assert np.isfinite(dm.intensity.values).all()  # the loaded data is not modified
 
 
-def test_map_frames_single_output(ds):
-    out = ds.saxs._map_frames(_frame_means, {"mean": OutputSpec(units="arb")}, operation="mean")
+def test_apply_single_output(ds):
+    out = ds.saxs._apply(_frame_means, {"mean": OutputSpec(units="arb")}, operation="mean")
     np.testing.assert_allclose(out["mean"].values, ds.intensity.values.mean(axis=1))
 
 
@@ -79,7 +79,7 @@ def test_output_named_like_a_scan_coordinate_keeps_both():
     def f(q, I, S):
         return {"position": np.full(I.shape[0], 0.5)}
 
-    out = ds.saxs._map_frames(f, {"position": OutputSpec(units="1/nm")}, operation="f")
+    out = ds.saxs._apply(f, {"position": OutputSpec(units="1/nm")}, operation="f")
     assert out["position"].attrs["units"] == "1/nm"
     np.testing.assert_array_equal(out["scan_position"].values, [0.0, 1.0, 2.0])
     assert out["scan_position"].attrs["scan_coordinate"] == "position"

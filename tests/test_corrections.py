@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 import saxsnb
-from saxsnb.corrections import scale_intensity, subtract_background
+from saxsnb.analysis import scale_intensity, subtract_background
 from saxsnb.errors import SaxsInputError
 
 

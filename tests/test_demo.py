@@ -10,7 +10,7 @@ from scipy.special import gammaln
 
 import saxsnb
 from saxsnb import demo
-from saxsnb.analysis import reflections
+from saxsnb.analysis import _reflections as reflections
 from saxsnb.demo import flow_growth, phase_ramp, unfolding
 from saxsnb.demo._common import debye_chain, sphere_form_factor
 from saxsnb.errors import SaxsInputError

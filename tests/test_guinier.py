@@ -6,7 +6,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapes_linear import cylinder, debye, flat_disc, rg_schulz, schulz_spheres, sphere
 
-from saxsnb.analysis.guinier import guinier_fit, guinier_search, rod_length
+from saxsnb.analysis._guinier import guinier, guinier_search, rod_length
 from saxsnb.errors import SaxsInputError
 
 
@@ -15,10 +15,10 @@ def test_guinier_form_exact():
     rg = np.array([1.0, 2.0, 3.5])
     I = np.array([10.0, 1.0, 250.0])[:, None] * np.exp(-((q * rg[:, None]) ** 2) / 3)
     for q_range in (None, (0.0, 0.5)):
-        r = guinier_fit(q, I, 0.01 * I, q_range=q_range, qrg_limit=1.8)
+        r = guinier(q, I, 0.01 * I, q_range=q_range, qrg_limit=1.8)
         np.testing.assert_allclose(r["rg"], rg, rtol=1e-9)
         np.testing.assert_allclose(r["i0"], [10.0, 1.0, 250.0], rtol=1e-9)
-    r = guinier_fit(q, I, 0.01 * I)
+    r = guinier(q, I, 0.01 * I)
     assert (r["qrg_max"] <= 1.3).all() and (r["status"] == "ok").all()
 
 
@@ -35,7 +35,7 @@ def test_sphere_bias_table(qrg, ratio):
     rg = np.sqrt(3 / 5) * R  # Guinier & Fournet (1955)
     qmax = qrg / rg
     q = np.linspace(qmax / 400, qmax, 400)
-    r = guinier_fit(q, sphere(q * R), q_range=(0.0, qmax), qrg_limit=3.0)
+    r = guinier(q, sphere(q * R), q_range=(0.0, qmax), qrg_limit=3.0)
     assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
 
 
@@ -43,7 +43,7 @@ def test_sphere_bias_table(qrg, ratio):
 def test_chain_bias_table(qrg, ratio):
     rg = 3.0
     q = np.linspace(qrg / rg / 400, qrg / rg, 400)
-    r = guinier_fit(q, debye((q * rg) ** 2), q_range=(0.0, 1.0))
+    r = guinier(q, debye((q * rg) ** 2), q_range=(0.0, 1.0))
     assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
 
 
@@ -58,7 +58,7 @@ def _noisy_schulz(rng, n=40, noise=0.01):
 
 def test_automatic_range_on_noisy_schulz_spheres(rng):
     q, I, s, rg_true = _noisy_schulz(rng)
-    r = guinier_fit(q, I, s)
+    r = guinier(q, I, s)
     assert (r["status"] == "ok").all()
     err = np.abs(r["rg"] / rg_true - 1)
     # apparent Rg of Schulz spheres (Kotlarchyk & Chen 1983); the issue asks < 1 %
@@ -69,11 +69,11 @@ def test_automatic_range_on_noisy_schulz_spheres(rng):
 def test_search_alone_and_fit_agree(rng):
     q, I, s, _ = _noisy_schulz(rng, n=5)
     found = guinier_search(q, I, s)
-    r = guinier_fit(q, I, s)
+    r = guinier(q, I, s)
     assert np.array_equal(found["start"], r["start"]) and np.array_equal(found["stop"], r["stop"])
     # the same range given by hand gives the same numbers
     ranges = np.stack([q[found["start"]], q[found["stop"] - 1]], axis=1)
-    fixed = guinier_fit(q, I, s, q_range=ranges)
+    fixed = guinier(q, I, s, q_range=ranges)
     np.testing.assert_allclose(fixed["rg"], r["rg"], rtol=1e-12)
 
 
@@ -82,9 +82,9 @@ def test_batch_equals_loop(rng):
     I[3, :40] = np.nan
     I[5, 2] = -1.0
     for kwargs in ({}, {"q_range": (0.02, 0.2)}, {"shape": "rod"}):
-        batch = guinier_fit(q, I, s, **kwargs)
+        batch = guinier(q, I, s, **kwargs)
         for f in range(I.shape[0]):
-            one = guinier_fit(q, I[f], s[f], **kwargs)
+            one = guinier(q, I[f], s[f], **kwargs)
             for key, v in batch.items():
                 assert np.array_equal(v[f : f + 1], one[key], equal_nan=v.dtype.kind == "f"), (key, f)
 
@@ -93,13 +93,13 @@ def test_long_cylinder_cross_section():
     R = 1.0
     q = np.linspace(0.3, 1.2, 40)  # q L >= 300, q Rc <= 0.85
     I = cylinder(q, R, 1000.0)
-    r = guinier_fit(q, I, shape="rod", q_range=(0.3, 1.2))
+    r = guinier(q, I, shape="rod", q_range=(0.3, 1.2))
     # Rc^2 = R^2/2 (REFERENCES.md [mem], from memory: loose tolerance); the curvature of
     # ln[2 J1(x)/x]^2 biases the fixed-range fit by about 1.4 %
     assert r["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.02)
     assert r["radius"][0] == pytest.approx(R, rel=0.02)
     qa = np.linspace(0.05, 3.0, 300)
-    auto = guinier_fit(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
+    auto = guinier(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
     assert auto["status"][0] == "ok"
     # REFERENCES.md (from memory): cylinder cross-section Rc^2 = R^2 / 2
     assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.01)
@@ -109,7 +109,7 @@ def test_flat_disc_thickness():
     T = 4.0
     q = np.linspace(0.1, 0.45, 30)  # q R >= 50, q Rt <= 0.52
     I = flat_disc(q, 500.0, T)
-    r = guinier_fit(q, I, shape="sheet", q_range=(0.1, 0.45))
+    r = guinier(q, I, shape="sheet", q_range=(0.1, 0.45))
     # Rt^2 = T^2/12 (REFERENCES.md [mem], from memory: loose tolerance)
     assert r["thickness"][0] == pytest.approx(T, rel=0.02)
     assert r["rt"][0] == pytest.approx(T / np.sqrt(12), rel=0.02)
@@ -123,9 +123,9 @@ def test_rod_length():
     assert np.isnan(rod_length(1.0, 2.0)[0])
     # end to end: whole-particle Rg at low q (elongated: q Rg <= 0.8), Rc from the rod fit
     q_lo = np.linspace(0.002, 0.8 / 8.7, 60)
-    rg = guinier_fit(q_lo, cylinder(q_lo, 1.0, 30.0), q_range=(0, 1))["rg"]
+    rg = guinier(q_lo, cylinder(q_lo, 1.0, 30.0), q_range=(0, 1))["rg"]
     q_hi = np.linspace(0.4, 1.2, 40)
-    r = guinier_fit(q_hi, cylinder(q_hi, 1.0, 30.0), shape="rod", q_range=(0.4, 1.2), rg=rg)
+    r = guinier(q_hi, cylinder(q_hi, 1.0, 30.0), shape="rod", q_range=(0.4, 1.2), rg=rg)
     assert r["length"][0] == pytest.approx(30.0, rel=0.03)  # loose: [mem] relation
 
 
@@ -137,8 +137,8 @@ def test_bad_input_statuses():
     I[1, :] = -1.0
     s[2, :] = 0.0
     I[3, 5:] = np.nan
-    auto = guinier_fit(q, I, s)
-    assert auto["status"].tolist() == ["all_nan", "negative_intensity", "zero_sigma", "too_few_points", "ok"]
+    auto = guinier(q, I, s)
+    assert auto["status"].tolist() == ["no_data", "negative_intensity", "zero_sigma", "too_few_points", "ok"]
     assert np.isnan(auto["rg"][:4]).all() and np.isfinite(auto["rg"][4])
     I2 = np.tile(10.0 * np.exp(-((q * 2.0) ** 2) / 3), (6, 1))
     s2 = 0.01 * I2
@@ -146,16 +146,16 @@ def test_bad_input_statuses():
     I2[1, 10] = -1.0
     s2[2, 12] = 0.0
     ranges = np.array([[0.05, 0.5], [0.05, 0.5], [0.05, 0.5], [2.0, 3.0], [0.05, 0.06], [0.05, 1.0]])
-    fixed = guinier_fit(q, I2, s2, q_range=ranges)
+    fixed = guinier(q, I2, s2, q_range=ranges)
     assert fixed["status"].tolist() == [
-        "all_nan", "negative_intensity", "zero_sigma", "range_outside_data", "too_few_points",
+        "no_data", "negative_intensity", "zero_sigma", "range_outside_data", "too_few_points",
         "qrg_limit_exceeded",
     ]
     assert np.isfinite(fixed["rg"][5])  # numbers kept, flagged
     with pytest.raises(SaxsInputError, match="shape"):
-        guinier_fit(q, I, s, shape="blob")
+        guinier(q, I, s, shape="blob")
     with pytest.raises(SaxsInputError, match="q_range"):
-        guinier_fit(q, I, s, q_range=(0.5, 0.1))
+        guinier(q, I, s, q_range=(0.5, 0.1))
 
 
 def test_aggregation_is_flagged():
@@ -163,15 +163,15 @@ def test_aggregation_is_flagged():
     base = 10.0 * np.exp(-((q * 2.0) ** 2) / 3)
     aggregate = 200.0 * np.exp(-((q * 25.0) ** 2) / 3) + 40.0 / (1 + (q * 30.0) ** 2)
     I = np.stack([base, base + aggregate])
-    r = guinier_fit(q, I, 0.005 * I)
+    r = guinier(q, I, 0.005 * I)
     assert r["status"].tolist() == ["ok", "curvature_aggregation"]
 
 
 def test_input_not_modified(rng):
     q, I, s, _ = _noisy_schulz(rng, n=3)
     I0, s0 = I.copy(), s.copy()
-    guinier_fit(q, I, s)
-    guinier_fit(q, I, s, q_range=(0.02, 0.1))
+    guinier(q, I, s)
+    guinier(q, I, s, q_range=(0.02, 0.1))
     assert np.array_equal(I, I0) and np.array_equal(s, s0)
 
 
@@ -180,7 +180,7 @@ def test_input_not_modified(rng):
 def test_automatic_recovers_exact_guinier(rg, i0, n):
     q = np.linspace(0.05 / rg, 3.0 / rg, n)
     I = i0 * np.exp(-((q * rg) ** 2) / 3)
-    r = guinier_fit(q, I, 0.01 * I)
+    r = guinier(q, I, 0.01 * I)
     assert r["status"][0] == "ok"
     assert r["rg"][0] == pytest.approx(rg, rel=1e-7)
     assert r["i0"][0] == pytest.approx(i0, rel=1e-7)
@@ -192,7 +192,7 @@ def test_demo_flow_growth_truth():
     truth = demo.truth(series)
     I = series.intensity.values - background.intensity.values
     s = np.hypot(series.sigma.values, background.sigma.values)
-    r = guinier_fit(series.q.values, I, s)
+    r = guinier(series.q.values, I, s)
     assert (r["status"] == "ok").all()
     err = np.abs(r["rg"] / np.asarray(truth["rg_apparent_nm"]) - 1)
     # Counting noise is low in this scenario (sigma(Rg)/Rg ~ 0.05 %); the remaining error is
@@ -220,7 +220,7 @@ def test_accessor_guinier_dataset(series):
     assert res.rg.attrs["units"] == "nm" and res.i0.attrs["units"] == "1/cm"
     assert res.qrg_max.attrs["units"] == "1" and res.q_min.attrs["units"] == "1/nm"
     assert res.attrs["operation"] == "guinier" and '"shape": "compact"' in res.attrs["parameters"]
-    direct = guinier_fit(ds.q.values, ds.intensity.values, ds.sigma.values)
+    direct = guinier(ds.q.values, ds.intensity.values, ds.sigma.values)
     np.testing.assert_array_equal(res.rg.values, direct["rg"])
     import matplotlib
 
@@ -250,15 +250,15 @@ def test_accessor_per_frame_range_mask_and_errors(series):
     ranges = np.tile([0.02, 0.15], (8, 1))
     ranges[2] = [0.02, 0.1]
     res = ds.saxs.guinier(q_range=ranges)
-    direct = guinier_fit(ds.q.values, ds.intensity.values, ds.sigma.values, q_range=ranges)
+    direct = guinier(ds.q.values, ds.intensity.values, ds.sigma.values, q_range=ranges)
     np.testing.assert_array_equal(res.rg.values, direct["rg"])
     res_da = ds.saxs.guinier(q_range=xr.DataArray(ranges, dims=("frame", "bound")))
     np.testing.assert_array_equal(res_da.rg.values, direct["rg"])
     masked = ds.assign(mask=(("frame", "q"), np.zeros(ds.intensity.shape, bool)))
     masked["mask"][4, :] = True
     out = masked.saxs.guinier()
-    assert out.status.values[4] == "all_nan" and np.isnan(out.rg.values[4])
-    with pytest.raises(SaxsFitError, match=r"frame 4 \(temperature = 40.0 degC\).*all_nan") as err:
+    assert out.status.values[4] == "no_data" and np.isnan(out.rg.values[4])
+    with pytest.raises(SaxsFitError, match=r"frame 4 \(temperature = 40.0 degC\).*no_data") as err:
         masked.saxs.guinier(errors="raise")
     assert err.value.frame == 4 and err.value.parameter == "intensity"
     with pytest.raises(SaxsFitError, match="q_range"):
@@ -289,10 +289,10 @@ def test_accessor_rod_with_length():
 def test_rising_rod_plot_is_not_called_aggregation():
     q = np.linspace(0.05, 3.0, 300)
     I = q**-0.5  # ln(q I) rises everywhere: no cross-section region, but no aggregation either
-    r = guinier_fit(q, I, 0.01 * I, shape="rod")
+    r = guinier(q, I, 0.01 * I, shape="rod")
     assert r["status"][0] == "no_linear_region"
     # compact: ln I vs q^2 of a power law curves upwards, as aggregates do
-    assert guinier_fit(q, I, 0.01 * I)["status"][0] == "curvature_aggregation"
+    assert guinier(q, I, 0.01 * I)["status"][0] == "curvature_aggregation"
 
 
 def test_bad_first_points_are_skipped():
@@ -301,15 +301,15 @@ def test_bad_first_points_are_skipped():
     I[:2] *= [0.3, 0.6]  # a beam-stop shadow on the first two points
     found = guinier_search(q, I, 0.005 * I)
     assert found["status"][0] == "ok" and found["start"][0] == 2
-    r = guinier_fit(q, I, 0.005 * I)
+    r = guinier(q, I, 0.005 * I)
     assert r["rg"][0] == pytest.approx(2.5, rel=1e-6)
-    only_first = guinier_fit(q, I, 0.005 * I, n_starts=1)
+    only_first = guinier(q, I, 0.005 * I, n_starts=1)
     assert only_first["status"][0] != "ok"
 
 
 def test_automatic_without_sigma(rng):
     q = np.linspace(0.02, 1.5, 300)
     I = np.exp(-((q * 3.0) ** 2) / 3) * (1 + 0.01 * rng.normal(size=(4, 300)))
-    r = guinier_fit(q, I)  # unweighted; uncertainties from the scatter of the residuals
+    r = guinier(q, I)  # unweighted; uncertainties from the scatter of the residuals
     assert (r["status"] == "ok").all()
     assert np.all(np.abs(r["rg"] - 3.0) < 4 * r["rg_sigma"])

@@ -1,4 +1,4 @@
-"""Mesophase indexing, lattice fit, scan prior and phase map (saxsnb.analysis.lattice)."""
+"""Mesophase indexing, lattice fit, scan prior and phase map (saxsnb.analysis._lattice)."""
 
 import json
 
@@ -9,8 +9,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import saxsnb
-from saxsnb.analysis.lattice import index_peaks, phase_map
-from saxsnb.analysis.reflections import q_positions
+from saxsnb.analysis._lattice import index_peaks, phase_map
+from saxsnb.analysis._reflections import q_positions
 
 # Lattice parameters (nm) spanning typical lyotropic values (common practice);
 # d-spacing for lamellar, a otherwise.

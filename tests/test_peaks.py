@@ -1,4 +1,4 @@
-"""Peak baseline, detection and batched fitting (saxsnb.analysis.peaks, ds.saxs.find_peaks)."""
+"""Peak baseline, detection and batched fitting (saxsnb.analysis._peaks, ds.saxs.find_peaks)."""
 
 import numpy as np
 import pytest
@@ -6,7 +6,7 @@ from _synth_peaks import Q, curve, gaussian
 from scipy.optimize import curve_fit
 
 import saxsnb
-from saxsnb.analysis.peaks import estimate_baseline, find_peaks, fit_peaks, peak_profile
+from saxsnb.analysis._peaks import estimate_baseline, find_peaks, fit_peaks, peak_profile
 from saxsnb.errors import SaxsFitError, SaxsInputError
 
 

@@ -1,4 +1,4 @@
-"""Linking peaks across frames (saxsnb.analysis.tracking)."""
+"""Linking peaks across frames (saxsnb.analysis._tracking)."""
 
 import numpy as np
 from hypothesis import given, settings
@@ -6,7 +6,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from scipy.optimize import linear_sum_assignment
 
-from saxsnb.analysis.tracking import link_peaks
+from saxsnb.analysis._tracking import link_peaks
 
 
 def test_drifting_peaks_form_one_track_each():

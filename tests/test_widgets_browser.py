@@ -6,7 +6,7 @@ import traitlets
 import xarray as xr
 
 import saxsnb
-from saxsnb.analysis.display import drawable_line, errorbar_segments, overview_map
+from saxsnb.display import drawable_line, errorbar_segments, overview_map
 from saxsnb.widgets import CurvePanel, SeriesBrowser, explore
 
 

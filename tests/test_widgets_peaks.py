@@ -7,8 +7,7 @@ import pytest
 import xarray as xr
 
 import saxsnb
-from saxsnb.analysis.reflections import q_positions
-from saxsnb.phase_overrides import apply_phase_overrides
+from saxsnb.analysis._reflections import q_positions
 from saxsnb.widgets import PeaksPanel
 from saxsnb.widgets import _bq as bq
 
@@ -61,7 +60,7 @@ def test_override_is_recorded_applied_and_exported(cubic_series):
     assert str(p.result.phase.values[2, 0]) == "Im3m" and str(p.result.status.values[2]) == "override"
     assert "override" in p.table.value and "automatic: Pn3m" in p.table.value
     pk = cubic_series.saxs.find_peaks()
-    expected = apply_phase_overrides(cubic_series, cubic_series.saxs.index_phases(pk), pk, p.overrides)
+    expected = cubic_series.saxs.index_phases(pk, overrides=p.overrides)
     xr.testing.assert_identical(p.result, expected)
     ns = {"ds": cubic_series}
     exec(p.to_code(), ns)

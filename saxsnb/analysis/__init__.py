@@ -1,4 +1,95 @@
 """Pure numerical functions on numpy arrays, vectorised over a leading frame axis.
 
-Nothing here imports xarray, ipywidgets or bqplot, prints, or reads files.
+Nothing here imports xarray, ipywidgets or bqplot, prints, formats text for people, or
+reads files. Every function takes ``(q, intensity, sigma, **options)`` (or a peak
+table) with frames first and returns a dict of arrays whose first axis is the frame;
+``ds.saxs.<name>`` is a thin wrapper of the function of the same name, so both routes
+give the same numbers. The modules are private (as in ``skimage.measure``): import
+from ``saxsnb.analysis``.
+
+Subjects: linear regions (:func:`guinier`, :func:`porod`, :func:`invariant`, the plot
+table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), peaks
+(:func:`find_peaks`, :func:`track_peaks`), phases (:func:`index_phases`,
+:func:`phase_map`, :func:`q_positions`), corrections (:func:`subtract_background`,
+:func:`scale_intensity`) and the status table (:data:`STATUS`).
+
+>>> import numpy as np
+>>> from saxsnb import analysis
+>>> q = np.linspace(0.02, 1.0, 100)
+>>> analysis.guinier(q, np.exp(-(2 * q) ** 2 / 3)[None], None)["rg"].round(6).tolist()
+[2.0]
 """
+
+from ._corrections import scale_intensity, subtract_background
+from ._guinier import guinier, guinier_search, rod_length
+from ._indexing import PHASE_OUTPUTS, index_phases
+from ._kratky import SHAPE_CLASSES, kratky, kratky_summary
+from ._lattice import index_peaks, lattice_from_metric
+from ._linear import (
+    LINEAR_PLOTS,
+    SHAPE_PLOTS,
+    LinearPlot,
+    WindowMoments,
+    linear_plot,
+    linearize,
+    weighted_linear_fit,
+)
+from ._peakfit import PROFILES, fit_peaks, guess_peaks, peak_profile
+from ._peaks import detect_peaks, estimate_baseline, find_peaks
+from ._phasemap import BONNET_RATIOS, phase_map
+from ._porod import default_porod_range, invariant, porod, porod_fit, power_law_fit
+from ._reflections import PHASES, allowed_reflections, hkl_labels, q_positions, spacing_ratios
+from ._status import STATUS, STATUS_DTYPE, Status
+from ._tracking import link_peaks, track_peaks
+
+__all__ = [
+    # linear regions
+    "LINEAR_PLOTS",
+    "SHAPE_PLOTS",
+    "LinearPlot",
+    "linear_plot",
+    "linearize",
+    "weighted_linear_fit",
+    "WindowMoments",
+    "guinier",
+    "guinier_search",
+    "rod_length",
+    "porod",
+    "porod_fit",
+    "power_law_fit",
+    "default_porod_range",
+    "invariant",
+    # Kratky
+    "kratky",
+    "kratky_summary",
+    "SHAPE_CLASSES",
+    # peaks
+    "PROFILES",
+    "peak_profile",
+    "guess_peaks",
+    "fit_peaks",
+    "estimate_baseline",
+    "detect_peaks",
+    "find_peaks",
+    "link_peaks",
+    "track_peaks",
+    # phases
+    "PHASES",
+    "allowed_reflections",
+    "spacing_ratios",
+    "q_positions",
+    "hkl_labels",
+    "index_peaks",
+    "index_phases",
+    "PHASE_OUTPUTS",
+    "lattice_from_metric",
+    "phase_map",
+    "BONNET_RATIOS",
+    # corrections
+    "subtract_background",
+    "scale_intensity",
+    # statuses
+    "STATUS",
+    "STATUS_DTYPE",
+    "Status",
+]

@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from .._jsonsafe import to_json_safe
 from ..errors import SaxsInputError
 
 __all__ = [
@@ -90,20 +91,6 @@ def debye_chain(x: np.ndarray) -> np.ndarray:
     return np.where(small, 1.0 - x / 3.0 + x * x / 12.0, p)
 
 
-def _plain(obj):
-    if isinstance(obj, Mapping):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _plain(obj.tolist())
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    return obj
-
-
 def truth_json(truth: Mapping[str, Any]) -> str:
     """The truth dict as a JSON string (arrays become lists, non-finite become null)."""
-    return json.dumps(_plain(truth), sort_keys=True, allow_nan=False)
+    return json.dumps(to_json_safe(truth, nonfinite="null"), sort_keys=True, allow_nan=False)

@@ -14,6 +14,8 @@ from typing import Any
 
 import numpy as np
 
+from .._jsonsafe import from_json_safe, to_json_safe
+
 __all__ = ["encode_attrs", "decode_attrs", "MARKER"]
 
 #: Prefix of an attribute value that holds JSON-encoded data.
@@ -31,32 +33,6 @@ def _native(value: Any) -> bool:
     return False
 
 
-def _plain(value: Any) -> Any:
-    if isinstance(value, np.ndarray):
-        return {"__ndarray__": value.tolist(), "dtype": str(value.dtype)}
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, Mapping):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, tuple):
-        return {"__tuple__": [_plain(v) for v in value]}
-    if isinstance(value, list):
-        return [_plain(v) for v in value]
-    return value
-
-
-def _unplain(value: Any) -> Any:
-    if isinstance(value, dict):
-        if set(value) == {"__ndarray__", "dtype"}:
-            return np.array(value["__ndarray__"], dtype=value["dtype"])
-        if set(value) == {"__tuple__"}:
-            return tuple(_unplain(v) for v in value["__tuple__"])
-        return {k: _unplain(v) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_unplain(v) for v in value]
-    return value
-
-
 def encode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
     """Return attrs where every non-native value is a marked JSON string.
 
@@ -68,7 +44,7 @@ def encode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
         if _native(value):
             out[str(key)] = value
         else:
-            out[str(key)] = MARKER + json.dumps(_plain(value), ensure_ascii=False)
+            out[str(key)] = MARKER + json.dumps(to_json_safe(value, exact=True), ensure_ascii=False)
     return out
 
 
@@ -87,6 +63,6 @@ def decode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
             if isinstance(value, bytes):
                 value = value.decode("utf-8")
         if isinstance(value, str) and value.startswith(MARKER):
-            value = _unplain(json.loads(value[len(MARKER) :]))
+            value = from_json_safe(json.loads(value[len(MARKER) :]))
         out[str(key)] = value
     return out

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import glob as _glob
 import json
-import math
 import os
 import re
 import sys
@@ -28,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from .._jsonsafe import to_json_safe
 from ..errors import SaxsFileError, SaxsInputError
 from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
 from ._assemble import Curve, build_series
@@ -305,7 +305,8 @@ def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str =
         if key in ("sample", "scan") and isinstance(value, str) and "\n" not in value:
             const.append(f"# {key} = {value}")
         else:
-            const.append(f"# attr.{key} = {json.dumps(_jsonable(value), ensure_ascii=False)}")
+            text = json.dumps(to_json_safe(value, nonfinite="str"), ensure_ascii=False)
+            const.append(f"# attr.{key} = {text}")
     paths = []
     row_fmt = " ".join([fmt] * len(cols))
     for i in range(n):
@@ -329,17 +330,3 @@ def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str =
         atomic_write_bytes(path, text.encode("utf-8"))
         paths.append(path)
     return paths
-
-
-def _jsonable(value):
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, Mapping):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    return value

@@ -25,7 +25,7 @@ automatic range) and ``selector`` (a bqplot BrushIntervalSelector on the lineari
 x axis, q^2 or q^4).
 
 Panels show and select; every number comes from :mod:`saxsnb.accessor` and
-:mod:`saxsnb.analysis` (display transforms in :mod:`saxsnb.analysis.display`).
+:mod:`saxsnb.analysis` (display transforms in :mod:`saxsnb.display`).
 A new panel (e.g. P(r)) is one new module: subclass :class:`PanelBase`.
 """
 

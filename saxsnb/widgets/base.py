@@ -12,7 +12,7 @@ whose state lives in traits:
     The last error or warning of the panel ("" when none); a frame's analysis status
     keeps its code (e.g. ``"frame 3: too_few_points"``). The panel's status line
     (``panel.status_line``, an HTML widget) shows it in plain words
-    (``panel.status_text``, via ``analysis.display.describe_status``).
+    (``panel.status_text``, via ``display.describe_status``).
 ``code`` (str, read only)
     Python source that reproduces ``result`` without widgets (see :meth:`to_code`).
 
@@ -36,7 +36,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..analysis.display import describe_status, drawable_line, log_ticks
+from ..display import describe_status, drawable_line, log_ticks
 from ..series import main_scan, validate
 from . import _bq as bq
 from .palette import ROLE
@@ -256,7 +256,7 @@ class PanelBase(widgets.VBox):
     @staticmethod
     def _set_line(mark, x, y, *, positive: bool = False, show: bool = True) -> bool:
         """Give a Lines mark new data ending on a drawable point (see
-        ``analysis.display.drawable_line``); x is only resent when it changed.
+        ``display.drawable_line``); x is only resent when it changed.
 
         Returns False (and hides the mark, keeping its old data) when nothing is drawable.
         """
@@ -310,7 +310,7 @@ class PanelBase(widgets.VBox):
         self.status = f"{prefix}{type(exc).__name__}: {exc}"
 
     def _status_context(self) -> dict:
-        """Values filled into status messages (see ``analysis.display.status_message``)."""
+        """Values filled into status messages (see ``display.status_message``)."""
         return {}
 
     @property

@@ -7,7 +7,7 @@ import html
 import ipywidgets as widgets
 import numpy as np
 
-from ..analysis.display import colour_bar_ticks, fill_missing, overview_map
+from ..display import colour_bar_ticks, fill_missing, overview_map
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
 from .palette import MAP_SCHEME, ROLE
@@ -26,7 +26,7 @@ class SeriesBrowser(PanelBase):
         Initial frame.
     max_rows, max_cols : int
         Size limits of the overview map; a larger series is averaged in blocks of
-        frames and q points (``analysis.display.overview_map``), and the panel says so.
+        frames and q points (``display.overview_map``), and the panel says so.
 
     Attributes
     ----------

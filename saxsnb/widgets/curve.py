@@ -6,7 +6,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import drawable_lines, errorbar_segments, positive_range
+from ..display import drawable_lines, errorbar_segments, positive_range
 from ..series import validate
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
@@ -41,7 +41,7 @@ class CurvePanel(PanelBase):
     curve : bqplot.Lines
         The current frame (x = q, y = I).
     errorbars : bqplot.Lines
-        +-sigma bars as one line with gaps (``analysis.display.errorbar_segments``).
+        +-sigma bars as one line with gaps (``display.errorbar_segments``).
     overlays, background_line : bqplot.Lines
 
     ``result`` is ``ds.isel(frame=[current, *overlay frames])``. The y range is fixed

@@ -8,7 +8,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import KRATKY_REFERENCES, finite_points, scaled_q, value_range
+from ..display import KRATKY_REFERENCES, finite_points, scaled_q, value_range
 from . import _bq as bq
 from .base import PanelBase, make_figure
 from .palette import OKABE_ITO, ROLE

@@ -8,7 +8,8 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import (
+from ..analysis._linear import LINEAR_PLOTS, linearize
+from ..display import (
     finite_points,
     line_coefficients,
     line_residuals,
@@ -16,27 +17,12 @@ from ..analysis.display import (
     q_from_linear_x,
     value_range,
 )
-from ..analysis.linear import linearize
 from ..errors import SaxsInputError
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
 from .palette import OKABE_ITO, ROLE
 
-__all__ = ["LinearFitPanel", "KINDS"]
-
-#: kind -> (accessor method, shape argument, linearize transform, y label, size variable, size label)
-KINDS = {
-    "guinier": ("guinier", "compact", "guinier", "ln I", "rg", "Rg"),
-    "rod": ("guinier", "rod", "rod", "ln(q I)", "rc", "Rc"),
-    "sheet": ("guinier", "sheet", "sheet", "ln(q^2 I)", "rt", "Rt"),
-    "porod": ("porod", None, "porod", "q^4 I", "porod_constant", "Kp"),
-}
-
-#: Validity limits of q_max R for the result text (Guinier 1939; Jacques & Trewhella
-#: 2010, Protein Sci. 19, 642): compact 1.3, elongated about 0.8; rod cross-section
-#: q Rc about 1; sheet 0.7 (analysis.guinier).
-LIMITS = {"guinier": (0.8, 1.3), "rod": (1.0, 1.0), "sheet": (0.7, 0.7)}
-
+__all__ = ["LinearFitPanel"]
 
 def _fmt(v: float, s: float | None = None, unit: str = "") -> str:
     if not np.isfinite(v):
@@ -94,17 +80,16 @@ class LinearFitPanel(PanelBase):
     apply_to_all = traitlets.Bool(False)
 
     def __init__(self, ds, kind: str = "guinier", *, frame: int = 0, q_range=None, **kwargs):
-        if kind not in KINDS:
-            raise SaxsInputError(f"unknown kind {kind!r}; use one of {list(KINDS)}", parameter="kind")
-        self.kind = kind
-        self.method, self.shape, self.transform, self.y_label, self.size_var, self.size_label = KINDS[kind]
+        plot = LINEAR_PLOTS.get(kind)
+        if plot is None or plot.analysis is None:
+            kinds = [k for k, p in LINEAR_PLOTS.items() if p.analysis]
+            raise SaxsInputError(f"unknown kind {kind!r}; use one of {kinds}", parameter="kind")
+        self.kind, self.plot = kind, plot
+        self.method, self.shape, self.transform = plot.analysis, plot.shape, plot.name
+        self.y_label = plot.y_label
+        self.size_var, self.size_label = plot.size, plot.size_label
         self.name = kind
-        self.title = {
-            "guinier": "Guinier fit (compact)",
-            "rod": "Guinier fit (rod cross-section)",
-            "sheet": "Guinier fit (sheet thickness)",
-            "porod": "Porod fit",
-        }[kind]
+        self.title = plot.title
         self._syncing = False
         self._cache: dict = {}
         self._init_range = None if q_range is None else tuple(float(v) for v in q_range)
@@ -178,9 +163,9 @@ class LinearFitPanel(PanelBase):
             labels=["fit"],
         )
         self.selector = bq.BrushIntervalSelector(scale=xs, marks=[self.data], color=ROLE["selected"])
-        xq = "q^4" if self.transform == "porod" else "q^2"
+        xq = self.plot.x_label
         qu = self.q_units
-        xunit = f"({qu})^4" if self.transform == "porod" else f"({qu})^2"
+        xunit = f"({qu})^{self.plot.x_power}"
         fig = make_figure(
             [self.data, self.fit_line, self.data_points, self.in_range],
             xs,
@@ -269,8 +254,8 @@ class LinearFitPanel(PanelBase):
         return [fig, rfig, self.result_text, control_row([self.auto_button, self.apply_button]), tfig]
 
     def _status_context(self) -> dict:
-        if self.kind in LIMITS:
-            return {"size": self.size_label, "limit": LIMITS[self.kind][1]}
+        if self.plot.limit is not None:
+            return {"size": self.size_label, "limit": self.plot.limit}
         return {}
 
     def _size_unit(self) -> str:
@@ -458,15 +443,15 @@ class LinearFitPanel(PanelBase):
         if self.kind == "porod":
             rows.append(f"background = {_fmt(v('background'), v('background_sigma'), self.intensity_units)}")
         else:
-            i0name = {"guinier": "I0", "rod": "lim q I", "sheet": "lim q^2 I"}[self.kind]
+            i0name = self.plot.intercept_label
             rows.append(f"{i0name} = {_fmt(v('i0'), v('i0_sigma'), self.intensity_units)}")
         rows.append(
             f"q range ({rng}) = {_fmt(v('q_min'))} .. {_fmt(v('q_max'), unit=self.q_units)}, "
             f"{int(vals.get('n_points', 0))} points, reduced chi2 = {_fmt(v('chi2_reduced'))}"
         )
-        if self.kind in LIMITS:
+        if self.plot.limit is not None:
             qr = vals.get("qrg_max", np.nan)
-            soft, hard = LIMITS[self.kind]
+            soft, hard = self.plot.soft_limit, self.plot.limit
             colour = ROLE["ok"] if np.isfinite(qr) else ROLE["reference"]
             note = ""
             if np.isfinite(qr) and qr > hard:

@@ -9,16 +9,15 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..analysis.display import (
-    INDEXED_STATUSES,
+from ..analysis._reflections import PHASES
+from ..analysis._status import INDEXED
+from ..display import (
     curve_at,
     finite_points,
     indexing_summary,
     positive_range,
     status_message,
 )
-from ..analysis.reflections import PHASES
-from ..phase_overrides import apply_phase_overrides
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
 from .palette import ROLE, phase_colour
@@ -40,7 +39,7 @@ class PeaksPanel(PanelBase):
     frame : int
         Initial frame.
     overrides : mapping frame -> {"phase": str, "lattice": float or None}, optional
-        Initial hand-made assignments (see :func:`saxsnb.phase_overrides.apply_phase_overrides`).
+        Initial hand-made assignments (``ds.saxs.index_phases(..., overrides=...)``).
     find_options, index_options : dict, optional
         Passed to ``ds.saxs.find_peaks`` and ``ds.saxs.index_phases``.
 
@@ -266,7 +265,8 @@ class PeaksPanel(PanelBase):
         if self._index_auto is None:
             return
         try:
-            res = apply_phase_overrides(self.ds, self._index_auto, self.peaks, self.overrides)
+            res = (self.ds.saxs.index_phases(self.peaks, overrides=dict(self.overrides), **self.index_options)
+                   if self.overrides else self._index_auto)
         except Exception as exc:
             self.report(exc, "override")
             return
@@ -368,7 +368,7 @@ class PeaksPanel(PanelBase):
         get = lambda k: str(res[k].values[i]) if k in res else ""  # noqa: E731
         status = get("status")
         # a frame without a phase says why in plain words (the code stays in result.status)
-        why = "no phase assigned" if status in ("", *INDEXED_STATUSES) else status_message(status)
+        why = "no phase assigned" if status in ("", *INDEXED) else status_message(status)
         body = "".join(rows) or f"<tr><td colspan=3><b>{e(why)}</b></td></tr>"
         extra = []
         if status and status != "ok" and rows:
@@ -398,17 +398,13 @@ class PeaksPanel(PanelBase):
         fo = ", ".join(f"{k}={v!r}" for k, v in sorted(self.find_options.items()))
         io = ", ".join(f"{k}={v!r}" for k, v in sorted(self.index_options.items()))
         found = "found_peaks" if target == "peaks" else f"{target}_peaks"
-        lines = [
-            f"{found} = ds.saxs.find_peaks({fo})",
-            f"{target} = ds.saxs.index_phases({found}{', ' + io if io else ''})",
-        ]
         if self.overrides:
             ov = {
                 int(k): {"phase": v["phase"], "lattice": v.get("lattice")}
                 for k, v in sorted(self.overrides.items())
             }
-            lines += [
-                "from saxsnb.phase_overrides import apply_phase_overrides",
-                f"{target} = apply_phase_overrides(ds, {target}, {found}, {ov!r})  # set by hand",
-            ]
-        return lines
+            io = ", ".join(x for x in (io, f"overrides={ov!r}") if x)  # frames set by hand
+        return [
+            f"{found} = ds.saxs.find_peaks({fo})",
+            f"{target} = ds.saxs.index_phases({found}{', ' + io if io else ''})",
+        ]

@@ -1,11 +1,11 @@
 """Assigning mesophases to the Bragg peaks of every frame (the phase map built on the
-result lives in :mod:`saxsnb.analysis.phasemap` and is re-exported here).
+result lives in :mod:`saxsnb.analysis._phasemap` and is re-exported here).
 
 The observed peak positions of all frames (a padded ``(n_frames, n_peaks)`` array)
 are explained by one phase or a pair of coexisting phases, chosen among lamellar,
 2D hexagonal and the cubic Pn3m, Im3m, Ia3d, Fd3m, Pm3n and Fm3m, whose allowed
-reflections come from :mod:`saxsnb.analysis.reflections` (the matching of peaks to
-reflections, candidate by candidate, is in :mod:`saxsnb.analysis.latticematch`). The
+reflections come from :mod:`saxsnb.analysis._reflections` (the matching of peaks to
+reflections, candidate by candidate, is in :mod:`saxsnb.analysis._latticematch`). The
 scan (temperature, time, ...) is then used as a prior: a dynamic-programming pass
 (Viterbi 1967) over the frames favours explanations that continue from one frame to
 the next with a smoothly changing lattice parameter.
@@ -18,7 +18,7 @@ from functools import cache
 import numpy as np
 
 from ..errors import SaxsInputError
-from .latticematch import (
+from ._latticematch import (
     _ANCHOR_REFLECTIONS,
     _KEEP,
     _phase_set,
@@ -28,11 +28,12 @@ from .latticematch import (
     _sum_peaks,
     _table,
 )
-from .latticematch import (
+from ._latticematch import (
     MISS_COST as MISS_COST,  # re-exported: documented here
 )
-from .phasemap import BONNET_RATIOS, phase_map, phase_map_report
-from .reflections import PHASES
+from ._phasemap import BONNET_RATIOS, phase_map
+from ._reflections import PHASES
+from ._status import STATUS_DTYPE
 
 __all__ = [
     "PHASES",
@@ -40,7 +41,6 @@ __all__ = [
     "lattice_from_metric",
     "index_peaks",
     "phase_map",
-    "phase_map_report",
 ]
 
 #: Cost of a second coexisting phase (fewest phases preferred).
@@ -367,7 +367,7 @@ def index_peaks(
 
     Examples
     --------
-    >>> from saxsnb.analysis.reflections import q_positions
+    >>> from saxsnb.analysis._reflections import q_positions
     >>> q = q_positions("Pn3m", 10.0, 6)[None]  # 110, 111, 200, 211, 220, 221
     >>> r = index_peaks(q)
     >>> str(r["phase"][0, 0]), round(float(r["lattice"][0, 0]), 3), r["hkl"][0].tolist()
@@ -551,7 +551,7 @@ def index_peaks(
             "not_enough_peaks_to_index",
             np.where(~found, "no_phase_found", np.where(n_unexpl > 0, "unexplained_peaks", "ok")),
         ),
-    ).astype("<U28")
+    ).astype(STATUS_DTYPE)
     caveat = np.full(F, "", dtype=object)
     few = found & (n_obs <= 3)
     for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)))[0]:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import SaxsInputError
+from ..errors import SaxsInputError
 
 __all__ = ["subtract_background", "scale_intensity"]
 

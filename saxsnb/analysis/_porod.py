@@ -28,18 +28,19 @@ from scipy import special
 
 from ..errors import SaxsInputError
 from ._arrays import as_frames
-from .linear import index_range, line_fit_shared_x
+from ._linear import index_range, line_fit_shared_x
+from ._status import STATUS_DTYPE
 
 __all__ = [
     "default_porod_range",
     "power_law_fit",
     "porod_fit",
-    "porod_analysis",
+    "porod",
     "invariant",
     "guinier_integrals",
 ]
 
-_STATUS_DTYPE = "<U24"
+_STATUS_DTYPE = STATUS_DTYPE
 
 
 def default_porod_range(q) -> tuple[float, float]:
@@ -89,7 +90,7 @@ def _common_status(q, I, S, Dw, Sw, finite, q_range, *, need_positive):
         rng = np.broadcast_to(np.asarray(q_range, dtype=float), (F, 2))[empty]
         st = status[empty]
         st[(rng[:, 1] < first) | (rng[:, 0] > last)] = "range_outside_data"
-        st[~has] = "all_nan"
+        st[~has] = "no_data"
         status[empty] = st
     return status, usable
 
@@ -121,13 +122,13 @@ def power_law_fit(q, intensity, sigma=None, *, q_range=None, background=0.0) -> 
     dict of arrays (n_frames,): ``exponent`` (p in I - B ~ A q^-p, dimensionless),
     ``exponent_sigma``, ``prefactor`` (A, [I] nm^-p), ``prefactor_sigma``,
     ``chi2_reduced``, ``n_points``, ``q_min``, ``q_max``, ``status`` ("ok",
-    "all_nan", "range_outside_data", "too_few_points", "zero_sigma",
+    "no_data", "range_outside_data", "too_few_points", "zero_sigma",
     "negative_intensity": I - B <= 0 inside the range, where no logarithm exists).
 
     Notes
     -----
     ln(I - B) = ln A - p ln q, weights (I - B)^2 / sigma^2 (first-order propagation,
-    :func:`~saxsnb.analysis.linear.linearize`). Exponents: 4 smooth surfaces (Porod
+    :func:`~saxsnb.analysis._linear.linearize`). Exponents: 4 smooth surfaces (Porod
     1951), 2 Gaussian coils and sheets, 1 rods (Bale & Schmidt 1984; Schmidt 1991,
     J. Appl. Cryst. 24, 414).
 
@@ -303,7 +304,7 @@ def _porod(prep, background):
     }
 
 
-def porod_analysis(q, intensity, sigma=None, *, q_range=None, background="fit") -> dict:
+def porod(q, intensity, sigma=None, *, q_range=None, background="fit") -> dict:
     """:func:`porod_fit` and :func:`power_law_fit` on the same range, in one call.
 
     The exponent is fitted on I - B with B the *given* background, or on I itself when
@@ -319,7 +320,7 @@ def porod_analysis(q, intensity, sigma=None, *, q_range=None, background="fit") 
     Examples
     --------
     >>> q = np.linspace(2.0, 4.0, 50)
-    >>> r = porod_analysis(q, 3.0 / q**4, q_range=(2.0, 4.0), background=0.0)
+    >>> r = porod(q, 3.0 / q**4, q_range=(2.0, 4.0), background=0.0)
     >>> round(float(r["exponent"][0]), 9), round(float(r["porod_constant"][0]), 9)
     (4.0, 3.0)
     """
@@ -502,7 +503,7 @@ def invariant(
     status = np.full(F, "ok", dtype=_STATUS_DTYPE)
     status[~np.isfinite(low)] = "no_guinier"
     status[~np.isfinite(high)] = "no_porod_constant"
-    status[~has] = "all_nan"
+    status[~has] = "no_data"
     good = status == "ok"
     nan = np.nan
 

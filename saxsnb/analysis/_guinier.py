@@ -1,6 +1,6 @@
 """Guinier analysis of a whole series: Rg and I(0), rod cross-sections, sheet thickness.
 
-The fits are straight lines in a linearising plot (see :mod:`saxsnb.analysis.linear`):
+The fits are straight lines in a linearising plot (see :mod:`saxsnb.analysis._linear`):
 
 ========  ===============  ===========================  ==================  ===========
 shape     plot             law (Guinier 1939)           size                default
@@ -21,7 +21,7 @@ Guinier (1939, Ann. Phys. 12, 161) and Jacques & Trewhella (2010, Protein Sci. 1
 (q Rt)^4 / 10, 2.4 % at q Rt = 0.7.
 
 Automatic range (``q_range=None``), our criterion, evaluated for every frame and every
-candidate window at once through prefix sums (:class:`~saxsnb.analysis.linear.WindowMoments`):
+candidate window at once through prefix sums (:class:`~saxsnb.analysis._linear.WindowMoments`):
 
 1. candidate windows ``[start, stop)`` on the q grid: for "compact" the windows start
    at the first usable point, and only for frames where none of them is acceptable at
@@ -54,7 +54,7 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis.linear.Wi
 Measured on noisy Schulz-sphere curves (tests/test_guinier.py): the median error of Rg
 against the apparent Rg of Kotlarchyk & Chen (1983) is below 1 % at 1 % noise.
 
-Statuses (``status`` output): ``"ok"``; ``"all_nan"`` (no finite point);
+Statuses (``status`` output): ``"ok"``; ``"no_data"`` (no finite point);
 ``"range_outside_data"`` (the q range misses the measured points); ``"too_few_points"``;
 ``"negative_intensity"`` (I <= 0 where a logarithm is needed); ``"zero_sigma"``;
 ``"positive_slope"`` (intensity rising with q over a fixed range);
@@ -71,27 +71,16 @@ import numpy as np
 
 from ..errors import SaxsInputError
 from ._arrays import as_frames
-from .linear import WindowMoments, index_range
+from ._linear import SHAPE_PLOTS, WindowMoments, index_range
+from ._status import STATUS_DTYPE
 
-__all__ = ["SHAPES", "guinier_search", "guinier_fit", "rod_length", "STATUS_PARAMETER"]
+__all__ = ["SHAPES", "guinier_search", "guinier", "rod_length"]
 
-#: shape -> (transform, default limit of q_max * R, factor k in R^2 = -k slope)
-SHAPES = {"compact": ("guinier", 1.3, 3.0), "rod": ("rod", 1.0, 2.0), "sheet": ("sheet", 0.7, 1.0)}
+#: shape -> (transform, default limit of q_max * R, factor k in R^2 = -k slope), from
+#: the one table of linearised plots (:data:`saxsnb.analysis._linear.LINEAR_PLOTS`).
+SHAPES = {s: (p.name, p.limit, p.size_factor) for s, p in SHAPE_PLOTS.items()}
 
-#: Which input a failure status is about (for error messages).
-STATUS_PARAMETER = {
-    "all_nan": "intensity",
-    "range_outside_data": "q_range",
-    "too_few_points": "q_range",
-    "negative_intensity": "intensity",
-    "zero_sigma": "sigma",
-    "positive_slope": "q_range",
-    "curvature_aggregation": "q_range",
-    "qrg_limit_exceeded": "q_range",
-    "no_linear_region": "q_range",
-}
-
-_STATUS_DTYPE = "<U24"
+_STATUS_DTYPE = STATUS_DTYPE
 _CHUNK = 256
 _DECAY_MARGIN = 0.3
 _OUTLIER_Z = 4.0
@@ -338,7 +327,7 @@ def _search_chunk(
             fr = sel[empty]
             full = np.isfinite(I[fr]) if S is None else np.isfinite(I[fr]) & np.isfinite(S[fr])
             st_ = status[empty]
-            st_[~full.any(axis=-1)] = "all_nan"
+            st_[~full.any(axis=-1)] = "no_data"
             status[empty] = st_
     s_ = np.maximum(start, 0)[:, None]
     e_ = np.maximum(stop, 0)[:, None]
@@ -351,7 +340,7 @@ def _search_chunk(
 def _moments(q, Ic, Sc, usable, kind, quadratic=False):
     """Prefix sums of the linearised data: x = q^2, y = ln(q^p I) with p = 0, 1, 2 for
     compact, rod, sheet; weights (I / sigma)^2 (first-order propagation, as
-    :func:`~saxsnb.analysis.linear.linearize`)."""
+    :func:`~saxsnb.analysis._linear.linearize`)."""
     with np.errstate(divide="ignore", invalid="ignore"):
         y = np.log(np.where(usable, Ic, 1.0))
         if kind == "rod":
@@ -409,7 +398,7 @@ def _fit_windows(q, I, S, start, stop, kind):
     return fits
 
 
-def guinier_fit(
+def guinier(
     q,
     intensity,
     sigma=None,
@@ -467,7 +456,7 @@ def guinier_fit(
     --------
     >>> q = np.linspace(0.02, 0.5, 60)
     >>> I = 50 * np.exp(-(q * 2.0) ** 2 / 3)
-    >>> r = guinier_fit(q, I, 0.01 * I, q_range=(0.02, 0.6))
+    >>> r = guinier(q, I, 0.01 * I, q_range=(0.02, 0.6))
     >>> round(float(r["rg"][0]), 6), round(float(r["i0"][0]), 4), str(r["status"][0])
     (2.0, 50.0, 'ok')
     """
@@ -526,7 +515,7 @@ def guinier_fit(
         status[fit["n_zero_sigma"] > 0] = "zero_sigma"
         status[fit["n_negative"] > 0] = "negative_intensity"
         status[outside] = "range_outside_data"
-        status[~has_data] = "all_nan"
+        status[~has_data] = "no_data"
         valid = status == "ok"
         status[valid & ~(fit["slope"] < 0)] = "positive_slope"
         status[(status == "ok") & (qr > limit)] = "qrg_limit_exceeded"

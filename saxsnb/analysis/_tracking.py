@@ -11,7 +11,7 @@ import numpy as np
 
 from ..errors import SaxsInputError
 
-__all__ = ["link_peaks"]
+__all__ = ["link_peaks", "track_peaks"]
 
 
 def link_peaks(
@@ -140,3 +140,25 @@ def link_peaks(
     number[order] = np.arange(order.size)
     track = np.where(ok, number[roots.ravel()].reshape(F, P), -1)
     return track, prev
+
+
+def track_peaks(position, position_sigma=None, fwhm=None, *, order=None, labels=None, **options):
+    """Track numbers of a peak table whose frames are not in scan order.
+
+    :func:`link_peaks` on the frames taken in the order ``order`` (an index array, e.g.
+    ``np.argsort(temperature)``; default: as given), the numbers put back in the
+    original frame order. ``options`` go to :func:`link_peaks`.
+
+    Examples
+    --------
+    >>> pos = np.array([[2.0, np.nan], [1.0, 2.0], [1.0, 2.01]])
+    >>> track_peaks(pos, fwhm=np.full(pos.shape, 0.05), order=np.array([1, 2, 0])).tolist()
+    [[1, -1], [0, 1], [0, 1]]
+    """
+    pos = np.asarray(position, dtype=float)
+    idx = np.arange(pos.shape[0]) if order is None else np.asarray(order)
+    take = lambda a: None if a is None else np.asarray(a)[idx]  # noqa: E731
+    t, _ = link_peaks(pos[idx], take(position_sigma), take(fwhm), labels=take(labels), **options)
+    out = np.empty_like(t)
+    out[idx] = t
+    return out

@@ -1,6 +1,6 @@
 """Matching observed Bragg peaks to the allowed reflections of each phase.
 
-The machinery behind :func:`saxsnb.analysis.lattice.index_peaks`: trial lattices from
+The machinery behind :func:`saxsnb.analysis._lattice.index_peaks`: trial lattices from
 anchor peaks, the nearest allowed reflection of every peak (a lookup table over
 ``(q L)^2``), the weighted refinement of the lattice and the cost of each candidate
 (unexplained peaks, missing low orders, misfit). All phases and all candidates of a
@@ -14,7 +14,7 @@ from functools import cache
 
 import numpy as np
 
-from .reflections import allowed_reflections
+from ._reflections import allowed_reflections
 
 #: Cost of an unobserved allowed reflection inside the observed range, by its rank in
 #: the phase's sequence (first reflection first); later ones cost the last value.

@@ -16,7 +16,8 @@ import numpy as np
 from scipy import ndimage
 
 from ..errors import SaxsFitError, SaxsInputError
-from .peakfit import PROFILES, _profile_sum, fit_peaks, guess_peaks, peak_profile
+from ._peakfit import PROFILES, _profile_sum, fit_peaks, guess_peaks, peak_profile
+from ._status import STATUS_DTYPE
 
 __all__ = [
     "PROFILES",
@@ -28,7 +29,7 @@ __all__ = [
     "peak_profile",
 ]
 
-_STATUS = "<U24"
+_STATUS = STATUS_DTYPE
 
 
 # --------------------------------------------------------------------------- helpers
@@ -333,8 +334,10 @@ def find_peaks(
     backfit: bool = True,
     errors: str = "ignore",
     block: int = 512,
+    track: bool = True,
+    order=None,
 ):
-    """Find and fit the Bragg peaks of every frame.
+    """Find, fit and track the Bragg peaks of every frame.
 
     Parameters
     ----------
@@ -357,12 +360,16 @@ def find_peaks(
     block : int
         Frames processed together; larger series are done block by block (a loop
         over blocks, not frames, that keeps the work arrays in cache).
+    track : bool
+        Link the peaks of consecutive frames into tracks
+        (:func:`~saxsnb.analysis._tracking.track_peaks`), in the frame order ``order``
+        (an index array, e.g. ``np.argsort(temperature)``; default as given).
 
     Returns
     -------
     dict of arrays: per (frame, peak) ``position``, ``position_sigma``, ``fwhm``,
     ``fwhm_sigma``, ``height``, ``height_sigma``, ``area``, ``area_sigma``,
-    ``prominence`` (in noise units), ``eta``, ``redchi``, sorted by position and
+    ``prominence`` (in noise units), ``eta``, ``chi2_reduced``, sorted by position and
     NaN padded to ``max_peaks``; per frame ``n_peaks`` (int) and ``status``
     ("ok", "no_peaks", "no_data").
 
@@ -380,12 +387,21 @@ def find_peaks(
     >>> np.round(res["position"][0, :2], 4).tolist(), int(res["n_peaks"][0])
     ([1.2, 2.4], 2)
     """
+    if track:
+        from ._tracking import track_peaks
+
+        res = find_peaks(q, intensity, sigma, q_range=q_range, min_prominence=min_prominence,
+                         profile=profile, max_peaks=max_peaks, baseline_width=baseline_width,
+                         min_separation=min_separation, shoulders=shoulders, backfit=backfit,
+                         errors=errors, block=block, track=False)
+        res["track"] = track_peaks(res["position"], res["position_sigma"], res["fwhm"], order=order)
+        return res
     I_all = np.atleast_2d(np.asarray(intensity, dtype=float))
     if I_all.shape[0] > block > 0:
         S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
         opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
                     baseline_width=baseline_width, min_separation=min_separation, shoulders=shoulders,
-                    backfit=backfit, errors=errors, block=0)
+                    backfit=backfit, errors=errors, block=0, track=False)
         parts = []
         for b0 in range(0, I_all.shape[0], block):
             sl = slice(b0, b0 + block)

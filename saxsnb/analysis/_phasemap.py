@@ -1,6 +1,6 @@
 """The phase map of a series: phases present per frame, transitions, coexistence.
 
-Works on the output of :func:`saxsnb.analysis.lattice.index_peaks`; pure numpy.
+Works on the output of :func:`saxsnb.analysis._lattice.index_peaks`; pure numpy.
 """
 
 from __future__ import annotations
@@ -8,9 +8,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
-from .reflections import PHASES
+from ._reflections import PHASES
 
-__all__ = ["BONNET_RATIOS", "phase_map", "phase_map_report"]
+__all__ = ["BONNET_RATIOS", "phase_map"]
 
 #: Bonnet relation of the bicontinuous cubics, a(Pn3m) : a(Im3m) : a(Ia3d)
 #: = 1 : 1.279 : 1.576 (Anderson, Gruner & Leibler 1988, PNAS 85, 5364; Hyde et al.
@@ -175,50 +175,3 @@ def phase_map(phase, scan, *, known=None, lattice=None, lattice_sigma=None, scor
         "coexistence": coexistence,
         "bonnet": bonnet,
     }
-
-
-def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step: float | None = None) -> str:
-    """A short text report of :func:`phase_map` output.
-
-    >>> ph = np.array([["lamellar"], ["hexagonal"]])
-    >>> print(phase_map_report(phase_map(ph, np.array([20.0, 21.0])), scan="temperature", units="degC"))
-    Phase map along temperature:
-      lamellar: from the start to 20.5 degC (between 20 and 21)
-      hexagonal: from 20.5 degC (between 20 and 21) to the end
-    No coexistence window found.
-    """
-    u = f" {units}" if units else ""
-
-    def fmt(v, between):
-        if v is None:
-            return None
-        return f"{v:.4g}{u} (between {between[0]:.4g} and {between[1]:.4g})"
-
-    lines = [f"Phase map along {scan}:"]
-    for t in result["transitions"]:
-        a = fmt(t["appears"], t["appears_between"])
-        v = fmt(t["vanishes"], t["vanishes_between"])
-        lines.append(
-            f"  {t['phase']}: "
-            + ("from the start" if a is None else f"from {a}")
-            + (" to the end" if v is None else f" to {v}")
-        )
-    if result["coexistence"]:
-        for c in result["coexistence"]:
-            s = "the start" if c["start"] is None else f"{c['start']:.4g}{u}"
-            e = "the end" if c["end"] is None else f"{c['end']:.4g}{u}"
-            lines.append(f"  coexistence {' + '.join(c['phases'])}: {s} to {e}")
-    else:
-        lines.append("No coexistence window found.")
-    for b in result["bonnet"]:
-        if b["ratio_mean"] is None:
-            continue
-        lines.append(
-            f"  lattice ratio a({b['phases'][0]})/a({b['phases'][1]}) = {b['ratio_mean']:.4f} over "
-            f"{b['n_frames']} frame(s); Bonnet value {b['expected']:.3f} "
-            f"({100 * b['relative_deviation']:+.2f} %; "
-            "Bonnet constants recalled from memory, indicative only)"
-        )
-    if step is not None:
-        lines.append(f"Transitions are located to +-{step / 2:.3g}{u} (half a scan step).")
-    return "\n".join(lines)

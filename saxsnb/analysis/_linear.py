@@ -18,21 +18,136 @@ and a direct fit of the same points agree to rounding.
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from ..errors import SaxsInputError
 
-__all__ = ["TRANSFORMS", "linearize", "weighted_linear_fit", "WindowMoments", "index_range", "running_sum",
-           "line_fit_shared_x"]
+__all__ = [
+    "LINEAR_PLOTS",
+    "LinearPlot",
+    "SHAPE_PLOTS",
+    "linear_plot",
+    "linearize",
+    "weighted_linear_fit",
+    "WindowMoments",
+    "index_range",
+    "running_sum",
+    "line_fit_shared_x",
+]
 
-#: Linearising transforms: name -> (x as a function of q, description of y).
-TRANSFORMS = {
-    "guinier": ("q^2", "ln I"),
-    "rod": ("q^2", "ln(q I)"),
-    "sheet": ("q^2", "ln(q^2 I)"),
-    "loglog": ("ln q", "ln I"),
-    "porod": ("q^4", "q^4 I"),
+
+class LinearPlot(NamedTuple):
+    """One linearising plot: how to draw it and what its slope means.
+
+    ``x = q**x_power`` (``ln q`` when ``x_power`` is 0); ``y = ln(q**y_power I)`` when
+    ``log_y``, else ``q**y_power I``. For the Guinier-type plots the size follows from
+    the slope b as ``size^2 = -size_factor * b`` and the line holds up to
+    ``q_max size <= limit`` (``soft_limit`` is the stricter value for elongated
+    particles). ``analysis`` and ``shape`` name the accessor call that fits the plot.
+    """
+
+    name: str
+    x_power: int
+    y_power: int
+    log_y: bool
+    x_label: str
+    y_label: str
+    title: str
+    analysis: str | None = None
+    shape: str | None = None
+    size: str | None = None
+    size_label: str | None = None
+    size_factor: float | None = None
+    limit: float | None = None
+    soft_limit: float | None = None
+    intercept_label: str | None = None
+    derived: tuple[str, ...] = ()
+
+
+#: The linearising plots, the one table used by the analysis, the accessor and the
+#: panels. Guinier laws (Guinier 1939, Ann. Phys. 12, 161; Glatter & Kratky 1982):
+#: compact ln I = ln I0 - q^2 Rg^2 / 3; rod ln(q I) = c - q^2 Rc^2 / 2; sheet
+#: ln(q^2 I) = c - q^2 Rt^2. Limits of q_max R: 1.3 compact (0.8 elongated), about 1
+#: for a rod cross-section (Jacques & Trewhella 2010, Protein Sci. 19, 642), 0.7 for a
+#: sheet (our choice, see analysis._guinier). Porod: q^4 I = Kp + B q^4 (Porod 1951).
+LINEAR_PLOTS = {
+    "guinier": LinearPlot(
+        "guinier",
+        2,
+        0,
+        True,
+        "q^2",
+        "ln I",
+        "Guinier fit (compact)",
+        "guinier",
+        "compact",
+        "rg",
+        "Rg",
+        3.0,
+        1.3,
+        0.8,
+        "I0",
+        (),
+    ),
+    "rod": LinearPlot(
+        "rod",
+        2,
+        1,
+        True,
+        "q^2",
+        "ln(q I)",
+        "Guinier fit (rod cross-section)",
+        "guinier",
+        "rod",
+        "rc",
+        "Rc",
+        2.0,
+        1.0,
+        1.0,
+        "lim q I",
+        ("radius", "length"),
+    ),
+    "sheet": LinearPlot(
+        "sheet",
+        2,
+        2,
+        True,
+        "q^2",
+        "ln(q^2 I)",
+        "Guinier fit (sheet thickness)",
+        "guinier",
+        "sheet",
+        "rt",
+        "Rt",
+        1.0,
+        0.7,
+        0.7,
+        "lim q^2 I",
+        ("thickness",),
+    ),
+    "porod": LinearPlot(
+        "porod", 4, 4, False, "q^4", "q^4 I", "Porod fit", "porod", None, "porod_constant", "Kp"
+    ),
+    "loglog": LinearPlot("loglog", 0, 0, True, "ln q", "ln I", "log-log plot"),
 }
+
+#: Guinier shape -> its plot ("compact" -> LINEAR_PLOTS["guinier"], ...).
+SHAPE_PLOTS = {p.shape: p for p in LINEAR_PLOTS.values() if p.shape is not None}
+
+
+def linear_plot(kind: str) -> LinearPlot:
+    """The :data:`LINEAR_PLOTS` entry ``kind``; an unknown kind is a SaxsInputError.
+
+    >>> linear_plot("rod").size, linear_plot("rod").size_factor
+    ('rc', 2.0)
+    """
+    if kind not in LINEAR_PLOTS:
+        raise SaxsInputError(
+            f"unknown linear plot {kind!r}; use one of {sorted(LINEAR_PLOTS)}", parameter="kind"
+        )
+    return LINEAR_PLOTS[kind]
 
 
 def linearize(q, intensity, sigma=None, kind: str = "guinier"):
@@ -66,26 +181,18 @@ def linearize(q, intensity, sigma=None, kind: str = "guinier"):
     >>> x.tolist(), y.tolist(), np.round(sy, 3).tolist()
     ([[1.0, 4.0]], [[1.0, 0.0]], [[0.1, 0.5]])
     """
-    if kind not in TRANSFORMS:
-        raise SaxsInputError(f"unknown transform {kind!r}; use one of {sorted(TRANSFORMS)}", parameter="kind")
+    plot = linear_plot(kind)
     I = np.asarray(intensity, dtype=float)
     q = np.broadcast_to(np.asarray(q, dtype=float), I.shape)
     with np.errstate(divide="ignore", invalid="ignore"):
-        if kind == "porod":
-            q4 = q**4
-            x, y = q4, q4 * I
-            sy = None if sigma is None else q4 * np.asarray(sigma, dtype=float)
-            return x, y, sy
+        x = np.log(q) if plot.x_power == 0 else q**plot.x_power
+        if not plot.log_y:
+            qy = q**plot.y_power
+            return x, qy * I, None if sigma is None else qy * np.asarray(sigma, dtype=float)
         pos = I > 0
-        logI = np.log(np.where(pos, I, np.nan))
-        if kind == "guinier":
-            x, y = q * q, logI
-        elif kind == "rod":
-            x, y = q * q, logI + np.log(q)
-        elif kind == "sheet":
-            x, y = q * q, logI + 2.0 * np.log(q)
-        else:  # loglog
-            x, y = np.log(q), logI
+        y = np.log(np.where(pos, I, np.nan))
+        if plot.y_power:
+            y = y + plot.y_power * np.log(q)
         sy = None if sigma is None else np.asarray(sigma, dtype=float) / np.where(pos, I, np.nan)
     return x, y, sy
 

@@ -1,6 +1,6 @@
 """Batched fitting of Bragg peaks: every peak of every frame in one Levenberg-Marquardt solve.
 
-Used by :func:`saxsnb.analysis.peaks.find_peaks`; pure numpy.
+Used by :func:`saxsnb.analysis._peaks.find_peaks`; pure numpy.
 """
 
 from __future__ import annotations
@@ -144,7 +144,7 @@ def fit_peaks(
     -------
     dict of arrays (n_frames, n_peaks), NaN where no peak or the fit failed:
     ``position``, ``fwhm`` (1/nm), ``height``, ``area`` (intensity x 1/nm) and their
-    ``*_sigma``; ``eta`` (pseudo-Voigt mixing, NaN otherwise); ``redchi``.
+    ``*_sigma``; ``eta`` (pseudo-Voigt mixing, NaN otherwise); ``chi2_reduced``.
 
     Notes
     -----
@@ -174,7 +174,7 @@ def fit_peaks(
     out = {n: np.full((n_f, n_p), np.nan) for n in names}
     out.update({n + "_sigma": np.full((n_f, n_p), np.nan) for n in names})
     out["eta"] = np.full((n_f, n_p), np.nan)
-    out["redchi"] = np.full((n_f, n_p), np.nan)
+    out["chi2_reduced"] = np.full((n_f, n_p), np.nan)
     good = idx >= 0
     if not good.any():
         return out
@@ -331,7 +331,7 @@ def fit_peaks(
             ("fwhm_sigma", err[:, 1]),
             ("height_sigma", err[:, 2]),
             ("area_sigma", area_sig),
-            ("redchi", redchi),
+            ("chi2_reduced", redchi),
         ):
             out[name][fi, pi] = np.where(valid, val, np.nan)
         if k == 6:

@@ -1,0 +1,306 @@
+"""The machinery under ``ds.saxs``: arrays out of the Dataset, one function over all
+frames, a Dataset back with units, the series' attrs and the extended history.
+
+:meth:`AccessorBase._apply` is the one wrapper every analysis method goes through, in
+the style of xarray's ``curvefit`` (``xarray/computation/fit.py``): it owns the NaN
+handling of masked points, ``errors=``, the ``xarray.apply_ufunc(...,
+dask="parallelized")`` mapping (so a dask-chunked series runs unchanged on a cluster)
+and the provenance.
+
+Conventions for analysis functions called through ``_apply``:
+- signature ``func(q, intensity, sigma, *extra, **options)`` with ``intensity.shape ==
+  (n_frames, n_q)``; masked points arrive as NaN in ``intensity`` and ``sigma`` and
+  must be ignored like any non-finite point;
+- return a mapping ``name -> array`` whose leading axis is the frame axis.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Mapping
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from .. import __version__
+from .._jsonsafe import to_json_safe
+from ..analysis._status import STATUS_DTYPE, parameter_of
+from ..errors import SaxsFitError, SaxsInputError
+from ..series import add_history, main_scan, scan_coords
+
+__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs"]
+
+
+class OutputSpec:
+    """How one output of an analysis function becomes a Dataset variable.
+
+    Parameters
+    ----------
+    dims : tuple of str
+        Extra (core) dims after ``frame``, e.g. ``()`` for a per-frame scalar,
+        ``("peak",)`` for a padded list of peaks.
+    dtype : numpy dtype of the output ("status" outputs use the one status dtype).
+    units : str, optional; stored in the variable's attrs.
+    sizes : mapping of new dim name to length (needed for dask when a dim is new).
+    attrs : extra attrs of the variable (long_name, ...).
+    """
+
+    def __init__(self, dims=(), dtype=float, units=None, sizes=None, **attrs):
+        self.dims = tuple(dims)
+        self.dtype = np.dtype(STATUS_DTYPE if dtype == "status" else dtype)
+        self.units = units
+        self.sizes = dict(sizes or {})
+        self.attrs = attrs
+
+
+def scalar_outputs(units: Mapping[str, str | None], dtypes: Mapping[str, Any] | None = None) -> dict:
+    """Per-frame scalar OutputSpecs from ``name -> units``; ``status`` gets the status dtype."""
+    dtypes = dict(dtypes or {})
+    return {k: OutputSpec((), dtypes.get(k, "status" if k.endswith("status") else float), u)
+            for k, u in units.items()}
+
+
+def provenance(operation: str, parameters: Mapping[str, Any]) -> dict[str, Any]:
+    """The shortcut attrs of a result: ``operation`` and ``parameters`` (JSON), the same
+    content as the history entry the result appends (see :func:`result_attrs`)."""
+    return {
+        "operation": operation,
+        "parameters": json.dumps(to_json_safe(dict(parameters)), sort_keys=True),
+        "saxsnb_version": __version__,
+    }
+
+
+def result_attrs(source: xr.Dataset, operation: str, parameters: Mapping[str, Any]) -> dict[str, Any]:
+    """The attrs of a result made from ``source``: its attrs (sample, files, ...), its
+    history extended by this step (the one history format of
+    :func:`saxsnb.series.add_history`), and ``operation`` / ``parameters`` of this step."""
+    stepped = add_history(xr.Dataset(attrs=dict(source.attrs)), operation, **dict(parameters))
+    out = dict(stepped.attrs)
+    for key in ("operation", "parameters", "saxsnb_version"):
+        out.pop(key, None)
+    out.update(provenance(operation, parameters))
+    return out
+
+
+class AccessorBase:
+    """State and helpers shared by the subject mixins of ``ds.saxs``."""
+
+    def __init__(self, ds: xr.Dataset):
+        self._ds = ds
+
+    @property
+    def scan(self) -> str:
+        """Name of the main scan coordinate ("temperature", "time", ..., or "frame")."""
+        return main_scan(self._ds)
+
+    @property
+    def scan_coords(self) -> list[str]:
+        """All per-frame scan coordinates."""
+        return scan_coords(self._ds)
+
+    def masked(self) -> tuple[xr.DataArray, xr.DataArray]:
+        """Intensity and sigma with masked points set to NaN (new arrays).
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> ds = saxsnb.from_arrays([0.1, 0.2], [[1.0, 2.0]], [[0.1, 0.1]])
+        >>> ds["mask"] = (("frame", "q"), [[True, False]])
+        >>> ds.saxs.masked()[0].values.tolist()
+        [[nan, 2.0]]
+        """
+        ds = self._ds
+        I, S = ds["intensity"], ds["sigma"]
+        if "mask" in ds.data_vars:
+            I = I.where(~ds["mask"])
+            S = S.where(~ds["mask"])
+        return I, S
+
+    # ------------------------------------------------------------ arguments
+    def _per_frame(self, value, name: str) -> xr.DataArray:
+        """A number or per-frame values as a DataArray on ``frame``."""
+        n = self._ds.sizes["frame"]
+        if isinstance(value, xr.DataArray):
+            if value.dims != ("frame",):
+                raise SaxsInputError(f"{name} must be on ('frame',), got {value.dims}", parameter=name)
+            return value
+        arr = (np.broadcast_to(np.asarray(value, dtype=float), (n,)) if np.ndim(value) == 0
+               else np.asarray(value, dtype=float))
+        if arr.shape != (n,):
+            raise SaxsInputError(f"{name} has shape {arr.shape}; expected ({n},)", parameter=name)
+        return xr.DataArray(arr, dims="frame", coords={"frame": self._ds["frame"]})
+
+    def _per_frame_range(self, q_range):
+        """(None, ()) for None or one (a, b) range; else (DataArray (frame, bound), (it,))."""
+        if q_range is None:
+            return None, ()
+        if isinstance(q_range, xr.DataArray):
+            da = q_range.transpose("frame", ...)
+        else:
+            arr = np.asarray(q_range, dtype=float)
+            if arr.shape == (2,):
+                if not arr[0] < arr[1]:
+                    raise SaxsInputError(f"q_range {tuple(arr)} must be (q_min, q_max), q_min < q_max",
+                                         parameter="q_range")
+                return None, ()
+            n = self._ds.sizes["frame"]
+            if arr.shape != (n, 2):
+                raise SaxsInputError(f"q_range must be (q_min, q_max) or ({n}, 2) per frame; got {arr.shape}",
+                                     parameter="q_range")
+            da = xr.DataArray(arr, dims=("frame", "bound"), coords={"frame": self._ds["frame"]})
+        if da.ndim != 2 or da.shape[1] != 2:
+            raise SaxsInputError("a per-frame q_range needs dims (frame, 2)", parameter="q_range")
+        return da, (da,)
+
+    @staticmethod
+    def _check_errors(errors: str) -> None:
+        if errors not in ("ignore", "raise"):
+            raise SaxsInputError(f"errors must be 'ignore' or 'raise', got {errors!r}", parameter="errors")
+
+    def _raise_failed(self, out: xr.Dataset, operation: str, errors: str) -> xr.Dataset:
+        """With errors="raise", a SaxsFitError naming the first failed frame and status."""
+        if errors != "raise":
+            return out
+        status = np.asarray(out["status"].values)
+        bad = np.flatnonzero(status != "ok")
+        if bad.size == 0:
+            return out
+        i = int(bad[0])
+        st = str(status[i])
+        frame = out["frame"].values[i].item()
+        where = f"frame {frame}"
+        scan = self.scan
+        if scan != "frame" and scan in out.coords:
+            where += f" ({scan} = {out[scan].values[i]} {out[scan].attrs.get('units', '')})".rstrip()
+        raise SaxsFitError(
+            f"{operation} failed at {where}: status {st!r}; {bad.size} of {status.size} frames failed "
+            "(use errors='ignore' to keep the others)",
+            frame=frame, parameter=parameter_of(st),
+        )
+
+    # ------------------------------------------------------------ scan order
+    def _scan_name(self, name: str | None = None) -> str:
+        # scan coordinates are looked up on the series: a result may hold a variable
+        # of the same name (a peak "position" on a "position" scan)
+        src = self._ds
+        name = name or self.scan
+        if name != "frame" and name not in src.coords:
+            raise SaxsInputError(f"no coordinate {name!r} to order frames by", parameter="order_by")
+        return name if name in src.coords else "frame"
+
+    def _scan_values(self, name: str, n_frames: int) -> np.ndarray | None:
+        src = self._ds
+        if name in src.coords and src.sizes["frame"] == n_frames:
+            return np.asarray(src[name].values)
+        return None
+
+    def _scan_order(self, ds: xr.Dataset, name: str | None = None) -> np.ndarray:
+        """Frame order along a scan coordinate (default the main scan; stable, NaN last).
+
+        The values are read from the series itself: results share its frame axis, and
+        a result variable may carry the scan coordinate's name.
+        """
+        src = self._ds if self._ds.sizes["frame"] == ds.sizes["frame"] else ds
+        name = self._scan_name(name)
+        if name not in src.coords:
+            return np.arange(ds.sizes["frame"])
+        v = src[name].values
+        if v.dtype.kind not in "fiu":
+            return np.arange(ds.sizes["frame"])
+        return np.argsort(np.where(np.isfinite(v), v, np.inf), kind="stable")
+
+    def _frame_coords(self, out: xr.Dataset) -> xr.Dataset:
+        """Attach the series' frame and scan coordinates to a result on ``frame``."""
+        ds = self._ds
+        for c in self.scan_coords:
+            if c in out.data_vars:  # keep both: the scan coordinate gets a prefix
+                out = out.assign_coords(
+                    {f"scan_{c}": ds[c].reset_coords(drop=True).assign_attrs(scan_coordinate=c)}
+                )
+            else:
+                out = out.assign_coords({c: ds[c].reset_coords(drop=True)})
+        return out.assign_coords(frame=ds["frame"].reset_coords(drop=True))
+
+    def _result(self, data: Mapping[str, tuple], operation: str, parameters: Mapping[str, Any],
+                coords=None, like: xr.Dataset | None = None) -> xr.Dataset:
+        """A result Dataset from in-memory arrays, with coordinates and provenance; the
+        frame coordinates come from ``like`` (a result on the same frames) when given."""
+        out = xr.Dataset(dict(data), coords=coords)
+        if like is not None and like.sizes["frame"] != self._ds.sizes["frame"]:
+            out = out.assign_coords({c: like[c] for c in like.coords if like[c].dims == ("frame",)})
+        else:
+            out = self._frame_coords(out)
+        out.attrs = result_attrs(self._ds, operation, parameters)
+        return out
+
+    # -------------------------------------------------- mapping over frames
+    def _apply(
+        self,
+        func: Callable[..., Mapping[str, np.ndarray]],
+        outputs: Mapping[str, OutputSpec],
+        *,
+        operation: str,
+        parameters: Mapping[str, Any] | None = None,
+        extra_args: tuple = (),
+        errors: str | None = None,
+        **kwargs,
+    ) -> xr.Dataset:
+        """Run ``func(q, intensity, sigma, *extra_args, **kwargs)`` over all frames.
+
+        Masked points become NaN; ``xarray.apply_ufunc`` with ``dask="parallelized"``
+        maps the function (on a dask-backed series each frame chunk is processed
+        independently; q must be one chunk and is rechunked if needed). ``extra_args``
+        are per-frame arrays (DataArrays on ``frame`` and possibly other core dims)
+        passed after sigma. ``errors`` ("ignore" / "raise", None for no check): with
+        "raise" the first frame whose ``status`` is not "ok" raises SaxsFitError.
+
+        Returns a Dataset on ``frame`` (plus the new dims of ``outputs``) with the
+        scan coordinates kept, units on each variable, the series' attrs and history
+        extended by ``operation`` with ``parameters`` (default ``kwargs``).
+        """
+        if errors is not None:
+            self._check_errors(errors)
+        I, S = self.masked()
+        # scan coordinates are re-attached at the end, so an output may share a name
+        # with one (a peak "position" on a "position" scan)
+        I, S = I.reset_coords(drop=True), S.reset_coords(drop=True)
+        extra_args = tuple(a.reset_coords(drop=True) if isinstance(a, xr.DataArray) else a
+                           for a in extra_args)
+        q = self._ds["q"].values
+        names = list(outputs)
+
+        def _run(I_, S_, *extra):
+            res = func(q, I_, S_, *extra, **kwargs)
+            out = tuple(np.asarray(res[n]).astype(outputs[n].dtype, copy=False) for n in names)
+            return out[0] if len(out) == 1 else out
+
+        if I.chunks is not None:
+            I, S = I.chunk({"q": -1}), S.chunk({"q": -1})
+        extra_core = [[d for d in a.dims if d != "frame"] for a in extra_args]
+        sizes: dict[str, int] = {}
+        for spec in outputs.values():
+            sizes.update(spec.sizes)
+        result = xr.apply_ufunc(
+            _run, I, S, *extra_args,
+            input_core_dims=[["q"], ["q"], *extra_core],
+            output_core_dims=[list(outputs[n].dims) for n in names],
+            dask="parallelized",
+            output_dtypes=[outputs[n].dtype for n in names],
+            dask_gufunc_kwargs={"output_sizes": sizes} if sizes else None,
+            keep_attrs=False,
+        )
+        if len(names) == 1:
+            result = (result,)
+        data_vars = {}
+        for n, da in zip(names, result):
+            spec = outputs[n]
+            attrs = dict(spec.attrs)
+            if spec.units is not None:
+                attrs["units"] = spec.units
+            data_vars[n] = da.assign_attrs(attrs)
+        out = self._frame_coords(xr.Dataset(data_vars))
+        out.attrs = result_attrs(self._ds, operation, kwargs if parameters is None else parameters)
+        if errors is not None:
+            out = self._raise_failed(out, operation, errors)
+        return out

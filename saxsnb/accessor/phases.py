@@ -1,0 +1,220 @@
+"""``ds.saxs`` methods of Bragg peaks and mesophases."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import xarray as xr
+
+from ..errors import SaxsInputError
+from ._core import AccessorBase, OutputSpec
+
+__all__ = ["PhaseMethods"]
+
+
+class PhaseMethods(AccessorBase):
+    """Peaks, phase assignment, phase map and its report."""
+
+    # ---- peaks
+    def find_peaks(
+        self,
+        *,
+        q_range: tuple[float, float] | None = None,
+        min_prominence: float = 6.0,
+        profile: str = "pseudo_voigt",
+        max_peaks: int = 16,
+        baseline_width: float | None = None,
+        shoulders: bool = True,
+        backfit: bool = True,
+        track: bool = True,
+        order_by: str | None = None,
+        errors: str = "ignore",
+    ) -> xr.Dataset:
+        """Find, fit and track the Bragg peaks of every frame.
+
+        Parameters are those of :func:`saxsnb.analysis._peaks.find_peaks` (q in 1/nm;
+        ``min_prominence`` in units of the noise); ``track`` links peaks of consecutive
+        frames (:func:`saxsnb.analysis._tracking.link_peaks`) in the order of the
+        coordinate ``order_by`` (default: the main scan; give "time" or "frame" for a
+        heating-and-cooling cycle, where sorting by temperature would interleave legs).
+
+        Returns
+        -------
+        Dataset on (frame, peak), NaN padded: ``position``, ``fwhm`` (1/nm),
+        ``height``, ``area`` with ``*_sigma``, ``prominence``, ``eta``, ``chi2_reduced``,
+        ``track`` (int, -1 none); per frame ``n_peaks`` and ``status``.
+
+        Notes
+        -----
+        Finding and fitting run per frame chunk through ``_map_frames`` (lazy on a
+        dask series). Tracking needs the whole frame axis: the (small) peak table is
+        computed first, then linked in memory; with ``track=False`` the result stays
+        lazy.
+        """
+        from ..analysis._peaks import find_peaks as _find
+        from ..analysis._tracking import track_peaks
+
+        ds = self._ds
+        iu = ds["intensity"].attrs.get("units", "arb")
+        size = {"peak": int(max_peaks)}
+        per = {
+            "position": "1/nm", "position_sigma": "1/nm", "fwhm": "1/nm", "fwhm_sigma": "1/nm",
+            "height": iu, "height_sigma": iu, "area": f"{iu} 1/nm", "area_sigma": f"{iu} 1/nm",
+            "prominence": "1", "eta": "1", "chi2_reduced": "1",
+        }
+        outputs = {k: OutputSpec(("peak",), float, u, sizes=size) for k, u in per.items()}
+        outputs["n_peaks"] = OutputSpec((), np.int64, "1")
+        outputs["status"] = OutputSpec((), "status", None)
+        params = dict(q_range=q_range, min_prominence=min_prominence, profile=profile,
+                      max_peaks=int(max_peaks), baseline_width=baseline_width, shoulders=bool(shoulders),
+                      backfit=bool(backfit), errors=errors)
+        out = self._apply(_find, outputs, operation="find_peaks", parameters=params, track=False, **params)
+        q = ds["q"].values
+        lo, hi = (q.min(), q.max()) if q_range is None else (q_range[0], q_range[1])
+        out.attrs.update(q_min=float(max(lo, q.min())), q_max=float(min(hi, q.max())), profile=profile)
+        if not track:
+            return out
+        out = out.compute()
+        out.attrs["order_by"] = self._scan_name(order_by)
+        trk = track_peaks(*(out[v].values for v in ("position", "position_sigma", "fwhm")),
+                          order=self._scan_order(out, order_by))
+        return out.assign(track=(("frame", "peak"), trk, {"units": "1", "long_name": "track number"}))
+
+    def index_phases(
+        self,
+        peaks: xr.Dataset | None = None,
+        *,
+        phases: tuple[str, ...] = ("lamellar", "hexagonal", "Pn3m", "Im3m", "Ia3d", "Fd3m", "Pm3n", "Fm3m"),
+        max_phases: int = 2,
+        tolerance: float = 0.01,
+        use_scan_prior: bool = True,
+        prior_weight: float = 1.0,
+        order_by: str | None = None,
+        max_relative_width: float = 0.1,
+        overrides=None,
+    ) -> xr.Dataset:
+        """Assign each frame's peaks to one phase or two coexisting phases.
+
+        Parameters
+        ----------
+        peaks : Dataset from :meth:`find_peaks` (computed with defaults if None).
+        phases, max_phases, tolerance, use_scan_prior, prior_weight
+            See :func:`saxsnb.analysis._lattice.index_peaks`.
+        order_by : str, optional
+            Coordinate along which the scan prior and re-tracking run (default: the
+            one used by :meth:`find_peaks`, else the main scan).
+        max_relative_width : float
+            Peaks with FWHM / position above this are not taken as Bragg reflections
+            and are left out of indexing (counted in ``n_broad``). Form-factor maxima
+            of particles (relative widths ~0.2-0.6) would otherwise be indexed as a
+            lattice; mesophase reflections are typically far sharper (the demo phase
+            ramp: 0.004-0.09). Common practice; raise it for small, disordered domains.
+        overrides : mapping frame position -> {"phase": str, "lattice": float or None}
+            Frames set by hand (see :func:`saxsnb.analysis.index_phases`): status
+            "override", the automatic choice in ``alternative``, the set in
+            ``attrs["overrides"]`` (JSON).
+
+        Returns
+        -------
+        Dataset on (frame, slot): ``phase`` (str, "" empty), ``lattice`` and
+        ``lattice_sigma`` (nm; d for lamellar, cell edge a otherwise), ``score``;
+        on frame: ``alternative``, ``status``, ``caveat``, ``cost``, ``margin``,
+        ``n_unexplained``; on (frame, peak): ``hkl``, ``peak_phase``, ``position``
+        and ``track`` (re-linked so a track ends where its assignment changes).
+        """
+        from ..analysis._indexing import PHASE_OUTPUTS
+        from ..analysis._indexing import index_phases as _index
+
+        pk = self.find_peaks() if peaks is None else peaks
+        if "position" not in pk.data_vars or "peak" not in pk.dims:
+            raise SaxsInputError("peaks must be the Dataset of ds.saxs.find_peaks()", parameter="peaks")
+        pk = pk.compute()
+        order_by = order_by or pk.attrs.get("order_by")
+        params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
+                      use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight),
+                      max_relative_width=float(max_relative_width))
+        get = lambda v: pk[v].values if v in pk.data_vars else None  # noqa: E731
+        res = _index(get("position"), get("position_sigma"), get("fwhm"), get("prominence"),
+                     peak_status=get("status"), order=self._scan_order(pk, order_by),
+                     q_min=pk.attrs.get("q_min"), overrides=overrides, **params)
+        if overrides:
+            params["overrides"] = {str(int(k)): dict(v) for k, v in sorted(overrides.items())}
+        data = {k: (("frame", *PHASE_OUTPUTS[k][0]), v,
+                    {"units": PHASE_OUTPUTS[k][1]} if PHASE_OUTPUTS[k][1] else {})
+                for k, v in res.items()}
+        data["position"] = pk["position"].reset_coords(drop=True)
+        out = self._result(data, "index_phases", params, coords={"slot": np.arange(res["phase"].shape[1])},
+                           like=pk)
+        out["lattice"].attrs["long_name"] = "d-spacing (lamellar) or cell edge a"
+        out.attrs["scan"] = self._scan_name()
+        out.attrs["order_by"] = self._scan_name(order_by)
+        if overrides:
+            out.attrs["overrides"] = json.dumps(params["overrides"], sort_keys=True)
+        out.attrs["note"] = (
+            "lattice from a weighted fit over the assigned peaks; frames with few peaks or a "
+            "non-empty 'alternative' are ambiguous: read 'caveat'"
+        )
+        return out
+
+    def phase_map(self, index: xr.Dataset | None = None) -> xr.Dataset:
+        """Phases present along the scan, transitions and coexistence windows.
+
+        Parameters
+        ----------
+        index : Dataset from :meth:`index_phases` (computed with defaults if None).
+
+        Returns
+        -------
+        Dataset with ``presence`` (bool, (frame, phase_name)), ``share`` and
+        ``lattice`` / ``lattice_sigma`` (nm) on (frame, phase_name), ``bonnet_ratio``,
+        ``bonnet_ratio_sigma``, ``bonnet_expected``, ``bonnet_pair`` on frame; attrs
+        ``transitions``, ``coexistence`` and ``bonnet`` as JSON strings (see
+        :func:`saxsnb.analysis._lattice.phase_map`), plus ``scan`` and ``scan_units``.
+        """
+        from ..analysis._lattice import phase_map
+        from ..analysis._reflections import PHASES
+        from ..analysis._status import UNINDEXED
+
+        idx = self.index_phases() if index is None else index
+        names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or PHASES
+        scan = idx.attrs.get("scan") or self._scan_name()
+        x = self._scan_values(scan, idx.sizes["frame"])
+        x = idx["frame"].values if x is None else x
+        known = ~np.isin(idx["status"].values, UNINDEXED)
+        m = phase_map(idx["phase"].values, x, known=known, lattice=idx["lattice"].values,
+                      lattice_sigma=idx["lattice_sigma"].values, score=idx["score"].values, phases=names)
+        fp = ("frame", "phase_name")
+        data = {
+            "presence": (fp, m["presence"], {"units": "1"}),
+            "share": (fp, m["share"], {"units": "1", "long_name": "share of explained peak strength"}),
+            "lattice": (fp, m["lattice"], {"units": "nm"}),
+            "lattice_sigma": (fp, m["lattice_sigma"], {"units": "nm"}),
+            "bonnet_ratio": ("frame", m["bonnet_ratio"], {"units": "1"}),
+            "bonnet_ratio_sigma": ("frame", m["bonnet_ratio_sigma"], {"units": "1"}),
+            "bonnet_expected": ("frame", m["bonnet_expected"], {"units": "1"}),
+            "bonnet_pair": ("frame", m["bonnet_pair"]),
+            "known": ("frame", known, {"long_name": "frame could be indexed"}),
+        }
+        out = self._result(data, "phase_map", {"scan": scan}, coords={"phase_name": list(names)}, like=idx)
+        out.attrs.update(
+            scan=scan,
+            scan_units=str(self._ds[scan].attrs.get("units", "")) if scan in self._ds.coords else "",
+            transitions=json.dumps(m["transitions"]),
+            coexistence=json.dumps(m["coexistence"]),
+            bonnet=json.dumps(m["bonnet"]),
+        )
+        return out
+
+    def phase_report(self, pmap: xr.Dataset | None = None) -> str:
+        """Short text report of :meth:`phase_map`: transitions, coexistence, Bonnet ratios."""
+        from ..display.text import phase_map_report
+
+        pm = self.phase_map() if pmap is None else pmap
+        scan = pm.attrs.get("scan", "frame")
+        xs = self._scan_values(scan, pm.sizes["frame"])
+        x = None if xs is None or xs.dtype.kind not in "fiu" else np.sort(xs.astype(float))
+        step = float(np.median(np.diff(x))) if x is not None and x.size > 1 else None
+        res = {k: json.loads(pm.attrs[k]) for k in ("transitions", "coexistence", "bonnet")}
+        return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step)
+

@@ -1,0 +1,164 @@
+"""The one table of per-frame status codes.
+
+Every analysis writes a ``status`` per frame (``"ok"`` or a failure code). The codes,
+what they mean, which input they are about and the plain-language message a person
+reads live here and nowhere else: the producers in :mod:`saxsnb.analysis` use these
+codes, ``errors="raise"`` names :attr:`Status.parameter` in its error, and the display
+layer (:mod:`saxsnb.display`) shows :attr:`Status.message`.
+
+``{size}`` and ``{limit}`` in a message are filled in by the display layer (default
+Rg and 1.3, the compact-particle Guinier limit).
+
+Examples
+--------
+>>> STATUS["too_few_points"].parameter
+'q_range'
+>>> sorted(set(STATUS) - set(STATUS))
+[]
+>>> status_array(["ok", "no_data"]).dtype
+dtype('<U32')
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+__all__ = [
+    "Status",
+    "STATUS",
+    "STATUS_DTYPE",
+    "INDEXED",
+    "UNINDEXED",
+    "status_array",
+    "check_codes",
+    "parameter_of",
+]
+
+
+class Status(NamedTuple):
+    """One status code: ``meaning`` (for developers), ``parameter`` (the input a
+    failure is about), ``message`` (for people, may hold ``{size}`` / ``{limit}``)."""
+
+    meaning: str
+    parameter: str
+    message: str
+
+
+#: Fixed width of every status array (numpy unicode), long enough for every code.
+STATUS_DTYPE = "<U32"
+
+#: code -> Status. One code per meaning.
+STATUS: dict[str, Status] = {
+    "ok": Status("the analysis succeeded", "", "ok"),
+    "no_data": Status(
+        "no finite, usable point in the frame", "intensity", "no usable intensity in this frame"
+    ),
+    "range_outside_data": Status(
+        "the q range holds no measured point", "q_range", "the chosen q range misses the measured points"
+    ),
+    "too_few_points": Status(
+        "fewer usable points than the fit needs",
+        "q_range",
+        "fewer than 3 usable points in the q range: widen the range",
+    ),
+    "negative_intensity": Status(
+        "I <= 0 where a logarithm is needed",
+        "intensity",
+        "intensity at or below zero in the range: its logarithm is undefined "
+        "(check the background subtraction)",
+    ),
+    "zero_sigma": Status(
+        "sigma <= 0 for a point in the range",
+        "sigma",
+        "some points in the range have sigma = 0 and cannot be weighted",
+    ),
+    "positive_slope": Status(
+        "the Guinier line rises with q",
+        "q_range",
+        "the intensity rises with q over this range: not a Guinier region",
+    ),
+    "curvature_aggregation": Status(
+        "the lowest-q windows curve upwards or rise",
+        "q_range",
+        "the lowest-q points curve upwards (a sign of aggregation or attraction): no Guinier fit",
+    ),
+    "qrg_limit_exceeded": Status(
+        "q_max R above the validity limit",
+        "q_range",
+        "q_max\u00b7{size} above the validity limit {limit}: the range is too long for a Guinier fit",
+    ),
+    "no_linear_region": Status(
+        "every candidate window curves",
+        "q_range",
+        "no straight low-q stretch found: every candidate range curves",
+    ),
+    "no_guinier": Status(
+        "no Guinier result for the low-q extrapolation", "guinier", "no Guinier region at low q"
+    ),
+    "no_porod_constant": Status(
+        "no Porod constant for the high-q tail", "porod", "no Porod region at high q"
+    ),
+    "negative_porod_constant": Status(
+        "the fitted Porod constant is <= 0",
+        "background",
+        "the Porod constant came out negative (check the background)",
+    ),
+    "no_peaks": Status(
+        "no peak above the prominence threshold", "min_prominence", "no Bragg peaks found in this frame"
+    ),
+    "no_bragg_peaks": Status(
+        "only broad features, too wide for Bragg reflections",
+        "max_relative_width",
+        "no Bragg peaks found in this frame (only broad features, e.g. particle form-factor maxima)",
+    ),
+    "not_enough_peaks_to_index": Status(
+        "one peak: no ratio to index", "peaks", "only one peak: at least two are needed to index a lattice"
+    ),
+    "no_phase_found": Status(
+        "the peaks fit none of the phases", "phases", "the peaks fit none of the known phases"
+    ),
+    "unexplained_peaks": Status(
+        "a phase is assigned but some peaks are left over",
+        "phases",
+        "some peaks are not explained by the assigned phase(s)",
+    ),
+    "override": Status("the phase was set by hand", "overrides", "override (phase set by hand)"),
+}
+
+#: Statuses of phase indexing for a frame that has a phase assignment.
+INDEXED = ("ok", "unexplained_peaks", "override")
+#: Statuses of phase indexing for a frame whose phases are unknown (not "absent").
+UNINDEXED = ("no_data", "not_enough_peaks_to_index", "no_phase_found")
+
+
+def status_array(values) -> np.ndarray:
+    """Status codes as a numpy array of the one status dtype.
+
+    >>> status_array(np.array(["ok"], dtype="<U2")).dtype.str
+    '<U32'
+    """
+    return np.asarray(values).astype(STATUS_DTYPE)
+
+
+def check_codes(values) -> None:
+    """Raise AssertionError when an array holds a code missing from :data:`STATUS`.
+
+    For tests and producers under development.
+
+    >>> check_codes(["ok", "no_peaks"])
+    """
+    unknown = sorted(set(np.asarray(values).astype(str).ravel()) - set(STATUS))
+    if unknown:
+        raise AssertionError(f"status codes missing from the table: {unknown}")
+
+
+def parameter_of(code: str, default: str = "q_range") -> str:
+    """The input a failure status is about (``default`` for an unknown code).
+
+    >>> parameter_of("zero_sigma"), parameter_of("?")
+    ('sigma', 'q_range')
+    """
+    st = STATUS.get(str(code))
+    return st.parameter if st is not None and st.parameter else default

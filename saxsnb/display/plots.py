@@ -1,0 +1,273 @@
+"""What the panels draw: linearised-plot coordinates, fitted lines, maps, error bars.
+
+
+Pure numpy, no fitting: the few array reshapes a plot needs live here, tested like any
+function, so the widgets stay free of maths. The linearised plots come from the one
+table :data:`saxsnb.analysis._linear.LINEAR_PLOTS`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..analysis._linear import linear_plot
+from ..errors import SaxsInputError
+
+__all__ = [
+    "linear_x",
+    "q_from_linear_x",
+    "line_coefficients",
+    "line_residuals",
+    "KRATKY_REFERENCES",
+    "scaled_q",
+    "curve_at",
+    "overview_map",
+    "errorbar_segments",
+]
+
+
+def linear_x(q, kind: str):
+    """Abscissa of the linearised plot ``kind`` for q (q^2, or q^4 for Porod).
+
+
+    >>> linear_x(np.array([2.0]), "guinier").tolist(), linear_x(2.0, "porod")
+    ([4.0], 16.0)
+    """
+    return np.asarray(q, dtype=float) ** _power(kind) if np.ndim(q) else float(q) ** _power(kind)
+
+
+def q_from_linear_x(x, kind: str):
+    """Inverse of :func:`linear_x`: q in 1/nm from the plot abscissa (NaN below 0).
+
+
+    >>> q_from_linear_x(np.array([4.0, 16.0]), "guinier").tolist()
+    [2.0, 4.0]
+    """
+    x = np.asarray(x, dtype=float)
+    with np.errstate(invalid="ignore"):
+        out = np.where(x >= 0, np.abs(x) ** (1.0 / _power(kind)), np.nan)
+    return out if out.ndim else float(out)
+
+
+def _power(kind: str) -> int:
+    return linear_plot(kind).x_power
+
+
+def line_coefficients(kind: str, values: dict) -> tuple[float, float]:
+    """Intercept and slope of the straight line behind a fit result, in plot coordinates.
+
+
+    Parameters
+    ----------
+    kind : {"guinier", "rod", "sheet", "porod"}
+    values : mapping of result name -> float
+        A Guinier result: ``intercept`` and ``slope`` when present, else ``i0`` and the
+        size (``rg``, ``rc`` or ``rt``) with ln i0 = intercept and size^2 = -k slope
+        (k = 3, 2, 1). A Porod result: ``porod_constant`` (intercept of q^4 I against
+        q^4) and ``background`` (slope).
+
+
+    Returns
+    -------
+    (intercept, slope) floats (NaN when the fit failed).
+
+
+    >>> line_coefficients("guinier", {"i0": float(np.e), "rg": 3.0})
+    (1.0, -3.0)
+    >>> line_coefficients("porod", {"porod_constant": 2.0, "background": 0.1})
+    (2.0, 0.1)
+    """
+    plot = linear_plot(kind)
+    if plot.analysis == "porod":
+        return float(values.get("porod_constant", np.nan)), float(values.get("background", np.nan))
+    if "intercept" in values and "slope" in values:
+        return float(values["intercept"]), float(values["slope"])
+    i0, r = float(values.get("i0", np.nan)), float(values.get(plot.size, np.nan))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return float(np.log(i0)) if i0 > 0 else np.nan, -(r * r) / plot.size_factor
+
+
+def line_residuals(x, y, sigma_y, intercept: float, slope: float):
+    """The straight line ``intercept + slope x`` and normalised residuals.
+
+
+    Returns
+    -------
+    line : array like ``x``
+    residual : array, ``(y - line) / sigma_y`` (``y - line`` when ``sigma_y`` is None)
+
+
+    >>> x, y, sy = np.array([0.0, 1.0]), np.array([1.0, 0.0]), np.array([0.5, 0.5])
+    >>> line, res = line_residuals(x, y, sy, 1.0, -0.5)
+    >>> line.tolist(), res.tolist()
+    ([1.0, 0.5], [0.0, -1.0])
+    """
+    x = np.asarray(x, dtype=float)
+    line = intercept + slope * x
+    diff = np.asarray(y, dtype=float) - line
+    if sigma_y is None:
+        return line, diff
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return line, diff / np.asarray(sigma_y, dtype=float)
+
+
+#: Reference levels of the dimensionless Kratky plot (q Rg)^2 I / I0: the Guinier form
+#: exp(-(q Rg)^2 / 3) peaks at q Rg = sqrt(3) with height 3/e (Durand et al. 2010,
+#: J. Struct. Biol. 169, 45); the Gaussian chain tends to the plateau 2 (Debye 1947,
+#: J. Phys. Colloid Chem. 51, 18).
+KRATKY_REFERENCES = {
+    "globule_peak_qrg": float(np.sqrt(3.0)),
+    "globule_peak_height": float(3.0 / np.e),
+    "chain_plateau": 2.0,
+}
+
+
+def scaled_q(q, size):
+    """q times a size for each frame (the abscissa q Rg of a dimensionless plot).
+
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    size : array (n_frames,), nm
+
+
+    Returns
+    -------
+    array (n_frames, n_q), dimensionless (NaN rows where ``size`` is NaN).
+
+
+    >>> scaled_q(np.array([0.5, 1.0]), np.array([2.0])).tolist()
+    [[1.0, 2.0]]
+    """
+    return np.asarray(q, dtype=float)[None, :] * np.asarray(size, dtype=float).reshape(-1, 1)
+
+
+def curve_at(q, intensity, positions):
+    """Intensity of one curve at given q positions (linear interpolation, for markers).
+
+
+    Parameters
+    ----------
+    q : array (n_q,), increasing
+    intensity : array (n_q,)
+    positions : array (n,), NaN allowed (gives NaN)
+
+
+    >>> curve_at(np.array([1.0, 2.0]), np.array([10.0, 20.0]), np.array([1.5, np.nan])).tolist()
+    [15.0, nan]
+    """
+    p = np.asarray(positions, dtype=float)
+    out = np.interp(
+        np.where(np.isfinite(p), p, 0.0), np.asarray(q, dtype=float), np.asarray(intensity, dtype=float)
+    )
+    return np.where(np.isfinite(p), out, np.nan)
+
+
+def overview_map(q, intensity, *, max_rows: int = 400, max_cols: int = 400) -> dict:
+    """Downsample a series to a small map of log10 intensity over (frame, q).
+
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm
+    intensity : array (n_frames, n_q)
+        Non-positive and non-finite points are left out of the block means.
+    max_rows, max_cols : int
+        Largest number of rows (frame blocks) and columns (q blocks) of the map.
+
+
+    Returns
+    -------
+    dict with ``log10_intensity`` (n_rows, n_cols), the mean of log10 I over each
+    block (NaN where a block holds no positive point); ``q`` (n_cols,), the
+    geometric mean q of each column block (1/nm); ``frame_start``, ``frame_stop``
+    (n_rows,), the frames ``[start, stop)`` that each row averages; ``row_step``
+    and ``col_step``, the block sizes (1 when nothing was merged).
+
+
+    Examples
+    --------
+    >>> m = overview_map(np.array([1.0, 2.0, 4.0, 8.0]), np.full((6, 4), 10.0), max_rows=3, max_cols=2)
+    >>> m["log10_intensity"].tolist(), m["frame_start"].tolist(), m["row_step"], m["col_step"]
+    ([[1.0, 1.0], [1.0, 1.0], [1.0, 1.0]], [0, 2, 4], 2, 2)
+    >>> np.round(m["q"], 3).tolist()
+    [1.414, 5.657]
+    """
+    q = np.asarray(q, dtype=float)
+    I = np.asarray(intensity, dtype=float)
+    if I.ndim != 2 or I.shape[1] != q.size:
+        raise SaxsInputError(
+            f"intensity has shape {I.shape}; expected (n_frames, {q.size})", parameter="intensity"
+        )
+    n_f, n_q = I.shape
+    rows = _block_edges(n_f, max_rows)
+    cols = _block_edges(n_q, max_cols)
+    ok = np.isfinite(I) & (I > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logI = np.where(ok, np.log10(np.where(ok, I, 1.0)), 0.0)
+    total = np.add.reduceat(np.add.reduceat(logI, rows, axis=0), cols, axis=1)
+    count = np.add.reduceat(np.add.reduceat(ok.astype(float), rows, axis=0), cols, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(count > 0, total / np.where(count > 0, count, 1.0), np.nan)
+        qpos = q > 0
+        lq = np.where(qpos, np.log(np.where(qpos, q, 1.0)), 0.0)
+        qsum = np.add.reduceat(lq, cols)
+        qcount = np.add.reduceat(qpos.astype(float), cols)
+        qmean = np.where(
+            qcount > 0,
+            np.exp(qsum / np.where(qcount > 0, qcount, 1.0)),
+            np.add.reduceat(q, cols) / np.diff(np.append(cols, n_q)),
+        )
+    return {
+        "log10_intensity": mean,
+        "q": qmean,
+        "frame_start": rows,
+        "frame_stop": np.append(rows[1:], n_f),
+        "row_step": int(rows[1] - rows[0]) if rows.size > 1 else 1,
+        "col_step": int(cols[1] - cols[0]) if cols.size > 1 else 1,
+    }
+
+
+def _block_edges(n: int, max_blocks: int) -> np.ndarray:
+    """Start indices of at most ``max_blocks`` contiguous blocks covering ``range(n)``."""
+    k = max(1, int(np.ceil(n / max(1, int(max_blocks)))))
+    return np.arange(0, n, k)
+
+
+def errorbar_segments(q, intensity, sigma, *, floor: float | None = None):
+    """Vertical +-sigma bars of one curve as a single polyline with gaps.
+
+
+    Parameters
+    ----------
+    q, intensity, sigma : arrays (n_q,)
+    floor : float, optional
+        Lower ends below ``floor`` are drawn from ``floor`` (for a log axis that
+        starts there; a bar reaching zero or below cannot be drawn on a log axis).
+
+
+    Returns
+    -------
+    x, y : arrays (3 n_q,): for each point ``(q, I - sigma), (q, I + sigma), gap``;
+    the gap has ``y = NaN`` (a plotting library leaves the line undefined there).
+
+
+    Examples
+    --------
+    >>> x, y = errorbar_segments([1.0, 2.0], [10.0, 5.0], [1.0, 6.0], floor=0.5)
+    >>> x.tolist()[:2], y.tolist()[:2], y.tolist()[3:5]
+    ([1.0, 1.0], [9.0, 11.0], [0.5, 11.0])
+    """
+    q = np.asarray(q, dtype=float)
+    I = np.asarray(intensity, dtype=float)
+    S = np.asarray(sigma, dtype=float)
+    lo = I - S
+    if floor is not None:
+        lo = np.where(lo < floor, floor, lo)
+    x = np.repeat(q, 3)
+    y = np.empty(3 * q.size)
+    y[0::3] = lo
+    y[1::3] = I + S
+    y[2::3] = np.nan
+    return x, y
