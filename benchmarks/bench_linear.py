@@ -36,8 +36,7 @@ def make_series(n_frames: int, n_q: int = 1000, seed: int = 0):
 def vectorised(q, I, S):
     """Automatic Guinier range and fit, then the Porod fit (background fitted, default
     range: upper quarter of q) with the power-law exponent, on all frames at once."""
-    from saxsnb.analysis._guinier import guinier
-    from saxsnb.analysis._porod import porod
+    from saxsnb.analysis import guinier, porod
 
     g = guinier(q, I, S)
     p = porod(q, I, S)

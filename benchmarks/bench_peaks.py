@@ -24,7 +24,7 @@ import time
 import numpy as np
 
 import saxsnb
-from saxsnb.analysis._reflections import PHASES, spacing_ratios
+from saxsnb.analysis import PHASES, spacing_ratios
 
 N_Q = 1000
 

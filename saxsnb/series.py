@@ -16,7 +16,6 @@ its own.
 
 from __future__ import annotations
 
-import datetime as _dt
 import json
 from collections.abc import Mapping
 from typing import Any
@@ -334,8 +333,9 @@ def main_scan(ds: xr.Dataset) -> str:
 def add_history(ds: xr.Dataset, operation: str, **parameters) -> xr.Dataset:
     """Return a shallow copy of ``ds`` with one entry appended to ``attrs["history"]``.
 
-    Each entry is a JSON string ``{"operation", "parameters", "version", "time"}`` so
-    that it survives NetCDF and HDF5 round trips unchanged.
+    Each entry is a JSON string ``{"operation", "parameters", "version"}`` so that it
+    survives NetCDF and HDF5 round trips unchanged. There is no time stamp: the same
+    steps on the same data give identical Datasets (a re-run notebook reproduces them).
     """
     from . import __version__
 
@@ -344,7 +344,6 @@ def add_history(ds: xr.Dataset, operation: str, **parameters) -> xr.Dataset:
             "operation": operation,
             "parameters": to_json_safe(parameters),
             "version": __version__,
-            "time": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         },
         sort_keys=True,
     )

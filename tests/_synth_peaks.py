@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from saxsnb.analysis._reflections import q_positions
+from saxsnb.analysis import q_positions
 
 Q = np.linspace(0.3, 5.0, 1000)  # 1/nm, like the demo series
 

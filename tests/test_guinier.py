@@ -6,7 +6,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapes_linear import cylinder, debye, flat_disc, rg_schulz, schulz_spheres, sphere
 
-from saxsnb.analysis._guinier import guinier, guinier_search, rod_length
+from saxsnb.analysis import guinier, guinier_search, rod_length
 from saxsnb.errors import SaxsInputError
 
 

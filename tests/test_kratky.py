@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from shapes_linear import debye, sphere, thin_rod
 
-from saxsnb.analysis._kratky import kratky, kratky_summary
+from saxsnb.analysis import kratky, kratky_summary
 from saxsnb.errors import SaxsInputError
 
 Q = np.linspace(0.005, 8.0, 4000)

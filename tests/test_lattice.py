@@ -9,8 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import saxsnb
-from saxsnb.analysis._lattice import index_peaks, phase_map
-from saxsnb.analysis._reflections import q_positions
+from saxsnb.analysis import index_peaks, phase_map, q_positions
 
 # Lattice parameters (nm) spanning typical lyotropic values (common practice);
 # d-spacing for lamellar, a otherwise.

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from saxsnb.analysis._linear import (
+from saxsnb.analysis import (
     WindowMoments,
     index_range,
     linearize,

@@ -6,7 +6,7 @@ from _synth_peaks import Q, curve, gaussian
 from scipy.optimize import curve_fit
 
 import saxsnb
-from saxsnb.analysis._peaks import estimate_baseline, find_peaks, fit_peaks, peak_profile
+from saxsnb.analysis import estimate_baseline, find_peaks, fit_peaks, peak_profile
 from saxsnb.errors import SaxsFitError, SaxsInputError
 
 

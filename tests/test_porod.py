@@ -7,7 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapes_linear import debye, schulz_spheres, sphere, thin_rod
 
-from saxsnb.analysis._porod import (
+from saxsnb.analysis import (
     default_porod_range,
     guinier_integrals,
     invariant,

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from saxsnb.analysis._reflections import allowed_reflections, hkl_labels, q_positions, spacing_ratios
+from saxsnb.analysis import allowed_reflections, hkl_labels, q_positions, spacing_ratios
 
 # REFERENCES.md, "Mesophases": allowed h^2+k^2+l^2 in order, derived from the reflection
 # conditions of International Tables for Crystallography Vol. A (conditions beyond the

@@ -6,7 +6,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from scipy.optimize import linear_sum_assignment
 
-from saxsnb.analysis._tracking import link_peaks
+from saxsnb.analysis import link_peaks
 
 
 def test_drifting_peaks_form_one_track_each():

@@ -7,7 +7,7 @@ import pytest
 import xarray as xr
 
 import saxsnb
-from saxsnb.analysis._reflections import q_positions
+from saxsnb.analysis import q_positions
 from saxsnb.widgets import PeaksPanel
 from saxsnb.widgets import _bq as bq
 

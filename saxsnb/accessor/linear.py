@@ -164,7 +164,7 @@ class LinearMethods(AccessorBase):
         ``porod_volume`` (nm^3), ``surface_to_volume``, ``specific_surface`` (1/nm),
         each with ``_sigma``; ``status``.
         """
-        from ..analysis._porod import invariant as _invariant
+        from ..analysis._invariant import invariant as _invariant
 
         if q_range is not None and np.shape(q_range) != (2,):
             raise SaxsInputError("q_range of the measured part must be one (q_min, q_max)",

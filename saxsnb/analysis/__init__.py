@@ -23,13 +23,14 @@ table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), pe
 from ._corrections import scale_intensity, subtract_background
 from ._guinier import guinier, guinier_search, rod_length
 from ._indexing import PHASE_OUTPUTS, index_phases
+from ._invariant import guinier_integrals, invariant
 from ._kratky import SHAPE_CLASSES, kratky, kratky_summary
 from ._lattice import index_peaks, lattice_from_metric
 from ._linear import (
     LINEAR_PLOTS,
     SHAPE_PLOTS,
     LinearPlot,
-    WindowMoments,
+    index_range,
     linear_plot,
     linearize,
     weighted_linear_fit,
@@ -37,10 +38,11 @@ from ._linear import (
 from ._peakfit import PROFILES, fit_peaks, guess_peaks, peak_profile
 from ._peaks import detect_peaks, estimate_baseline, find_peaks
 from ._phasemap import BONNET_RATIOS, phase_map
-from ._porod import default_porod_range, invariant, porod, porod_fit, power_law_fit
+from ._porod import default_porod_range, porod, porod_fit, power_law_fit
 from ._reflections import PHASES, allowed_reflections, hkl_labels, q_positions, spacing_ratios
 from ._status import STATUS, STATUS_DTYPE, Status
 from ._tracking import link_peaks, track_peaks
+from ._windows import WindowMoments, running_sum
 
 __all__ = [
     # linear regions
@@ -51,6 +53,8 @@ __all__ = [
     "linearize",
     "weighted_linear_fit",
     "WindowMoments",
+    "running_sum",
+    "index_range",
     "guinier",
     "guinier_search",
     "rod_length",
@@ -59,6 +63,7 @@ __all__ = [
     "power_law_fit",
     "default_porod_range",
     "invariant",
+    "guinier_integrals",
     # Kratky
     "kratky",
     "kratky_summary",

@@ -13,23 +13,26 @@ the next with a smoothly changing lattice parameter.
 
 from __future__ import annotations
 
-from functools import cache
-
 import numpy as np
 
 from ..errors import SaxsInputError
-from ._latticematch import (
-    _ANCHOR_REFLECTIONS,
-    _KEEP,
-    _phase_set,
-    _refine,
-    _Scratch,
-    _singles,
-    _sum_peaks,
-    _table,
+from ._lattice_search import (
+    _ANCHOR_PEAKS,
+    _VITERBI_STATES,
+    CLOSE_COST,
+    _blocks,
+    _hypotheses,
+    _key,
+    _states,
+    _viterbi,
 )
 from ._latticematch import (
     MISS_COST as MISS_COST,  # re-exported: documented here
+)
+from ._latticematch import (
+    _refine,
+    _Scratch,
+    _table,
 )
 from ._phasemap import BONNET_RATIOS, phase_map
 from ._reflections import PHASES
@@ -43,12 +46,6 @@ __all__ = [
     "phase_map",
 ]
 
-#: Cost of a second coexisting phase (fewest phases preferred).
-PHASE_COST = 1.0
-#: A different explanation within this cost of the chosen one is reported as close.
-CLOSE_COST = 1.2
-_ANCHOR_PEAKS = 6
-_VITERBI_STATES = 8
 
 
 def lattice_from_metric(phase: str, metric):
@@ -64,219 +61,6 @@ def lattice_from_metric(phase: str, metric):
     if phase == "hexagonal":
         return 4.0 * np.pi * m / np.sqrt(3.0)
     return 2.0 * np.pi * m
-
-
-@cache
-def _hypothesis_table(nph: int, max_phases: int):
-    """The explanations tried in every frame, in a fixed order.
-
-    Column 0 is "nothing", then each kept single-phase candidate (``nph * _KEEP``), then
-    (``max_phases`` 2) each pair of candidates of different phases. Returns ``phase``
-    (H, 2) phase numbers (-1 none), ``ia`` / ``ib`` (H,) the candidates combined (M =
-    none), ``pair`` (H,) bool, the pair candidates ``a``, ``b``, and the best-key
-    grouping (``order``, ``starts``, ``ukeys``) of the columns.
-    """
-    M = nph * _KEEP
-    ph_id = np.repeat(np.arange(nph), _KEEP)
-    phase = [np.array([[-1, -1]]), np.stack([ph_id, np.full(M, -1)], -1)]
-    ia = [np.array([M]), np.arange(M)]
-    ib = [np.array([M]), np.full(M, M)]
-    a = b = np.zeros(0, dtype=np.intp)
-    if max_phases >= 2:
-        a, b = np.triu_indices(M, 1)
-        diff = ph_id[a] != ph_id[b]
-        a, b = a[diff], b[diff]
-        phase.append(np.stack([ph_id[a], ph_id[b]], -1))
-        ia.append(a)
-        ib.append(b)
-    phase = np.concatenate(phase)
-    ia, ib = np.concatenate(ia), np.concatenate(ib)
-    pair = np.arange(ia.size) > M
-    keys = _key(phase, nph)
-    order = np.argsort(keys, kind="stable")
-    ukeys, starts = np.unique(keys[order], return_index=True)
-    return {"phase": phase, "ia": ia, "ib": ib, "pair": pair, "a": a, "b": b, "M": M,
-            "order": order, "starts": starts, "ukeys": ukeys}
-
-
-def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None, ws=None):
-    """Costs of all one- and two-phase explanations of each frame.
-
-    ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
-    explain these peaks (e.g. the ones a first pass left unexplained); their costs are
-    then recomputed over all peaks. ``ws``: a :class:`_Scratch` shared by the blocks.
-    Returns ``cost`` (B, H) in the order of :func:`_hypothesis_table`, ``rho`` (B, P),
-    and what :func:`_states` needs to build the explanations chosen.
-    """
-    B, P = q.shape
-    present = np.isfinite(q)
-    smax = np.where(present, strength, -np.inf).max(-1, keepdims=True)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rho = np.where(present, np.clip(strength / smax, 0, 1), 0.0)
-    unexpl = np.where(present, 1.0 + np.nan_to_num(rho), 0.0)
-    # anchors: the strongest few peaks of the frame, each taken as one of the first reflections
-    strong = np.argsort(-np.where(present, strength, -np.inf), axis=1, kind="stable")[:, :n_anchor]
-    qa = np.take_along_axis(q, strong, 1)
-    rank_unexpl = unexpl if focus is None else np.where(focus, unexpl, 0.0)
-    if focus is not None:  # anchor on the focus peaks first
-        order = np.argsort(-np.where(present, strength + np.where(focus, 1e300, 0.0), -np.inf), axis=1)
-        qa = np.take_along_axis(q, order[:, :n_anchor], 1)
-    q0 = np.where(present, q, 0.0)
-    wq = w * q0
-    finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
-    ws = _Scratch() if ws is None else ws
-    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol, ws)
-    if focus is not None:  # true costs: every unexplained peak counts
-        extra = _sum_peaks(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0))
-        cat["cost"] = cat["cost"] + extra
-    tab = _hypothesis_table(len(phases), max_phases)
-    M = tab["M"]
-    cost = [_sum_peaks(unexpl)[:, None], cat["cost"]]
-    sub = np.zeros(B, dtype=bool)
-    if max_phases >= 2:
-        a, b = tab["a"], tab["b"]
-        pair_cost = np.full((B, a.size), np.inf)
-        # a pair can only help where the best single phase leaves two or more peaks unexplained
-        best = np.argmin(cat["cost"], axis=1)
-        n_best = (np.take_along_axis(cat["s"], best[:, None, None], 1)[:, 0] > 0).sum(-1)
-        n_best = np.where(np.isfinite(cat["cost"][np.arange(B), best]), n_best, 0)
-        sub = present.sum(-1) - n_best >= 2
-        rows = np.nonzero(sub)[0]
-        if rows.size:
-            m = cat["s"][rows] > 0
-            ma, mb = m[:, a], m[:, b]
-            # each peak goes to the phase of the two that fits it better, so a peak is
-            # explained when either matches it
-            explained = ma | mb
-            only_a = (ma & ~mb).sum(-1)
-            only_b = (mb & ~ma).sum(-1)
-            cs = cat["cost"][rows]
-            miss, fit = cat["miss"][rows], cat["fit"][rows]
-            pc = (
-                _sum_peaks(np.where(explained, 0.0, unexpl[rows][:, None, :]))
-                + miss[:, a]
-                + miss[:, b]
-                + fit[:, a]
-                + fit[:, b]
-                + PHASE_COST
-            )
-            ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b])
-            pair_cost[rows] = np.where(ok, pc, np.inf)
-        cost.append(pair_cost)
-    return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}
-
-
-def _states(H, sel, P):
-    """The explanations ``sel`` (B, k) (columns of ``H["cost"]``) of each frame.
-
-    Returns ``phase``, ``L``, ``sL`` (B, k, 2) and ``slot``, ``s`` (B, k, P): the peaks
-    of a pair go to the phase that fits them better; a pair is only built in frames
-    where it was tried (else it holds nothing).
-    """
-    tab, cat, M = H["tab"], H["cat"], H["M"]
-    B = sel.shape[0]
-    ia, ib = tab["ia"][sel], tab["ib"][sel]
-    none = tab["pair"][sel] & ~H["sub"][:, None]
-    ia, ib = np.where(none, M, ia), np.where(none, M, ib)
-    pb = cat["s"].shape[2]
-
-    def ext(a, fill):
-        return np.concatenate([a, np.full((B, 1) + a.shape[2:], fill, dtype=a.dtype)], axis=1)
-
-    def pick(a, idx):
-        return np.take_along_axis(a, idx if a.ndim == 2 else idx[..., None], 1)
-
-    Lx, sLx, sx, ex = ext(cat["L"], np.nan), ext(cat["sL"], np.nan), ext(cat["s"], 0), ext(cat["err"], np.nan)
-    sa, sb = pick(sx, ia), pick(sx, ib)
-    ea = np.where(sa > 0, pick(ex, ia), np.inf)
-    eb = np.where(sb > 0, pick(ex, ib), np.inf)
-    to_a = (sa > 0) & (ea <= eb)
-    to_b = (sb > 0) & ~to_a
-    slot = np.full((B, sel.shape[1], P), -1)
-    s = np.zeros((B, sel.shape[1], P), dtype=np.int64)
-    slot[..., :pb] = np.where(to_a, 0, np.where(to_b, 1, -1))
-    s[..., :pb] = np.where(to_a, sa, np.where(to_b, sb, 0))
-    return {
-        "phase": tab["phase"][sel],
-        "L": np.stack([pick(Lx, ia), pick(Lx, ib)], -1),
-        "sL": np.stack([pick(sLx, ia), pick(sLx, ib)], -1),
-        "slot": slot,
-        "s": s,
-    }
-
-
-def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
-    """Least total cost path through per-frame states (Viterbi 1967).
-
-    cost (F, K); phase, L (F, K, 2). Transition cost between consecutive frames:
-    ``switch_cost`` for every phase present in one state and not the other, and
-    ``jump_cost * min(1, (|ln(L'/L)| / jump_scale)^2)`` for a phase kept from one frame
-    to the next. The recursion is a loop over frames on (K, K) arrays.
-    """
-    F, K = cost.shape
-    if F == 0:
-        return np.zeros(0, dtype=np.int64)
-    ph = phase.astype(np.int8) if phase.size and phase.max() < 127 else phase
-    # state a (frame t, ka) -> state b (frame t+1, kb); slot sa of a holds the phase of slot
-    # sb of b: a phase kept, which costs a jump (the two slots of a state hold different
-    # phases, so at most two of the four slot pairs match and their sum is exact)
-    jump = np.zeros((F - 1, K, K))
-    kept = np.zeros((F - 1, K, K, 2), dtype=bool)
-    for sa in range(2):
-        for sb in range(2):
-            pa, pb = ph[:-1, :, None, sa], ph[1:, None, :, sb]
-            t, ka, kb = np.nonzero((pa == pb) & (pa >= 0))
-            with np.errstate(invalid="ignore", divide="ignore"):
-                dl = np.abs(np.log(L[t + 1, kb, sb] / L[t, ka, sa]))
-            jump[t, ka, kb] += jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2)
-            kept[t, ka, kb, sa] = True
-    n_a = (phase[:-1] >= 0).sum(-1)[:, :, None]
-    n_b = (phase[1:] >= 0).sum(-1)[:, None, :]
-    n_same = kept.sum(-1)
-    trans = weight * (jump + switch_cost * (n_a + n_b - 2 * n_same))
-    back = np.zeros((F, K), dtype=np.int64)
-    acc = np.empty((F, K))  # least cost of a path ending in each state
-    acc[0] = cost[0]
-    add, amin = np.add, np.minimum.reduce
-    for t in range(1, F):
-        tot = add(acc[t - 1, :, None], trans[t - 1])
-        tot.argmin(0, out=back[t])
-        add(amin(tot, 0), cost[t], out=acc[t])  # the minimum is the value at the argmin
-    path = [int(np.argmin(acc[-1]))]
-    bk = back.tolist()
-    for t in range(F - 1, 0, -1):
-        path.append(bk[t][path[-1]])
-    return np.array(path[::-1], dtype=np.int64)
-
-
-#: Work-array size (elements) aimed at per block of frames: about 1 MB, cache sized.
-_BLOCK_ELEMENTS = 2**17
-
-
-def _blocks(rows, n_obs, n_anchor, nph, block):
-    """Split ``rows`` into blocks of frames with the same number of peaks.
-
-    No padded peak columns are carried along, and the block size follows the size of
-    the (frames, peaks, candidates) work arrays, at most ``block`` frames. Results do
-    not depend on the blocks (sums over peaks run one peak after the other).
-    """
-    rows = rows[np.argsort(n_obs[rows], kind="stable")]
-    n_sorted = n_obs[rows]
-    edges = np.flatnonzero(np.diff(n_sorted)) + 1
-    for grp in np.split(rows, edges):
-        if grp.size == 0:
-            continue
-        n = max(int(n_obs[grp[0]]), 1)
-        per_frame = n * nph * _ANCHOR_REFLECTIONS * min(n_anchor, n)
-        size = int(min(max(_BLOCK_ELEMENTS // per_frame, 16), max(block, 1)))
-        for b0 in range(0, grp.size, size):
-            yield grp[b0 : b0 + size]
-
-
-def _key(phase_pair, n):
-    a = np.minimum(phase_pair[..., 0], phase_pair[..., 1])
-    b = np.maximum(phase_pair[..., 0], phase_pair[..., 1])
-    return (a + 1) * (n + 1) + (b + 1)
 
 
 def index_peaks(

@@ -1,0 +1,356 @@
+"""The automatic Guinier range: every candidate window of every frame evaluated at once
+(see saxsnb.analysis._guinier for the criterion).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import SaxsInputError
+from ._arrays import as_frames
+from ._linear import SHAPE_PLOTS
+from ._status import STATUS_DTYPE
+from ._windows import WindowMoments
+
+__all__ = ["guinier_search"]
+
+#: shape -> (transform, default limit of q_max * R, factor k in R^2 = -k slope), from
+#: the one table of linearised plots (:data:`saxsnb.analysis._linear.LINEAR_PLOTS`).
+SHAPES = {s: (p.name, p.limit, p.size_factor) for s, p in SHAPE_PLOTS.items()}
+_STATUS_DTYPE = STATUS_DTYPE
+
+
+_CHUNK = 256
+
+
+_DECAY_MARGIN = 0.3
+
+
+_OUTLIER_Z = 4.0
+
+
+def _check_shape(shape):
+    if shape not in SHAPES:
+        raise SaxsInputError(f"unknown shape {shape!r}; use one of {list(SHAPES)}", parameter="shape")
+    return SHAPES[shape]
+
+
+def _flags(I, S):
+    """finite, non-positive intensity, zero/negative sigma, usable (bool arrays)."""
+    finite = np.isfinite(I)
+    if S is not None:
+        finite &= np.isfinite(S)
+    neg = finite & (I <= 0)
+    zero = finite & ~neg & (S <= 0) if S is not None else np.zeros_like(finite)
+    return finite, neg, zero, finite & ~neg & ~zero
+
+
+def _nth_true(cnt, k, n):
+    """Column of the k-th (1-based; int array (F, K)) usable point, from the running
+    count ``cnt`` of usable points (F, n); ``n`` where a row has fewer."""
+    out = np.empty(k.shape, dtype=np.int64)
+    for j in range(k.shape[1]):  # a handful of candidate starts, not frames
+        hit = cnt >= k[:, j : j + 1]
+        out[:, j] = np.where(hit[:, -1], np.argmax(hit, axis=-1), n)
+    return out
+
+
+def guinier_search(
+    q,
+    intensity,
+    sigma=None,
+    *,
+    shape: str = "compact",
+    qrg_limit: float | None = None,
+    min_points: int = 8,
+    n_starts: int | None = None,
+    max_ends: int = 32,
+    curvature_z: float = 3.0,
+    max_drift: float = 0.05,
+) -> dict:
+    """Choose a Guinier range for every frame (the automatic range, see module notes).
+
+    Parameters
+    ----------
+    q : array (n_q,), 1/nm, increasing
+    intensity, sigma : arrays (n_frames, n_q) or (n_q,)
+    shape : {"compact", "rod", "sheet"}
+    qrg_limit : float, optional
+        Upper limit of q_max times Rg (Rc, Rt); default 1.3, 1.0, 0.7 by shape.
+    min_points : int
+        Fewest usable points in a window.
+    n_starts, max_ends : int
+        Candidate window starts and stops per frame.
+    curvature_z, max_drift : float
+        Curvature acceptance thresholds (see module notes).
+
+    Returns
+    -------
+    dict of arrays (n_frames,): ``start``, ``stop`` (column indices, stop exclusive;
+    -1 when none), ``status`` (str).
+
+    Examples
+    --------
+    >>> q = np.linspace(0.01, 1.0, 200)
+    >>> r = guinier_search(q, 10 * np.exp(-(q * 3.0) ** 2 / 3), 0.01 * np.ones(200))
+    >>> r["status"].tolist(), bool(q[r["stop"][0] - 1] * 3.0 <= 1.3)
+    (['ok'], True)
+    """
+    kind, default_limit, k = _check_shape(shape)
+    limit = float(default_limit if qrg_limit is None else qrg_limit)
+    if min_points < 3:
+        raise SaxsInputError("min_points must be at least 3", parameter="min_points")
+    q, I, S, _ = as_frames(q, intensity, sigma)
+    if n_starts is None:
+        n_starts = 3 if shape == "compact" else 16
+    found, _ = _search(
+        q, I, S, kind, k, limit, min_points, int(n_starts), int(max_ends), curvature_z, max_drift, shape
+    )
+    return found
+
+
+def _search(q, I, S, kind, k, limit, min_points, K, E, curvature_z, max_drift, shape):
+    """The window search; also returns the line fit of each chosen window."""
+    F, n_q = I.shape
+    start = np.full(F, -1, dtype=np.int64)
+    stop = np.full(F, -1, dtype=np.int64)
+    status = np.empty(F, dtype=_STATUS_DTYPE)
+    fits: dict = {}
+    bound, _ = _decay_bound(I, S, kind, limit)
+    # Frames are processed in chunks (bounding the memory of the window arrays) of
+    # similar column bound, so that few columns are read beyond any frame's bound.
+    # Every frame's result depends on its own data only.
+    order = np.argsort(bound, kind="stable")
+    for a in range(0, F, _CHUNK):
+        sel = order[a : a + _CHUNK]
+        n_cut = int(bound[sel].max())
+        sa, sb, st, fit = _search_chunk(
+            q[:n_cut],
+            I[:, :n_cut][sel],
+            None if S is None else S[:, :n_cut][sel],
+            bound[sel],
+            I,
+            S,
+            sel,
+            kind,
+            k,
+            limit,
+            min_points,
+            K,
+            E,
+            curvature_z,
+            max_drift,
+            shape,
+        )
+        start[sel], stop[sel], status[sel] = sa, sb, st
+        for key, v in fit.items():
+            if key not in fits:
+                fits[key] = np.empty(F, dtype=v.dtype)
+            fits[key][sel] = v
+    return {"start": start, "stop": stop, "status": status}, fits
+
+
+def _decay_bound(I, S, kind, limit):
+    """Per-frame column bound beyond which no window can satisfy the limit.
+
+    For "compact": just after the third point (after the first positive one) whose
+    intensity lies below the first positive intensity times exp(-(limit^2/3 + 0.3)):
+    a Guinier curve has lost that much only beyond q Rg = 1.6 for the limit 1.3, a
+    Gaussian chain (which decays more slowly) beyond q Rg = 1.8. The columns are read
+    in growing blocks, frames already bounded are not read again, so the high-q part
+    of a long curve is never touched. Rod and sheet: the full range.
+    """
+    F, n_q = I.shape
+    bound = np.full(F, n_q, dtype=np.int64)
+    if kind != "guinier" or n_q == 0:
+        return bound, n_q
+    factor = np.exp(-(limit * limit / 3.0 + _DECAY_MARGIN))
+    todo = np.arange(F)
+    c = min(n_q, 128)
+    while todo.size:
+        Ic = I[:, :c] if todo.size == F else I[todo, :c]
+        pos = Ic > 0
+        first = np.argmax(pos, axis=-1)
+        thr = Ic[np.arange(todo.size), first] * factor
+        below = (Ic < thr[:, None]) & (np.arange(c)[None, :] > first[:, None])
+        cnt = np.cumsum(below, axis=-1, dtype=np.int32)
+        found = cnt[:, -1] >= 3
+        bound[todo[found]] = np.argmax(cnt[found] >= 3, axis=-1) + 1
+        if c == n_q:
+            break
+        todo = todo[~found]
+        c = min(n_q, 2 * c)
+    return bound, int(bound.max())
+
+
+def _search_chunk(
+    q, Ic, Sc, bound, I, S, sel, kind, k, limit, min_points, K, E, curvature_z, max_drift, shape
+):
+    """Window search on the frames ``sel``; ``Ic, Sc`` hold their first columns."""
+    F, n_cut = Ic.shape
+    rows = np.arange(F)
+    finite, neg, zero, usable = _flags(Ic, Sc)
+    cnt = np.cumsum(usable, axis=-1, dtype=np.int32)
+    n_usable = cnt[:, -1]
+    # candidate starts (F, K): the j-th usable point
+    if shape == "compact":
+        kth = np.broadcast_to(np.arange(1, K + 1)[None, :], (F, K))
+    else:
+        span = np.maximum(n_usable - min_points, 0)
+        kth = 1 + np.rint(np.linspace(0.0, 1.0, K)[None, :] * span[:, None]).astype(np.int64)
+    starts = _nth_true(cnt, kth, n_cut)
+    # candidate stops (F, E): from min_points usable after the first start to the bound
+    lo = _nth_true(cnt, np.full((F, 1), min_points), n_cut)[:, 0] + 1
+    hi = np.maximum(bound, lo)
+    stops = np.rint(lo[:, None] + np.linspace(0.0, 1.0, E)[None, :] * (hi - lo)[:, None]).astype(np.int64)
+    stops = np.minimum(stops, n_cut)
+
+    mom = _moments(q, Ic, Sc, usable, kind, quadratic=True)
+    # blocking points (non-positive intensity, zero sigma) must not lie inside a window
+    blocking = neg | zero
+    blk = np.zeros((F, n_cut + 1), dtype=np.int32)
+    np.cumsum(blocking, axis=-1, out=blk[:, 1:])
+    idx = np.where(usable, np.arange(n_cut)[None, :], 0)
+    last_use = np.maximum.accumulate(idx, axis=-1)
+    q_last_all = q[last_use[rows[:, None], np.maximum(stops - 1, 0)]]
+
+    def evaluate(r, s2):
+        """Acceptance and score of the windows (starts s2 (len(r), k) x all stops)."""
+        e3 = stops[r][:, None, :]
+        s3 = s2[:, :, None]
+        st = mom.search_stats(s3, e3, rows=r)
+        nblk = blk[r[:, None], stops[r]][:, None, :] - blk[r[:, None], s2][:, :, None]
+        slope = st["slope"]
+        n = st["n_points"]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            # curvature: significance (sigma scaled by sqrt(chi2_red) when above 1) or size
+            var_scale = np.maximum(st["chi2_quadratic"] / np.maximum(n - 3.0, 1.0), 1.0)
+            c2 = st["c"] * st["c"]
+            c_var = st["c_var"] * var_scale
+            flat = (c2 <= curvature_z * curvature_z * c_var) | (np.abs(st["drift"]) <= max_drift)
+            # the first point must not be an outlier of the window's line (beam-stop
+            # shadow, parasitic scattering): its squared weighted residual below
+            # outlier_z^2 times the line's reduced chi-square (at least 1)
+            line_scale = np.maximum(st["chi2_line"] / np.maximum(n - 2.0, 1.0), 1.0)
+            clean_start = st["first_residual2"] <= _OUTLIER_Z**2 * line_scale
+            inside = (q_last_all[r] ** 2)[:, None, :] * (-k * slope) <= limit * limit
+            geom = (s3 < e3) & (nblk == 0) & (n >= min_points - 0.5)
+            negative = slope < 0
+            accept = geom & negative & inside & flat & clean_start
+            # score: estimated mean-squared error of the slope as an estimate of the
+            # slope at q = 0: its variance plus the squared departure c * lever that
+            # the quadratic term causes (c^2 estimated without its noise bias)
+            mse = st["slope_var"] * var_scale + np.maximum(c2 - c_var, 0.0) * st["lever"] ** 2
+            key = np.where(accept, -mse / (slope * slope), -np.inf).reshape(len(r), -1)
+        best = np.argmax(key, axis=-1)
+        ok_ = accept.reshape(len(r), -1)[np.arange(len(r)), best]
+        bs, be = np.unravel_index(best, (s2.shape[1], E))
+        return ok_, s2[np.arange(len(r)), bs], stops[r, be], (geom, negative, inside, flat, st["c"])
+
+    # stage 1: windows from the first usable point (compact) or from all starts (rod,
+    # sheet); stage 2, only for frames without an acceptable window: the later starts
+    K1 = 1 if shape == "compact" else K
+    ok, start, stop, diag = evaluate(rows, starts[:, :K1])
+    start = np.where(ok, start, -1)
+    stop = np.where(ok, stop, -1)
+    if K > K1 and not ok.all():
+        r2 = rows[~ok]
+        ok2, start2, stop2, _ = evaluate(r2, starts[r2, K1:])
+        ok[r2] = ok2
+        start[r2] = np.where(ok2, start2, -1)
+        stop[r2] = np.where(ok2, stop2, -1)
+    geom, negative, inside, flat, c_curv = diag
+
+    status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+    fail = ~ok
+    if fail.any():
+        # why a frame failed, judged on the windows from the first start
+        g0 = geom[:, 0, :]
+        any_geom = g0.any(axis=-1)
+        rising = (g0 & (~negative[:, 0, :] | ((c_curv[:, 0, :] > 0) & ~flat[:, 0, :]))).any(axis=-1)
+        if shape != "compact":  # ln(q I), ln(q^2 I) rise at low q by nature: no aggregation sign
+            rising[:] = False
+        short_inside = inside[:, 0, :][rows, np.argmax(g0, axis=-1)]
+        has_block = blocking.any(axis=-1)
+        first_block = np.argmax(blocking, axis=-1)
+        block_kind = np.where(neg[rows, first_block], "negative_intensity", "zero_sigma")
+        status[fail & any_geom & ~rising & ~short_inside] = "qrg_limit_exceeded"
+        status[fail & any_geom & ~rising & short_inside] = "no_linear_region"
+        status[fail & rising] = "curvature_aggregation"
+        status[fail & ~any_geom] = "too_few_points"
+        few = fail & ~any_geom & has_block
+        status[few] = block_kind[few]
+        empty = fail & (n_usable == 0)
+        if empty.any():
+            fr = sel[empty]
+            full = np.isfinite(I[fr]) if S is None else np.isfinite(I[fr]) & np.isfinite(S[fr])
+            st_ = status[empty]
+            st_[~full.any(axis=-1)] = "no_data"
+            status[empty] = st_
+    s_ = np.maximum(start, 0)[:, None]
+    e_ = np.maximum(stop, 0)[:, None]
+    fit = {key: v[:, 0] for key, v in mom.fit(s_, e_, scale_covariance=Sc is None).items()}
+    fit["q_min"] = np.where(ok, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
+    fit["q_max"] = np.where(ok, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
+    return start, stop, status, fit
+
+
+def _moments(q, Ic, Sc, usable, kind, quadratic=False):
+    """Prefix sums of the linearised data: x = q^2, y = ln(q^p I) with p = 0, 1, 2 for
+    compact, rod, sheet; weights (I / sigma)^2 (first-order propagation, as
+    :func:`~saxsnb.analysis._linear.linearize`)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        y = np.log(np.where(usable, Ic, 1.0))
+        if kind == "rod":
+            y += np.log(q)
+        elif kind == "sheet":
+            y += 2.0 * np.log(q)
+        if Sc is None:
+            w = usable.astype(float)
+        else:
+            w = np.where(usable, Ic / Sc, 0.0)
+            w *= w
+    return WindowMoments.from_weights(q * q, y, w, usable, quadratic=quadratic)
+
+
+def _window_fit(mom, q, finite, neg, zero, usable, start, stop, scale):
+    """Line fit of one window per frame from the prefix sums, with the window's
+    q span and counts of finite, negative and zero-sigma points."""
+    n_cut = finite.shape[1]
+    s = np.clip(start, 0, n_cut)[:, None]
+    e = np.clip(stop, 0, n_cut)[:, None]
+    fit = {key: v[:, 0] for key, v in mom.fit(s, e, scale_covariance=scale).items()}
+    idx = np.arange(n_cut)[None, :]
+    inwin = (idx >= s) & (idx < e)
+    u = usable & inwin
+    has = u.any(-1)
+    lo = np.where(has, np.argmax(u, axis=-1), 0)
+    hi = np.where(has, n_cut - 1 - np.argmax(u[:, ::-1], axis=-1), 0)
+    fit["q_min"] = np.where(has, q[lo], np.nan)
+    fit["q_max"] = np.where(has, q[hi], np.nan)
+    fit["n_finite"] = (finite & inwin).sum(-1)
+    fit["n_negative"] = (neg & inwin).sum(-1)
+    fit["n_zero_sigma"] = (zero & inwin).sum(-1)
+    return fit
+
+
+def _fit_windows(q, I, S, start, stop, kind):
+    """Line fit of one window ``[start, stop)`` per frame (fixed ranges), in chunks of
+    frames; the same prefix-sum route and reference point as the automatic search,
+    so a fixed range equal to the chosen one gives the same numbers."""
+    F = I.shape[0]
+    fits: dict = {}
+    order = np.argsort(stop, kind="stable")
+    for a in range(0, F, _CHUNK):
+        sel = order[a : a + _CHUNK]
+        n_cut = int(max(1, stop[sel].max()))
+        Ic = I[:, :n_cut][sel]
+        Sc = None if S is None else S[:, :n_cut][sel]
+        finite, neg, zero, usable = _flags(Ic, Sc)
+        mom = _moments(q[:n_cut], Ic, Sc, usable, kind)
+        fit = _window_fit(mom, q[:n_cut], finite, neg, zero, usable, start[sel], stop[sel], S is None)
+        for key, v in fit.items():
+            if key not in fits:
+                fits[key] = np.empty(F, dtype=v.dtype)
+            fits[key][sel] = v
+    return fits
