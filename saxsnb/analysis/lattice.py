@@ -18,6 +18,7 @@ from functools import cache
 import numpy as np
 
 from ..errors import SaxsInputError
+from .bragg import bragg_evidence, describe_rejections
 from .latticematch import (
     _ANCHOR_REFLECTIONS,
     _KEEP,
@@ -294,6 +295,10 @@ def index_peaks(
     jump_cost: float = 1.2,
     jump_scale: float = 0.03,
     block: int = 500,
+    fwhm=None,
+    q_step=None,
+    resolution=None,
+    max_relative_width: float | None = 0.1,
 ):
     """Explain the peaks of every frame by one phase or a pair of coexisting phases.
 
@@ -316,6 +321,16 @@ def index_peaks(
     block : int, at most this many frames processed at once (memory); frames are
         worked on in blocks of equal peak count, and the result does not depend on
         the blocks.
+    fwhm : array like position, 1/nm, optional
+        Peak widths. With them every peak is first tested as a Bragg reflection
+        (:func:`saxsnb.analysis.bragg.bragg_evidence`: spikes, broad form-factor maxima,
+        split features, frames whose peaks are as wide as their spacing) and only the
+        peaks that pass are indexed. Pass the peak table of
+        :func:`saxsnb.analysis.peaks.find_peaks` whole: ``fwhm=table["fwhm"]``.
+    q_step, resolution : float or array (n_frames,), 1/nm, optional
+        The q grid step and the instrument resolution FWHM, for the spike test.
+    max_relative_width : float or None
+        FWHM / position above which a peak is not a reflection (None: no such test).
 
     Returns
     -------
@@ -327,8 +342,11 @@ def index_peaks(
     per frame: ``alternative`` (str, up to three close other explanations, closest
     first, ", "-separated, pairs written "A+B"; "" when none), ``status`` ("ok",
     "unexplained_peaks", "no_phase_found", "not_enough_peaks_to_index",
-    "no_peaks"), ``cost``, ``margin`` (cost of the closest other explanation minus
-    the chosen one; NaN when none), ``n_unexplained``, ``caveat`` (str).
+    "no_peaks", "no_bragg_peaks"), ``cost``, ``margin`` (cost of the closest other
+    explanation minus the chosen one; NaN when none), ``n_unexplained``, ``caveat``
+    (str), ``n_rejected`` (peaks set aside as not Bragg) and ``rejected`` (str, their
+    positions and the test that set each aside, e.g. "1.137 spike, 0.194 broad"; the
+    per-peak codes come from :func:`saxsnb.analysis.bragg.bragg_evidence`).
 
     Notes
     -----
@@ -348,7 +366,8 @@ def index_peaks(
     ``1 + strength / max strength``; each allowed reflection that should appear
     between the lowest observed q and the highest assigned peak but is not observed
     costs :data:`MISS_COST` by rank (missing low orders weigh most); a second phase
-    costs :data:`PHASE_COST` and must explain at least two peaks of its own; the
+    costs :data:`PHASE_COST` and must explain at least two peaks of its own (a cubic
+    phase at least three peaks in all, :data:`~saxsnb.analysis.latticematch.MIN_MATCHED`); the
     misfit adds ``0.25 sum (err / tolerance)^2``. So the explanation with the fewest
     phases that accounts for all strong peaks without gaps in its low orders wins.
     Explanations of other phases within :data:`CLOSE_COST` are reported in
@@ -387,6 +406,23 @@ def index_peaks(
         q = np.full((F, 1), np.nan)
         P = 1
         position_sigma = strength = None
+    # evidence first: peaks that are not Bragg reflections are not indexed (issue 15)
+    keep, why, _ = bragg_evidence(
+        q,
+        None if fwhm is None or P != np.shape(fwhm)[-1] else np.broadcast_to(np.asarray(fwhm, float), (F, P)),
+        None if strength is None else np.broadcast_to(np.asarray(strength, float), (F, P)),
+        q_step=q_step, resolution=resolution, max_relative_width=max_relative_width,
+    )
+    rejected_names = np.array(["", "spike", "broad", "overlapping", "form_factor_like"])[why]
+    n_rejected = (why > 0).sum(-1)
+    reject_words = describe_rejections(why)
+    rejected_list = np.full(F, "", dtype=object)
+    for i in np.nonzero(n_rejected)[0]:  # words only for frames with rejections
+        j = np.nonzero(why[i])[0]
+        rejected_list[i] = ", ".join(f"{q[i, k]:.4g} {rejected_names[i, k]}" for k in j)
+    rejected_list = rejected_list.astype(str)
+    with np.errstate(invalid="ignore"):
+        q[(why > 0)] = np.nan
     # work on peaks sorted by q (NaN last); per-peak outputs are put back in input order
     with np.errstate(invalid="ignore"):
         q[~(np.isfinite(q) & (q > 0))] = np.nan  # unusable positions count as no peak
@@ -543,18 +579,14 @@ def index_peaks(
         alt[i] = ", ".join(key_names[int(k)] for k in ks)
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
-    status = np.where(
-        n_obs == 0,
-        "no_peaks",
-        np.where(
-            n_obs == 1,
-            "not_enough_peaks_to_index",
-            np.where(~found, "no_phase_found", np.where(n_unexpl > 0, "unexplained_peaks", "ok")),
-        ),
+    status = np.select(
+        [(n_obs == 0) & (n_rejected > 0), n_obs == 0, n_obs == 1, ~found, n_unexpl > 0],
+        ["no_bragg_peaks", "no_peaks", "not_enough_peaks_to_index", "no_phase_found", "unexplained_peaks"],
+        "ok",
     ).astype("<U28")
     caveat = np.full(F, "", dtype=object)
     few = found & (n_obs <= 3)
-    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)))[0]:
+    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]:
         parts = []
         if few[i]:
             parts.append(f"only {int(n_obs[i])} peaks: assignment rests on few ratios")
@@ -562,6 +594,8 @@ def index_peaks(
             parts.append(f"close alternative: {alt[i]}")
         if n_unexpl[i]:
             parts.append(f"{int(n_unexpl[i])} peak(s) unexplained")
+        if n_rejected[i]:
+            parts.append(reject_words[i])
         caveat[i] = "; ".join(parts)
     if max_phases == 1:
         phase_str, lat, lat_sig, score = phase_str[:, :1], lat[:, :1], lat_sig[:, :1], score[:, :1]
@@ -578,4 +612,6 @@ def index_peaks(
         "margin": np.where(found, margin, np.nan),
         "n_unexplained": n_unexpl.astype(np.int64),
         "caveat": caveat.astype(str),
+        "n_rejected": n_rejected.astype(np.int64),
+        "rejected": rejected_list,
     }
