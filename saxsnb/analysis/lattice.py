@@ -137,11 +137,11 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     if max_phases >= 2:
         a, b = tab["a"], tab["b"]
         pair_cost = np.full((B, a.size), np.inf)
-        # a pair can only help where the best single phase leaves two or more peaks unexplained
+        # a pair can only help where the best single phase leaves a peak unexplained
         best = np.argmin(cat["cost"], axis=1)
         n_best = (np.take_along_axis(cat["s"], best[:, None, None], 1)[:, 0] > 0).sum(-1)
         n_best = np.where(np.isfinite(cat["cost"][np.arange(B), best]), n_best, 0)
-        sub = present.sum(-1) - n_best >= 2
+        sub = present.sum(-1) - n_best >= 1
         rows = np.nonzero(sub)[0]
         if rows.size:
             m = cat["s"][rows] > 0
@@ -161,7 +161,11 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
                 + fit[:, b]
                 + PHASE_COST
             )
-            ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b])
+            # each phase indexes two peaks or more, at least one of them its own; a peak
+            # both phases predict (a lamellar 002 on a cubic reflection) counts for both
+            n_a, n_b = ma.sum(-1), mb.sum(-1)
+            ok = ((n_a >= 2) & (n_b >= 2) & (only_a >= 1) & (only_b >= 1) & (only_a + only_b >= 3)
+                  & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b]))
             pair_cost[rows] = np.where(ok, pc, np.inf)
         cost.append(pair_cost)
     return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}
@@ -358,7 +362,7 @@ def index_peaks(
     ``q_i = sqrt(s_i) / L`` (weights ``1 / sigma_i^2``; sigma of L from the normal
     equation, scaled by sqrt of the reduced chi-square when above one). A phase
     needs at least two peaks with distinct indices. Frames whose best explanation
-    leaves two or more peaks unexplained get a second pass anchored on those peaks
+    leaves a peak unexplained get a second pass anchored on the unexplained peaks
     (every peak an anchor), so a weak coexisting phase is found even when none of its
     peaks is among the strongest.
 
@@ -509,7 +513,7 @@ def index_peaks(
     # coexisting phase (none of its peaks among the strongest) can still be found
     if max_phases >= 2:
         unexplained = present & (st_slot[:, 0] < 0)
-        again = np.nonzero((unexplained.sum(-1) >= 2) & (n_obs > 2))[0]
+        again = np.nonzero((unexplained.sum(-1) >= 1) & (n_obs > 2))[0]
         for rows_ in _blocks(again, n_obs, P, nph, block):
             explain(rows_, P, unexplained[rows_])
     # choose a state per frame
