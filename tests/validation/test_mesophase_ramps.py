@@ -60,7 +60,7 @@ def test_ia3d_with_weak_321_is_not_fm3m():
 @pytest.mark.parametrize("pair", [("Fd3m", "hexagonal"), ("Im3m", "Pm3n"), ("Ia3d", "Pn3m"),
                                   ("hexagonal", "Ia3d"), ("lamellar", "Pn3m")])
 def test_coexistence_600_counts(pair):
-    a = runs.ramp_accuracy(pair, 600, 8, seed=21)
+    a = runs.ramp_accuracy(pair, 600, 16, seed=21)
     assert a["right"].mean() >= 0.9, a["labels"]
 
 
