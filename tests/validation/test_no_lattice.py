@@ -60,3 +60,10 @@ def test_find_peaks_passes_widths_for_the_spike_test():
     I[250] += 60.0
     pk = find_peaks(q, I[None], np.full((1, q.size), 1.0))
     assert pk["fwhm"][0, 0] < 1.5 * (q[1] - q[0])
+
+
+def test_find_peaks_on_a_short_curve_gives_statuses():
+    # issue 15: fewer than 12 points with errors="ignore" is a per-frame status, not an error
+    q = np.linspace(0.5, 1.0, 8)
+    res = find_peaks(q, np.ones((2, 8)), errors="ignore")
+    assert res["status"].tolist() == ["no_data", "no_data"] and res["position"].shape == (2, 16)
