@@ -374,26 +374,30 @@ def _power_law_with_background(prep, status):
     y = np.where(usable, Iw, 0.0)
     lq = np.log(qw)
     X = np.exp(-_P_GRID[:, None] * lq[None, :])  # (G, n) basis q^-p
-    # weighted normal equations of y = A X + B per frame and p: sums over q
+    # weighted normal equations of y = A X + B per frame and p, and the residual sums,
+    # in chunks of frames (bounded (frames, p, q) work arrays). Sums run along q frame
+    # by frame (no matrix product, whose rounding depends on the number of frames:
+    # batch must equal loop); the residuals are summed directly (the expanded form
+    # cancels badly on clean data).
+    F = y.shape[0]
+    chi2 = np.empty((F, _P_GRID.size))
     Sw0 = w.sum(-1)[:, None]  # (F, 1)
-    Sx = w @ X.T  # (F, G)
-    Sxx = w @ (X * X).T
     Sy = (w * y).sum(-1)[:, None]
-    Sxy = (w * y) @ X.T
-    Syy = (w * y * y).sum(-1)[:, None]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        det = Sxx * Sw0 - Sx * Sx
-        A = (Sxy * Sw0 - Sx * Sy) / det
-        B = (Sxx * Sy - Sx * Sxy) / det
-    # residual sums computed directly (the expanded form cancels badly on clean data),
-    # in chunks of frames to bound the (frames, p, q) work array
-    chi2 = np.empty_like(A)
-    for a in range(0, A.shape[0], 32):
+    X2 = X * X
+    for a in range(0, F, 32):
         sl = slice(a, a + 32)
-        with np.errstate(invalid="ignore", over="ignore"):
-            res = y[sl, None, :] - A[sl, :, None] * X[None] - B[sl, :, None]
-            chi2[sl] = np.einsum("fgn,fgn,fn->fg", res, res, w[sl])
-    del Syy
+        wc = w[sl, None, :]
+        Sx = (wc * X[None]).sum(-1)
+        Sxx = (wc * X2[None]).sum(-1)
+        Sxy = ((w[sl] * y[sl])[:, None, :] * X[None]).sum(-1)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            det = Sxx * Sw0[sl] - Sx * Sx
+            A = (Sxy * Sw0[sl] - Sx * Sy[sl]) / det
+            B = (Sxx * Sy[sl] - Sx * Sxy) / det
+            res = y[sl, None, :] - A[:, :, None] * X[None] - B[:, :, None]
+            res *= res
+            res *= wc
+            chi2[sl] = res.sum(-1)
     chi2 = np.where(np.isfinite(chi2), chi2, np.inf)
     F, G = chi2.shape
     j = np.clip(np.argmin(chi2, axis=1), 1, G - 2)
@@ -405,7 +409,7 @@ def _power_law_with_background(prep, status):
         shift = np.where(curv > 0, 0.5 * h * (c0 - c2) / (c0 - 2 * c1 + c2), 0.0)
         p = _P_GRID[j] + np.clip(shift, -h, h)
         n = usable.sum(-1)
-        chi2_min = c1 - 0.25 * (c0 - c2) * shift / h
+        chi2_min = np.maximum(c1 - 0.25 * (c0 - c2) * shift / h, 0.0)
         red = chi2_min / np.maximum(n - 3, 1)
         scale = red if Sw is None else np.maximum(red, 1.0)
         sp = np.sqrt(np.maximum(2.0 / curv * scale, 0.0))
