@@ -40,7 +40,7 @@ __all__ = ["REJECT_REASONS", "NEW_STATUS_CODES", "bragg_evidence", "describe_rej
 #: Per-peak reason codes of :func:`bragg_evidence` (0 = kept).
 REJECT_REASONS = {0: "", 1: "spike", 2: "broad", 3: "overlapping", 4: "form_factor_like"}
 
-#: Status codes introduced by issue 15 in this module and :mod:`saxsnb.analysis.lattice`:
+#: Status codes introduced by issue 15 (set by :func:`saxsnb.analysis.lattice.index_peaks`):
 #: code -> (meaning, parameter, plain-language message).
 NEW_STATUS_CODES = {
     "no_bragg_peaks": (
@@ -49,12 +49,6 @@ NEW_STATUS_CODES = {
         "position",
         "The peaks of this frame look like spikes or particle/vesicle oscillations, not "
         "Bragg reflections; no phase is given.",
-    ),
-    "ambiguous_phase": (
-        "another phase (or pair) explains the peaks almost as well as the one reported",
-        "position",
-        "Two phases fit these peaks about equally well; read the alternative before "
-        "trusting the label.",
     ),
 }
 
