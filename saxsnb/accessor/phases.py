@@ -137,7 +137,7 @@ class PhaseMethods(AccessorBase):
         get = lambda v: pk[v].values if v in pk.data_vars else None  # noqa: E731
         res = _index(get("position"), get("position_sigma"), get("fwhm"), get("prominence"),
                      peak_status=get("status"), order=self._scan_order(pk, order_by),
-                     q_min=pk.attrs.get("q_min"), overrides=overrides, **params)
+                     q_min=pk.attrs.get("q_min"), q_step=self._q_step(), overrides=overrides, **params)
         if overrides:
             params["overrides"] = {str(int(k)): dict(v) for k, v in sorted(overrides.items())}
         data = {k: (("frame", *PHASE_OUTPUTS[k][0]), v,
@@ -156,6 +156,10 @@ class PhaseMethods(AccessorBase):
             "non-empty 'alternative' are ambiguous: read 'caveat'"
         )
         return out
+
+    def _q_step(self) -> float:
+        q = np.asarray(self._ds["q"].values, dtype=float)
+        return float(np.median(np.diff(q))) if q.size > 1 else float("nan")
 
     def phase_map(self, index: xr.Dataset | None = None) -> xr.Dataset:
         """Phases present along the scan, transitions and coexistence windows.

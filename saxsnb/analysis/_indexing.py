@@ -3,11 +3,11 @@
 :func:`index_phases` takes the per-frame peak table of :func:`~saxsnb.analysis._peaks.find_peaks`
 (frames in any order, with the scan order given) and runs every step:
 
-1. peaks broader than ``max_relative_width`` (FWHM / position) are not taken as Bragg
-   reflections (counted in ``n_broad``; a frame with only such peaks gets
-   ``"no_bragg_peaks"``);
-2. :func:`~saxsnb.analysis._lattice.index_peaks` explains the remaining peaks of every
-   frame by one phase or a coexisting pair, jointly along the scan;
+1. :func:`~saxsnb.analysis.index_peaks` sets aside what is not a Bragg reflection
+   (spikes narrower than the q step, features broader than ``max_relative_width``,
+   split features, form-factor-like spacings: ``n_rejected``, ``rejected``; a frame
+   with only such peaks gets ``"no_bragg_peaks"``) and explains the remaining peaks of
+   every frame by one phase or a coexisting pair, jointly along the scan;
 3. frames the peak finder could not use keep ``"no_data"``;
 4. the peaks are re-tracked so a track ends where its assignment changes;
 5. frames set by hand (``overrides``) are indexed again with the chosen phase only, or
@@ -47,6 +47,8 @@ PHASE_OUTPUTS = {
     "margin": ((), "1"),
     "n_unexplained": ((), "1"),
     "n_broad": ((), "1"),
+    "n_rejected": ((), "1"),
+    "rejected": ((), None),
 }
 
 
@@ -59,6 +61,8 @@ def index_phases(
     peak_status=None,
     order=None,
     q_min=None,
+    q_step=None,
+    resolution=None,
     phases: tuple[str, ...] = PHASES,
     max_phases: int = 2,
     tolerance: float = 0.01,
@@ -81,6 +85,9 @@ def index_phases(
         and the tracking run in this order. Default: as given.
     q_min : float or array (n_frames,), optional
         Lowest q searched (1/nm): reflections below it are not expected.
+    q_step, resolution : float, optional
+        The q grid step and the instrument resolution FWHM (1/nm): peaks narrower than
+        1.5 steps or half the resolution are spikes, not reflections.
     phases, max_phases, tolerance, use_scan_prior, prior_weight
         See :func:`~saxsnb.analysis._lattice.index_peaks`.
     max_relative_width : float
@@ -132,10 +139,10 @@ def index_phases(
     qm = q_min if q_min is None or np.ndim(q_min) == 0 else np.asarray(q_min)[idx]
     params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
                   use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight))
-    res = index_peaks(kept, take(position_sigma), take(prominence), q_min=qm, **params)
+    res = index_peaks(pos, take(position_sigma), take(prominence), q_min=qm, fwhm=take(fwhm), q_step=q_step,
+                      resolution=resolution, max_relative_width=float(max_relative_width), **params)
     res["n_broad"] = broad.sum(axis=-1).astype(np.int64)
     status = res["status"].astype(STATUS_DTYPE)
-    status[(res["n_broad"] > 0) & ~np.isfinite(kept).any(axis=-1)] = "no_bragg_peaks"
     if peak_status is not None:
         status[np.asarray(peak_status).astype(str)[idx] == "no_data"] = "no_data"
     res["status"] = status

@@ -16,6 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
+from ._bragg import bragg_evidence, describe_rejections
 from ._lattice_search import (
     _ANCHOR_PEAKS,
     _VITERBI_STATES,
@@ -78,6 +79,10 @@ def index_peaks(
     jump_cost: float = 1.2,
     jump_scale: float = 0.03,
     block: int = 500,
+    fwhm=None,
+    q_step=None,
+    resolution=None,
+    max_relative_width: float | None = 0.1,
 ):
     """Explain the peaks of every frame by one phase or a pair of coexisting phases.
 
@@ -100,6 +105,16 @@ def index_peaks(
     block : int, at most this many frames processed at once (memory); frames are
         worked on in blocks of equal peak count, and the result does not depend on
         the blocks.
+    fwhm : array like position, 1/nm, optional
+        Peak widths. With them every peak is first tested as a Bragg reflection
+        (:func:`saxsnb.analysis._bragg.bragg_evidence`: spikes, broad form-factor maxima,
+        split features, frames whose peaks are as wide as their spacing) and only the
+        peaks that pass are indexed. Pass the peak table of
+        :func:`saxsnb.analysis._peaks.find_peaks` whole: ``fwhm=table["fwhm"]``.
+    q_step, resolution : float or array (n_frames,), 1/nm, optional
+        The q grid step and the instrument resolution FWHM, for the spike test.
+    max_relative_width : float or None
+        FWHM / position above which a peak is not a reflection (None: no such test).
 
     Returns
     -------
@@ -111,8 +126,11 @@ def index_peaks(
     per frame: ``alternative`` (str, up to three close other explanations, closest
     first, ", "-separated, pairs written "A+B"; "" when none), ``status`` ("ok",
     "unexplained_peaks", "no_phase_found", "not_enough_peaks_to_index",
-    "no_peaks"), ``cost``, ``margin`` (cost of the closest other explanation minus
-    the chosen one; NaN when none), ``n_unexplained``, ``caveat`` (str).
+    "no_peaks", "no_bragg_peaks"), ``cost``, ``margin`` (cost of the closest other
+    explanation minus the chosen one; NaN when none), ``n_unexplained``, ``caveat``
+    (str), ``n_rejected`` (peaks set aside as not Bragg) and ``rejected`` (str, their
+    positions and the test that set each aside, e.g. "1.137 spike, 0.194 broad"; the
+    per-peak codes come from :func:`saxsnb.analysis._bragg.bragg_evidence`).
 
     Notes
     -----
@@ -124,7 +142,7 @@ def index_peaks(
     ``q_i = sqrt(s_i) / L`` (weights ``1 / sigma_i^2``; sigma of L from the normal
     equation, scaled by sqrt of the reduced chi-square when above one). A phase
     needs at least two peaks with distinct indices. Frames whose best explanation
-    leaves two or more peaks unexplained get a second pass anchored on those peaks
+    leaves a peak unexplained get a second pass anchored on the unexplained peaks
     (every peak an anchor), so a weak coexisting phase is found even when none of its
     peaks is among the strongest.
 
@@ -132,7 +150,8 @@ def index_peaks(
     ``1 + strength / max strength``; each allowed reflection that should appear
     between the lowest observed q and the highest assigned peak but is not observed
     costs :data:`MISS_COST` by rank (missing low orders weigh most); a second phase
-    costs :data:`PHASE_COST` and must explain at least two peaks of its own; the
+    costs :data:`PHASE_COST` and must explain at least two peaks of its own (a cubic
+    phase at least three peaks in all, :data:`~saxsnb.analysis._latticematch.MIN_MATCHED`); the
     misfit adds ``0.25 sum (err / tolerance)^2``. So the explanation with the fewest
     phases that accounts for all strong peaks without gaps in its low orders wins.
     Explanations of other phases within :data:`CLOSE_COST` are reported in
@@ -171,6 +190,23 @@ def index_peaks(
         q = np.full((F, 1), np.nan)
         P = 1
         position_sigma = strength = None
+    # evidence first: peaks that are not Bragg reflections are not indexed (issue 15)
+    keep, why, _ = bragg_evidence(
+        q,
+        None if fwhm is None or P != np.shape(fwhm)[-1] else np.broadcast_to(np.asarray(fwhm, float), (F, P)),
+        None if strength is None else np.broadcast_to(np.asarray(strength, float), (F, P)),
+        q_step=q_step, resolution=resolution, max_relative_width=max_relative_width,
+    )
+    rejected_names = np.array(["", "spike", "broad", "overlapping", "form_factor_like"])[why]
+    n_rejected = (why > 0).sum(-1)
+    reject_words = describe_rejections(why)
+    rejected_list = np.full(F, "", dtype=object)
+    for i in np.nonzero(n_rejected)[0]:  # words only for frames with rejections
+        j = np.nonzero(why[i])[0]
+        rejected_list[i] = ", ".join(f"{q[i, k]:.4g} {rejected_names[i, k]}" for k in j)
+    rejected_list = rejected_list.astype(str)
+    with np.errstate(invalid="ignore"):
+        q[(why > 0)] = np.nan
     # work on peaks sorted by q (NaN last); per-peak outputs are put back in input order
     with np.errstate(invalid="ignore"):
         q[~(np.isfinite(q) & (q > 0))] = np.nan  # unusable positions count as no peak
@@ -257,7 +293,7 @@ def index_peaks(
     # coexisting phase (none of its peaks among the strongest) can still be found
     if max_phases >= 2:
         unexplained = present & (st_slot[:, 0] < 0)
-        again = np.nonzero((unexplained.sum(-1) >= 2) & (n_obs > 2))[0]
+        again = np.nonzero((unexplained.sum(-1) >= 1) & (n_obs > 2))[0]
         for rows_ in _blocks(again, n_obs, P, nph, block):
             explain(rows_, P, unexplained[rows_])
     # choose a state per frame
@@ -327,18 +363,14 @@ def index_peaks(
         alt[i] = ", ".join(key_names[int(k)] for k in ks)
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
-    status = np.where(
-        n_obs == 0,
-        "no_peaks",
-        np.where(
-            n_obs == 1,
-            "not_enough_peaks_to_index",
-            np.where(~found, "no_phase_found", np.where(n_unexpl > 0, "unexplained_peaks", "ok")),
-        ),
+    status = np.select(
+        [(n_obs == 0) & (n_rejected > 0), n_obs == 0, n_obs == 1, ~found, n_unexpl > 0],
+        ["no_bragg_peaks", "no_peaks", "not_enough_peaks_to_index", "no_phase_found", "unexplained_peaks"],
+        "ok",
     ).astype(STATUS_DTYPE)
     caveat = np.full(F, "", dtype=object)
     few = found & (n_obs <= 3)
-    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)))[0]:
+    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]:
         parts = []
         if few[i]:
             parts.append(f"only {int(n_obs[i])} peaks: assignment rests on few ratios")
@@ -346,6 +378,8 @@ def index_peaks(
             parts.append(f"close alternative: {alt[i]}")
         if n_unexpl[i]:
             parts.append(f"{int(n_unexpl[i])} peak(s) unexplained")
+        if n_rejected[i]:
+            parts.append(reject_words[i])
         caveat[i] = "; ".join(parts)
     if max_phases == 1:
         phase_str, lat, lat_sig, score = phase_str[:, :1], lat[:, :1], lat_sig[:, :1], score[:, :1]
@@ -362,4 +396,6 @@ def index_peaks(
         "margin": np.where(found, margin, np.nan),
         "n_unexplained": n_unexpl.astype(np.int64),
         "caveat": caveat.astype(str),
+        "n_rejected": n_rejected.astype(np.int64),
+        "rejected": rejected_list,
     }

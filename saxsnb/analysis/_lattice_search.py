@@ -110,11 +110,11 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     if max_phases >= 2:
         a, b = tab["a"], tab["b"]
         pair_cost = np.full((B, a.size), np.inf)
-        # a pair can only help where the best single phase leaves two or more peaks unexplained
+        # a pair can only help where the best single phase leaves a peak unexplained
         best = np.argmin(cat["cost"], axis=1)
         n_best = (np.take_along_axis(cat["s"], best[:, None, None], 1)[:, 0] > 0).sum(-1)
         n_best = np.where(np.isfinite(cat["cost"][np.arange(B), best]), n_best, 0)
-        sub = present.sum(-1) - n_best >= 2
+        sub = present.sum(-1) - n_best >= 1
         rows = np.nonzero(sub)[0]
         if rows.size:
             m = cat["s"][rows] > 0
@@ -134,7 +134,18 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
                 + fit[:, b]
                 + PHASE_COST
             )
-            ok = (only_a >= 2) & (only_b >= 2) & np.isfinite(cs[:, a]) & np.isfinite(cs[:, b])
+            # each phase indexes two peaks or more, at least one of them its own; a peak
+            # both phases predict (a lamellar 002 on a cubic reflection) counts for both
+            n_a, n_b = ma.sum(-1), mb.sum(-1)
+            ok = (
+                (n_a >= 2)
+                & (n_b >= 2)
+                & (only_a >= 1)
+                & (only_b >= 1)
+                & (only_a + only_b >= 3)
+                & np.isfinite(cs[:, a])
+                & np.isfinite(cs[:, b])
+            )
             pair_cost[rows] = np.where(ok, pc, np.inf)
         cost.append(pair_cost)
     return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}

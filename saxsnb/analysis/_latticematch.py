@@ -23,6 +23,11 @@ _N_REF = {"lamellar": 12, "hexagonal": 20}
 _N_REF_CUBIC = 30
 _ANCHOR_REFLECTIONS = 3
 _KEEP = 3  # distinct lattices kept per phase per frame
+#: Fewest peaks a candidate must index: two orders identify a lamellar (1:2) or
+#: hexagonal (1:sqrt 3) phase, but two numbers fit some cubic ratio by chance (any ratio
+#: within 1 % of one of dozens), so a cubic phase needs three (issue 15).
+MIN_MATCHED = {"lamellar": 2, "hexagonal": 2}
+_MIN_MATCHED_CUBIC = 3
 
 @cache
 def _table(phase: str):
@@ -77,7 +82,8 @@ def _phase_set(phases: tuple):
     (:func:`_miss_tables`) end to end, ``c_off`` / ``c_top`` likewise; ``first``
     (n_phases, 3) sqrt of the first allowed s of each phase.
     """
-    parts = {k: [] for k in ("s", "root", "mc", "cum", "n_off", "n_top", "c_off", "c_top", "first")}
+    names = ("s", "root", "mc", "cum", "n_off", "n_top", "c_off", "c_top", "first", "min_match")
+    parts = {k: [] for k in names}
     n_pos = c_pos = 0
     for ph in phases:
         nearest, root = _nearest_table(ph)
@@ -94,6 +100,7 @@ def _phase_set(phases: tuple):
         parts["c_off"].append(c_pos)
         parts["c_top"].append(cum.size - 1)
         parts["first"].append(np.sqrt(s_list[:_ANCHOR_REFLECTIONS]))
+        parts["min_match"].append(MIN_MATCHED.get(ph, _MIN_MATCHED_CUBIC))
         n_pos += nearest.size
         c_pos += cum.size
     out = {k: np.concatenate(parts[k]) for k in ("s", "root", "mc", "cum")}
@@ -103,6 +110,7 @@ def _phase_set(phases: tuple):
         c_off=np.array(parts["c_off"], dtype=np.intp),
         c_top=np.array(parts["c_top"], dtype=float),
         first=np.stack(parts["first"]),
+        min_match=np.array(parts["min_match"], dtype=np.int64),
     )
     return out
 
@@ -285,7 +293,10 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
     e2 *= e2
     e2 *= matched
     fitc = 0.25 * e2.sum(1)
-    valid = (n_match >= 2) & np.isfinite(L) & (L > 0)
+    valid = (n_match >= tabs["min_match"][ph_of][None, :]) & np.isfinite(L) & (L > 0)
+    # two peaks are a lattice only as its first orders: with a predicted reflection
+    # missing between them (e.g. hexagonal 11 and 20 without 10) they are a guess
+    valid &= (n_match >= 3) | (miss <= 0.0)
     cost = np.multiply(unexpl[:, :, None], unmatched, out=t).sum(1) + miss + fitc
     cost = np.where(valid, cost, np.inf)
     # keep the best _KEEP candidates of each phase with distinct lattices

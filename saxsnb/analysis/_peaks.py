@@ -425,6 +425,14 @@ def find_peaks(
         if not lo < hi:
             raise SaxsInputError(f"q_range {q_range} is empty", parameter="q_range")
         sel &= (q >= lo) & (q <= hi)
+    if np.isfinite(q).sum() < 12 and errors == "ignore":  # a short curve: statuses, no error
+        F = I.shape[0]
+        keys = ("position", "position_sigma", "fwhm", "fwhm_sigma", "height", "height_sigma", "area",
+                "area_sigma", "prominence", "eta", "redchi")
+        out = {k: np.full((F, int(max_peaks)), np.nan) for k in keys}
+        out["n_peaks"] = np.zeros(F, dtype=np.int64)
+        out["status"] = np.full(F, "no_data", dtype=_STATUS)
+        return out
     if sel.sum() < 12:
         raise SaxsInputError(
             f"q_range {q_range} leaves {int(sel.sum())} points; need at least 12", parameter="q_range"

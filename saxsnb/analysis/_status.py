@@ -105,6 +105,12 @@ STATUS: dict[str, Status] = {
         "background",
         "the Porod constant came out negative (check the background)",
     ),
+    "porod_region_not_reached": Status(
+        "the exponent on the Porod range differs from 4 by > 3 sigma and 0.3",
+        "q_range",
+        "the curve does not yet fall as q^-4 on this range: the Porod constant "
+        "and the quantities built on it do not apply here",
+    ),
     "no_peaks": Status(
         "no peak above the prominence threshold", "min_prominence", "no Bragg peaks found in this frame"
     ),

@@ -1,0 +1,72 @@
+"""Accuracy table on independent truth (issue 15): the larger run of tests/validation.
+
+Usage: .venv/bin/python benchmarks/validate_accuracy.py [--draws 200] [--frames 30]
+
+Prints, per shape and noise level, the automatic Guinier Rg median |error|, the share
+of draws within the reported sigma and spread / median sigma (1 = calibrated); per
+mesophase ramp and counting level, the label accuracy and the median lattice error;
+per no-lattice series, the frames given a phase (target 0).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "validation"))
+import runs  # noqa: E402
+import truth as t  # noqa: E402
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--draws", type=int, default=200)
+    ap.add_argument("--frames", type=int, default=30)
+    args = ap.parse_args(argv)
+    print("Guinier Rg (automatic range), truth from closed forms / quadrature / Debye sum")
+    print(f"{'shape':18s} {'noise':>6s} {'ok':>4s} {'med|err|':>9s} {'bias':>8s} "
+          f"{'in 1sig':>8s} {'spread/sig':>10s}")
+    cases = dict(runs.shape_cases(quick=False))
+    for name, f in cases.items():
+        _, rg0 = f(np.array([1e-3]))
+        q = runs._grid(rg0)
+        I, rg = f(q)
+        for noise in (0.0, 0.001, 0.01, 0.03, 0.1):
+            a = runs.guinier_accuracy(I, q, rg, max(noise, 1e-6), args.draws, seed=1)
+            print(f"{name:18s} {noise:6.3f} {a['n_ok']:4d} {a['median_abs_err']:9.4f} "
+                  f"{np.nanmedian(a['bias']):8.4f} {a['within_1sigma']:8.2f} {a['spread_over_sigma']:10.2f}")
+    q, I, rg = runs.debye_cloud_case()
+    for noise in (0.001, 0.01):
+        a = runs.guinier_accuracy(I, q, rg, noise, args.draws, seed=1)
+        print(f"{'Debye cloud':18s} {noise:6.3f} {a['n_ok']:4d} {a['median_abs_err']:9.4f} "
+              f"{np.nanmedian(a['bias']):8.4f} {a['within_1sigma']:8.2f} {a['spread_over_sigma']:10.2f}")
+    print()
+    print("Mesophase ramps (find_peaks + index_peaks with the peak table)")
+    print(f"{'phases':22s} {'counts':>6s} {'right':>6s} {'lattice err':>11s}  wrong labels")
+    ramps = [(p,) for p in t.PHASES] + [("Fd3m", "hexagonal"), ("Im3m", "Pm3n"), ("Ia3d", "Pn3m"),
+                                         ("hexagonal", "Ia3d"), ("lamellar", "Pn3m"), ("Pn3m", "Im3m")]
+    for counts in (3000, 600, 150):
+        tot = right = 0
+        for ph in ramps:
+            a = runs.ramp_accuracy(ph, counts, args.frames, seed=3)
+            lab, c = np.unique(a["labels"][~a["right"]], return_counts=True)
+            tot += a["right"].size
+            right += a["right"].sum()
+            print(f"{'+'.join(ph):22s} {counts:6d} {a['right'].mean():6.2f} {a['lattice_err']:11.5f}  "
+                  + ", ".join(f"{x or 'none'} x{n}" for x, n in zip(lab, c)))
+        a = runs.ramp_accuracy(("Pn3m",), counts, args.frames, seed=4, spikes=3)
+        print(f"{'Pn3m + 3 spikes':22s} {counts:6d} {a['right'].mean():6.2f} {a['lattice_err']:11.5f}")
+        print(f"{'all ramps':22s} {counts:6d} {right / tot:6.3f}")
+    print()
+    print("No-lattice series: frames given a phase (target 0)")
+    for kind in ("spheres z100", "spheres z30", "vesicles z100", "vesicles z50", "spikes", "featureless"):
+        q, I, S = runs.no_lattice_series(kind, args.frames, seed=2)
+        _, r = runs.index_curves(q, I, S)
+        print(f"{kind:22s} {int((r['phase'][:, 0] != '').sum()):3d} / {args.frames}")
+
+
+if __name__ == "__main__":
+    main()
