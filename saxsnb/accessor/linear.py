@@ -106,6 +106,15 @@ class LinearMethods(AccessorBase):
         (intensity), ``exponent`` ("1"), each with ``_sigma``; ``porod_background_cov``,
         ``prefactor``, ``chi2_reduced``, ``n_points``, ``q_min``, ``q_max``,
         ``status``, ``exponent_status``.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> q = np.linspace(1.0, 4.0, 200)
+        >>> I = 2.0 / q**4 + 0.001
+        >>> res = saxsnb.from_arrays(q, I, 0.01 * I).saxs.porod((2.0, 4.0))
+        >>> round(float(res.porod_constant[0]), 3), round(float(res.background[0]), 4)
+        (2.0, 0.001)
         """
         from ..analysis._porod import porod
 
@@ -163,6 +172,17 @@ class LinearMethods(AccessorBase):
         ``invariant_high`` (intensity 1/nm^3), ``low_fraction``, ``high_fraction``,
         ``porod_volume`` (nm^3), ``surface_to_volume``, ``specific_surface`` (1/nm),
         each with ``_sigma``; ``status``.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> q = np.linspace(0.05, 3.0, 300)
+        >>> x = np.outer([2.0, 2.5], q)
+        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
+        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> inv = ds.saxs.invariant()
+        >>> inv.status.values.tolist(), inv.invariant.attrs["units"]
+        (['ok', 'ok'], 'arb 1/nm^3')
         """
         from ..analysis._invariant import invariant as _invariant
 
@@ -205,6 +225,17 @@ class LinearMethods(AccessorBase):
         ``normalize=None``: q^2 I (intensity 1/nm^2). ``normalize="rg"``: the
         dimensionless (q Rg)^2 I / I0 with Rg, I0 from ``guinier`` (automatic when
         None); frames without a Guinier result are NaN.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> q = np.linspace(0.05, 3.0, 300)
+        >>> x = np.outer([2.0, 2.5], q)
+        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
+        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> k = ds.saxs.kratky(normalize="rg")
+        >>> k.dims, k.attrs["units"], bool(float(k.max()) > 1.0)
+        (('frame', 'q'), '1', True)
         """
         from ..analysis._kratky import kratky as _kratky
 
@@ -238,6 +269,17 @@ class LinearMethods(AccessorBase):
         ``qrg_max`` (all "1"), ``shape_class`` ("bell", "plateau", "rise",
         "undetermined"), and the ``rg``, ``i0`` used; sortable, e.g.
         ``res.sortby("peak_qrg")``.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> q = np.linspace(0.05, 3.0, 300)
+        >>> x = np.outer([2.0, 2.5], q)
+        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
+        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> ks = ds.saxs.kratky_summary()
+        >>> ks.shape_class.values.tolist(), ks.peak_qrg.values.round(1).tolist()
+        (['bell', 'bell'], [1.6, 1.6])
         """
         from ..analysis._kratky import kratky_summary as _summary
 

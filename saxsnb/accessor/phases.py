@@ -51,6 +51,18 @@ class PhaseMethods(AccessorBase):
         dask series). Tracking needs the whole frame axis: the (small) peak table is
         computed first, then linked in memory; with ``track=False`` the result stays
         lazy.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> from saxsnb.analysis import q_positions
+        >>> q = np.linspace(0.3, 5.0, 600)
+        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
+        >>> I2 = np.vstack([I, I])
+        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> pk = ds.saxs.find_peaks()
+        >>> pk.position.values[0, :4].round(3).tolist(), pk.track.values[:, 0].tolist()
+        ([0.889, 1.088, 1.257, 1.539], [0, 0])
         """
         from ..analysis._peaks import find_peaks as _find
         from ..analysis._tracking import track_peaks
@@ -122,6 +134,21 @@ class PhaseMethods(AccessorBase):
         on frame: ``alternative``, ``status``, ``caveat``, ``cost``, ``margin``,
         ``n_unexplained``; on (frame, peak): ``hkl``, ``peak_phase``, ``position``
         and ``track`` (re-linked so a track ends where its assignment changes).
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> from saxsnb.analysis import q_positions
+        >>> q = np.linspace(0.3, 5.0, 600)
+        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
+        >>> I2 = np.vstack([I, I])
+        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> ix = ds.saxs.index_phases()
+        >>> ix.phase.values[:, 0].tolist(), ix.lattice.values[:, 0].round(2).tolist()
+        (['Pn3m', 'Pn3m'], [10.0, 10.0])
+        >>> fixed = ds.saxs.index_phases(overrides={1: {"phase": "Im3m"}})
+        >>> str(fixed.status.values[1]), str(fixed.alternative.values[1])
+        ('override', 'automatic: Pn3m')
         """
         from ..analysis._indexing import PHASE_OUTPUTS
         from ..analysis._indexing import index_phases as _index
@@ -175,6 +202,18 @@ class PhaseMethods(AccessorBase):
         ``bonnet_ratio_sigma``, ``bonnet_expected``, ``bonnet_pair`` on frame; attrs
         ``transitions``, ``coexistence`` and ``bonnet`` as JSON strings (see
         :func:`saxsnb.analysis._lattice.phase_map`), plus ``scan`` and ``scan_units``.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> from saxsnb.analysis import q_positions
+        >>> q = np.linspace(0.3, 5.0, 600)
+        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
+        >>> I2 = np.vstack([I, I])
+        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> pm = ds.saxs.phase_map()
+        >>> pm.presence.sel(phase_name="Pn3m").values.tolist()
+        [True, True]
         """
         from ..analysis._lattice import phase_map
         from ..analysis._reflections import PHASES
@@ -211,7 +250,19 @@ class PhaseMethods(AccessorBase):
         return out
 
     def phase_report(self, pmap: xr.Dataset | None = None) -> str:
-        """Short text report of :meth:`phase_map`: transitions, coexistence, Bonnet ratios."""
+        """Short text report of :meth:`phase_map`: transitions, coexistence, Bonnet ratios.
+
+        Examples
+        --------
+        >>> import numpy as np, saxsnb
+        >>> from saxsnb.analysis import q_positions
+        >>> q = np.linspace(0.3, 5.0, 600)
+        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
+        >>> I2 = np.vstack([I, I])
+        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> print(ds.saxs.phase_report().splitlines()[1])
+          Pn3m: from the start to the end
+        """
         from ..display.text import phase_map_report
 
         pm = self.phase_map() if pmap is None else pmap

@@ -20,7 +20,15 @@ class SeriesMethods(AccessorBase):
     """Selection, units, summary, report, saving and background subtraction."""
 
     def validate(self) -> xr.Dataset:
-        """Check the layout (see :func:`saxsnb.validate`); return the Dataset."""
+        """Check the layout (see :func:`saxsnb.validate`); return the Dataset.
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> ds = saxsnb.from_arrays([0.1, 0.2], [[1.0, 2.0]], [[0.1, 0.1]])
+        >>> ds.saxs.validate() is ds
+        True
+        """
         return validate(self._ds)
 
     def frame(self, value=None, *, coord: str | None = None, index: int | None = None):
@@ -38,6 +46,14 @@ class SeriesMethods(AccessorBase):
         Returns
         -------
         Dataset of the one frame (``frame`` kept as a scalar coordinate).
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> ds = saxsnb.from_arrays([0.1, 0.2], [[1.0, 1.0], [2.0, 2.0]], [[0.1, 0.1], [0.1, 0.1]],
+        ...                         scan={"temperature": [20.0, 30.0]})
+        >>> float(ds.saxs.frame(27.0).temperature), int(ds.saxs.frame(index=0).frame)
+        (30.0, 0)
         """
         ds = self._ds
         if index is not None:
@@ -63,6 +79,14 @@ class SeriesMethods(AccessorBase):
         """Return a copy with q expressed in ``unit`` ("1/nm" or "1/A").
 
         Analysis functions expect 1/nm; this is for display and export.
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> ds = saxsnb.from_arrays([1.0, 2.0], [[1.0, 1.0]], [[0.1, 0.1]])
+        >>> a = ds.saxs.to_q_unit("1/A")
+        >>> a.q.values.tolist(), a.q.attrs["units"]
+        ([0.1, 0.2], '1/A')
         """
         ds = self._ds
         target = normalize_q_unit(unit)
@@ -76,14 +100,31 @@ class SeriesMethods(AccessorBase):
         return add_history(out, "to_q_unit", source_unit=current, target_unit=target)
 
     def save(self, path, **options) -> None:
-        """Write the series to NetCDF (.nc) or NXcanSAS HDF5 (.h5, .nxs), atomically."""
+        """Write the series to NetCDF (.nc) or NXcanSAS HDF5 (.h5, .nxs), atomically.
+
+        Examples
+        --------
+        >>> import os, tempfile, saxsnb, xarray as xr
+        >>> ds = saxsnb.from_arrays([0.1, 0.2], [[1.0, 2.0]], [[0.1, 0.1]], sample="gel")
+        >>> path = os.path.join(tempfile.mkdtemp(), "series.nc")
+        >>> ds.saxs.save(path)
+        >>> xr.testing.assert_identical(saxsnb.open_series(path), ds)
+        """
         from ..io import save_series
 
         save_series(self._ds, path, **options)
 
     # ----------------------------------------------------------------- summary
     def summary(self) -> dict[str, Any]:
-        """A JSON-safe summary: frames, q range and unit, scan ranges, units."""
+        """A JSON-safe summary: frames, q range and unit, scan ranges, units.
+
+        Examples
+        --------
+        >>> import saxsnb
+        >>> s = saxsnb.from_arrays([0.1, 0.2], [[1.0, 2.0]], [[0.1, 0.1]]).saxs.summary()
+        >>> s["frames"], s["q_points"], s["q_unit"]
+        (1, 2, '1/nm')
+        """
         ds = self._ds
         q = ds["q"].values
         out: dict[str, Any] = {

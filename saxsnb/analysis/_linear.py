@@ -44,6 +44,12 @@ class LinearPlot(NamedTuple):
     the slope b as ``size^2 = -size_factor * b`` and the line holds up to
     ``q_max size <= limit`` (``soft_limit`` is the stricter value for elongated
     particles). ``analysis`` and ``shape`` name the accessor call that fits the plot.
+
+    Examples
+    --------
+    >>> p = LINEAR_PLOTS["sheet"]
+    >>> p.x_label, p.y_label, p.size, p.size_factor, p.limit
+    ('q^2', 'ln(q^2 I)', 'rt', 1.0, 0.7)
     """
 
     name: str

@@ -161,6 +161,14 @@ def fit_peaks(
     (Hastie & Tibshirani 1986, Stat. Sci. 1, 297): each peak is refitted on the data
     minus its neighbours' current profiles. Areas: Gaussian ``h w sqrt(pi / (4 ln 2))``,
     Lorentzian ``h w pi / 2``, pseudo-Voigt the eta-weighted mix.
+
+    Examples
+    --------
+    >>> q = np.linspace(0.5, 1.5, 201)
+    >>> y = np.exp(-4 * np.log(2) * ((q - 1.0) / 0.05) ** 2)[None]
+    >>> fit = fit_peaks(q, y, 0.01, np.array([[100]]), np.array([[10.0]]), profile="gaussian")
+    >>> round(float(fit["position"][0, 0]), 4), round(float(fit["fwhm"][0, 0]), 4)
+    (1.0, 0.05)
     """
     if profile not in PROFILES:
         raise SaxsInputError(f"unknown profile {profile!r}; use one of {PROFILES}", parameter="profile")

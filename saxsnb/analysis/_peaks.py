@@ -201,6 +201,14 @@ def detect_peaks(
     (propagated from ``noise`` through the smoothing and differencing kernels) and
     has no local maximum within ``2 min_separation`` points. Everything is array
     operations over all frames.
+
+    Examples
+    --------
+    >>> q = np.linspace(0.5, 1.5, 201)
+    >>> y = np.exp(-4 * np.log(2) * ((q - 1.0) / 0.05) ** 2)[None]
+    >>> index, prom, width = detect_peaks(q, y, np.full((1, 1), 0.01), max_peaks=2)
+    >>> int(index[0, 0]), round(float(q[index[0, 0]]), 3)
+    (100, 1.0)
     """
     r = np.asarray(residual, dtype=float)
     n_f, n_q = r.shape

@@ -39,7 +39,11 @@ __all__ = [
 
 class Status(NamedTuple):
     """One status code: ``meaning`` (for developers), ``parameter`` (the input a
-    failure is about), ``message`` (for people, may hold ``{size}`` / ``{limit}``)."""
+    failure is about), ``message`` (for people, may hold ``{size}`` / ``{limit}``).
+
+    >>> STATUS["no_peaks"].message
+    'no Bragg peaks found in this frame'
+    """
 
     meaning: str
     parameter: str
