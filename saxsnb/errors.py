@@ -13,12 +13,13 @@ __all__ = ["SaxsError", "InputError", "SaxsInputError", "SaxsFileError", "SaxsFi
 class SaxsError(ValueError):
     """Base class of every saxsnb error (a ValueError: the input was not usable).
 
-    Also available as ``saxsnb.InputError``; ``except saxsnb.InputError`` catches
-    every error saxsnb raises about a file, a parameter or a frame.
+    ``except saxsnb.SaxsError`` catches every error saxsnb raises about a file, a
+    parameter or a frame. (:data:`InputError` is another name for this class.)
     """
 
 
-#: The family's public name: every saxsnb error is an ``InputError``.
+#: An alias of :class:`SaxsError` (the same class, not a subclass), kept for code written
+#: against the first release.
 InputError = SaxsError
 
 

@@ -1,6 +1,6 @@
 """Synthetic Bragg patterns with known answers, shared by the peak and lattice tests.
 
-Peak positions come from the reflection generator (checked against REFERENCES.md in
+Peak positions come from the reflection generator (checked against docs/REFERENCES.md in
 tests/test_reflections.py); everything else is a closed form.
 """
 

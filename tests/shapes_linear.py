@@ -1,6 +1,6 @@
 """Closed-form and numerically averaged scattering curves for the linear-region tests.
 
-Every formula names its source (see ../shared/REFERENCES.md). Orientation averages
+Every formula names its source (see docs/REFERENCES.md). Orientation averages
 are computed here with scipy / numpy quadrature, independently of saxsnb.
 """
 

@@ -142,7 +142,7 @@ def test_phase_ramp_bonnet_ratio_in_window(made):
     both = [lat for lat in t["lattice_nm"] if "Ia3d" in lat and "Pn3m" in lat]
     assert len(both) >= 4
     for lat in both:
-        # Bonnet relation a(Ia3d)/a(Pn3m) = 1.576 (Anderson, Gruner & Leibler 1988, REFERENCES.md)
+        # Bonnet relation a(Ia3d)/a(Pn3m) = 1.576 (Anderson, Gruner & Leibler 1988, docs/REFERENCES.md)
         assert lat["Ia3d"] / lat["Pn3m"] == pytest.approx(1.576, abs=1e-9)
 
 
@@ -161,7 +161,7 @@ def test_phase_ramp_peaks_at_allowed_reflections(temperature, phase):
     for qk in expected:
         win = np.abs(q - qk) < 0.04
         assert abs(q[win][np.argmax(I[win])] - qk) <= step
-    # ratios against published sequences (REFERENCES.md, ITA Vol. A conditions)
+    # ratios against published sequences (docs/REFERENCES.md, ITA Vol. A conditions)
     published = {"lamellar": [1, 4, 9, 16], "Ia3d": [6, 8, 14, 16], "Pn3m": [2, 3, 4, 6],
                  "hexagonal": [1, 3, 4, 7]}[phase]
     full = reflections.q_positions(phase, t["lattice_nm"][0][phase], 4)
@@ -187,9 +187,9 @@ def test_flow_growth_truth(made):
     Rm, z = t["radius_mean_nm"], t["z"]
     assert Rm[0] == pytest.approx(2.0) and Rm[-1] == pytest.approx(12.0)
     assert np.all(np.diff(Rm) > 0) and 20 <= z.min() and z.max() <= 50
-    # Kotlarchyk & Chen 1983 (REFERENCES.md): Rg^2 = 3/5 Rm^2 (z+7)(z+8)/(z+1)^2
+    # Kotlarchyk & Chen 1983 (docs/REFERENCES.md): Rg^2 = 3/5 Rm^2 (z+7)(z+8)/(z+1)^2
     np.testing.assert_allclose(t["rg_apparent_nm"] ** 2, 0.6 * Rm**2 * (z + 7) * (z + 8) / (z + 1) ** 2)
-    # enough Guinier points even for the largest particles: q Rg < 1.3 (Guinier 1939, REFERENCES.md)
+    # enough Guinier points even for the largest particles: q Rg < 1.3 (Guinier 1939, docs/REFERENCES.md)
     q = s["q"].values
     assert np.sum(q * t["rg_apparent_nm"].max() < 1.3) >= 30
     assert np.all(np.diff(np.log(q)) == pytest.approx(np.log(q[1] / q[0])))  # log grid
@@ -216,7 +216,7 @@ def test_schulz_guinier_slope_of_noiseless_curve():
     for i, rg in enumerate(t["rg_apparent_nm"]):
         sel = q * rg < 0.3
         slope = np.polyfit(q[sel] ** 2, np.log(I[i, sel]), 1)[0]
-        # Kotlarchyk & Chen 1983 (REFERENCES.md); fit bias at q Rg <= 0.3 is < 0.1 % (sphere table)
+        # Kotlarchyk & Chen 1983 (docs/REFERENCES.md); fit bias at q Rg <= 0.3 is < 0.1 % (sphere table)
         assert np.sqrt(-3 * slope) == pytest.approx(rg, rel=2e-3)
 
 
@@ -228,7 +228,7 @@ def test_schulz_quadrature_converged():
     np.testing.assert_allclose(default, fine, rtol=1e-8)
     # absolute scale: I(0) = phi drho^2 <V^2>/<V>, Schulz moments (Kotlarchyk & Chen 1983)
     I0 = flow_growth.schulz_spheres(np.array([1e-6]), Rm, z)[:, 0]
-    # <R^n> = Rm^n Gamma(z+1+n) / (Gamma(z+1) (z+1)^n), REFERENCES.md
+    # <R^n> = Rm^n Gamma(z+1+n) / (Gamma(z+1) (z+1)^n), docs/REFERENCES.md
     m6 = np.exp(gammaln(z + 7) - gammaln(z + 1) - 6 * np.log(z + 1)) * (Rm * 1e-7) ** 6
     m3 = np.exp(gammaln(z + 4) - gammaln(z + 1) - 3 * np.log(z + 1)) * (Rm * 1e-7) ** 3
     v2_over_v = (4 * np.pi / 3) * m6 / m3
@@ -271,13 +271,13 @@ def test_unfolding_noiseless_curve_limits():
 
 
 def test_closed_forms_against_references():
-    # Debye 1947 (REFERENCES.md, der): Kratky form x P at x = 1, 2, 5, 10
+    # Debye 1947 (docs/REFERENCES.md, der): Kratky form x P at x = 1, 2, 5, 10
     x = np.array([1.0, 2.0, 5.0, 10.0])
     np.testing.assert_allclose(x * debye_chain(x), [0.7358, 1.1353, 1.6027, 1.8000], atol=1e-4)
     np.testing.assert_allclose(debye_chain(np.array([1e-4, 2e-3])),
                                2 * (np.exp(-np.array([1e-4, 2e-3])) + np.array([1e-4, 2e-3]) - 1)
                                / np.array([1e-4, 2e-3]) ** 2, rtol=1e-7)
-    # sphere: first zero at x = 4.493409 (REFERENCES.md)
+    # sphere: first zero at x = 4.493409 (docs/REFERENCES.md)
     assert sphere_form_factor(np.array([4.493409]))[0] < 1e-12
     xs = np.array([0.005, 0.0101, 0.5])
     exact = (3 * (np.sin(xs) - xs * np.cos(xs)) / xs**3) ** 2

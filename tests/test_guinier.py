@@ -1,4 +1,4 @@
-"""Guinier analysis against published closed forms and tables (REFERENCES.md)."""
+"""Guinier analysis against published closed forms and tables (docs/REFERENCES.md)."""
 
 import numpy as np
 import pytest
@@ -23,9 +23,9 @@ def test_guinier_form_exact():
 
 
 # Sphere (Guinier & Fournet 1955): Rg = sqrt(3/5) R. Bias of an unweighted fit of ln I vs
-# q^2 on 400 evenly spaced q in (0, qmax] (REFERENCES.md, [der]; reproduced to 4 digits).
+# q^2 on 400 evenly spaced q in (0, qmax] (docs/REFERENCES.md, [der]; reproduced to 4 digits).
 SPHERE_BIAS = [(0.5, 1.0026), (0.8, 1.0067), (1.0, 1.0106), (1.3, 1.0184), (1.5, 1.0251), (2.0, 1.0483)]
-# Gaussian chain (Debye 1947), same fit (REFERENCES.md, [der]).
+# Gaussian chain (Debye 1947), same fit (docs/REFERENCES.md, [der]).
 CHAIN_BIAS = [(0.5, 0.9911), (1.0, 0.9650), (1.3, 0.9419)]
 
 
@@ -36,7 +36,7 @@ def test_sphere_bias_table(qrg, ratio):
     qmax = qrg / rg
     q = np.linspace(qmax / 400, qmax, 400)
     r = guinier(q, sphere(q * R), q_range=(0.0, qmax), qrg_limit=3.0)
-    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
+    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # docs/REFERENCES.md table
 
 
 @pytest.mark.parametrize(("qrg", "ratio"), CHAIN_BIAS)
@@ -44,7 +44,7 @@ def test_chain_bias_table(qrg, ratio):
     rg = 3.0
     q = np.linspace(qrg / rg / 400, qrg / rg, 400)
     r = guinier(q, debye((q * rg) ** 2), q_range=(0.0, 1.0))
-    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # REFERENCES.md table
+    assert r["rg"][0] / rg == pytest.approx(ratio, abs=1e-4)  # docs/REFERENCES.md table
 
 
 def _noisy_schulz(rng, n=40, noise=0.01):
@@ -94,14 +94,14 @@ def test_long_cylinder_cross_section():
     q = np.linspace(0.3, 1.2, 40)  # q L >= 300, q Rc <= 0.85
     I = cylinder(q, R, 1000.0)
     r = guinier(q, I, shape="rod", q_range=(0.3, 1.2))
-    # Rc^2 = R^2/2 (REFERENCES.md [mem], from memory: loose tolerance); the curvature of
+    # Rc^2 = R^2/2 (docs/REFERENCES.md [mem], from memory: loose tolerance); the curvature of
     # ln[2 J1(x)/x]^2 biases the fixed-range fit by about 1.4 %
     assert r["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.02)
     assert r["radius"][0] == pytest.approx(R, rel=0.02)
     qa = np.linspace(0.05, 3.0, 300)
     auto = guinier(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
     assert auto["status"][0] == "ok"
-    # REFERENCES.md (from memory): cylinder cross-section Rc^2 = R^2 / 2
+    # docs/REFERENCES.md (from memory): cylinder cross-section Rc^2 = R^2 / 2
     assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.01)
 
 
@@ -110,13 +110,13 @@ def test_flat_disc_thickness():
     q = np.linspace(0.1, 0.45, 30)  # q R >= 50, q Rt <= 0.52
     I = flat_disc(q, 500.0, T)
     r = guinier(q, I, shape="sheet", q_range=(0.1, 0.45))
-    # Rt^2 = T^2/12 (REFERENCES.md [mem], from memory: loose tolerance)
+    # Rt^2 = T^2/12 (docs/REFERENCES.md [mem], from memory: loose tolerance)
     assert r["thickness"][0] == pytest.approx(T, rel=0.02)
     assert r["rt"][0] == pytest.approx(T / np.sqrt(12), rel=0.02)
 
 
 def test_rod_length():
-    # cylinder R = 1, L = 30: Rg^2 = R^2/2 + L^2/12 (REFERENCES.md [mem], from memory)
+    # cylinder R = 1, L = 30: Rg^2 = R^2/2 + L^2/12 (docs/REFERENCES.md [mem], from memory)
     L, Ls = rod_length(np.sqrt(0.5 + 900 / 12), np.sqrt(0.5), 0.1, 0.01)
     assert L == pytest.approx(30.0, rel=1e-12)
     assert Ls > 0

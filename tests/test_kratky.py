@@ -1,4 +1,4 @@
-"""Kratky transforms and shape summary against closed forms (REFERENCES.md)."""
+"""Kratky transforms and shape summary against closed forms (docs/REFERENCES.md)."""
 
 import numpy as np
 import pytest
@@ -26,7 +26,7 @@ def test_debye_chain_kratky_values():
     x = np.array([1.0, 2.0, 5.0, 10.0])  # x = (q Rg)^2
     q = np.sqrt(x) / rg
     D = kratky(q, debye(x)[None, :], rg=[rg], i0=[1.0])
-    # Debye (1947): x P = 0.7358, 1.1353, 1.6027, 1.8000 at x = 1, 2, 5, 10 (REFERENCES.md [der])
+    # Debye (1947): x P = 0.7358, 1.1353, 1.6027, 1.8000 at x = 1, 2, 5, 10 (docs/REFERENCES.md [der])
     np.testing.assert_allclose(D[0], [0.7358, 1.1353, 1.6027, 1.8000], atol=5e-5)
     # ... tending to 2 (the plateau)
     big = kratky(np.array([100.0]), debye(np.array([1e4]))[None, :], rg=[1.0], i0=[1.0])
@@ -38,10 +38,10 @@ def test_peak_of_guinier_form_and_sphere():
     rg = np.sqrt(3 / 5) * R  # Guinier & Fournet (1955)
     I = np.stack([np.exp(-((Q * rg) ** 2) / 3), sphere(Q * R)])
     s = kratky_summary(Q, I, rg=[rg, rg], i0=[1.0, 1.0])
-    # Durand et al. (2010): Guinier form peaks at q Rg = sqrt(3), height 3/e (REFERENCES.md [der])
+    # Durand et al. (2010): Guinier form peaks at q Rg = sqrt(3), height 3/e (docs/REFERENCES.md [der])
     assert s["peak_qrg"][0] == pytest.approx(np.sqrt(3), abs=2e-4)
     assert s["peak_height"][0] == pytest.approx(3 / np.e, abs=2e-4)
-    # a true sphere peaks at q Rg = 1.6124, height 1.0274 (REFERENCES.md [der])
+    # a true sphere peaks at q Rg = 1.6124, height 1.0274 (docs/REFERENCES.md [der])
     assert s["peak_qrg"][1] == pytest.approx(1.6124, abs=2e-4)
     assert s["peak_height"][1] == pytest.approx(1.0274, abs=2e-4)
 
@@ -53,7 +53,7 @@ def test_shape_classes():
             sphere(Q * rg / np.sqrt(0.6)),
             np.exp(-((Q * rg) ** 2) / 3),
             debye((Q * rg) ** 2),
-            thin_rod(Q * rg * np.sqrt(12)),  # thin rod: Rg^2 = L^2 / 12 (REFERENCES.md)
+            thin_rod(Q * rg * np.sqrt(12)),  # thin rod: Rg^2 = L^2 / 12 (docs/REFERENCES.md)
         ]
     )
     s = kratky_summary(Q, I, rg=np.full(4, rg), i0=np.ones(4))

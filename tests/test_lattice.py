@@ -81,7 +81,7 @@ def _one(s_values, phase_of_metric="Pn3m", a=10.0):
 @pytest.mark.parametrize(
     "observed, best, rival",
     [
-        # REFERENCES.md ambiguities: Im3m vs Pn3m differ by sqrt(3), Im3m vs Pm3n by sqrt(5),
+        # docs/REFERENCES.md ambiguities: Im3m vs Pn3m differ by sqrt(3), Im3m vs Pm3n by sqrt(5),
         # Fm3m vs Fd3m by sqrt(4)
         ([2, 4, 6, 8], "Im3m", "Pn3m"),
         ([2, 4, 6, 8], "Im3m", "Pm3n"),
@@ -111,7 +111,7 @@ def test_ambiguous_pairs_resolved_when_distinguishing_reflection_present(observe
 
 def test_coexisting_bicontinuous_cubics_at_bonnet_ratio():
     # Bonnet relation a(Ia3d) / a(Pn3m) = 1.576 (Anderson, Gruner & Leibler 1988, from memory
-    # per REFERENCES.md)
+    # per docs/REFERENCES.md)
     a_p, a_g = 9.3, 9.3 * 1.576
     qs = np.sort(np.concatenate([pattern_positions("Pn3m", a_p)[:6], pattern_positions("Ia3d", a_g)[:6]]))
     res = index_peaks(qs[None])

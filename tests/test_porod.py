@@ -1,4 +1,4 @@
-"""Porod analysis against closed forms (REFERENCES.md): sphere invariant, Porod volume,
+"""Porod analysis against closed forms (docs/REFERENCES.md): sphere invariant, Porod volume,
 surface to volume, power-law exponents of sphere, chain and rod tails."""
 
 import numpy as np
@@ -31,7 +31,7 @@ def test_sphere_invariant_volume_surface(sphere_curve):
     # Porod (1951): a sphere P(q) -> 9 / (2 q^4 R^4), so Kp = 4.5 [der]
     assert pf["porod_constant"][0] == pytest.approx(4.5, rel=1e-3)
     r = invariant(q, I, rg=np.sqrt(0.6), i0=1.0, porod_constant=pf["porod_constant"])
-    # REFERENCES.md (sphere R = 1 integrated to q = 400 plus Kp/qmax): Q = 3 pi / 2 = 4.71240,
+    # docs/REFERENCES.md (sphere R = 1 integrated to q = 400 plus Kp/qmax): Q = 3 pi / 2 = 4.71240,
     # V = 4 pi / 3 = 4.18878, S/V = 3.0000 [der]
     assert r["invariant"][0] == pytest.approx(3 * np.pi / 2, rel=2e-5)
     assert r["porod_volume"][0] == pytest.approx(4 * np.pi / 3, rel=2e-5)
@@ -40,7 +40,7 @@ def test_sphere_invariant_volume_surface(sphere_curve):
     assert r["invariant_low"][0] == pytest.approx(1e-9 / 3, rel=1e-3)  # int_0^0.001 q^2 dq
     assert np.isnan(r["specific_surface"][0])
     r2 = invariant(q, I, rg=np.sqrt(0.6), i0=1.0, porod_constant=4.5, volume_fraction=0.1)
-    # S/V of the sample = pi phi (1 - phi) Kp / Q (Porod 1951; REFERENCES.md)
+    # S/V of the sample = pi phi (1 - phi) Kp / Q (Porod 1951; docs/REFERENCES.md)
     assert r2["specific_surface"][0] == pytest.approx(np.pi * 0.1 * 0.9 * 4.5 / (1.5 * np.pi), rel=1e-4)
 
 

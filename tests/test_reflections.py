@@ -5,7 +5,7 @@ import pytest
 
 from saxsnb.analysis import allowed_reflections, hkl_labels, q_positions, spacing_ratios
 
-# REFERENCES.md, "Mesophases": allowed h^2+k^2+l^2 in order, derived from the reflection
+# docs/REFERENCES.md, "Mesophases": allowed h^2+k^2+l^2 in order, derived from the reflection
 # conditions of International Tables for Crystallography Vol. A (conditions beyond the
 # centring are from memory there).
 PUBLISHED = {
@@ -15,7 +15,7 @@ PUBLISHED = {
     "Pm3n": [2, 4, 5, 6, 8, 10, 12, 13, 14, 16],
     "Fm3m": [3, 4, 8, 11, 12, 16, 19, 20, 24, 27],
     "Fd3m": [3, 8, 11, 12, 16, 19, 24, 27, 32, 35, 36],
-    # 2D hexagonal h^2 + hk + k^2 and lamellar l^2 (REFERENCES.md)
+    # 2D hexagonal h^2 + hk + k^2 and lamellar l^2 (docs/REFERENCES.md)
     "hexagonal": [1, 3, 4, 7, 9, 12, 13],
     "lamellar": [1, 4, 9, 16],
 }
@@ -45,12 +45,12 @@ def test_ratios_and_labels():
 
 def test_silver_behenate_positions():
     # Huang, Toraya, Blanton & Wu (1993), J. Appl. Cryst. 26, 180: d001 = 5.8380 nm,
-    # q00l = l x 1.076256 1/nm (REFERENCES.md)
+    # q00l = l x 1.076256 1/nm (docs/REFERENCES.md)
     q = q_positions("lamellar", 5.8380, 4)
     assert np.allclose(q, 1.076256 * np.arange(1, 5), rtol=2e-6)
 
 
 def test_hexagonal_and_cubic_positions():
-    # a = 4 pi sqrt(s) / (sqrt(3) q) for p6mm; a = 2 pi sqrt(s) / q for cubics (REFERENCES.md)
+    # a = 4 pi sqrt(s) / (sqrt(3) q) for p6mm; a = 2 pi sqrt(s) / q for cubics (docs/REFERENCES.md)
     assert q_positions("hexagonal", 6.0, 1)[0] == pytest.approx(4 * np.pi / (np.sqrt(3) * 6.0))
     assert q_positions("Pn3m", 10.0, 1)[0] == pytest.approx(2 * np.pi * np.sqrt(2) / 10.0)

@@ -175,11 +175,8 @@ class LinearMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> q = np.linspace(0.05, 3.0, 300)
-        >>> x = np.outer([2.0, 2.5], q)
-        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
-        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("spheres")
         >>> inv = ds.saxs.invariant()
         >>> inv.status.values.tolist(), inv.invariant.attrs["units"]
         (['ok', 'ok'], 'arb 1/nm^3')
@@ -228,11 +225,8 @@ class LinearMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> q = np.linspace(0.05, 3.0, 300)
-        >>> x = np.outer([2.0, 2.5], q)
-        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
-        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("spheres")
         >>> k = ds.saxs.kratky(normalize="rg")
         >>> k.dims, k.attrs["units"], bool(float(k.max()) > 1.0)
         (('frame', 'q'), '1', True)
@@ -272,11 +266,8 @@ class LinearMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> q = np.linspace(0.05, 3.0, 300)
-        >>> x = np.outer([2.0, 2.5], q)
-        >>> I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
-        >>> ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("spheres")
         >>> ks = ds.saxs.kratky_summary()
         >>> ks.shape_class.values.tolist(), ks.peak_qrg.values.round(1).tolist()
         (['bell', 'bell'], [1.6, 1.6])

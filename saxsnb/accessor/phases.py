@@ -54,12 +54,8 @@ class PhaseMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> from saxsnb.analysis import q_positions
-        >>> q = np.linspace(0.3, 5.0, 600)
-        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
-        >>> I2 = np.vstack([I, I])
-        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("cubic")
         >>> pk = ds.saxs.find_peaks()
         >>> pk.position.values[0, :4].round(3).tolist(), pk.track.values[:, 0].tolist()
         ([0.889, 1.088, 1.257, 1.539], [0, 0])
@@ -137,12 +133,8 @@ class PhaseMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> from saxsnb.analysis import q_positions
-        >>> q = np.linspace(0.3, 5.0, 600)
-        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
-        >>> I2 = np.vstack([I, I])
-        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("cubic")
         >>> ix = ds.saxs.index_phases()
         >>> ix.phase.values[:, 0].tolist(), ix.lattice.values[:, 0].round(2).tolist()
         (['Pn3m', 'Pn3m'], [10.0, 10.0])
@@ -205,12 +197,8 @@ class PhaseMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> from saxsnb.analysis import q_positions
-        >>> q = np.linspace(0.3, 5.0, 600)
-        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
-        >>> I2 = np.vstack([I, I])
-        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("cubic")
         >>> pm = ds.saxs.phase_map()
         >>> pm.presence.sel(phase_name="Pn3m").values.tolist()
         [True, True]
@@ -254,12 +242,8 @@ class PhaseMethods(AccessorBase):
 
         Examples
         --------
-        >>> import numpy as np, saxsnb
-        >>> from saxsnb.analysis import q_positions
-        >>> q = np.linspace(0.3, 5.0, 600)
-        >>> I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
-        >>> I2 = np.vstack([I, I])
-        >>> ds = saxsnb.from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]})
+        >>> import saxsnb
+        >>> ds = saxsnb.demo.example_series("cubic")
         >>> print(ds.saxs.phase_report().splitlines()[1])
           Pn3m: from the start to the end
         """

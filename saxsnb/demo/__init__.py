@@ -56,7 +56,7 @@ from . import flow_growth, phase_ramp, unfolding
 from ._common import truth_json
 from .files import write_demo
 
-__all__ = ["SCENARIOS", "make_series", "truth", "write_demo"]
+__all__ = ["SCENARIOS", "make_series", "truth", "write_demo", "example_series"]
 
 _BUILDERS = {
     "phase-ramp": phase_ramp.build,
@@ -146,3 +146,29 @@ def truth(ds: xr.Dataset) -> dict[str, Any]:
         raise SaxsInputError("this series has no 'truth' attribute (not made by saxsnb.demo)",
                              parameter="ds")
     return _arrays(json.loads(text))
+
+
+def example_series(kind: str = "spheres") -> xr.Dataset:
+    """A tiny noise-free series of two frames for docstring examples.
+
+    ``"spheres"``: spheres of radius 2 and 2.5 nm (I0 = 100, flat background 0.01), q
+    0.05 .. 3 1/nm (300 points), scan ``time`` 0, 60 s. ``"cubic"``: four Pn3m
+    reflections of a cell a = 10 nm (110, 111, 200, 211) on a flat level, q 0.3 .. 5
+    1/nm (600 points), scan ``temperature`` 20, 21 degC. Sigma is 1 % (+0.01).
+
+    >>> example_series("cubic").sizes["q"], example_series().saxs.scan
+    (600, 'time')
+    """
+    from ..analysis import q_positions
+
+    if kind == "spheres":
+        q = np.linspace(0.05, 3.0, 300)
+        x = np.outer([2.0, 2.5], q)
+        I = 100 * (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2 + 0.01
+        return from_arrays(q, I, 0.01 * I, scan={"time": [0.0, 60.0]}, sample="example spheres")
+    if kind == "cubic":
+        q = np.linspace(0.3, 5.0, 600)
+        I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
+        I2 = np.vstack([I, I])
+        return from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]}, sample="example cubic")
+    raise SaxsInputError(f"unknown example {kind!r}; use 'spheres' or 'cubic'", parameter="kind")

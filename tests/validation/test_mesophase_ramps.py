@@ -2,7 +2,7 @@
 150..3000 on the strongest peak (issue 15 targets).
 
 Truth: reflection lists derived in tests/validation/truth.py from the space-group
-reflection conditions of International Tables Vol. A (REFERENCES.md; checked there
+reflection conditions of International Tables Vol. A (docs/REFERENCES.md; checked there
 against the listed sequences), Gaussian peaks of instrument width on a diffuse
 background, Poisson counts.
 """
@@ -15,7 +15,7 @@ from . import truth as t
 
 
 def test_reflection_lists_match_references():
-    # REFERENCES.md, Mesophases: allowed h^2+k^2+l^2 in order
+    # docs/REFERENCES.md, Mesophases: allowed h^2+k^2+l^2 in order
     ref = {
         "Pn3m": [2, 3, 4, 6, 8, 9, 10, 11, 12, 14, 16, 17],
         "Im3m": [2, 4, 6, 8, 10, 12, 14, 16, 18, 20, 22, 24],
@@ -52,7 +52,7 @@ def test_spikes_do_not_change_the_label():
 
 def test_ia3d_with_weak_321_is_not_fm3m():
     # Ia3d with its 321 lost in noise: 211, 220, 400, 420, 332 remain; Fm3m at a / sqrt(2)
-    # explains all but 420 (REFERENCES.md lists)
+    # explains all but 420 (docs/REFERENCES.md lists)
     a = runs.ramp_accuracy(("Ia3d",), 600, 8, seed=9, rel=[1.0, 0.6, 0.0, 0.12, 0.12, 0.1, 0.04])
     assert "Fm3m" not in set(a["labels"])
 

@@ -1,6 +1,6 @@
 """Independent truth for the validation suite (issue 15).
 
-Written from the closed forms and space-group conditions in ../shared/REFERENCES.md,
+Written from the closed forms and space-group conditions in docs/REFERENCES.md,
 without reading the implementation: every curve here comes from a formula, a
 numerical quadrature (orientation, size distribution) or a brute-force Debye sum on a
 random point cloud. Nothing in this module imports saxsnb.
@@ -32,7 +32,7 @@ def sphere_amplitude(x):
 
 
 def sphere(q, R):
-    """I(q) / I(0) of a homogeneous sphere; Rg^2 = 3/5 R^2 (REFERENCES.md, der)."""
+    """I(q) / I(0) of a homogeneous sphere; Rg^2 = 3/5 R^2 (docs/REFERENCES.md, der)."""
     return sphere_amplitude(q * R) ** 2, np.sqrt(0.6) * R
 
 
@@ -177,7 +177,7 @@ def noisy(I, fraction, rng, n_frames=1, floor=1e-4):
 
 
 def _cubic_allowed(phase, h, k, l):
-    """Reflection conditions of International Tables Vol. A (REFERENCES.md) for one hkl."""
+    """Reflection conditions of International Tables Vol. A (docs/REFERENCES.md) for one hkl."""
     a = sorted((abs(h), abs(k), abs(l)))
     zeros = a.count(0)
 
@@ -258,7 +258,7 @@ def reflections(phase, n=12):
 
 
 def q_of(phase, a, s):
-    """Peak position of reflection s for lattice a (d for lamellar), REFERENCES.md."""
+    """Peak position of reflection s for lattice a (d for lamellar), docs/REFERENCES.md."""
     s = np.asarray(s, dtype=float)
     if phase == "hexagonal":
         return 4 * np.pi * np.sqrt(s) / (np.sqrt(3) * a)
