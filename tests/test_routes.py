@@ -95,3 +95,18 @@ def test_public_api_has_a_running_example(label, obj):
     # the doctests of these examples run in `make test` (--doctest-modules)
     doc = inspect.getdoc(obj) or ""
     assert ">>>" in doc, f"{label} has no example in its docstring"
+
+
+def test_results_keep_the_series_attrs_and_extend_its_history():
+    import json
+
+    ds, bg = saxsnb.demo.make_series("flow-growth", seed=0)
+    sub = ds.saxs.subtract(bg)
+    for res in (sub.saxs.guinier(), sub.saxs.porod(), sub.saxs.index_phases(), sub.saxs.kratky_summary()):
+        assert res.attrs["sample"] == ds.attrs["sample"]
+        steps = [json.loads(h)["operation"] for h in res.attrs["history"]]
+        assert steps[: len(sub.attrs["history"])] == [json.loads(h)["operation"] for h in sub.attrs["history"]]
+        assert "subtract" in steps and steps[-1] == res.attrs["operation"]
+        last = json.loads(res.attrs["history"][-1])
+        assert json.dumps(last["parameters"], sort_keys=True) == res.attrs["parameters"]
+    assert ds.attrs["history"] == saxsnb.demo.make_series("flow-growth", seed=0)[0].attrs["history"]
