@@ -11,7 +11,8 @@ attrs and one history format on the result):
 - :mod:`saxsnb.accessor.linear`: ``guinier``, ``porod``, ``invariant``, ``kratky``,
   ``kratky_summary``;
 - :mod:`saxsnb.accessor.phases`: ``find_peaks``, ``index_phases``, ``phase_map``,
-  ``phase_report``.
+  ``phase_report``;
+- :mod:`saxsnb.accessor.tables`: ``to_dataframe``, ``to_csv``.
 """
 
 from __future__ import annotations
@@ -22,12 +23,13 @@ from ._core import AccessorBase, OutputSpec, provenance, result_attrs
 from .linear import LinearMethods
 from .phases import PhaseMethods
 from .series import SeriesMethods
+from .tables import TableMethods
 
 __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_attrs"]
 
 
 @xr.register_dataset_accessor("saxs")
-class SaxsAccessor(SeriesMethods, LinearMethods, PhaseMethods):
+class SaxsAccessor(SeriesMethods, LinearMethods, PhaseMethods, TableMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples

@@ -170,5 +170,6 @@ def example_series(kind: str = "spheres") -> xr.Dataset:
         q = np.linspace(0.3, 5.0, 600)
         I = 1.0 + sum(50 * np.exp(-0.5 * ((q - c) / 0.01) ** 2) for c in q_positions("Pn3m", 10.0, 4))
         I2 = np.vstack([I, I])
-        return from_arrays(q, I2, 0.01 * I2 + 0.01, scan={"temperature": [20.0, 21.0]}, sample="example cubic")
+        scan = {"temperature": [20.0, 21.0]}
+        return from_arrays(q, I2, 0.01 * I2 + 0.01, scan=scan, sample="example cubic")
     raise SaxsInputError(f"unknown example {kind!r}; use 'spheres' or 'cubic'", parameter="kind")
