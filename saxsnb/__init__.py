@@ -23,11 +23,19 @@ def __getattr__(name):
         from .widgets import explore
 
         return explore
+    if name == "analysis":
+        import importlib
+
+        return importlib.import_module(".analysis", __name__)
     if name == "demo":
         import importlib
 
         return importlib.import_module(".demo", __name__)
     raise AttributeError(f"module 'saxsnb' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))
 
 
 __all__ = [
@@ -39,6 +47,8 @@ __all__ = [
     "write_text_series",
     "read_cansas_xml",
     "explore",
+    "demo",
+    "analysis",
     "InputError",
     "SaxsError",
     "SaxsInputError",

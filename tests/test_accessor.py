@@ -83,3 +83,16 @@ def test_output_named_like_a_scan_coordinate_keeps_both():
     assert out["position"].attrs["units"] == "1/nm"
     np.testing.assert_array_equal(out["scan_position"].values, [0.0, 1.0, 2.0])
     assert out["scan_position"].attrs["scan_coordinate"] == "position"
+
+
+def test_frame_value_outside_the_scan_is_an_error(ds):
+    # issue 11: ds.saxs.frame(500) on a 20..22 degC scan returned the last frame silently
+    with pytest.raises(SaxsInputError, match="outside the scan"):
+        ds.saxs.frame(500.0)
+    assert int(ds.saxs.frame(22.4).frame) == 4  # within one step of the end: nearest
+
+
+def test_tab_completion_lists_the_public_names():
+    names = dir(saxsnb)
+    for n in ("read_series", "explore", "open_series", "demo", "analysis", "SaxsError"):
+        assert n in names

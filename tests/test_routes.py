@@ -59,9 +59,16 @@ def test_peaks_and_phases_agree(series):
     acc = ds.saxs.find_peaks()
     _same(pk, acc)
     q_min = max(float(q.min()), float(q.min()))
-    ix = analysis.index_phases(pk["position"], pk["position_sigma"], pk["fwhm"], pk["prominence"],
-                               peak_status=pk["status"], order=order, q_min=q_min,
-                               q_step=float(np.median(np.diff(q))))
+    ix = analysis.index_phases(
+        pk["position"],
+        pk["position_sigma"],
+        pk["fwhm"],
+        pk["prominence"],
+        peak_status=pk["status"],
+        order=order,
+        q_min=q_min,
+        q_step=float(np.median(np.diff(q))),
+    )
     res = ds.saxs.index_phases(acc)
     _same(ix, res)
     check_codes(res["status"].values)
@@ -90,7 +97,9 @@ def _public_callables():
                 yield f"ds.saxs.{name}", obj
 
 
-@pytest.mark.parametrize("label,obj", list(_public_callables()), ids=lambda v: v if isinstance(v, str) else "")
+@pytest.mark.parametrize(
+    "label,obj", list(_public_callables()), ids=lambda v: v if isinstance(v, str) else ""
+)
 def test_public_api_has_a_running_example(label, obj):
     # the doctests of these examples run in `make test` (--doctest-modules)
     doc = inspect.getdoc(obj) or ""
@@ -105,7 +114,9 @@ def test_results_keep_the_series_attrs_and_extend_its_history():
     for res in (sub.saxs.guinier(), sub.saxs.porod(), sub.saxs.index_phases(), sub.saxs.kratky_summary()):
         assert res.attrs["sample"] == ds.attrs["sample"]
         steps = [json.loads(h)["operation"] for h in res.attrs["history"]]
-        assert steps[: len(sub.attrs["history"])] == [json.loads(h)["operation"] for h in sub.attrs["history"]]
+        assert steps[: len(sub.attrs["history"])] == [
+            json.loads(h)["operation"] for h in sub.attrs["history"]
+        ]
         assert "subtract" in steps and steps[-1] == res.attrs["operation"]
         last = json.loads(res.attrs["history"][-1])
         assert json.dumps(last["parameters"], sort_keys=True) == res.attrs["parameters"]

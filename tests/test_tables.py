@@ -11,8 +11,13 @@ from saxsnb.errors import SaxsInputError
 def test_table_of_every_per_frame_result(tmp_path):
     ds, bg = saxsnb.demo.make_series("flow-growth", seed=0)
     sub = ds.saxs.subtract(bg)
-    for res in (sub.saxs.guinier(), sub.saxs.porod(), sub.saxs.invariant(), sub.saxs.kratky_summary(),
-                sub.saxs.index_phases()):
+    for res in (
+        sub.saxs.guinier(),
+        sub.saxs.porod(),
+        sub.saxs.invariant(),
+        sub.saxs.kratky_summary(),
+        sub.saxs.index_phases(),
+    ):
         df = res.saxs.to_dataframe()
         assert len(df) == ds.sizes["frame"] and df.columns[0] == "position [mm]"
         path = tmp_path / f"{res.attrs['operation']}.csv"

@@ -72,6 +72,13 @@ class SeriesMethods(AccessorBase):
         vals = np.asarray(ds[name].values, dtype=float)
         if not np.isfinite(value):
             raise SaxsInputError(f"scan value {value!r} is not finite", parameter="value")
+        fin = np.sort(vals[np.isfinite(vals)])
+        step = float(np.median(np.diff(fin))) if fin.size > 1 else 0.0
+        if fin.size and not fin[0] - step <= float(value) <= fin[-1] + step:
+            unit = ds[name].attrs.get("units", "")
+            raise SaxsInputError(
+                f"{name} = {value} is outside the scan ({fin[0]:g} .. {fin[-1]:g} {unit}); "
+                "use index= for a frame position", parameter="value")
         i = int(np.nanargmin(np.abs(vals - float(value))))
         return ds.isel(frame=i)
 
