@@ -140,7 +140,8 @@ _STATUS_DTYPE = "<U24"
 _FAILED = ("all_nan", "range_outside_data", "zero_sigma", "too_few_points")
 _CHUNK = 512  # frames per block in the weight search (memory ~ chunk * n_weights * n_r)
 _TABLE_MIN_FRAMES = 16  # at or above: data terms through the shared product table
-_WEIGHTS = 10.0 ** np.arange(-12.0, 2.0 + 1e-9, 0.25)
+_WEIGHTS_COARSE = 10.0 ** np.arange(-12.0, 2.5)  # weight search: one per decade, then
+_FINE_PER_DECADE = 8  # eight per decade around the best
 _FLOOR = 1e-13  # weights below this times the largest eigenvalue are not resolved
 _N_SUB = 8  # refinement grid: each candidate interval split in this many (log) steps
 _DECISIVE = 5.0  # log Bayes factor (Kass & Raftery 1995, J. Am. Stat. Assoc. 90, 773)
@@ -317,10 +318,9 @@ class _Shared:
 
     @property
     def table(self):
-        """(n_q, K (K + 1) / 2): products At[m, i] At[m, j], i >= j (lower triangle)."""
+        """(n_q, K^2): products At[m, i] At[m, j] (built when first needed)."""
         if self._table is None:
-            i, j = self.lower
-            self._table = self.At[:, i] * self.At[:, j]
+            self._table = (self.At[:, :, None] * self.At[:, None, :]).reshape(self.At.shape[0], -1)
         return self._table
 
 
@@ -403,9 +403,7 @@ def _data_terms(sh, fr, rows):
     w = fr.w[rows]
     K = sh.K
     if len(rows) >= _TABLE_MIN_FRAMES:
-        G = np.zeros((len(rows), K, K))
-        G[:, sh.lower[0], sh.lower[1]] = w @ sh.table  # eigh reads the lower triangle
-        G = G + np.triu(np.swapaxes(G, 1, 2), 1)
+        G = (w @ sh.table).reshape(len(rows), K, K)
     else:
         G = np.einsum("mi,fm,mj->fij", sh.At, w, sh.At)
     trace = w @ sh.rownorm2
@@ -434,34 +432,35 @@ def _log_evidence(s, cc2, yy, n, lam, known_sigma):
 
 
 def _choose_weight(s, cc2, yy, n, known_sigma):
-    """Evidence-maximising weight per frame (log grid, then a parabola in log w)."""
+    """Evidence-maximising weight per frame: a grid of one value per decade, then eight
+    per decade within a decade of the best, then a parabola in log w through the best
+    three (all frames at once)."""
     F = s.shape[0]
-    lam = np.empty(F)
-    ev = np.empty(F)
-    grid = _WEIGHTS
-    lg = np.log(grid)
-    for a in range(0, F, _CHUNK):
-        sl = slice(a, a + _CHUNK)
-        e = _log_evidence(s[sl, None, :], cc2[sl, None, :], yy[sl, None], n[sl, None],
-                          np.broadcast_to(grid, (s[sl].shape[0], grid.size)), known_sigma)
-        e = np.where(grid[None, :] > _FLOOR * s[sl].max(axis=1, keepdims=True), e, -np.inf)
-        e = np.where(np.isfinite(e), e, -np.inf)
-        k = np.clip(np.argmax(e, axis=1), 1, grid.size - 2)
-        rows = np.arange(e.shape[0])
-        e0, em, ep = e[rows, k], e[rows, k - 1], e[rows, k + 1]
-        curv = ep - 2 * e0 + em
-        with np.errstate(invalid="ignore", divide="ignore"):
-            shift = np.where(np.isfinite(curv) & (curv < 0), 0.5 * (em - ep) / curv, 0.0)
-        shift = np.clip(np.nan_to_num(shift), -1.0, 1.0)
-        best = np.argmax(e, axis=1)
-        x = np.where(best == k, lg[k] + shift * (lg[1] - lg[0]), lg[best])
-        cand = np.exp(x)
-        ec = _log_evidence(s[sl], cc2[sl], yy[sl], n[sl], cand, known_sigma)
-        eb = e[rows, best]
-        better = ec >= eb
-        lam[sl] = np.where(better, cand, grid[best])
-        ev[sl] = np.where(better, ec, eb)
-    return lam, ev
+    floor = _FLOOR * s.max(axis=1)
+
+    def scan(grid):  # grid (F, G) -> log E (F, G), -inf where unresolved
+        e = _log_evidence(s[:, None, :], cc2[:, None, :], yy[:, None], n[:, None], grid, known_sigma)
+        return np.where((grid > floor[:, None]) & np.isfinite(e), e, -np.inf)
+
+    coarse = np.broadcast_to(_WEIGHTS_COARSE, (F, _WEIGHTS_COARSE.size))
+    e = scan(coarse)
+    lg0 = np.log10(coarse[np.arange(F), np.argmax(e, axis=1)])
+    steps = np.arange(-_FINE_PER_DECADE, _FINE_PER_DECADE + 1) / _FINE_PER_DECADE
+    lg = np.clip(lg0[:, None] + steps[None, :], np.log10(_WEIGHTS_COARSE[0]), np.log10(_WEIGHTS_COARSE[-1]))
+    e = scan(10.0**lg)
+    rows = np.arange(F)
+    best = np.argmax(e, axis=1)
+    k = np.clip(best, 1, steps.size - 2)
+    e0, em, ep = e[rows, k], e[rows, k - 1], e[rows, k + 1]
+    curv = ep - 2 * e0 + em
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(np.isfinite(curv) & (curv < 0), 0.5 * (em - ep) / curv, 0.0)
+    shift = np.clip(np.nan_to_num(shift), -1.0, 1.0) / _FINE_PER_DECADE
+    cand = 10.0 ** np.where(best == k, lg[rows, k] + shift, lg[rows, best])
+    ec = np.where(cand > floor, _log_evidence(s, cc2, yy, n, cand, known_sigma), -np.inf)
+    eb = e[rows, best]
+    better = ec >= eb
+    return np.where(better, cand, 10.0 ** lg[rows, best]), np.where(better, ec, eb)
 
 
 def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
@@ -487,7 +486,7 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
     b = _rhs(sh, fr, rows) / np.sqrt(c)[:, None]
     sf = s[where]
     Qf = Q[where] if len(groups) > 1 else np.broadcast_to(Q[0], (len(rows), sh.K, sh.K))
-    cc = np.einsum("fkj,fk->fj", Qf, b)
+    cc = (b[:, None, :] @ Qf)[:, 0, :]
     cc2 = cc * cc
     yy, n = fr.yy[rows], fr.n[rows].astype(float)
     if weight is None:
@@ -500,36 +499,40 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         return out
     den = sf + lam[:, None]
     z = cc / den
-    u = np.einsum("fkj,fj->fk", Qf, z)
+    u = (Qf @ z[:, :, None])[:, :, 0]
     p_in = (u @ sh.Li) / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
-    n_eff = np.sum(sf / den, axis=1)
-    cov = None
-    if nonnegative:
-        p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
-        var = np.einsum("fkk->fk", cov)
-    else:
-        # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
-        B = np.einsum("kl,flj->fkj", sh.Li.T, Qf)
-        var = np.einsum("fkj,fj->fk", B * B, 1.0 / den) / c[:, None]
-    fit = p_in @ sh.A.T
-    if fr.background:
-        bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
-        fit = fit + bg[:, None]
-        n_eff = n_eff + 1.0
-    else:
-        bg = np.zeros(len(rows))
-    resid = fr.y[rows] - fit
-    chi2 = np.einsum("fm,fm->f", fr.w[rows], resid * resid)
+    n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
     dof = np.maximum(n - n_eff, 1.0)
-    noise = np.ones(len(rows)) if fr.known_sigma else chi2 / dof
+    cov = None
+    if full == "stats":  # I0, Rg and their posterior variances only (the Dmax scan)
+        chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    else:
+        if nonnegative:
+            p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
+            n_eff = n_eff + (1.0 if fr.background else 0.0)
+            dof = np.maximum(n - n_eff, 1.0)
+            var = np.einsum("fkk->fk", cov)
+        else:
+            # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
+            B = sh.Li.T @ Qf
+            var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
+        fit = p_in @ sh.A.T
+        if fr.background:
+            bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
+            fit = fit + bg[:, None]
+        else:
+            bg = np.zeros(len(rows))
+        resid = fr.y[rows] - fit
+        chi2 = np.einsum("fm,fm->f", fr.w[rows], resid * resid)
+    noise = np.ones(len(rows)) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
     h = sh.h
     tot = p_in.sum(axis=1)
     mom = p_in @ sh.m2
     with np.errstate(invalid="ignore", divide="ignore"):
         rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
         if cov is None:
-            g1 = np.einsum("k,fkj->fj", sh.li_one, Qf)  # (Li 1)^T Q
-            g2 = np.einsum("k,fkj->fj", sh.li_m2, Qf)
+            g1 = sh.li_one @ Qf  # (Li 1)^T Q, (F, K)
+            g2 = sh.li_m2 @ Qf
             v_one = np.sum(g1 * g1 / den, axis=1) / c
             gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
             v_rg2 = np.sum(gr * gr / den, axis=1) / c
@@ -540,6 +543,14 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
         rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
     out.update(
+        i0=4 * np.pi * h * tot,
+        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
+        rg=rg,
+        rg_sigma=rg_sigma,
+    )
+    if full == "stats":
+        return out
+    out.update(
         p_inner=p_in,
         p_var=var * noise[:, None],
         fit=fit,
@@ -547,10 +558,6 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         chi2=chi2,
         chi2_reduced=chi2 / dof if fr.known_sigma else np.full(len(rows), np.nan),
         n_eff=n_eff,
-        i0=4 * np.pi * h * tot,
-        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
-        rg=rg,
-        rg_sigma=rg_sigma,
     )
     return out
 
@@ -718,8 +725,8 @@ def distance_distribution(
         "p_sigma": np.full((F, n_r), np.nan),
         "fit": np.full((F, q.size), np.nan),
     }
-    for key in ("chi2_reduced", "n_effective", "rg", "rg_sigma", "i0", "i0_sigma", "dmax", "weight",
-                "log_evidence", "shannon_channels", "background"):
+    for key in ("chi2_reduced", "n_effective", "rg", "rg_sigma", "i0", "i0_sigma", "dmax", "dmax_sigma",
+                "weight", "log_evidence", "shannon_channels", "background"):
         out[key] = np.full(F, np.nan)
     out["dmax_candidates"] = np.broadcast_to(cand, (F, cand.size)).copy()
     out["dmax_score"] = np.full((F, cand.size), np.nan)
@@ -728,7 +735,7 @@ def distance_distribution(
         fr = _Frames(q, I[good], None if S is None else S[good], usable[good], background)
         idx = np.arange(good.size)
         if auto:
-            d_sel, score, edge = _scan_dmax(q, fr, cand, n_r, weight)
+            d_sel, score, edge, spread = _scan_dmax(q, fr, cand, n_r, weight)
             out["dmax_score"][good] = score
             status[good[edge]] = "dmax_at_scan_edge"
         else:
@@ -740,6 +747,12 @@ def distance_distribution(
             status[good[small]] = "dmax_too_small"
         if auto:
             out["dmax_score"][good] -= res["evidence"][:, None]
+            out["dmax_sigma"][good] = spread["dmax"]
+            for key in ("i0", "rg"):
+                s_key = key + "_sigma"
+                out[s_key][good] = np.sqrt(out[s_key][good] ** 2 + spread[key] ** 2)
+        else:
+            out["dmax_sigma"][good] = 0.0
     out["n_points"] = n_pts
     out["q_min"], out["q_max"] = q_min, q_max
     out["shannon_channels"] = q_max * out["dmax"] / np.pi
@@ -794,53 +807,83 @@ def _store(out, res, good, n_r):
     out["log_evidence"][good] = res["evidence"]
 
 
-def _evidence_at(q, fr, rows, dvals, n_r, weight):
-    """Log evidence of frames ``rows`` at Dmax ``dvals`` (grouped by value)."""
-    ev = np.empty(rows.size)
+def _evaluate_at(q, fr, rows, dvals, n_r, weight, full):
+    """Evaluate frames ``rows`` at Dmax ``dvals`` (one per frame; grouped by value)."""
+    res: dict = {}
     values, inverse = np.unique(dvals, return_inverse=True)
-    for k, value in enumerate(values):
+    for k, value in enumerate(values):  # one shared matrix per distinct Dmax
         sel = inverse.ravel() == k
-        ev[sel] = _evaluate(_shared(q, value, n_r), fr, rows[sel], weight, full=False)["evidence"]
-    return ev
+        part = _evaluate(_shared(q, value, n_r), fr, rows[sel], weight, full=full)
+        for key, v in part.items():
+            if key not in res:
+                res[key] = np.empty((rows.size, *v.shape[1:]))
+            res[key][sel] = v
+    return res
 
 
 def _scan_dmax(q, fr, cand, n_r, weight):
-    """Coarse scan over ``cand`` for all frames, then three bisection steps on the
-    grid with ``_N_SUB`` log steps per interval. Returns Dmax, the coarse score and
-    the frames whose best coarse candidate is at an end."""
+    """The automatic Dmax (module notes).
+
+    1. every candidate for every frame (log evidence, I0, Rg);
+    2. around each frame's best candidate c, the grid ``_N_SUB`` times finer (in log
+       Dmax) from c - 1 to c + 1; the best of all evaluated values is the Dmax;
+    3. the posterior over log Dmax (flat prior in log Dmax, the evidence as likelihood,
+       a Riemann sum over the evaluated values) gives the spread of Dmax, I0 and Rg
+       about their values at the chosen Dmax.
+
+    Returns Dmax, the coarse score (F, n_c), the edge flags and the spreads
+    (dmax, i0, rg)."""
     F = fr.w.shape[0]
     rows = np.arange(F)
-    score = np.empty((F, cand.size))
+    nc = cand.size
+    coarse = {key: np.empty((F, nc)) for key in ("evidence", "i0", "rg")}
     for k, value in enumerate(cand):
-        score[:, k] = _evaluate(_shared(q, value, n_r), fr, rows, weight, full=False)["evidence"]
-    score = np.where(np.isfinite(score), score, -np.inf)
+        part = _evaluate(_shared(q, value, n_r), fr, rows, weight, full="stats")
+        for key in coarse:
+            coarse[key][:, k] = part[key]
+    score = np.where(np.isfinite(coarse["evidence"]), coarse["evidence"], -np.inf)
     best_c = np.argmax(score, axis=1)
-    edge = (best_c == 0) | (best_c == cand.size - 1)
+    edge = (best_c == 0) | (best_c == nc - 1)
     lc = np.log(cand)
-
-    def fine_value(j):  # j in units of 1/_N_SUB of a candidate interval
-        c0 = np.clip(j // _N_SUB, 0, cand.size - 2)
-        t = (j - c0 * _N_SUB) / _N_SUB
-        return np.exp(lc[c0] + t * (lc[c0 + 1] - lc[c0]))
-
-    j_best = best_c * _N_SUB
-    e_best = score[rows, best_c]
-    j_max = (cand.size - 1) * _N_SUB
-    step = _N_SUB // 2
-    while step >= 1:
-        for sign in (-1, 1):
-            j = j_best + sign * step
-            ok = (j >= 0) & (j <= j_max)
-            r_ok = rows[ok]
-            if r_ok.size:
-                e = _evidence_at(q, fr, r_ok, fine_value(j[ok]), n_r, weight)
-                better = e > e_best[r_ok]
-                j_new = j_best.copy()
-                j_new[r_ok[better]] = j[ok][better]
-                e_best[r_ok[better]] = e[better]
-                j_best = j_new
-        step //= 2
-    return fine_value(j_best), score, edge
+    steps = np.arange(-_N_SUB, _N_SUB + 1)
+    j = best_c[:, None] * _N_SUB + steps[None, :]  # fine indices, (F, 2 _N_SUB + 1)
+    inside = (j >= 0) & (j <= (nc - 1) * _N_SUB)
+    c0 = np.clip(j // _N_SUB, 0, nc - 2)
+    t = (j - c0 * _N_SUB) / _N_SUB
+    d_fine = np.exp(lc[c0] + t * (lc[c0 + 1] - lc[c0]))
+    fine = {key: np.full(j.shape, np.nan) for key in coarse}
+    on_coarse = inside & (j % _N_SUB == 0)
+    cidx = np.clip(j // _N_SUB, 0, nc - 1)
+    for key in coarse:
+        fine[key][on_coarse] = coarse[key][np.nonzero(on_coarse)[0], cidx[on_coarse]]
+    todo = inside & ~on_coarse
+    f_idx, s_idx = np.nonzero(todo)
+    part = _evaluate_at(q, fr, f_idx, d_fine[todo], n_r, weight, "stats")
+    for key in coarse:
+        fine[key][f_idx, s_idx] = part[key]
+    ev_fine = np.where(np.isfinite(fine["evidence"]), fine["evidence"], -np.inf)
+    pick = np.argmax(ev_fine, axis=1)
+    d_best = d_fine[rows, pick]
+    # posterior weights over log Dmax: fine window (trapezoid, step 1/_N_SUB of an
+    # interval) and the coarse candidates outside it (step 1)
+    w_fine = np.where(inside, 1.0 / _N_SUB, 0.0)
+    w_fine[:, [0, -1]] = 0.5 / _N_SUB + 0.5
+    dist = np.abs(np.arange(nc)[None, :] - best_c[:, None])
+    w_coarse = np.where(dist >= 2, 1.0, 0.0)
+    e_all = np.concatenate([ev_fine, score], axis=1)
+    w_all = np.concatenate([w_fine, w_coarse], axis=1)
+    vals = {key: np.concatenate([fine[key], coarse[key]], axis=1) for key in ("i0", "rg")}
+    vals["dmax"] = np.concatenate([d_fine, np.broadcast_to(cand, (F, nc))], axis=1)
+    ok = np.isfinite(e_all) & (w_all > 0) & np.isfinite(vals["rg"]) & np.isfinite(vals["i0"])
+    e_max = np.max(np.where(ok, e_all, -np.inf), axis=1, keepdims=True)
+    prob = np.where(ok, w_all * np.exp(np.where(ok, e_all - e_max, -np.inf)), 0.0)
+    prob /= np.maximum(prob.sum(axis=1, keepdims=True), 1e-300)
+    centre = {"dmax": d_best, "i0": fine["i0"][rows, pick], "rg": fine["rg"][rows, pick]}
+    spread = {}
+    for key, v in vals.items():
+        dev = np.where(ok, v - centre[key][:, None], 0.0)
+        spread[key] = np.sqrt(np.sum(prob * dev * dev, axis=1))
+    return d_best, score, edge, spread
 
 
 def _dmax_check(q, fr, res, d_sel, n_r, weight):
@@ -856,6 +899,6 @@ def _dmax_check(q, fr, res, d_sel, n_r, weight):
     flag = np.zeros(F, dtype=bool)
     r_s = rows[suspect]
     if r_s.size:
-        e_long = _evidence_at(q, fr, r_s, 1.5 * d_sel[r_s], n_r, weight)
+        e_long = _evaluate_at(q, fr, r_s, 1.5 * d_sel[r_s], n_r, weight, False)["evidence"]
         flag[r_s] = e_long - res["evidence"][r_s] > _DECISIVE
     return flag
