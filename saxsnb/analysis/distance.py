@@ -129,6 +129,14 @@ NEW_STATUS_CODES = {
         "the best Dmax lies at the edge of the scanned range: widen the Dmax candidates "
         "(at the long end the q range may be too short to see the particle's size)",
     ),
+    "poor_fit": (
+        "chi2_reduced above both 1.5 and 1 + 5 sqrt(2 / dof): the fit misses the data beyond "
+        "their errors (and a longer Dmax does not help): numbers kept",
+        "sigma",
+        "the p(r) fit misses the data by more than their errors: sigma may be too small, or the "
+        "data hold something a single p(r) does not describe (aggregates, interparticle "
+        "interference, a background: try background=True)",
+    ),
     "negative_i0": (
         "I0 from p(r) is zero or negative: Rg is NaN, p(r) kept",
         "intensity",
@@ -711,8 +719,10 @@ def distance_distribution(
         cand = default_dmax_candidates(q, q_range) if dmax_candidates is None else _check_candidates(
             dmax_candidates)
     else:
-        d = np.broadcast_to(np.asarray(dmax, dtype=float), (F,)) if np.ndim(dmax) <= 1 else None
-        if d is None or d.shape != (F,):
+        d = np.asarray(dmax, dtype=float)
+        if d.ndim == 0:
+            d = np.full(F, float(d))
+        if d.shape != (F,):
             raise SaxsInputError(f"dmax must be a number or an array of {F} values", parameter="dmax")
         if np.any(~np.isfinite(d) | (d <= 0)):
             bad = int(np.flatnonzero(~np.isfinite(d) | (d <= 0))[0])
@@ -742,6 +752,11 @@ def distance_distribution(
             d_sel = d[good]
         res = _solve_grouped(q, fr, idx, d_sel, n_r, weight, nonnegative)
         _store(out, res, good, n_r)
+        if fr.known_sigma:
+            dof = np.maximum(fr.n - res["n_eff"], 1.0)
+            red = res["chi2"] / dof
+            poor = (red > 1.5) & (red > 1.0 + 5.0 * np.sqrt(2.0 / dof))
+            status[good[poor & (status[good] == "ok")]] = "poor_fit"
         if not auto:
             small = _dmax_check(q, fr, res, d_sel, n_r, weight)
             status[good[small]] = "dmax_too_small"
@@ -876,6 +891,7 @@ def _scan_dmax(q, fr, cand, n_r, weight):
     vals["dmax"] = np.concatenate([d_fine, np.broadcast_to(cand, (F, nc))], axis=1)
     ok = np.isfinite(e_all) & (w_all > 0) & np.isfinite(vals["rg"]) & np.isfinite(vals["i0"])
     e_max = np.max(np.where(ok, e_all, -np.inf), axis=1, keepdims=True)
+    e_max = np.where(np.isfinite(e_max), e_max, 0.0)  # no usable value: no spread
     prob = np.where(ok, w_all * np.exp(np.where(ok, e_all - e_max, -np.inf)), 0.0)
     prob /= np.maximum(prob.sum(axis=1, keepdims=True), 1e-300)
     centre = {"dmax": d_best, "i0": fine["i0"][rows, pick], "rg": fine["rg"][rows, pick]}
