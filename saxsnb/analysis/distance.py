@@ -30,8 +30,9 @@ precision alpha D2^T D2 on p and Gaussian noise of known sigma, the log evidence
 
 where s_k are the eigenvalues of the data term in the prior's metric (the generalised
 eigenvalue problem of (A^T W A, D2^T D2), scaled as the weight is) and w the weight.
-The weight maximising log E on a log grid (4 per decade, 1e-12 .. 1e2, then a
-parabola through the best three) is used. The same log E, maximised over the weight, scores
+The weight maximising log E is used: a log grid 1e-12 .. 1e2 of one value per decade,
+then eight per decade within a decade of the best, then a parabola through the best
+three. The same log E, maximised over the weight, scores
 each candidate Dmax: the prior has the same shape for every Dmax (the grid is
 stretched), so the scores are comparable, and too short a Dmax loses by misfit while
 too long a one loses by its Occam factor. Without ``sigma`` the weights are equal and
@@ -56,9 +57,25 @@ cached). The per-frame data term A^T W A is one matrix product of the weights
 are the same up to a factor (no sigma, or sigma in proportion, same usable points)
 share one eigendecomposition; other frames (their own sigma, NaN or masked points) get
 their own small (n_r - 2)^2 eigendecomposition, batched. The weight search is then
-elementwise over (frame, weight, eigenvalue). The Dmax scan evaluates a coarse set of
-candidates for all frames, then refines each frame on a grid eight times finer by three
-bisection steps (two evaluations each), frames sharing a candidate evaluated together.
+elementwise over (frame, weight, eigenvalue).
+
+**Automatic Dmax.** All candidates (default :func:`default_dmax_candidates`, 24 values
+depending on the q grid only) are scored for every frame; around each frame's best
+candidate the grid eight times finer in log Dmax is scored up to the neighbouring
+candidates, and the best value of all is the Dmax. The evidence over log Dmax (flat
+prior in log Dmax) gives a posterior; its spread about the chosen value is
+``dmax_sigma``, and the spreads of I0 and Rg over it are added in quadrature to their
+posterior uncertainties, so an ill-defined Dmax widens them (Hansen 2000 averages over
+Dmax in the same spirit). With a fixed Dmax nothing is added. A Dmax found this way
+tends to fall a few per cent short of the true maximum dimension: the last pairs are
+few (a sphere's p(r) ends as (2R - r)^2) and sink into the noise. A particle with no
+sharp maximum dimension (a Gaussian chain, a polydisperse sample) gets the Dmax where
+p(r) disappears in the noise, and Rg from p(r) comes out a little low (a Gaussian chain
+at 1 % noise: about 4 Rg, Rg 1-2 % low); fix Dmax generously (>= 6 Rg) for such samples.
+
+**Resolution.** p(r) is resolved on n_r points; for very precise data (relative
+errors well below 1 % near the minima of I(q)) the piecewise-linear p(r) can limit the
+fit: raise ``n_r`` when the status is "poor_fit" on such data.
 
 **Shannon channels** N = q_max Dmax / pi (Moore 1980, J. Appl. Cryst. 13, 168; the
 number of independent parameters the data carry about p(r)). Below ``min_channels``
@@ -665,6 +682,7 @@ def distance_distribution(
     - ``fit`` (n_frames, n_q) the back-calculated intensity at every q (NaN for a failed frame);
     - ``chi2_reduced``, ``n_effective`` (effective number of parameters), ``rg``,
       ``rg_sigma`` (nm), ``i0``, ``i0_sigma`` (intensity units), ``dmax`` (nm),
+      ``dmax_sigma`` (nm; the spread of the Dmax posterior, 0 for a fixed Dmax),
       ``weight`` (dimensionless), ``log_evidence``, ``shannon_channels``,
       ``background``, ``n_points``, ``q_min``, ``q_max`` (1/nm), ``status`` (str);
     - ``dmax_candidates``, ``dmax_score`` (n_frames, n_candidates): the candidates
