@@ -12,6 +12,7 @@ attrs and one history format on the result):
   ``kratky_summary``;
 - :mod:`saxsnb.accessor.phases`: ``find_peaks``, ``index_phases``, ``phase_map``,
   ``phase_report``;
+- :mod:`saxsnb.accessor.distance`: ``distance_distribution``;
 - :mod:`saxsnb.accessor.tables`: ``to_dataframe``, ``to_csv``.
 """
 
@@ -20,6 +21,7 @@ from __future__ import annotations
 import xarray as xr
 
 from ._core import AccessorBase, OutputSpec, provenance, result_attrs
+from .distance import DistanceMethods
 from .linear import LinearMethods
 from .phases import PhaseMethods
 from .series import SeriesMethods
@@ -29,7 +31,7 @@ __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_a
 
 
 @xr.register_dataset_accessor("saxs")
-class SaxsAccessor(SeriesMethods, LinearMethods, PhaseMethods, TableMethods):
+class SaxsAccessor(SeriesMethods, LinearMethods, DistanceMethods, PhaseMethods, TableMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples

@@ -9,7 +9,8 @@ from ``saxsnb.analysis``.
 
 Subjects: linear regions (:func:`guinier`, :func:`porod`, :func:`invariant`, the plot
 table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), peaks
-(:func:`find_peaks`, :func:`track_peaks`), phases (:func:`index_phases`,
+(:func:`find_peaks`, :func:`track_peaks`), the distance distribution
+(:func:`distance_distribution`, :func:`forward_transform`), phases (:func:`index_phases`,
 :func:`phase_map`, :func:`q_positions`), corrections (:func:`subtract_background`,
 :func:`scale_intensity`) and the status table (:data:`STATUS`).
 
@@ -21,6 +22,13 @@ table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), pe
 """
 
 from ._corrections import scale_intensity, subtract_background
+from ._distance import (
+    default_dmax_candidates,
+    distance_distribution,
+    forward_transform,
+    sphere_distance_distribution,
+    transform_matrix,
+)
 from ._guinier import guinier, guinier_search, rod_length
 from ._indexing import PHASE_OUTPUTS, index_phases
 from ._invariant import guinier_integrals, invariant
@@ -78,6 +86,12 @@ __all__ = [
     "find_peaks",
     "link_peaks",
     "track_peaks",
+    # distance distribution
+    "distance_distribution",
+    "forward_transform",
+    "transform_matrix",
+    "default_dmax_candidates",
+    "sphere_distance_distribution",
     # phases
     "PHASES",
     "allowed_reflections",

@@ -65,7 +65,7 @@ STATUS: dict[str, Status] = {
     "too_few_points": Status(
         "fewer usable points than the fit needs",
         "q_range",
-        "fewer than 3 usable points in the q range: widen the range",
+        "too few usable points in the q range for this fit: widen the range",
     ),
     "negative_intensity": Status(
         "I <= 0 where a logarithm is needed",
@@ -114,6 +114,35 @@ STATUS: dict[str, Status] = {
         "q_range",
         "the curve does not yet fall as q^-4 on this range: the Porod constant "
         "and the quantities built on it do not apply here",
+    ),
+    "too_few_shannon_channels": Status(
+        "q_max Dmax / pi below min_channels (default 3): numbers kept",
+        "q_range",
+        "the q range holds too little information for a p(r) (too few Shannon channels): "
+        "extend q_max or read only I0 and Rg",
+    ),
+    "dmax_too_small": Status(
+        "fixed Dmax: the fit misses the data and a 1.5 times longer Dmax is decisively more probable",
+        "dmax",
+        "Dmax is too short for these data: the particle is larger; increase Dmax",
+    ),
+    "dmax_at_scan_edge": Status(
+        "automatic Dmax: the best candidate is the shortest or the longest scanned: numbers kept",
+        "dmax_candidates",
+        "the best Dmax lies at the edge of the scanned range: widen the Dmax candidates "
+        "(at the long end the q range may be too short to see the particle's size)",
+    ),
+    "poor_fit": Status(
+        "chi2_reduced above both 1.5 and 1 + 5 sqrt(2 / dof): numbers kept",
+        "sigma",
+        "the fit misses the data by more than their errors: sigma may be too small, or the data "
+        "hold something one model does not describe (aggregates, interparticle interference, a "
+        "background: try background=True)",
+    ),
+    "negative_i0": Status(
+        "I0 from p(r) is zero or negative: Rg is NaN, p(r) kept",
+        "intensity",
+        "I0 from p(r) is zero or negative (check the background subtraction)",
     ),
     "no_peaks": Status(
         "no peak above the prominence threshold", "min_prominence", "no Bragg peaks found in this frame"

@@ -1,0 +1,272 @@
+"""Regularised solutions of many frames at once: data terms, the evidence of each weight,
+the choice of the weight, non-negativity (see saxsnb.analysis._distance).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.optimize import nnls
+
+from ._distance_basis import (  # noqa: F401
+    _CACHE_SIZE,
+    _g,
+    _gprime,
+    _hat_matrix,
+    _range_bounds,
+    _second_differences,
+    _Shared,
+    _shared,
+    default_dmax_candidates,
+    forward_transform,
+    sphere_distance_distribution,
+    transform_matrix,
+)
+
+__all__ = []
+
+
+_CHUNK = 512  # frames per block in the weight search (memory ~ chunk * n_weights * n_r)
+
+
+_TABLE_MIN_FRAMES = 16  # at or above: data terms through the shared product table
+
+
+_WEIGHTS_COARSE = 10.0 ** np.arange(-12.0, 2.5)  # weight search: one per decade, then
+
+
+_FINE_PER_DECADE = 8  # eight per decade around the best
+
+
+_FLOOR = 1e-13  # weights below this times the largest eigenvalue are not resolved
+
+
+# --------------------------------------------------------------------- the engine
+class _Frames:
+    """Weighted data of the frames (zero weight on unused points)."""
+
+    def __init__(self, q, I, S, usable, background):
+        self.known_sigma = S is not None
+        w = np.where(usable, 1.0 / np.where(usable, S if S is not None else 1.0, 1.0) ** 2, 0.0)
+        y = np.where(usable, I, 0.0)
+        self.q, self.w, self.y = q, w, y
+        self.wy = w * y
+        self.yy = np.einsum("fm,fm->f", self.wy, y)
+        self.n = np.count_nonzero(usable, axis=1)
+        self.background = background
+        if background:
+            self.sw = w.sum(axis=1)
+            self.swy = self.wy.sum(axis=1)
+            self.yy = self.yy - self.swy**2 / self.sw
+        # frames with the same weights up to a factor share one eigendecomposition
+        scale = w.max(axis=1, keepdims=True)
+        with np.errstate(divide="ignore"):
+            key = np.where(w > 0, np.round(np.log(w / np.where(scale > 0, scale, 1.0)), 10), -1e300)
+        _, self.rep, self.group = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        self.group = self.group.ravel()
+        self.scale = scale[:, 0]
+
+
+def _data_terms(sh, fr, rows):
+    """Li A^T W A Li^T (len(rows), K, K), its trace in the p metric, Li A^T W y."""
+    w = fr.w[rows]
+    K = sh.K
+    if len(rows) >= _TABLE_MIN_FRAMES:
+        G = (w @ sh.table).reshape(len(rows), K, K)
+    else:
+        G = np.einsum("mi,fm,mj->fij", sh.At, w, sh.At)
+    trace = w @ sh.rownorm2
+    if fr.background:
+        u = w @ sh.At
+        G -= u[:, :, None] * u[:, None, :] / fr.sw[rows, None, None]
+        trace = trace - np.einsum("fk,fk->f", w @ sh.A, w @ sh.A) / fr.sw[rows]
+    return G, trace
+
+
+def _rhs(sh, fr, rows):
+    b = fr.wy[rows] @ sh.At
+    if fr.background:
+        b = b - (fr.w[rows] @ sh.At) * (fr.swy[rows] / fr.sw[rows])[:, None]
+    return b
+
+
+def _log_evidence(s, cc2, yy, n, lam, known_sigma):
+    """log E (up to a constant) for weights lam; s, cc2 (..., K), yy, n (...)."""
+    den = s + lam[..., None]
+    misfit = yy - np.sum(cc2 / den, axis=-1)  # chi2 + alpha |D2 p|^2
+    occam = 0.5 * np.sum(np.log(lam[..., None] / den), axis=-1)
+    if known_sigma:
+        return -0.5 * misfit + occam
+    return -0.5 * n * np.log(np.maximum(misfit, 1e-300)) + occam
+
+
+def _choose_weight(s, cc2, yy, n, known_sigma):
+    """Evidence-maximising weight per frame: a grid of one value per decade, then eight
+    per decade within a decade of the best, then a parabola in log w through the best
+    three (all frames at once)."""
+    F = s.shape[0]
+    floor = _FLOOR * s.max(axis=1)
+
+    def scan(grid):  # grid (F, G) -> log E (F, G), -inf where unresolved
+        e = _log_evidence(s[:, None, :], cc2[:, None, :], yy[:, None], n[:, None], grid, known_sigma)
+        return np.where((grid > floor[:, None]) & np.isfinite(e), e, -np.inf)
+
+    coarse = np.broadcast_to(_WEIGHTS_COARSE, (F, _WEIGHTS_COARSE.size))
+    e = scan(coarse)
+    lg0 = np.log10(coarse[np.arange(F), np.argmax(e, axis=1)])
+    steps = np.arange(-_FINE_PER_DECADE, _FINE_PER_DECADE + 1) / _FINE_PER_DECADE
+    lg = np.clip(lg0[:, None] + steps[None, :], np.log10(_WEIGHTS_COARSE[0]), np.log10(_WEIGHTS_COARSE[-1]))
+    e = scan(10.0**lg)
+    rows = np.arange(F)
+    best = np.argmax(e, axis=1)
+    k = np.clip(best, 1, steps.size - 2)
+    e0, em, ep = e[rows, k], e[rows, k - 1], e[rows, k + 1]
+    curv = ep - 2 * e0 + em
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(np.isfinite(curv) & (curv < 0), 0.5 * (em - ep) / curv, 0.0)
+    shift = np.clip(np.nan_to_num(shift), -1.0, 1.0) / _FINE_PER_DECADE
+    cand = 10.0 ** np.where(best == k, lg[rows, k] + shift, lg[rows, best])
+    ec = np.where(cand > floor, _log_evidence(s, cc2, yy, n, cand, known_sigma), -np.inf)
+    eb = e[rows, best]
+    better = ec >= eb
+    return np.where(better, cand, 10.0 ** lg[rows, best]), np.where(better, ec, eb)
+
+
+def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
+    """Solve the frames ``rows`` at one Dmax, in blocks of frames; evidence and weight
+    only unless ``full``."""
+    rows = np.asarray(rows)
+    parts = [
+        _evaluate_block(sh, fr, rows[a : a + _CHUNK], weight, full, nonnegative)
+        for a in range(0, rows.size, _CHUNK)
+    ]
+    return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
+
+
+def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
+    groups, where = np.unique(fr.group[rows], return_inverse=True)
+    where = where.ravel()
+    rep_rows = fr.rep[groups]
+    G, trace = _data_terms(sh, fr, rep_rows)
+    c_rep = trace / sh.trace_omega
+    Gs = G / c_rep[:, None, None]
+    s, Q = np.linalg.eigh(Gs)
+    s = np.maximum(s, 0.0)
+    # weights in proportion to the representative's: c in the same proportion
+    c = c_rep[where] * fr.scale[rows] / fr.scale[rep_rows][where]
+    b = _rhs(sh, fr, rows) / np.sqrt(c)[:, None]
+    sf = s[where]
+    Qf = Q[where] if len(groups) > 1 else np.broadcast_to(Q[0], (len(rows), sh.K, sh.K))
+    cc = (b[:, None, :] @ Qf)[:, 0, :]
+    cc2 = cc * cc
+    yy, n = fr.yy[rows], fr.n[rows].astype(float)
+    if weight is None:
+        lam, ev = _choose_weight(sf, cc2, yy, n, fr.known_sigma)
+    else:
+        lam = np.full(len(rows), float(weight))
+        ev = _log_evidence(sf, cc2, yy, n, lam, fr.known_sigma)
+    out = {"evidence": ev, "weight": lam}
+    if not full:
+        return out
+    den = sf + lam[:, None]
+    z = cc / den
+    u = (Qf @ z[:, :, None])[:, :, 0]
+    p_in = (u @ sh.Li) / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
+    n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
+    dof = np.maximum(n - n_eff, 1.0)
+    cov = None
+    if full == "stats":  # I0, Rg and their posterior variances only (the Dmax scan)
+        chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    else:
+        if nonnegative:
+            p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
+            n_eff = n_eff + (1.0 if fr.background else 0.0)
+            dof = np.maximum(n - n_eff, 1.0)
+            var = np.einsum("fkk->fk", cov)
+        else:
+            # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
+            B = sh.Li.T @ Qf
+            var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
+        fit = p_in @ sh.A.T
+        if fr.background:
+            bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
+            fit = fit + bg[:, None]
+        else:
+            bg = np.zeros(len(rows))
+        resid = fr.y[rows] - fit
+        chi2 = np.einsum("fm,fm->f", fr.w[rows], resid * resid)
+    noise = np.ones(len(rows)) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
+    h = sh.h
+    tot = p_in.sum(axis=1)
+    mom = p_in @ sh.m2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
+        if cov is None:
+            g1 = sh.li_one @ Qf  # (Li 1)^T Q, (F, K)
+            g2 = sh.li_m2 @ Qf
+            v_one = np.sum(g1 * g1 / den, axis=1) / c
+            gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
+            v_rg2 = np.sum(gr * gr / den, axis=1) / c
+        else:
+            v_one = np.einsum("fij->f", cov)
+            gr = (sh.m2[None, :] - 2 * rg2[:, None]) / (2 * tot)[:, None]
+            v_rg2 = np.einsum("fi,fij,fj->f", gr, cov, gr)
+        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
+        rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
+    out.update(
+        i0=4 * np.pi * h * tot,
+        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
+        rg=rg,
+        rg_sigma=rg_sigma,
+    )
+    if full == "stats":
+        return out
+    out.update(
+        p_inner=p_in,
+        p_var=var * noise[:, None],
+        fit=fit,
+        background=bg,
+        chi2=chi2,
+        chi2_reduced=chi2 / dof if fr.known_sigma else np.full(len(rows), np.nan),
+        n_eff=n_eff,
+    )
+    return out
+
+
+def _nonnegative(sh, Gs, c, b, lam, p0, max_iter=30):
+    """p >= 0 by the primal-dual active-set method, all frames at once (module notes).
+
+    Works in the p metric scaled by 1/c: H' = Lc (Gs + lam) Lc^T, b' = Lc b / sqrt(c);
+    returns p, the posterior covariance of the free values (zero elsewhere) and the
+    effective number of parameters.
+    """
+    F, K = p0.shape
+    eye = np.eye(K)
+    H = np.einsum("ij,fjk,lk->fil", sh.Lc, Gs + lam[:, None, None] * eye, sh.Lc)
+    rhs = (b @ sh.Lc.T) / np.sqrt(c)[:, None]
+    active = p0 < 0
+    done = np.zeros(F, dtype=bool)
+    p = p0.copy()
+    for _ in range(max_iter):
+        free = ~active
+        Hm = np.where(free[:, :, None] & free[:, None, :], H, 0.0) + active[:, :, None] * eye
+        p = np.linalg.solve(Hm, np.where(free, rhs, 0.0)[..., None])[..., 0]
+        mu = np.einsum("fij,fj->fi", H, p) - rhs  # multipliers (zero on the free set)
+        # an active value whose multiplier is negative is freed; a free value below zero is held
+        new = (active & (mu > 0)) | (~active & (p < 0))
+        done = np.all(new == active, axis=1)
+        active = new
+        if done.all():
+            break
+    p = np.where(active, 0.0, p)
+    for f in np.flatnonzero(~done):  # rare: the active-set iteration has not settled
+        R = np.linalg.cholesky(H[f]).T  # H' = R^T R
+        d = np.linalg.solve(R.T, rhs[f])
+        p[f] = nnls(R, d)[0]
+        active[f] = p[f] <= 0
+    free = ~active
+    both = free[:, :, None] & free[:, None, :]
+    Hm = np.where(both, H, 0.0) + active[:, :, None] * eye
+    Hinv = np.linalg.inv(Hm) * both
+    omega = sh.Lc @ sh.Lc.T
+    n_eff = free.sum(axis=1) - lam * np.einsum("fij,ji->f", Hinv, omega)
+    return p, Hinv / c[:, None, None], n_eff
