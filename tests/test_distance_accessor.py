@@ -39,7 +39,7 @@ def test_dask_equals_in_memory(flow):
         np.testing.assert_allclose(b[k].values, a[k].values, rtol=1e-4, err_msg=k)
     for k in ("p", "fit"):
         scale = np.nanmax(np.abs(a[k].values), axis=-1, keepdims=True)
-        np.testing.assert_allclose(b[k].values / scale, a[k].values / scale, atol=1e-4, err_msg=k)
+        np.testing.assert_allclose(b[k].values / scale, a[k].values / scale, atol=5e-3, err_msg=k)
     assert (a.status.values == b.status.values).all()
 
 
