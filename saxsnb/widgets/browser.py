@@ -20,10 +20,10 @@ class SeriesBrowser(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series.
-    frame : int
-        Initial frame.
+    source : xarray.Dataset or SeriesModel
+        The series, or the model shared with other panels.
+    frame : int, optional
+        Initial frame (default: the model's).
     max_rows, max_cols : int
         Size limits of the overview map; a larger series is averaged in blocks of
         frames and q points (``display.overview_map``), and the panel says so.
@@ -41,7 +41,8 @@ class SeriesBrowser(PanelBase):
     rows : bqplot.GridHeatMap
         Transparent row targets over the map: clicking a row selects its frame
         (``rows.on_element_click``, and ``rows.selected`` with the click-select
-        interaction). From Python: :meth:`select_row` or the handler ``_on_row_click``.
+        interaction, cleared once read). From Python: :meth:`select_row` or the
+        handler ``_on_row_click``.
     marker : bqplot.Lines
         Horizontal line at the current frame.
 
@@ -51,10 +52,11 @@ class SeriesBrowser(PanelBase):
     name = "browser"
     title = "Series browser"
 
-    def __init__(self, ds, *, frame: int = 0, max_rows: int = 400, max_cols: int = 400, **kwargs):
+    def __init__(self, source, *, frame: int | None = None, max_rows: int = 400, max_cols: int = 400,
+                 **kwargs):
         self._max_rows = int(max_rows)
         self._max_cols = int(max_cols)
-        super().__init__(ds, frame=frame, **kwargs)
+        super().__init__(source, frame=frame, **kwargs)
 
     # ---------------------------------------------------------------- build
     def _build(self):
@@ -76,9 +78,7 @@ class SeriesBrowser(PanelBase):
         widgets.link((self.slider, "value"), (self, "frame"))
         self.label = widgets.HTML("")
 
-        omap = overview_map(
-            self.q, self.ds.saxs.masked()[0].values, max_rows=self._max_rows, max_cols=self._max_cols
-        )
+        omap = overview_map(self.q, self.model.masked()[0], max_rows=self._max_rows, max_cols=self._max_cols)
         self.overview = omap
         centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
         y = self.scan_values[centre] if self._monotonic() else centre.astype(float)
@@ -201,7 +201,13 @@ class SeriesBrowser(PanelBase):
         sel = change["new"]
         if sel is None or np.size(sel) == 0:
             return
-        self.select_row(int(np.asarray(sel).reshape(-1, 2)[-1, 0]))
+        row = int(np.asarray(sel, dtype=float).reshape(-1, 2)[-1, 0])
+        # the selection is cleared at once: the browser sends it as an object-typed
+        # array, which cannot be serialised again (a second view or a reload of the
+        # page would stay at "Loading widget"), and its outline would stay on the
+        # clicked row beside the current-frame line
+        self.rows.selected = None
+        self.select_row(row)
 
     # ---------------------------------------------------------------- update
     def _update(self) -> None:
