@@ -38,7 +38,7 @@ class SeriesBrowser(PanelBase):
         The current frame's scan value and units, e.g. "temperature 45.5 degC".
     heatmap : bqplot.HeatMap
         log10 I over (q, scan).
-    rows : bqplot.GridHeatMap
+    rows : bqplot.GridHeatMap (``_bq.CellTargets``: its selection stays serialisable)
         Transparent row targets over the map: clicking a row selects its frame
         (``rows.on_element_click``, and ``rows.selected`` with the click-select
         interaction, cleared once read). From Python: :meth:`select_row` or the
@@ -108,7 +108,7 @@ class SeriesBrowser(PanelBase):
         qx = omap["q"]
         q_edges = np.array([qx[0], np.sqrt(qx[0] * qx[-1]) if qx[0] > 0 else 0.5 * (qx[0] + qx[-1]), qx[-1]])
         y_edges = self._edges(self._row_y)
-        self.rows = bq.GridHeatMap(
+        self.rows = bq.CellTargets(
             # invisible click targets: every cell gets the value 0 of a transparent scale
             # (bqplot colours NaN cells black: null_color only applies to None)
             color=np.zeros((self._row_y.size, 2)),
@@ -202,10 +202,8 @@ class SeriesBrowser(PanelBase):
         if sel is None or np.size(sel) == 0:
             return
         row = int(np.asarray(sel, dtype=float).reshape(-1, 2)[-1, 0])
-        # the selection is cleared at once: the browser sends it as an object-typed
-        # array, which cannot be serialised again (a second view or a reload of the
-        # page would stay at "Loading widget"), and its outline would stay on the
-        # clicked row beside the current-frame line
+        # cleared at once: the outline would stay on the clicked row beside the
+        # current-frame line after moving on
         self.rows.selected = None
         self.select_row(row)
 
