@@ -16,6 +16,9 @@ from .palette import OKABE_ITO, ROLE
 
 __all__ = ["KratkyPanel"]
 
+#: Frames transformed per accessor call while stepping (see KratkyPanel._frame_transform).
+BLOCK = 32
+
 
 class KratkyPanel(PanelBase):
     """The Kratky plot of the current frame and the shape summary over the series.
@@ -67,6 +70,8 @@ class KratkyPanel(PanelBase):
         self._init_normalize = normalize
         #: form ("plain" or "rg") whose fixed axis ranges are set (None: none yet)
         self._range_key: str | None = None
+        #: ((normalize, first frame), transform) of the block of frames last drawn
+        self._block: tuple | None = None
         super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_normalize, "normalize")
 
@@ -209,13 +214,24 @@ class KratkyPanel(PanelBase):
         return np.asarray(src["rg"].values, dtype=float)
 
     def _frame_transform(self, i: int) -> xr.DataArray:
-        """``ds.isel(frame=[i]).saxs.kratky(normalize=...)`` with the cached Guinier fit of
-        frame i (the same numbers: batch equals loop)."""
-        one = self.ds.isel(frame=[i])
-        if self.normalize != "rg":
-            return one.saxs.kratky(normalize=None).compute()
-        g = self._guinier()
-        return one.saxs.kratky(normalize="rg", guinier=None if g is None else g.isel(frame=[i])).compute()
+        """``ds.isel(frame=[i]).saxs.kratky(normalize=...)``, with the cached Guinier fit.
+
+        The transform is computed for a block of :data:`BLOCK` frames around ``i`` at a
+        time (one accessor call per block while stepping, a block's rows in memory) and
+        frame i taken from it: the same numbers and attrs (batch equals loop).
+        """
+        start = (i // BLOCK) * BLOCK
+        key = (self.normalize, start)
+        if self._block is None or self._block[0] != key:
+            frames = slice(start, min(start + BLOCK, self.n_frames))
+            part = self.ds.isel(frame=frames)
+            if self.normalize != "rg":
+                da = part.saxs.kratky(normalize=None)
+            else:
+                g = self._guinier()
+                da = part.saxs.kratky(normalize="rg", guinier=None if g is None else g.isel(frame=frames))
+            self._block = (key, da.compute())
+        return self._block[1].isel(frame=[i - start])
 
     def _update(self) -> None:
         i = self.frame
