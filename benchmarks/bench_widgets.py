@@ -1,12 +1,18 @@
-"""Benchmark of the linked panels: Python-side handler time and bytes sent per step.
+"""Benchmark of the linked panels: memory kept, handler time and bytes sent per step.
 
 A synthetic phase-ramp series (2,000 frames x 1,000 q points by default; set
-``SAXSNB_BENCH_FRAMES`` or pass ``--frames N`` for a smaller run) is opened with all
-panels (``saxsnb.explore``). Every widget gets a recording comm (a stand-in for the
+``SAXSNB_BENCH_FRAMES`` or pass ``--frames N`` for a smaller run), background
+subtracted and with 2 % of its points masked, is opened with all panels
+(``saxsnb.explore``). Every widget gets a recording comm (a stand-in for the
 kernel's, built on the ``comm`` package's DummyComm), so the bytes that would go to
 the browser (JSON plus binary buffers) are counted message by message.
 
 Measured:
+- the memory ``explore()`` keeps (tracemalloc: allocated while building the
+  dashboard and still held after ``gc.collect()``), as a multiple of the series'
+  intensity + sigma bytes (target <= 1.2x; before the shared model each panel kept
+  its own masked copy). Imports and first-use caches are warmed on a 5-frame
+  dashboard first, so they are not counted;
 - one frame step (``dashboard.frame += 1``): the time of all Python handlers and the
   bytes sent (targets: <= 30 ms, <= 100 kB);
 - one brush change in the Guinier panel (a new q range: the whole series is refitted
@@ -22,10 +28,12 @@ Run: ``.venv/bin/python benchmarks/bench_widgets.py [--frames N] [--steps K]``.
 from __future__ import annotations
 
 import argparse
+import gc
 import json
 import os
 import statistics
 import time
+import tracemalloc
 
 import comm
 import numpy as np
@@ -60,8 +68,29 @@ def main(argv=None) -> dict:
     t0 = time.perf_counter()
     ds, bg = make_series("phase-ramp", temperature=np.linspace(20.0, 90.0, n))
     ds = ds.saxs.subtract(bg)
+    ds["mask"] = (("frame", "q"), np.random.default_rng(1234).random(ds["intensity"].shape) < 0.02)
     t_data = time.perf_counter() - t0
-    print(f"series: {ds.sizes['frame']} frames x {ds.sizes['q']} q points (made in {t_data:.1f} s)")
+    print(f"series: {ds.sizes['frame']} frames x {ds.sizes['q']} q points, 2 % masked "
+          f"(made in {t_data:.1f} s)")
+
+    # memory kept by explore(), against the series' intensity + sigma
+    saxsnb.explore(ds.isel(frame=slice(0, 5)))  # imports and caches of first use
+    series_bytes = ds["intensity"].nbytes + ds["sigma"].nbytes
+    gc.collect()
+    tracemalloc.start()
+    dash = saxsnb.explore(ds)
+    gc.collect()
+    kept, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    del dash
+    gc.collect()
+    mem_ratio = kept / series_bytes
+    print(
+        f"memory kept by explore(): {kept / 1e6:.1f} MB = {mem_ratio:.2f}x the series' intensity + sigma "
+        f"({series_bytes / 1e6:.1f} MB; peak while building {peak / series_bytes:.1f}x): "
+        + ("ok" if mem_ratio <= 1.2 else "OVER TARGET") + " (target <= 1.2x)"
+    )
+    RecordingComm.log.clear()
 
     t0 = time.perf_counter()
     dash = saxsnb.explore(ds)
@@ -123,7 +152,8 @@ def main(argv=None) -> dict:
     )
     verdict = "ok" if step_ms <= 30 and step_kb <= 100 else "OVER TARGET"
     print(f"targets <= 30 ms and <= 100 kB per step: {verdict}")
-    return {"step_ms": step_ms, "step_kb": step_kb, "brush_ms": brush_ms, "open_s": t_open}
+    return {"step_ms": step_ms, "step_kb": step_kb, "brush_ms": brush_ms, "open_s": t_open,
+            "memory_ratio": mem_ratio}
 
 
 if __name__ == "__main__":

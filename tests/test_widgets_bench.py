@@ -20,6 +20,8 @@ def test_bench_widgets_smoke(capsys):
         sys.path.remove(str(Path(__file__).resolve().parents[1] / "benchmarks"))
     printed = capsys.readouterr().out
     assert "frame step" in printed and "brush change" in printed
+    # the memory figure is printed (at 30 frames the widgets themselves dominate it)
+    assert "memory kept by explore()" in printed and out["memory_ratio"] > 0
     # the per-step payload does not depend on the number of frames: only the current
     # frame's marks are resent (binary buffers), never the series or the map
     assert 0 < out["step_kb"] <= 100

@@ -110,7 +110,7 @@ def _fmt(v, unit="", sigma=None) -> str:
     text = f"{v:.4g}"
     if sigma is not None and np.isfinite(sigma):
         text += f" +- {sigma:.2g}"
-    return text + (f" {unit}" if unit else "")
+    return text + (f" {unit}" if unit and unit != "1" else "")  # "1": dimensionless
 
 
 def frame_lines(ds, index: int) -> list[str]:

@@ -13,9 +13,15 @@ also works alone:
 - :class:`KratkyPanel` (plain or dimensionless, reference levels, shape trend),
 - :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides).
 
+The panels of one series share a :class:`SeriesModel` (``panel.model``): the masked
+intensity and sigma once, the whole-series results cached by (analysis, parameters),
+and the current frame. ``explore()`` builds one; a panel made alone makes its own;
+every panel takes a Dataset or a model as its first argument.
+
 Every panel (:class:`PanelBase`) has the traits ``frame`` (int), ``result`` (read-only
 xarray.Dataset for the current choices), ``status`` (str, "" when no error; also shown
-in ``panel.status_line``) and ``code`` (read-only str), and the methods ``to_code()``
+in ``panel.status_line``), ``last_error`` (the exception behind it, or None) and
+``code`` (read-only str), and the methods ``to_code()``
 (Python that reproduces ``result`` from the series bound to the name ``ds``; it
 starts with ``import saxsnb`` and assigns ``result``), ``show_code()`` (what the
 "Export code" button does), ``save_png()`` / ``save_svg()`` (browser only) and
@@ -35,6 +41,7 @@ from .curve import CurvePanel
 from .dashboard import Dashboard, PanelSet, explore
 from .kratky import KratkyPanel
 from .linear import LinearFitPanel
+from .model import SeriesModel
 from .peaks import PeaksPanel
 
 __all__ = [
@@ -47,4 +54,5 @@ __all__ = [
     "LinearFitPanel",
     "KratkyPanel",
     "PeaksPanel",
+    "SeriesModel",
 ]

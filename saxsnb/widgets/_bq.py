@@ -26,6 +26,8 @@ from bqplot import (  # noqa: E402
     Scatter,
 )
 from bqplot.interacts import BrushIntervalSelector  # noqa: E402
+from bqplot.traits import array_from_json, array_to_json  # noqa: E402
+from traittypes import Array  # noqa: E402
 
 __all__ = [
     "Axis",
@@ -40,8 +42,29 @@ __all__ = [
     "LogScale",
     "Scatter",
     "BrushIntervalSelector",
+    "CellTargets",
     "clickable_points",
 ]
+
+
+def _cells_from_json(value, obj=None):
+    """A selection of grid cells from the page: an int array of (row, column) pairs.
+
+    bqplot reads the page's list of [row, column] lists as an object-typed array,
+    which it cannot serialise again: the widget's state would then break a second
+    view or a reload of the page ("Loading widget" for good).
+    """
+    import numpy as np
+
+    if isinstance(value, list):
+        return np.asarray(value, dtype=np.int64).reshape(-1, 2)
+    return array_from_json(value, obj)
+
+
+class CellTargets(GridHeatMap):
+    """A GridHeatMap whose ``selected`` cells stay an int array (always serialisable)."""
+
+    selected = Array(None, allow_none=True).tag(sync=True, from_json=_cells_from_json, to_json=array_to_json)
 
 
 def clickable_points(scales, colour, label, *, size=16, marker="circle", **options):

@@ -1,11 +1,13 @@
 """The panel base class: shared current frame, status line, code and figure export.
 
 Every panel of :mod:`saxsnb.widgets` is a :class:`PanelBase`, an ``ipywidgets.VBox``
-whose state lives in traits:
+over a :class:`~saxsnb.widgets.model.SeriesModel` (``panel.model``: the series, its
+masked arrays once, the cached whole-series results, the shared frame), whose state
+lives in traits:
 
 ``frame`` (int)
-    The current frame (position along the ``frame`` dimension). :func:`explore` links
-    the ``frame`` of all its panels, so stepping one steps them all.
+    The current frame (position along the ``frame`` dimension), linked to the model's
+    ``frame``: panels on one model (all panels of :func:`explore`) step together.
 ``result`` (xarray.Dataset, read only)
     The analysis Dataset for the current choices, set by the panel only.
 ``status`` (str)
@@ -15,6 +17,8 @@ whose state lives in traits:
     (``panel.status_text``, via ``display.describe_status``).
 ``code`` (str, read only)
     Python source that reproduces ``result`` without widgets (see :meth:`to_code`).
+``last_error`` (exception or None)
+    The exception behind the last error shown in ``status``.
 
 Code convention: the exported code expects the series in a variable named ``ds``
 (and, where a background is used, the background series in ``background``); it
@@ -23,7 +27,8 @@ given to :meth:`to_code`). So ``exec(panel.to_code(), {"ds": ds})`` re-runs the
 analysis exactly.
 
 Adding a panel (e.g. for P(r)) is one new module: subclass :class:`PanelBase`, build
-the figures in ``_build()``, compute in ``_update()`` and write ``_code_lines()``.
+the figures in ``_build()``, compute in ``_update()`` (whole-series results from
+``self.model.result(...)``, never a masked copy of its own) and write ``_code_lines()``.
 """
 
 from __future__ import annotations
@@ -37,8 +42,9 @@ import traitlets
 import xarray as xr
 
 from ..display import describe_status, drawable_line, log_ticks
-from ..series import main_scan, validate
 from . import _bq as bq
+from .model import as_model
+from .mpl import figure_to_matplotlib
 from .palette import ROLE
 
 __all__ = ["PanelBase", "DatasetTrait", "make_figure", "figure_to_matplotlib"]
@@ -101,23 +107,40 @@ def control_row(children: Sequence[widgets.Widget]) -> widgets.HBox:
     return widgets.HBox(list(children), layout=widgets.Layout(flex_flow="row wrap", align_items="center"))
 
 
-class DatasetTrait(traitlets.Instance):
-    """An ``xarray.Dataset`` trait that notifies on every new object.
+class DatasetTrait(traitlets.TraitType):
+    """An ``xarray.Dataset`` trait (or None) that notifies whenever a different object is set.
 
-    traitlets compares old and new values with ``==`` before notifying; for a Dataset
-    that is an element-wise comparison with alignment (milliseconds per step), so
-    this trait compares identity only.
+    traitlets decides whether to notify with ``bool(old == new)``; for Datasets that is
+    an element-wise comparison with alignment (milliseconds per step) whose truth value
+    only says whether the comparison has variables, so a plain trait would stay silent
+    on a new result. This trait compares identity instead. It keeps its value in the
+    owner's ``__dict__`` and notifies through the public ``HasTraits.notify_change``,
+    so it relies on no private part of traitlets.
     """
 
+    info_text = "an xarray.Dataset or None"
+
     def __init__(self, **kwargs):
-        super().__init__(xr.Dataset, **kwargs)
+        kwargs.setdefault("default_value", None)
+        super().__init__(**kwargs)
+
+    def validate(self, obj, value):
+        if isinstance(value, xr.Dataset) or (value is None and self.allow_none):
+            return value
+        self.error(obj, value)
+
+    def _slot(self) -> str:
+        return f"_saxsnb_{self.name}_value"
+
+    def get(self, obj, cls=None):
+        return obj.__dict__.get(self._slot(), self.default_value)
 
     def set(self, obj, value) -> None:
-        new_value = self._validate(obj, value)
-        old_value = obj._trait_values.get(self.name, self.default_value)
-        obj._trait_values[self.name] = new_value
-        if old_value is not new_value:
-            obj._notify_trait(self.name, old_value, new_value)
+        new = self.validate(obj, value)
+        old = self.get(obj)
+        obj.__dict__[self._slot()] = new
+        if new is not old:
+            obj.notify_change(traitlets.Bunch(name=self.name, old=old, new=new, owner=obj, type="change"))
 
 
 class PanelBase(widgets.VBox):
@@ -125,10 +148,13 @@ class PanelBase(widgets.VBox):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        A series in the saxsnb layout (:func:`saxsnb.validate`); it is never modified.
-    frame : int
-        The initial current frame.
+    source : xarray.Dataset or SeriesModel
+        A series in the saxsnb layout (:func:`saxsnb.validate`; never modified), or the
+        :class:`~saxsnb.widgets.model.SeriesModel` shared with other panels (what
+        :func:`explore` passes). A Dataset gets a model of its own.
+    frame : int, optional
+        The initial current frame (default: the model's current frame). Setting it
+        moves every panel on the same model.
     """
 
     #: Key of the panel in :attr:`Dashboard.panels` and default code variable prefix.
@@ -140,22 +166,14 @@ class PanelBase(widgets.VBox):
     result = DatasetTrait(allow_none=True, read_only=True)
     status = traitlets.Unicode("")
     code = traitlets.Unicode("", read_only=True)
+    #: The exception behind the last error shown in ``status`` (None when none).
+    last_error = traitlets.Any(None, allow_none=True)
 
-    def __init__(self, ds: xr.Dataset, *, frame: int = 0, **kwargs):
-        self.ds = validate(ds)
-        self.n_frames = int(ds.sizes["frame"])
-        self.scan = main_scan(ds)
-        if self.scan == "frame":
-            self.scan_values = np.arange(self.n_frames, dtype=float)
-            self.scan_units = ""
-        else:
-            self.scan_values = np.asarray(ds[self.scan].values)
-            self.scan_units = str(ds[self.scan].attrs.get("units", ""))
-        self.q = np.asarray(ds["q"].values, dtype=float)
-        self.q_units = str(ds["q"].attrs.get("units", "1/nm"))
-        self.intensity_units = str(ds["intensity"].attrs.get("units", "arb"))
-        #: The exception behind the last error shown in ``status`` (None when none).
-        self.last_error: BaseException | None = None
+    def __init__(self, source, *, frame: int | None = None, **kwargs):
+        #: The shared :class:`SeriesModel` (series, masked arrays, cached results, frame).
+        self.model = as_model(source)
+        #: Per clickable mark (by id), the frame of each drawn point (see _on_point_click).
+        self._point_frames: dict[int, np.ndarray] = {}
         super().__init__(**kwargs)
         self.figures: list[bq.Figure] = []
         self.heading = widgets.HTML(f"<b>{html.escape(self.title)}</b>")
@@ -178,10 +196,10 @@ class PanelBase(widgets.VBox):
         self.export_button.on_click(lambda _b: self.show_code())
         self.png_button.on_click(lambda _b: self.save_png())
         self.svg_button.on_click(lambda _b: self.save_svg())
+        self.set_trait("frame", self.model.frame)  # no observer yet: nothing is drawn twice
         body = self._build()
         tools = control_row([self.export_button, self.png_button, self.svg_button])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
-        self.observe(self._handle_frame, "frame")
         # CSS hooks for page tests and styling: the panel and each of its figures
         self.add_class("saxsnb-panel")
         self.add_class(f"saxsnb-{self.name}")
@@ -189,10 +207,47 @@ class PanelBase(widgets.VBox):
             fig.add_class(f"saxsnb-{self.name}-figure-{k}")
         self.layout.border = "1px solid #dddddd"
         self.layout.padding = "4px"
-        if frame:
+        # the panel's frame follows the model's (both ways): stepping one panel steps all
+        self._frame_link = traitlets.link((self.model, "frame"), (self, "frame"))
+        self.observe(self._handle_frame, "frame")
+        if frame is not None and int(frame) != self.frame:
             self.frame = int(frame)
         else:
             self._update()
+
+    # ------------------------------------------------------------ the series
+    @property
+    def ds(self) -> xr.Dataset:
+        """The series (the model's validated Dataset)."""
+        return self.model.ds
+
+    @property
+    def n_frames(self) -> int:
+        return self.model.n_frames
+
+    @property
+    def q(self) -> np.ndarray:
+        return self.model.q
+
+    @property
+    def q_units(self) -> str:
+        return self.model.q_units
+
+    @property
+    def intensity_units(self) -> str:
+        return self.model.intensity_units
+
+    @property
+    def scan(self) -> str:
+        return self.model.scan
+
+    @property
+    def scan_values(self) -> np.ndarray:
+        return self.model.scan_values
+
+    @property
+    def scan_units(self) -> str:
+        return self.model.scan_units
 
     # ------------------------------------------------------------- to override
     def _build(self) -> list[widgets.Widget]:
@@ -224,27 +279,17 @@ class PanelBase(widgets.VBox):
 
     def frame_label(self, index: int | None = None) -> str:
         """Plain label of a frame, e.g. ``"temperature 45.5 degC (frame 51)"``."""
-        i = self.frame if index is None else int(index)
-        if self.scan == "frame":
-            return f"frame {i}"
-        v = self.scan_values[i]
-        text = f"{v:.4g}" if np.issubdtype(np.asarray(v).dtype, np.number) else str(v)
-        unit = f" {self.scan_units}" if self.scan_units else ""
-        return f"{self.scan} {text}{unit} (frame {i})"
+        return self.model.frame_label(self.frame if index is None else index)
 
     @property
     def scan_limits(self) -> tuple[float, float]:
         """Smallest and largest scan value (for the x range of trend plots)."""
-        v = np.asarray(self.scan_values, dtype=float)
-        v = v[np.isfinite(v)]
-        return (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+        return self.model.scan_limits
 
     @property
     def scan_label(self) -> str:
         """Axis label of the scan coordinate with its units."""
-        if self.scan == "frame":
-            return "frame"
-        return f"{self.scan} ({self.scan_units})" if self.scan_units else self.scan
+        return self.model.scan_label
 
     # ------------------------------------------------------------- results
     def _set_result(self, result: xr.Dataset | None) -> None:
@@ -299,7 +344,7 @@ class PanelBase(widgets.VBox):
         each drawn point in ``self._point_frames[id(mark)]``."""
         data = content.get("data") or {}
         idx = data.get("index") if isinstance(data, dict) else None
-        frames = getattr(self, "_point_frames", {}).get(id(mark))
+        frames = self._point_frames.get(id(mark))
         if idx is not None and frames is not None and 0 <= int(idx) < len(frames):
             self.frame = int(frames[int(idx)])
 
@@ -380,76 +425,3 @@ class PanelBase(widgets.VBox):
         for ax, fig in zip(axes, figs):
             figure_to_matplotlib(fig, ax)
         return mfig
-
-
-def _scale_kind(scale) -> str:
-    return "log" if isinstance(scale, bq.LogScale) else "linear"
-
-
-def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
-    """Draw the marks of a bqplot Figure onto a matplotlib Axes."""
-    for mark in fig.marks:
-        if not mark.visible:
-            continue
-        if isinstance(mark, bq.HeatMap):
-            c = np.asarray(mark.color, dtype=float)
-            mesh = ax.pcolormesh(np.asarray(mark.x), np.asarray(mark.y), c, shading="nearest", cmap="viridis")
-            ax.figure.colorbar(mesh, ax=ax, label="log10 I")
-        elif isinstance(mark, bq.GridHeatMap):
-            continue  # transparent click targets
-        elif isinstance(mark, bq.Label):
-            for x, y, t in zip(np.atleast_1d(mark.x), np.atleast_1d(mark.y), mark.text):
-                ax.annotate(
-                    str(t),
-                    (float(x), float(y)),
-                    fontsize=7,
-                    ha="center",
-                    va="bottom",
-                    color=(mark.colors or ["black"])[0],
-                )
-        elif isinstance(mark, bq.Scatter):
-            x, y = np.atleast_1d(mark.x), np.atleast_1d(mark.y)
-            if x.size == 0:
-                continue
-            colors = list(mark.colors) or ["black"]
-            if mark.color is not None and np.size(mark.color) == x.size and len(colors) > 1:
-                idx = np.asarray(mark.color, dtype=int) % len(colors)
-                col = [colors[i] for i in idx]
-            else:
-                col = colors[0]
-            label = mark.labels[0] if mark.labels and mark.display_legend else None
-            ax.scatter(x, y, s=max(12.0, 1.2 * mark.default_size), c=col, label=label)
-        elif isinstance(mark, bq.Lines):
-            x, y = np.asarray(mark.x, dtype=float), np.asarray(mark.y, dtype=float)
-            if x.size == 0 or y.size == 0:
-                continue
-            ys = y if y.ndim == 2 else y[None, :]
-            xs = x if x.ndim == 2 else np.broadcast_to(x, ys.shape)
-            colors = list(mark.colors) or ["black"]
-            style = {"solid": "-", "dashed": "--", "dotted": ":", "dash_dotted": "-."}[mark.line_style]
-            for k, (xx, yy) in enumerate(zip(xs, ys)):
-                label = mark.labels[k] if k < len(mark.labels) and mark.display_legend else None
-                ax.plot(
-                    xx,
-                    yy,
-                    style,
-                    color=colors[k % len(colors)],
-                    lw=1.2,
-                    marker="o" if mark.marker else None,
-                    ms=0.7 * np.sqrt(mark.marker_size),
-                    label=label,
-                )
-    for axis in fig.axes:
-        if isinstance(axis, bq.ColorAxis):
-            continue
-        if axis.side in ("left", "right"):
-            ax.set_ylabel(axis.label)
-            ax.set_yscale(_scale_kind(axis.scale))
-        else:
-            ax.set_xlabel(axis.label)
-            ax.set_xscale(_scale_kind(axis.scale))
-    if fig.title:
-        ax.set_title(fig.title, fontsize=9)
-    handles, _labels = ax.get_legend_handles_labels()
-    if handles:
-        ax.legend(fontsize=7)

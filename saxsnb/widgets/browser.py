@@ -20,10 +20,10 @@ class SeriesBrowser(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series.
-    frame : int
-        Initial frame.
+    source : xarray.Dataset or SeriesModel
+        The series, or the model shared with other panels.
+    frame : int, optional
+        Initial frame (default: the model's).
     max_rows, max_cols : int
         Size limits of the overview map; a larger series is averaged in blocks of
         frames and q points (``display.overview_map``), and the panel says so.
@@ -38,10 +38,11 @@ class SeriesBrowser(PanelBase):
         The current frame's scan value and units, e.g. "temperature 45.5 degC".
     heatmap : bqplot.HeatMap
         log10 I over (q, scan).
-    rows : bqplot.GridHeatMap
+    rows : bqplot.GridHeatMap (``_bq.CellTargets``: its selection stays serialisable)
         Transparent row targets over the map: clicking a row selects its frame
         (``rows.on_element_click``, and ``rows.selected`` with the click-select
-        interaction). From Python: :meth:`select_row` or the handler ``_on_row_click``.
+        interaction, cleared once read). From Python: :meth:`select_row` or the
+        handler ``_on_row_click``.
     marker : bqplot.Lines
         Horizontal line at the current frame.
 
@@ -51,10 +52,11 @@ class SeriesBrowser(PanelBase):
     name = "browser"
     title = "Series browser"
 
-    def __init__(self, ds, *, frame: int = 0, max_rows: int = 400, max_cols: int = 400, **kwargs):
+    def __init__(self, source, *, frame: int | None = None, max_rows: int = 400, max_cols: int = 400,
+                 **kwargs):
         self._max_rows = int(max_rows)
         self._max_cols = int(max_cols)
-        super().__init__(ds, frame=frame, **kwargs)
+        super().__init__(source, frame=frame, **kwargs)
 
     # ---------------------------------------------------------------- build
     def _build(self):
@@ -76,9 +78,7 @@ class SeriesBrowser(PanelBase):
         widgets.link((self.slider, "value"), (self, "frame"))
         self.label = widgets.HTML("")
 
-        omap = overview_map(
-            self.q, self.ds.saxs.masked()[0].values, max_rows=self._max_rows, max_cols=self._max_cols
-        )
+        omap = overview_map(self.q, self.model.masked()[0], max_rows=self._max_rows, max_cols=self._max_cols)
         self.overview = omap
         centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
         y = self.scan_values[centre] if self._monotonic() else centre.astype(float)
@@ -108,7 +108,7 @@ class SeriesBrowser(PanelBase):
         qx = omap["q"]
         q_edges = np.array([qx[0], np.sqrt(qx[0] * qx[-1]) if qx[0] > 0 else 0.5 * (qx[0] + qx[-1]), qx[-1]])
         y_edges = self._edges(self._row_y)
-        self.rows = bq.GridHeatMap(
+        self.rows = bq.CellTargets(
             # invisible click targets: every cell gets the value 0 of a transparent scale
             # (bqplot colours NaN cells black: null_color only applies to None)
             color=np.zeros((self._row_y.size, 2)),
@@ -201,7 +201,11 @@ class SeriesBrowser(PanelBase):
         sel = change["new"]
         if sel is None or np.size(sel) == 0:
             return
-        self.select_row(int(np.asarray(sel).reshape(-1, 2)[-1, 0]))
+        row = int(np.asarray(sel, dtype=float).reshape(-1, 2)[-1, 0])
+        # cleared at once: the outline would stay on the clicked row beside the
+        # current-frame line after moving on
+        self.rows.selected = None
+        self.select_row(row)
 
     # ---------------------------------------------------------------- update
     def _update(self) -> None:

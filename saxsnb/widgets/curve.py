@@ -6,7 +6,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..display import drawable_lines, errorbar_segments, positive_range
+from ..display import drawable_lines, errorbar_segments
 from ..series import validate
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
@@ -23,13 +23,13 @@ class CurvePanel(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series.
+    source : xarray.Dataset or SeriesModel
+        The series, or the model shared with other panels.
     background : xarray.Dataset, optional
         A background series on the same q grid (one frame, or one per frame); the
         matching frame is drawn dashed in grey when ``show_background`` is on.
-    frame : int
-        Initial frame.
+    frame : int, optional
+        Initial frame (default: the model's).
     overlay : list of int
         Frames drawn in addition to the current one (``overlay`` trait).
     every : int
@@ -55,35 +55,38 @@ class CurvePanel(PanelBase):
     every = traitlets.Int(0)
     show_background = traitlets.Bool(True)
 
-    def __init__(self, ds, background=None, *, frame: int = 0, overlay=(), every: int = 0, **kwargs):
-        self.background = None if background is None else validate(background)
+    def __init__(self, source, background=None, *, frame: int | None = None, overlay=(), every: int = 0,
+                 **kwargs):
+        self._given_background = background
+        self.background = None
         self._background_note = ""
-        if self.background is not None:
-            bq_ = self.background["q"].values
-            if bq_.shape != ds["q"].values.shape or not np.allclose(bq_, ds["q"].values, rtol=1e-9):
-                self._background_note = "the background has another q grid: not drawn (regrid it first)"
-                self.background = None
-            elif self.background.sizes["frame"] not in (1, ds.sizes["frame"]):
-                self._background_note = (
-                    f"the background has {self.background.sizes['frame']} frames (need 1 or "
-                    f"{ds.sizes['frame']}): not drawn"
-                )
-                self.background = None
         self._init_overlay = [int(v) for v in overlay]
         self._init_every = int(every)
-        super().__init__(ds, frame=frame, **kwargs)
+        super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_overlay, ["overlay", "every", "show_background"])
         if self._init_overlay or self._init_every:
             with self.hold_trait_notifications():
                 self.overlay = self._init_overlay
                 self.every = self._init_every
 
+    def _check_background(self) -> None:
+        bg = self._given_background
+        if bg is None:
+            return
+        bg = validate(bg)
+        q, n = self.q, self.n_frames
+        if bg["q"].values.shape != q.shape or not np.allclose(bg["q"].values, q, rtol=1e-9):
+            self._background_note = "the background has another q grid: not drawn (regrid it first)"
+        elif bg.sizes["frame"] not in (1, n):
+            self._background_note = (
+                f"the background has {bg.sizes['frame']} frames (need 1 or {n}): not drawn"
+            )
+        else:
+            self.background = bg
+
     def _build(self):
-        ds = self.ds
-        I, S = ds.saxs.masked()
-        self._I = I.values
-        self._S = S.values
-        lo, hi = positive_range(self._I)
+        self._check_background()
+        lo, hi = self.model.positive_range()
         self._floor = lo
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
         ys = bq.LogScale(min=lo, max=hi)
@@ -218,7 +221,7 @@ class CurvePanel(PanelBase):
 
     def _draw_overlays(self) -> None:
         frames = self.overlay_frames()
-        lines = drawable_lines(self.q, self._I[frames], positive=True) if frames else None
+        lines = drawable_lines(self.q, self.model.rows(frames)[0], positive=True) if frames else None
         with self.overlays.hold_sync():
             if lines is not None:
                 self.overlays.x, self.overlays.y = lines
@@ -245,8 +248,9 @@ class CurvePanel(PanelBase):
     # ----------------------------------------------------------------- frame
     def _update(self) -> None:
         i = self.frame
-        ex, ey = errorbar_segments(self.q, self._I[i], self._S[i], floor=self._floor)
-        self._set_line(self.curve, self.q, self._I[i], positive=True)
+        I, S = self.model.rows(i)
+        ex, ey = errorbar_segments(self.q, I, S, floor=self._floor)
+        self._set_line(self.curve, self.q, I, positive=True)
         self._set_line(self.errorbars, ex, ey, positive=True)
         self.figure.title = self.frame_label(i)
         if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:

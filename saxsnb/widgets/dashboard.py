@@ -9,8 +9,8 @@ import ipywidgets as widgets
 import traitlets
 import xarray as xr
 
-from ..series import validate
 from .base import PanelBase
+from .model import SeriesModel
 
 __all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
 
@@ -53,20 +53,31 @@ class PanelSet(dict):
 class Dashboard(widgets.VBox):
     """The linked panels of one series (made by :func:`explore`).
 
+    Parameters
+    ----------
+    panels : dict name -> panel
+    model : SeriesModel, optional
+        The model the panels share (what :func:`explore` passes); the dashboard's
+        ``frame`` is linked to it. Without one, it is linked to each panel's ``frame``.
+
     Attributes
     ----------
     panels : PanelSet
         ``name -> panel``.
+    model : SeriesModel or None
+        The shared series, masked arrays, cached results and current frame.
     frame : int trait
         The shared current frame; every panel's ``frame`` is linked to it.
     """
 
     frame = traitlets.Int(0)
 
-    def __init__(self, panels: dict[str, PanelBase], **kwargs):
+    def __init__(self, panels: dict[str, PanelBase], *, model: SeriesModel | None = None, **kwargs):
         super().__init__(**kwargs)
         self.panels = PanelSet(panels)
-        self._links = [traitlets.link((self, "frame"), (p, "frame")) for p in self.panels.values()]
+        self.model = model
+        targets = [model] if model is not None else list(self.panels.values())
+        self._links = [traitlets.link((t, "frame"), (self, "frame")) for t in targets]
         self.status_line = widgets.HTML("")
         for p in self.panels.values():
             p.observe(self._collect_status, "status")
@@ -134,11 +145,11 @@ def _factories():
     from .peaks import PeaksPanel
 
     return {
-        "browser": lambda ds, bg: SeriesBrowser(ds),
-        "curve": lambda ds, bg: CurvePanel(ds, bg),
-        "guinier": lambda ds, bg: LinearFitPanel(ds, kind="guinier"),
-        "kratky": lambda ds, bg: KratkyPanel(ds),
-        "peaks": lambda ds, bg: PeaksPanel(ds),
+        "browser": lambda model, bg: SeriesBrowser(model),
+        "curve": lambda model, bg: CurvePanel(model, bg),
+        "guinier": lambda model, bg: LinearFitPanel(model, kind="guinier"),
+        "kratky": lambda model, bg: KratkyPanel(model),
+        "peaks": lambda model, bg: PeaksPanel(model),
     }
 
 
@@ -169,8 +180,14 @@ def explore(
         An ``ipywidgets.VBox``; ``dashboard.panels`` is a dict ``name -> panel`` (a
         :class:`PanelSet`), ``dashboard.frame`` the shared current frame and
         ``dashboard.to_code()`` the code that reproduces every panel's result.
+
+    Notes
+    -----
+    The panels share one :class:`~saxsnb.widgets.model.SeriesModel`
+    (``dashboard.model``): the masked arrays exist once, and each whole-series
+    analysis (the automatic Guinier fit, the peak search and indexing) runs once
+    whichever panels use it.
     """
-    validate(ds)
     make = _factories()
     unknown = [p for p in panels if p not in PANEL_NAMES]
     if unknown:
@@ -179,8 +196,9 @@ def explore(
         raise SaxsInputError(
             f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}", parameter="panels"
         )
-    built = {name: make[name](ds, background) for name in panels}
-    dash = Dashboard(built)
+    model = SeriesModel(ds)
+    built = {name: make[name](model, background) for name in panels}
+    dash = Dashboard(built, model=model)
     if frame:
         dash.frame = int(frame)
     return dash

@@ -7,13 +7,17 @@ import html
 import ipywidgets as widgets
 import numpy as np
 import traitlets
+import xarray as xr
 
 from ..display import KRATKY_REFERENCES, finite_points, scaled_q, value_range
 from . import _bq as bq
-from .base import PanelBase, make_figure
+from .base import DatasetTrait, PanelBase, make_figure
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["KratkyPanel"]
+
+#: Frames transformed per accessor call while stepping (see KratkyPanel._frame_transform).
+BLOCK = 32
 
 
 class KratkyPanel(PanelBase):
@@ -21,20 +25,23 @@ class KratkyPanel(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series.
+    source : xarray.Dataset or SeriesModel
+        The series, or the model shared with other panels (whose automatic Guinier fit
+        is used).
     normalize : None, "rg" or "auto"
         None: plain Kratky plot q^2 I against q. "rg": dimensionless (q Rg)^2 I / I0
         against q Rg, with Rg and I0 from the automatic Guinier fit
         (``ds.saxs.kratky(normalize="rg")``; Durand et al. 2010, J. Struct. Biol. 169, 45).
         "auto" (default): "rg" when the automatic Guinier fit succeeds for some frame,
         else None (e.g. a series of Bragg peaks without a Guinier region).
-    frame : int
-        Initial frame.
+    frame : int, optional
+        Initial frame (default: the model's).
 
     Traits
     ------
     normalize : None or "rg"  (also the toggle above the plot)
+    summary : xarray.Dataset or None (read only)
+        ``ds.saxs.kratky_summary()`` of the whole series (None when it failed).
 
     Attributes
     ----------
@@ -48,18 +55,24 @@ class KratkyPanel(PanelBase):
         dimensionless plot against the scan (click a point to jump to its frame).
 
     ``result`` is ``ds.isel(frame=[i]).saxs.kratky(normalize=...)`` as a Dataset with
-    the variable ``kratky``.
+    the variable ``kratky``, computed per frame (with the model's automatic Guinier
+    fit of that frame): the transform of the whole series would be as large as the
+    series itself.
     """
 
     name = "kratky"
     title = "Kratky plot"
 
     normalize = traitlets.Unicode(None, allow_none=True)
+    summary = DatasetTrait(allow_none=True, read_only=True)
 
-    def __init__(self, ds, *, normalize: str | None = "auto", frame: int = 0, **kwargs):
+    def __init__(self, source, *, normalize: str | None = "auto", frame: int | None = None, **kwargs):
         self._init_normalize = normalize
-        self._series_cache: dict = {}
-        super().__init__(ds, frame=frame, **kwargs)
+        #: form ("plain" or "rg") whose fixed axis ranges are set (None: none yet)
+        self._range_key: str | None = None
+        #: ((normalize, first frame), transform) of the block of frames last drawn
+        self._block: tuple | None = None
+        super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_normalize, "normalize")
 
     @traitlets.validate("normalize")
@@ -70,13 +83,12 @@ class KratkyPanel(PanelBase):
 
     # ------------------------------------------------------------------ build
     def _build(self):
-        self._summary = None
         try:
-            self._summary = self.ds.saxs.kratky_summary().compute()
+            self.set_trait("summary", self.model.result("kratky_summary"))
         except Exception as exc:  # shown in the status line
             self.report(exc, "Kratky summary of the series")
         if self._init_normalize == "auto":
-            rg = None if self._summary is None else np.asarray(self._summary["rg"].values, dtype=float)
+            rg = None if self.summary is None else np.asarray(self.summary["rg"].values, dtype=float)
             self._init_normalize = "rg" if rg is not None and np.isfinite(rg).any() else None
         self.normalize = self._init_normalize
         xs, ys = bq.LinearScale(), bq.LinearScale()
@@ -118,7 +130,6 @@ class KratkyPanel(PanelBase):
         self._x_axis, self._y_axis = fig.axes
         tx, ty = bq.LinearScale(), bq.LinearScale()
         scan = np.asarray(self.scan_values, dtype=float)
-        self._point_frames: dict = {}
         trend_scales = {"x": tx, "y": ty}
         self.trend_peak = bq.clickable_points(trend_scales, ROLE["trend"], "peak height")
         self.trend_level = bq.clickable_points(
@@ -172,9 +183,9 @@ class KratkyPanel(PanelBase):
         )
         self.toggle.observe(self._on_toggle, "value")
         self.summary_text = widgets.HTML("")
-        if self._summary is not None:
+        if self.summary is not None:
             for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
-                x, y, frames = finite_points(self.scan_values, self._summary[var].values)
+                x, y, frames = finite_points(self.scan_values, self.summary[var].values)
                 if self._set_points(mark, x, y):
                     self._point_frames[id(mark)] = frames
         return [self.toggle, fig, self.summary_text, tfig, self.trend_key]
@@ -187,36 +198,57 @@ class KratkyPanel(PanelBase):
         self._update()
 
     # ----------------------------------------------------------------- update
-    def _series(self, normalize):
-        """``ds.saxs.kratky(normalize)`` of every frame (computed once per form).
+    def _guinier(self):
+        """The model's automatic Guinier fit of every frame (None when it failed)."""
+        try:
+            return self.model.result("guinier")
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "automatic Guinier fit")
+            return None
 
-        The transform of one frame equals that frame of the series (batch equals
-        loop), so stepping only indexes this array.
+    def _rg_values(self) -> np.ndarray:
+        """Rg of every frame (NaN where there is none)."""
+        src = self.summary if self.summary is not None and "rg" in self.summary else self._guinier()
+        if src is None:
+            return np.full(self.n_frames, np.nan)
+        return np.asarray(src["rg"].values, dtype=float)
+
+    def _frame_transform(self, i: int) -> xr.DataArray:
+        """``ds.isel(frame=[i]).saxs.kratky(normalize=...)``, with the cached Guinier fit.
+
+        The transform is computed for a block of :data:`BLOCK` frames around ``i`` at a
+        time (one accessor call per block while stepping, a block's rows in memory) and
+        frame i taken from it: the same numbers and attrs (batch equals loop).
         """
-        key = normalize or "plain"
-        if key not in self._series_cache:
-            self._series_cache[key] = self.ds.saxs.kratky(normalize=normalize).compute()
-        return self._series_cache[key]
+        start = (i // BLOCK) * BLOCK
+        key = (self.normalize, start)
+        if self._block is None or self._block[0] != key:
+            frames = slice(start, min(start + BLOCK, self.n_frames))
+            part = self.ds.isel(frame=frames)
+            if self.normalize != "rg":
+                da = part.saxs.kratky(normalize=None)
+            else:
+                g = self._guinier()
+                da = part.saxs.kratky(normalize="rg", guinier=None if g is None else g.isel(frame=frames))
+            self._block = (key, da.compute())
+        return self._block[1].isel(frame=[i - start])
 
     def _update(self) -> None:
         i = self.frame
         try:
-            series = self._series(self.normalize)
+            one = self._frame_transform(i)
         except Exception as exc:
             self.report(exc, "Kratky transform")
             return
-        self._set_result(series.isel(frame=[i]).to_dataset(name="kratky"))
+        self._set_result(one.to_dataset(name="kratky"))
         dimensionless = self.normalize == "rg"
         rg = np.nan
         if dimensionless:
-            if self._summary is not None and "rg" in self._summary:
-                rg = float(self._summary["rg"].values[i])
-            else:
-                rg = self._rg(i)
+            rg = float(self._rg_values()[i])
             x = scaled_q(self.q, np.array([rg]))[0]
         else:
             x = self.q
-        y = np.asarray(series.values[i], dtype=float)
+        y = np.asarray(one.values[0], dtype=float)
         # without Rg the dimensionless abscissa is undefined: the curve is hidden
         self._set_line(self.curve, x, y)
         if dimensionless:
@@ -225,7 +257,7 @@ class KratkyPanel(PanelBase):
             self._set_axes(
                 f"q ({self.q_units})", f"q^2 I ({self.intensity_units} {self.q_units}^2)", visible=False
             )
-        self._set_ranges(series)
+        self._set_ranges()
         with self.trend_current.hold_sync():
             v = float(self.scan_values[i])
             self.trend_current.x = np.array([v, v])
@@ -237,35 +269,28 @@ class KratkyPanel(PanelBase):
             else (f"{self.frame_label(i)}: no Guinier Rg, the dimensionless plot is undefined")
         )
 
-    def _set_ranges(self, series) -> None:
+    def _set_ranges(self) -> None:
         """Fixed axis ranges per form, the same for every frame (curves compare while
-        stepping; hidden reference lines do not stretch the plain plot)."""
+        stepping; hidden reference lines do not stretch the plain plot). The whole
+        series' transform is computed for this once per form and not kept."""
         key = self.normalize or "plain"
-        if getattr(self, "_range_key", None) == key:
+        if self._range_key == key:
             return
-        values = np.asarray(series.values, dtype=float)
+        values = np.asarray(self.model.compute("kratky", normalize=self.normalize).values, dtype=float)
         if key == "rg":
-            rg = (
-                np.asarray(self._summary["rg"].values, dtype=float)
-                if self._summary is not None and "rg" in self._summary
-                else np.array([self._rg(k) for k in range(self.n_frames)])
-            )
+            rg = self._rg_values()
             top = float(self.q.max() * np.nanmax(rg)) if np.isfinite(rg).any() else 12.0
             xr_ = (0.0, min(top, 12.0))
             yr = value_range(values, include=(0.0, KRATKY_REFERENCES["chain_plateau"] * 1.1))
         else:
             xr_ = (0.0, float(self.q.max()) * 1.02)
             yr = value_range(values, upper=99.9, include=(0.0,))
+        del values
         with self._xs.hold_sync():
             self._xs.min, self._xs.max = xr_
         with self._ys.hold_sync():
             self._ys.min, self._ys.max = yr
         self._range_key = key
-
-    def _rg(self, i: int) -> float:
-        if "_rg_series" not in self._series_cache:
-            self._series_cache["_rg_series"] = np.asarray(self.ds.saxs.guinier().rg.values, dtype=float)
-        return float(self._series_cache["_rg_series"][i])
 
     def _set_axes(self, xlabel: str, ylabel: str, *, visible: bool) -> None:
         if self._x_axis.label != xlabel:
@@ -276,7 +301,7 @@ class KratkyPanel(PanelBase):
             self.references.visible = visible
 
     def _summary_html(self, i: int, rg: float) -> str:
-        s = self._summary
+        s = self.summary
         if s is None:
             return ""
         get = lambda k: s[k].values[i] if k in s else np.nan  # noqa: E731

@@ -17,6 +17,7 @@ from ..display import (
     q_from_linear_x,
     value_range,
 )
+from ..display.report import frame_lines
 from ..errors import SaxsInputError
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
@@ -24,13 +25,9 @@ from .palette import OKABE_ITO, ROLE
 
 __all__ = ["LinearFitPanel"]
 
-def _fmt(v: float, s: float | None = None, unit: str = "") -> str:
-    if not np.isfinite(v):
-        return "n/a"
-    text = f"{v:.4g}"
-    if s is not None and np.isfinite(s):
-        text += f" &plusmn; {s:.2g}"
-    return text + (f" {html.escape(unit)}" if unit else "")
+
+def _number(v: float, unit: str = "") -> str:
+    return "n/a" if not np.isfinite(v) else f"{v:.4g}" + (f" {unit}" if unit else "")
 
 
 class LinearFitPanel(PanelBase):
@@ -38,16 +35,16 @@ class LinearFitPanel(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series.
+    source : xarray.Dataset or SeriesModel
+        The series, or the model shared with other panels (whose cached fits are used).
     kind : {"guinier", "rod", "sheet", "porod"}
         ``"guinier"``: ln I against q^2 (compact particle, ``ds.saxs.guinier(shape=
         "compact")``); ``"rod"``: ln(q I) against q^2 (cross-section); ``"sheet"``:
         ln(q^2 I) against q^2 (thickness); ``"porod"``: q^4 I against q^4, where
         I = Kp / q^4 + B is the straight line q^4 I = Kp + B q^4 (``ds.saxs.porod``,
         background fitted).
-    frame : int
-        Initial frame.
+    frame : int, optional
+        Initial frame (default: the model's).
     q_range : (float, float) or None
         Initial range in 1/nm; None chooses it automatically per frame.
 
@@ -70,7 +67,9 @@ class LinearFitPanel(PanelBase):
         ``data`` is a faint line through the points, ``data_points`` the points drawn
         over the (dashed) fit line so they stay visible.
     result_text : ipywidgets.HTML
-        Size +- sigma, I0 +- sigma, q range, q_max R (coloured past the validity limit).
+        The frame's lines of ``result.saxs.report(frame=...)``
+        (``display.report.frame_lines``: status, size +- sigma, I0 +- sigma, reduced
+        chi2), the q range, and q_max R coloured by the validity limit.
     """
 
     name = "guinier"
@@ -79,7 +78,7 @@ class LinearFitPanel(PanelBase):
     q_range = traitlets.Tuple(traitlets.Float(), traitlets.Float(), default_value=None, allow_none=True)
     apply_to_all = traitlets.Bool(False)
 
-    def __init__(self, ds, kind: str = "guinier", *, frame: int = 0, q_range=None, **kwargs):
+    def __init__(self, source, kind: str = "guinier", *, frame: int | None = None, q_range=None, **kwargs):
         plot = LINEAR_PLOTS.get(kind)
         if plot is None or plot.analysis is None:
             kinds = [k for k, p in LINEAR_PLOTS.items() if p.analysis]
@@ -91,20 +90,16 @@ class LinearFitPanel(PanelBase):
         self.name = kind
         self.title = plot.title
         self._syncing = False
-        self._cache: dict = {}
+        #: (q_range, apply_to_all, frame) behind the current ``result`` (None before the first).
+        self._result_choice: tuple | None = None
+        self._auto_series = None
         self._init_range = None if q_range is None else tuple(float(v) for v in q_range)
-        super().__init__(ds, frame=frame, **kwargs)
+        super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_choice, ["q_range", "apply_to_all"])
         if self._init_range is not None:
             self.q_range = self._init_range
 
     # ---------------------------------------------------------------- analysis
-    def _call(self, ds, q_range):
-        """The one accessor call behind ``result`` (what ``to_code`` writes out)."""
-        if self.method == "porod":
-            return ds.saxs.porod(q_range=q_range)
-        return ds.saxs.guinier(q_range=q_range, shape=self.shape)
-
     def _call_code(self, source: str, q_range) -> str:
         qr = "None" if q_range is None else f"({q_range[0]!r}, {q_range[1]!r})"
         if self.method == "porod":
@@ -114,7 +109,10 @@ class LinearFitPanel(PanelBase):
     def _code_lines(self, target: str) -> list[str]:
         # the choices behind the current ``result`` (a range the analysis rejected is
         # shown in ``status`` but is not part of the result, nor of its code)
-        q_range, every, frame = getattr(self, "_result_choice", (self.q_range, self.apply_to_all, self.frame))
+        choice = self._result_choice
+        if choice is None:
+            choice = (self.q_range, self.apply_to_all, self.frame)
+        q_range, every, frame = choice
         if every:
             return [f"{target} = {self._call_code('ds', q_range)}  # every frame"]
         call = self._call_code(f"ds.isel(frame=[{frame}])", q_range)
@@ -122,8 +120,6 @@ class LinearFitPanel(PanelBase):
 
     # ------------------------------------------------------------------- build
     def _build(self):
-        I, S = self.ds.saxs.masked()
-        self._I, self._S = I.values, S.values
         xs, ys = bq.LinearScale(), bq.LinearScale()
         self._xs, self._ys = xs, ys
         self.data = bq.Lines(
@@ -199,8 +195,6 @@ class LinearFitPanel(PanelBase):
         )
         # trend of the result against the scan (all frames, automatic range: computed once)
         tx, ty = bq.LinearScale(), bq.LinearScale()
-        self._auto_series = None
-        self._point_frames: dict = {}
         trend_scales = {"x": tx, "y": ty}
         self.trend = bq.clickable_points(trend_scales, ROLE["trend"], "automatic range")
         self.trend_fixed = bq.clickable_points(
@@ -264,17 +258,16 @@ class LinearFitPanel(PanelBase):
         return "nm"
 
     def series_result(self, q_range=None):
-        """The fit of every frame with ``q_range`` (None: automatic), cached.
+        """The fit of every frame with ``q_range`` (None: automatic), from the model's
+        cache (``model.result``: computed once, also for a dask series).
 
         A frame's fit equals that frame of the series fit (batch equals loop), so a
         frame step only indexes it; a new range fits the whole series once.
         """
         key = None if q_range is None else (float(q_range[0]), float(q_range[1]))
-        if key not in self._cache:
-            if len(self._cache) >= 6:
-                self._cache.pop(next(k for k in self._cache if k is not None))
-            self._cache[key] = self._call(self.ds, key).compute()  # once, also for a dask series
-        return self._cache[key]
+        if self.method == "porod":
+            return self.model.result("porod", q_range=key)
+        return self.model.result("guinier", q_range=key, shape=self.shape)
 
     def _compute_trend(self) -> None:
         try:
@@ -369,6 +362,7 @@ class LinearFitPanel(PanelBase):
         vals = {k: float(v.values[i]) for k, v in series.data_vars.items() if v.dtype.kind in "fiu"}
         fstatus = str(series["status"].values[i]) if "status" in series else "ok"
         self._draw(i, vals)
+        self.result_text.value = self._result_html(series, i, vals)
         self.status = "" if fstatus == "ok" else f"{self.frame_label(i)}: {fstatus}"
 
     def _draw_fixed_trend(self, res_all) -> None:
@@ -388,7 +382,8 @@ class LinearFitPanel(PanelBase):
             lo_view = 0.0
             hi_view = min(q[-1], 2.0 * q_hi) if np.isfinite(q_hi) else q[min(q.size - 1, q.size // 4)]
         view = (q >= lo_view) & (q <= hi_view)
-        lx, ly, lsy = linearize(self.q, self._I[i], self._S[i], kind=self.transform)  # this frame only
+        # this frame only
+        lx, ly, lsy = linearize(self.q, *self.model.rows(i), kind=self.transform)
         x, y, _ = finite_points(lx[view], ly[view])
         self._set_line(self.data, x, y)
         self._set_points(self.data_points, x, y)
@@ -421,7 +416,6 @@ class LinearFitPanel(PanelBase):
         cx, cy, _ = finite_points([float(self.scan_values[i])], [vals.get(self.size_var, np.nan)])
         self._set_points(self.trend_current, cx, cy)
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
-        self.result_text.value = self._result_html(vals)
 
     @staticmethod
     def _set_view(scale, rng, pad: float = 0.0) -> None:
@@ -434,23 +428,33 @@ class LinearFitPanel(PanelBase):
             with scale.hold_sync():
                 scale.min, scale.max = lo, hi
 
-    def _result_html(self, vals: dict) -> str:
-        unit = self._size_unit()
+    def _labels(self) -> dict[str, str]:
+        """Result variable -> the name shown (HTML) for it in the result text."""
+        out = {self.size_var: f"<b>{html.escape(self.size_label)}</b>", "chi2_reduced": "reduced chi2"}
+        if self.plot.intercept_label:
+            out["i0"] = html.escape(self.plot.intercept_label)
+        return out
+
+    def _result_html(self, series, i: int, vals: dict) -> str:
+        """``frame_lines(series, i)`` (what ``result.saxs.report(frame=...)`` says) as
+        HTML, with the q range and the coloured q_max R validity hint."""
+        labels = self._labels()
+        rows = []
+        for line in frame_lines(series, i):
+            name, sep, value = line.partition(" = ")
+            if name == "qrg_max":
+                continue  # shown coloured below
+            text = html.escape(value).replace(" +- ", " &plusmn; ")
+            rows.append(f"{labels.get(name, html.escape(name))} = {text}" if sep else html.escape(line))
         rng = "automatic" if self.q_range is None else "fixed"
         v = lambda k: vals.get(k, np.nan)  # noqa: E731
-        size = _fmt(v(self.size_var), v(self.size_var + "_sigma"), unit)
-        rows = [f"<b>{self.size_label}</b> = {size}"]
-        if self.kind == "porod":
-            rows.append(f"background = {_fmt(v('background'), v('background_sigma'), self.intensity_units)}")
-        else:
-            i0name = self.plot.intercept_label
-            rows.append(f"{i0name} = {_fmt(v('i0'), v('i0_sigma'), self.intensity_units)}")
+        n_points = int(v("n_points")) if np.isfinite(v("n_points")) else 0
         rows.append(
-            f"q range ({rng}) = {_fmt(v('q_min'))} .. {_fmt(v('q_max'), unit=self.q_units)}, "
-            f"{int(vals.get('n_points', 0))} points, reduced chi2 = {_fmt(v('chi2_reduced'))}"
+            f"q range ({rng}) = {_number(v('q_min'))} .. {_number(v('q_max'), html.escape(self.q_units))}, "
+            f"{n_points} points"
         )
         if self.plot.limit is not None:
-            qr = vals.get("qrg_max", np.nan)
+            qr = v("qrg_max")
             soft, hard = self.plot.soft_limit, self.plot.limit
             colour = ROLE["ok"] if np.isfinite(qr) else ROLE["reference"]
             note = ""
@@ -461,5 +465,5 @@ class LinearFitPanel(PanelBase):
                     OKABE_ITO["orange"],
                     f" (valid for compact particles; elongated ones need <= {soft})",
                 )
-            rows.append(f'<span style="color:{colour}">q_max {self.size_label} = {_fmt(qr)}{note}</span>')
+            rows.append(f'<span style="color:{colour}">q_max {self.size_label} = {_number(qr)}{note}</span>')
         return "<br>".join(rows)

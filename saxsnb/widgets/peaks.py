@@ -15,7 +15,6 @@ from ..display import (
     curve_at,
     finite_points,
     indexing_summary,
-    positive_range,
     status_message,
 )
 from . import _bq as bq
@@ -34,10 +33,11 @@ class PeaksPanel(PanelBase):
 
     Parameters
     ----------
-    ds : xarray.Dataset
-        The series (background-subtracted for best results).
-    frame : int
-        Initial frame.
+    source : xarray.Dataset or SeriesModel
+        The series (background-subtracted for best results), or the model shared with
+        other panels (whose cached peaks and indexing are used).
+    frame : int, optional
+        Initial frame (default: the model's).
     overrides : mapping frame -> {"phase": str, "lattice": float or None}, optional
         Initial hand-made assignments (``ds.saxs.index_phases(..., overrides=...)``).
     find_options, index_options : dict, optional
@@ -52,9 +52,9 @@ class PeaksPanel(PanelBase):
 
     Attributes
     ----------
-    peaks, index : xarray.Dataset
+    peaks, index : xarray.Dataset or None
         ``ds.saxs.find_peaks(**find_options)`` and ``ds.saxs.index_phases(peaks,
-        **index_options)`` (computed once).
+        **index_options)`` (computed once, in the model's cache; None when they failed).
     curve, markers : bqplot marks of the current frame; labels : bqplot.Label (hkl).
     table : ipywidgets.HTML
         The frame's assignment: phases, lattice +- sigma, score, alternatives, status.
@@ -72,22 +72,26 @@ class PeaksPanel(PanelBase):
     overrides = traitlets.Dict()
 
     def __init__(
-        self, ds, *, frame: int = 0, overrides=None, find_options=None, index_options=None, **kwargs
+        self, source, *, frame: int | None = None, overrides=None, find_options=None, index_options=None,
+        **kwargs
     ):
         self.find_options = dict(find_options or {})
         self.index_options = dict(index_options or {})
-        self._index_auto = None
         self.peaks = None
-        super().__init__(ds, frame=frame, **kwargs)
+        self.index = None
+        self._transitions: list = []
+        self._pos = np.zeros((0, 0))
+        self._map_rows = np.zeros(0, dtype=int)
+        #: plain summary of the indexing of the shown result ("" when every frame is fine)
+        self._indexing_summary = ""
+        super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_overrides, "overrides")
         if overrides:
             self.overrides = {int(k): dict(v) for k, v in overrides.items()}
 
     # ------------------------------------------------------------------ build
     def _build(self):
-        I, _S = self.ds.saxs.masked()
-        self._I = I.values
-        lo, hi = positive_range(self._I)
+        lo, hi = self.model.positive_range()
         xs, ys = bq.LinearScale(), bq.LogScale(min=lo, max=hi)
         self.curve = bq.Lines(
             x=self.q,
@@ -137,7 +141,6 @@ class PeaksPanel(PanelBase):
             m.on_element_click(self._on_point_click)
             t.on_element_click(self._on_point_click)
             self.map_marks[ph], self.trend_marks[ph] = m, t
-        self._point_frames: dict = {}
         self.map_current = bq.Lines(
             x=np.zeros(2),
             y=np.array([self.q[0], self.q[-1]]),
@@ -210,16 +213,22 @@ class PeaksPanel(PanelBase):
         self._analyse()
         return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.map_note]
 
+    def _index_params(self, overrides=None) -> dict:
+        """Arguments of ``model.result("index_phases", ...)``: the peaks by their options."""
+        params = {"peaks": dict(self.find_options), **self.index_options}
+        if overrides:
+            params["overrides"] = {int(k): dict(v) for k, v in overrides.items()}
+        return params
+
     def _analyse(self) -> None:
         try:
-            self.peaks = self.ds.saxs.find_peaks(**self.find_options)
-            self._index_auto = self.ds.saxs.index_phases(self.peaks, **self.index_options)
+            self.peaks = self.model.result("find_peaks", **self.find_options)
+            self.index = self.model.result("index_phases", **self._index_params())
         except Exception as exc:  # shown in the status line
             self.report(exc, "peak search / indexing")
             return
-        self._transitions = []
         try:
-            pmap = self.ds.saxs.phase_map(self._index_auto)
+            pmap = self.model.result("phase_map", index=self._index_params())
             self._transitions = json.loads(pmap.attrs.get("transitions", "[]"))
         except Exception as exc:
             self.report(exc, "phase map")
@@ -262,11 +271,11 @@ class PeaksPanel(PanelBase):
         self._update()
 
     def _apply(self) -> None:
-        if self._index_auto is None:
+        if self.index is None:
             return
         try:
-            res = (self.ds.saxs.index_phases(self.peaks, overrides=dict(self.overrides), **self.index_options)
-                   if self.overrides else self._index_auto)
+            res = (self.model.result("index_phases", **self._index_params(self.overrides))
+                   if self.overrides else self.index)
         except Exception as exc:
             self.report(exc, "override")
             return
@@ -320,7 +329,8 @@ class PeaksPanel(PanelBase):
         i = self.frame
         if self.result is None:
             self._apply()
-        self._set_line(self.curve, self.q, self._I[i], positive=True)
+        I = self.model.rows(i)[0]
+        self._set_line(self.curve, self.q, I, positive=True)
         self.figure.title = f"{self.title}: {self.frame_label(i)}"
         v = float(self.scan_values[i])
         with self.map_current.hold_sync():
@@ -336,7 +346,7 @@ class PeaksPanel(PanelBase):
         pos = self._pos[i]
         hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
         # markers on the log axis: finite positions with a positive intensity only
-        px, py, kept = finite_points(pos, curve_at(self.q, self._I[i], pos), positive=True)
+        px, py, kept = finite_points(pos, curve_at(self.q, I, pos), positive=True)
         self._set_points(self.markers, px, py)
         self._set_points(self.labels, px, py, text=[str(h) for h in hkl[kept]])
         self.table.value = self._table_html(i)
@@ -381,7 +391,7 @@ class PeaksPanel(PanelBase):
         extra.append(
             f"{n_pk} peak(s) found" + (f", {n_broad} of them broad (not Bragg peaks)" if n_broad else "")
         )
-        summary = getattr(self, "_indexing_summary", "")
+        summary = self._indexing_summary
         if summary:
             extra.append(f"<b>{e(summary)}</b>: the lattice plot stays empty")
         style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"

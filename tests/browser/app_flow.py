@@ -16,6 +16,42 @@ NOTEBOOK = Path(__file__).resolve().parents[2] / "notebooks" / "app-flow-growth.
 
 # "Rg = 2.032 ± 0.00049 nm" in the Guinier panel's result text.
 RG_TEXT = re.compile(r"Rg = ([-\d.e+]+) ± ([-\d.e+]+) nm")
+# "q range (fixed) = 0.1234 .. 0.5678 1/nm, 23 points" in the same text.
+RANGE_TEXT = re.compile(r"q range \((?:fixed|automatic)\) = ([-\d.e+]+) \.\. ([-\d.e+]+) 1/nm, (\d+) points")
+
+
+def series_of_the_page():
+    """The series the notebook shows, rebuilt the same way (its first code cell)."""
+    import saxsnb.demo
+
+    series, background = saxsnb.demo.make_series("flow-growth", seed=0)
+    return series.saxs.subtract(background)
+
+
+def check_rg_against_accessor(text: str, frame: int) -> dict:
+    """The Rg the page shows is ``ds.saxs.guinier(q_range=<the range shown>)`` of the frame.
+
+    The page prints the first and last fitted q points to 4 significant digits: each is
+    taken as the nearest point of the q grid (the grid steps are far wider than the
+    rounding), so the reference fit uses exactly the points the panel used.
+    """
+    import numpy as np
+
+    m = RANGE_TEXT.search(text)
+    assert m, f"no 'q range (...) = a .. b 1/nm, n points' in the Guinier result text: {text[:300]!r}"
+    lo, hi, n_shown = float(m.group(1)), float(m.group(2)), int(m.group(3))
+    ds = series_of_the_page()
+    q = ds["q"].values
+    q_lo, q_hi = (float(q[np.argmin(np.abs(q - v))]) for v in (lo, hi))
+    assert f"{q_lo:.4g}" == m.group(1) and f"{q_hi:.4g}" == m.group(2), (lo, hi, q_lo, q_hi)
+    ref = ds.isel(frame=[frame]).saxs.guinier(q_range=(q_lo, q_hi))
+    rg, sigma = float(ref["rg"][0]), float(ref["rg_sigma"][0])
+    shown = RG_TEXT.search(text)
+    assert shown, text[:300]
+    # the page and the accessor agree to the digits shown
+    assert (shown.group(1), shown.group(2)) == (f"{rg:.4g}", f"{sigma:.2g}"), (shown.group(0), rg, sigma)
+    assert n_shown == int(ref["n_points"][0]), (n_shown, int(ref["n_points"][0]))
+    return {"q_range": (q_lo, q_hi), "rg": rg, "rg_sigma": sigma, "n_points": n_shown}
 
 
 def figure(page, root: str, title: str | re.Pattern):
@@ -112,6 +148,8 @@ def run_flow(probe, root: str, shots: str) -> dict:
     seen["rg_dragged"] = (rg2, s2)
     seen["result_text"] = text2
     assert rg2 != rg1, f"Rg text unchanged after the drag: {text2[:200]!r}"
+    # ... and it is the accessor's fit over the range the page shows (frame 1)
+    seen["reference"] = check_rg_against_accessor(text2, frame=1)
     check_validity_colour(result)
     panel = guinier_fig.locator("xpath=ancestor::div[contains(@class,'widget-vbox')][1]")
     probe.screenshot(f"{shots}-guinier-after-drag", panel)

@@ -1,0 +1,293 @@
+"""The model under the panels: one series, its masked arrays once, results cached.
+
+A :class:`SeriesModel` holds what every panel of a series needs, computed once:
+
+- the validated Dataset (``ds``, never modified), its intensity, sigma and mask as
+  numpy arrays once (read-only views of the series' own arrays, loaded once for a
+  dask series), ``q``, the scan name, values and units. Panels read the masked
+  intensity and sigma (masked points NaN) through :meth:`SeriesModel.rows` (a frame
+  or a few) and :meth:`SeriesModel.masked` (all frames, for a one-off summary): the
+  mask is applied on reading, so no masked copy of the series is ever kept (a
+  masked copy held for the life of the panels would cost as much as the series);
+- the shared current frame, the trait ``frame``: every panel links its own ``frame``
+  to it, so stepping one panel steps them all;
+- whole-series results of the accessor, cached by (analysis, parameters):
+  ``model.result("guinier", q_range=None, shape="compact")`` calls
+  ``ds.saxs.guinier(q_range=None, shape="compact")`` once and returns the same
+  Dataset afterwards (``model.result("guinier")`` is the same entry: the parameters
+  are completed with the method's defaults before they become the key).
+
+Results that feed other results are taken from the cache too (:data:`INPUTS`): the
+automatic Guinier fit behind ``kratky_summary`` and the dimensionless ``kratky`` is
+``model.result("guinier")``, the peaks behind ``index_phases`` are
+``model.result("find_peaks", **peaks)`` when ``peaks`` is a dict of options. So
+:func:`saxsnb.explore` fits each whole series once whatever the panels ask.
+
+:func:`saxsnb.explore` builds one model and gives it to every panel; a panel made
+alone (``LinearFitPanel(ds)``) makes its own. Every panel accepts a Dataset or a
+model as its first argument.
+"""
+
+from __future__ import annotations
+
+import inspect
+from collections import OrderedDict
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+import traitlets
+import xarray as xr
+
+from ..accessor import SaxsAccessor
+from ..display import positive_range
+from ..errors import SaxsInputError
+from ..series import main_scan, validate
+
+__all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS"]
+
+#: Accessor methods whose whole-series results the model caches.
+ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
+            "phase_map")
+
+#: analysis -> {argument: analysis whose cached result is passed there}. The argument
+#: may be left out (the automatic result), a dict of that analysis' options, or a
+#: Dataset (passed through as it is).
+INPUTS = {
+    "kratky": {"guinier": "guinier"},
+    "kratky_summary": {"guinier": "guinier"},
+    "invariant": {"guinier": "guinier", "porod": "porod"},
+    "index_phases": {"peaks": "find_peaks"},
+    "phase_map": {"index": "index_phases"},
+}
+
+# read when this module is imported (a wrapper made with functools.wraps is seen through)
+_SIGNATURES = {name: inspect.signature(getattr(SaxsAccessor, name)) for name in ANALYSES}
+
+
+def _freeze(value) -> Any:
+    """A hashable stand-in for a parameter value (dicts and lists of numbers, ranges)."""
+    if isinstance(value, Mapping):
+        return ("dict", tuple(sorted((str(k), _freeze(v)) for k, v in value.items())))
+    if isinstance(value, (list, tuple)):
+        return ("seq", tuple(_freeze(v) for v in value))
+    if isinstance(value, np.ndarray):
+        return ("array", value.dtype.str, value.shape, value.tobytes())
+    if isinstance(value, (xr.Dataset, xr.DataArray)):
+        return ("object", id(value))
+    if isinstance(value, np.generic):
+        return value.item()
+    hash(value)  # anything else must be hashable (str, numbers, None, bool)
+    return value
+
+
+def as_model(source) -> SeriesModel:
+    """``source`` if it is a :class:`SeriesModel`, else a new model of the series."""
+    return source if isinstance(source, SeriesModel) else SeriesModel(source)
+
+
+class SeriesModel(traitlets.HasTraits):
+    """One series shared by linked panels (see the module docstring).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A series in the saxsnb layout (:func:`saxsnb.validate`); it is never modified.
+    frame : int
+        The initial current frame.
+    max_results : int
+        Most results kept; beyond it the least recently used one that is not an
+        automatic result (default arguments) is dropped (a dragged range gives a new
+        whole-series fit per range).
+
+    Examples
+    --------
+    >>> import numpy as np, saxsnb
+    >>> from saxsnb.widgets.model import SeriesModel
+    >>> q = np.linspace(0.02, 1.0, 100)
+    >>> I = np.exp(-np.outer([2.0, 3.0], q) ** 2 / 3)
+    >>> model = SeriesModel(saxsnb.from_arrays(q, I, 0.01 * I))
+    >>> fit = model.result("guinier")
+    >>> model.result("guinier", q_range=None, shape="compact") is fit
+    True
+    >>> I, S = model.rows(1)
+    >>> fit.rg.values.round(6).tolist(), I.shape, model.frame
+    ([2.0, 3.0], (100,), 0)
+    """
+
+    #: The current frame (position along ``frame``), shared by the panels.
+    frame = traitlets.Int(0)
+
+    def __init__(self, ds: xr.Dataset, *, frame: int = 0, max_results: int = 12, **kwargs):
+        self.ds = validate(ds)
+        self.n_frames = int(ds.sizes["frame"])
+        # the series' own arrays (views; a dask series is loaded here, once)
+        self._intensity = self._read_only(ds["intensity"].values)
+        self._sigma = self._read_only(ds["sigma"].values)
+        self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
+        self._positive_range: tuple[float, float] | None = None
+        self.q = self._read_only(np.asarray(ds["q"].values, dtype=float))
+        self.q_units = str(ds["q"].attrs.get("units", "1/nm"))
+        self.intensity_units = str(ds["intensity"].attrs.get("units", "arb"))
+        self.scan = main_scan(ds)
+        if self.scan == "frame":
+            self.scan_values = np.arange(self.n_frames, dtype=float)
+            self.scan_units = ""
+        else:
+            self.scan_values = np.asarray(ds[self.scan].values)
+            self.scan_units = str(ds[self.scan].attrs.get("units", ""))
+        self.max_results = int(max_results)
+        self._results: OrderedDict = OrderedDict()
+        super().__init__(**kwargs)
+        if frame:
+            self.frame = int(frame)
+
+    @staticmethod
+    def _read_only(values) -> np.ndarray:
+        view = np.asarray(values).view()  # a view: the series' own array stays writeable
+        view.flags.writeable = False
+        return view
+
+    # ---------------------------------------------------------------- arrays
+    def rows(self, frames) -> tuple[np.ndarray, np.ndarray]:
+        """Masked intensity and sigma of ``frames`` (an index, a slice or a list of
+        positions), masked points NaN, as ``ds.saxs.masked()`` gives them.
+
+        Without a mask these are read-only views of the series' arrays; with one they
+        are new arrays of the frames asked for only.
+        """
+        I, S = self._intensity[frames], self._sigma[frames]
+        if self._mask is not None:
+            m = self._mask[frames]
+            I = np.where(m, np.array(np.nan, dtype=np.result_type(I.dtype, np.float16)), I)
+            S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
+        return I, S
+
+    def masked(self) -> tuple[np.ndarray, np.ndarray]:
+        """Masked intensity and sigma of every frame, (n_frames, n_q).
+
+        A new pair of arrays as large as the series when it has a mask: use it for a
+        one-off summary (an overview map) and do not keep it.
+        """
+        return self.rows(slice(None))
+
+    def positive_range(self) -> tuple[float, float]:
+        """``display.positive_range`` of the masked intensity of the whole series (the
+        fixed y range of log plots), computed once."""
+        if self._positive_range is None:
+            self._positive_range = positive_range(self.masked()[0])
+        return self._positive_range
+
+    @traitlets.validate("frame")
+    def _check_frame(self, proposal):
+        value = int(proposal["value"])
+        if not 0 <= value < self.n_frames:
+            raise traitlets.TraitError(f"frame {value} outside 0..{self.n_frames - 1}")
+        return value
+
+    # ------------------------------------------------------------------ scan
+    def frame_label(self, index: int | None = None) -> str:
+        """Plain label of a frame, e.g. ``"temperature 45.5 degC (frame 51)"``."""
+        i = self.frame if index is None else int(index)
+        if self.scan == "frame":
+            return f"frame {i}"
+        v = self.scan_values[i]
+        text = f"{v:.4g}" if np.issubdtype(np.asarray(v).dtype, np.number) else str(v)
+        unit = f" {self.scan_units}" if self.scan_units else ""
+        return f"{self.scan} {text}{unit} (frame {i})"
+
+    @property
+    def scan_limits(self) -> tuple[float, float]:
+        """Smallest and largest scan value (for the x range of trend plots)."""
+        v = np.asarray(self.scan_values, dtype=float)
+        v = v[np.isfinite(v)]
+        return (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+
+    @property
+    def scan_label(self) -> str:
+        """Axis label of the scan coordinate with its units."""
+        if self.scan == "frame":
+            return "frame"
+        return f"{self.scan} ({self.scan_units})" if self.scan_units else self.scan
+
+    # --------------------------------------------------------------- results
+    def _arguments(self, analysis: str, params: Mapping[str, Any]) -> dict[str, Any]:
+        if analysis not in _SIGNATURES:
+            raise SaxsInputError(f"unknown analysis {analysis!r}; use one of {list(ANALYSES)}",
+                                 parameter="analysis")
+        sig = _SIGNATURES[analysis]
+        try:
+            bound = sig.bind(None, **params)  # None stands for the accessor (self)
+        except TypeError as exc:
+            raise SaxsInputError(f"{analysis}: {exc}", parameter="params") from None
+        bound.apply_defaults()
+        args = dict(bound.arguments)
+        args.pop(next(iter(sig.parameters)))
+        for name, p in sig.parameters.items():
+            if p.kind is inspect.Parameter.VAR_KEYWORD:
+                args.update(args.pop(name, {}))
+            elif p.kind is inspect.Parameter.VAR_POSITIONAL:
+                args.pop(name, None)
+        return args
+
+    def key(self, analysis: str, /, **params) -> tuple:
+        """The cache key of ``result(analysis, **params)``: the analysis and all its
+        arguments (defaults filled in), frozen."""
+        args = self._arguments(analysis, params)
+        return (analysis, _freeze(args))
+
+    def _resolve(self, analysis: str, args: dict[str, Any]) -> dict[str, Any]:
+        """Replace the inputs of ``analysis`` that are options (or absent) by cached results."""
+        needed = dict(INPUTS.get(analysis, {}))
+        if analysis == "kratky" and args.get("normalize") != "rg":
+            needed = {}  # the plain transform uses no Guinier fit
+        for arg, source in needed.items():
+            value = args.get(arg)
+            if value is None:
+                args[arg] = self.result(source)
+            elif isinstance(value, Mapping):
+                args[arg] = self.result(source, **value)
+        return args
+
+    def compute(self, analysis: str, /, **params):
+        """``ds.saxs.<analysis>(**params)`` with its inputs from the cache, not kept.
+
+        For transforms as large as the series (``kratky``) that a panel only needs
+        briefly (e.g. for an axis range); see :meth:`result` for the cached results.
+        """
+        args = self._resolve(analysis, self._arguments(analysis, params))
+        return getattr(self.ds.saxs, analysis)(**args).compute()
+
+    def result(self, analysis: str, /, **params):
+        """The whole-series ``ds.saxs.<analysis>(**params)``, computed once and cached.
+
+        Parameters
+        ----------
+        analysis : one of :data:`ANALYSES`.
+        **params : the accessor method's arguments; an input of :data:`INPUTS` may be
+            a dict of options of the analysis that produces it.
+
+        Returns
+        -------
+        The computed (in-memory) result, the same object on every call with the same
+        parameters (an exception is raised again, not cached).
+        """
+        key = self.key(analysis, **params)
+        if key in self._results:
+            self._results.move_to_end(key)
+            return self._results[key][0]
+        args = self._resolve(analysis, self._arguments(analysis, params))
+        out = getattr(self.ds.saxs, analysis)(**args).compute()
+        # Datasets passed as inputs are kept with the entry: their id is in the key
+        kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
+        self._results[key] = (out, kept)
+        # the automatic results (default arguments) stay: other results and every frame
+        # step build on them; the others go least recently used first
+        spare = [k for k in self._results if k != self.key(k[0])]
+        while len(self._results) > max(self.max_results, 1) and spare:
+            del self._results[spare.pop(0)]
+        return out
+
+    def cached(self, analysis: str, /, **params) -> bool:
+        """Whether ``result(analysis, **params)`` is in the cache."""
+        return self.key(analysis, **params) in self._results
