@@ -4,7 +4,6 @@ import numpy as np
 import pytest
 import traitlets
 import xarray as xr
-from _clock import fixed_history_clock  # noqa: F401  (results compare identical across a second)
 
 import saxsnb
 from saxsnb.display import drawable_line, errorbar_segments, overview_map

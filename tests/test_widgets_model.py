@@ -9,7 +9,6 @@ import numpy as np
 import pytest
 import traitlets
 import xarray as xr
-from _clock import fixed_history_clock  # noqa: F401  (results compare identical across a second)
 
 import saxsnb
 import saxsnb.accessor.linear

@@ -5,7 +5,6 @@ import json
 import numpy as np
 import pytest
 import xarray as xr
-from _clock import fixed_history_clock  # noqa: F401  (results compare identical across a second)
 
 import saxsnb
 from saxsnb.analysis import q_positions

@@ -17,7 +17,7 @@ def status_message(code: str, *, size: str = "Rg", limit: float = 1.3) -> str:
     """Plain-language text of a ``status`` code (the code itself when unknown).
 
     >>> status_message("too_few_points")
-    'fewer than 3 usable points in the q range: widen the range'
+    'too few usable points in the q range for this fit: widen the range'
     >>> status_message("qrg_limit_exceeded", size="Rc", limit=1.0)
     'q_max\u00b7Rc above the validity limit 1.0: the range is too long for a Guinier fit'
     >>> status_message("something_new")
@@ -31,7 +31,7 @@ def describe_status(text: str, **context) -> str:
     """A panel's status line with a trailing status code replaced by its message.
 
     ``"position 2 mm (frame 1): too_few_points"`` becomes
-    ``"position 2 mm (frame 1): fewer than 3 usable points ..."``; other text (error
+    ``"position 2 mm (frame 1): too few usable points ..."``; other text (error
     messages) is returned unchanged. ``context`` goes to :func:`status_message`.
 
     >>> describe_status("frame 3: no_peaks")
