@@ -11,7 +11,10 @@ attrs and one history format on the result):
 - :mod:`saxsnb.accessor.linear`: ``guinier``, ``porod``, ``invariant``, ``kratky``,
   ``kratky_summary``;
 - :mod:`saxsnb.accessor.phases`: ``find_peaks``, ``index_phases``, ``phase_map``,
-  ``phase_report``.
+  ``phase_report``;
+- :mod:`saxsnb.accessor.preparation`: ``compare_frames``, ``average``,
+  ``absolute_scale``, ``rescale_q``, ``rebin``, ``per_concentration``,
+  ``extrapolate_concentration``.
 """
 
 from __future__ import annotations
@@ -21,13 +24,14 @@ import xarray as xr
 from ._core import AccessorBase, OutputSpec, provenance, result_attrs
 from .linear import LinearMethods
 from .phases import PhaseMethods
+from .preparation import PreparationMethods
 from .series import SeriesMethods
 
 __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_attrs"]
 
 
 @xr.register_dataset_accessor("saxs")
-class SaxsAccessor(SeriesMethods, LinearMethods, PhaseMethods):
+class SaxsAccessor(SeriesMethods, LinearMethods, PhaseMethods, PreparationMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples
