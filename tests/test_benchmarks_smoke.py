@@ -19,6 +19,7 @@ BENCH = Path(__file__).resolve().parents[1] / "benchmarks"
         ("bench_read.py", {"SAXSNB_BENCH_FILES": "20", "SAXSNB_BENCH_Q": "50"}),
         ("bench_linear.py", {"SAXSNB_BENCH_FRAMES": "40"}),
         ("bench_peaks.py", {"SAXSNB_BENCH_FRAMES": "20", "SAXSNB_BENCH_BASELINE_FRAMES": "4"}),
+        ("bench_preparation.py", {"SAXSNB_BENCH_FRAMES": "30"}),
     ],
 )
 def test_benchmark_runs_small(script, env):
