@@ -105,11 +105,27 @@ def average_frames(q, intensity, sigma, *, labels=None, include=None) -> dict[st
     members = np.zeros((G, nf), dtype=bool)
     members[lab, np.arange(nf)] = True
     members &= inc[None, :]
-    ok = np.isfinite(I) & np.isfinite(S)
-    W = members.astype(float)
-    k = W @ ok
-    total = W @ np.where(ok, I, 0.0)
-    var = W @ np.where(ok, S**2, 0.0)
+    # sums over the frames of each group: rows sorted by group, one reduceat per quantity
+    rows = np.flatnonzero(inc)
+    rows = rows[np.argsort(lab[rows], kind="stable")]
+    k = np.zeros((G, I.shape[1]))
+    total = np.zeros((G, I.shape[1]))
+    var = np.zeros((G, I.shape[1]))
+    if rows.size:
+        g_of = lab[rows]
+        starts = np.flatnonzero(np.r_[True, g_of[1:] != g_of[:-1]])
+        in_order = rows.size == I.shape[0] and np.array_equal(rows, np.arange(rows.size))
+        Ir, Sr = (I, S) if in_order else (I[rows], S[rows])
+        ok = np.isfinite(Ir) & np.isfinite(Sr)
+        present = g_of[starts]
+        if ok.all():  # the common case: no masked point, no copies
+            k[present] = np.diff(np.r_[starts, rows.size])[:, None]
+            total[present] = np.add.reduceat(Ir, starts, axis=0)
+            var[present] = np.add.reduceat(Sr * Sr, starts, axis=0)
+        else:
+            k[present] = np.add.reduceat(ok.astype(float), starts, axis=0)
+            total[present] = np.add.reduceat(np.where(ok, Ir, 0.0), starts, axis=0)
+            var[present] = np.add.reduceat(np.where(ok, Sr**2, 0.0), starts, axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(k > 0, total / k, np.nan)
         sig = np.where(k > 0, np.sqrt(var) / k, np.nan)
