@@ -9,6 +9,8 @@
 __version__ = "0.1.0"
 
 from . import accessor as _accessor  # noqa: E402,F401  (registers ds.saxs)
+from .accessor.preparation import calibrate_q, merge_ranges  # noqa: E402
+from .analysis import water_cross_section  # noqa: E402
 from .errors import InputError, SaxsError, SaxsFileError, SaxsFitError, SaxsInputError  # noqa: E402
 from .series import from_arrays, validate  # noqa: E402
 
@@ -41,6 +43,9 @@ def __dir__():
 __all__ = [
     "from_arrays",
     "validate",
+    "water_cross_section",
+    "calibrate_q",
+    "merge_ranges",
     "read_series",
     "open_series",
     "save_series",

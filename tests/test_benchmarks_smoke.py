@@ -20,6 +20,7 @@ BENCH = Path(__file__).resolve().parents[1] / "benchmarks"
         ("bench_linear.py", {"SAXSNB_BENCH_FRAMES": "40"}),
         ("bench_peaks.py", {"SAXSNB_BENCH_FRAMES": "20", "SAXSNB_BENCH_BASELINE_FRAMES": "4"}),
         ("bench_distance.py", {"SAXSNB_BENCH_FRAMES": "12"}),
+        ("bench_preparation.py", {"SAXSNB_BENCH_FRAMES": "30"}),
     ],
 )
 def test_benchmark_runs_small(script, env):

@@ -91,7 +91,8 @@ def test_analysis_errors_show_in_status(series):
     p = LinearFitPanel(series)
     p.q_range = (0.5000, 0.5001)  # fewer than 3 points
     assert "too_few_points" in p.status and "too_few_points" not in p.status_line.value
-    assert p.status_text == f"{p.frame_label()}: too few usable points in the q range for this fit: widen the range"
+    msg = "too few usable points in the q range for this fit: widen the range"
+    assert p.status_text == f"{p.frame_label()}: {msg}"
     assert p.status_text in html.unescape(p.status_line.value)
     before = p.result
     p.q_range = (0.3, 0.3)  # rejected by the accessor: q_min must be below q_max

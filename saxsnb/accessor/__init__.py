@@ -13,7 +13,10 @@ attrs and one history format on the result):
 - :mod:`saxsnb.accessor.phases`: ``find_peaks``, ``index_phases``, ``phase_map``,
   ``phase_report``;
 - :mod:`saxsnb.accessor.distance`: ``distance_distribution``;
-- :mod:`saxsnb.accessor.tables`: ``to_dataframe``, ``to_csv``.
+- :mod:`saxsnb.accessor.tables`: ``to_dataframe``, ``to_csv``;
+- :mod:`saxsnb.accessor.preparation`: ``compare_frames``, ``average``,
+  ``absolute_scale``, ``rescale_q``, ``rebin``, ``per_concentration``,
+  ``extrapolate_concentration``.
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ from ._core import AccessorBase, OutputSpec, provenance, result_attrs
 from .distance import DistanceMethods
 from .linear import LinearMethods
 from .phases import PhaseMethods
+from .preparation import PreparationMethods
 from .series import SeriesMethods
 from .tables import TableMethods
 
@@ -31,7 +35,8 @@ __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_a
 
 
 @xr.register_dataset_accessor("saxs")
-class SaxsAccessor(SeriesMethods, LinearMethods, DistanceMethods, PhaseMethods, TableMethods):
+class SaxsAccessor(SeriesMethods, LinearMethods, DistanceMethods, PhaseMethods, PreparationMethods,
+                   TableMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples

@@ -210,25 +210,44 @@ class SeriesMethods(AccessorBase):
         return f"<div><b>{head}</b><table>{rows}</table></div>"
 
     # ---- corrections
-    def subtract(self, background: xr.Dataset, *, scale: float = 1.0) -> xr.Dataset:
+    def subtract(self, background: xr.Dataset, *, scale: float | str = 1.0, scale_q_range=None,
+                 match: str | None = None, tolerance: float | None = None, regrid: bool = False,
+                 transmission=None, thickness=None, exposure=None, monitor=None,
+                 background_normalization: dict | None = None) -> xr.Dataset:
         """Subtract a background series; sigma is propagated in quadrature.
 
         Parameters
         ----------
         background : Dataset
-            A series on the same q grid with the same intensity unit, with either one
-            frame (subtracted from every frame) or as many frames as this series
-            (matched by position).
-        scale : float
-            Factor applied to the background (transmission/thickness ratio).
+            A series with the same intensity unit, on the same q grid (or any grid with
+            ``regrid=True``: linear interpolation onto the series' q, points outside
+            its range become NaN).
+        scale : float or "auto"
+            Factor applied to the background; ``"auto"`` fits one per frame on
+            ``scale_q_range`` (:func:`saxsnb.analysis.fit_scale`, default the upper
+            quarter of the q range), recorded in ``background_scale`` and
+            ``background_scale_sigma``.
+        match : {None, "position", "scan", "mean"}
+            Which background frame goes with each frame: by position (same number of
+            frames), by the nearest value of the main scan coordinate within
+            ``tolerance`` (:func:`saxsnb.analysis.match_frames`; an error names a frame
+            without partner), or the mean of all background frames for every frame.
+            Default: the one background frame; else by position, unless both series
+            carry the main scan coordinate in different orders, then by scan value
+            (never by position silently). Scan matching records ``background_frame``.
+        transmission, thickness, exposure, monitor : number, per-frame values or name
+            Normalisation: the series (and the background) are divided by transmission
+            x exposure x monitor before subtraction and the result by thickness. A
+            name is looked up among the per-frame variables and attrs of the series and,
+            when present, of the background.
+        background_normalization : dict, optional
+            The background's own ``transmission`` / ``exposure`` / ``monitor`` values.
 
         Returns
         -------
-        A new Dataset: intensity ``I - scale I_bg``, sigma
-        ``sqrt(sigma^2 + (scale sigma_bg)^2)``, mask the union of both masks, the
-        operation recorded in ``attrs["history"]``. See
-        :func:`saxsnb.corrections.subtract_background`. Frames are matched by
-        position, not by scan value: sort both series the same way.
+        A new Dataset: intensity ``I/N - scale I_bg/N_bg`` (divided by thickness), sigma
+        propagated in quadrature, mask the union of both masks, the operation with its
+        parameters recorded in ``attrs["history"]``.
 
         Examples
         --------
@@ -239,40 +258,164 @@ class SeriesMethods(AccessorBase):
         >>> out.intensity.values.tolist(), out.sigma.values.round(6).tolist()
         ([[4.0, 2.0], [5.0, 3.0]], [[0.5, 0.5], [0.5, 0.5]])
         """
-        from ..analysis._corrections import subtract_background
+        from ..analysis._averaging import average_frames
+        from ..analysis._corrections import fit_scale, match_frames, normalization_factor, subtract_background
 
         ds = self._ds
-        bI, bS, bM = _matching_background(ds, background)
+        if match not in (None, "position", "scan", "mean"):
+            raise SaxsInputError(f"match must be None, 'position', 'scan' or 'mean', got {match!r}",
+                                 parameter="match")
+        bI, bS, bM = _background_arrays(ds, background, regrid=regrid)
+        n, nb = ds.sizes["frame"], bI.shape[0]
+        names = {"transmission": transmission, "exposure": exposure, "monitor": monitor}
+        own = {k: _norm_value(ds, v, k) for k, v in names.items()}
+        bnorm = dict(background_normalization or {})
+        unknown = sorted(set(bnorm) - set(names))
+        if unknown:
+            raise SaxsInputError(f"background_normalization keys must be among {sorted(names)}, "
+                                 f"got {unknown}",
+                                 parameter="background_normalization")
+        for k, v in names.items():
+            if k not in bnorm and isinstance(v, str):
+                bnorm[k] = _norm_value(background, v, k, required=False)
+        n_s = normalization_factor(n, **own)
+        n_b = normalization_factor(nb, **bnorm)
+        bI, bS = bI / n_b[:, None], bS / n_b[:, None]
+        scan = self.scan
+        how = match
+        if how is None:
+            how = "single" if nb == 1 else ("scan" if _orders_differ(ds, background, scan) else "position")
+        index = None
+        if how == "mean":
+            avg = average_frames(ds["q"].values, bI, bS)
+            bI, bS = avg["intensity"], avg["sigma"]
+            bM = None if bM is None else bM.any(axis=0, keepdims=True)
+            how = "single"
+        if how == "position" and nb != n:
+            raise SaxsInputError(f"background has {nb} frames; expected 1 or {n} (one per frame of the "
+                                 "series)", parameter="background")
+        if how == "scan":
+            if scan == "frame" or scan not in background.coords:
+                raise SaxsInputError(f"match='scan' needs the scan coordinate {scan!r} on both series",
+                                     parameter="match")
+            index = match_frames(ds[scan].values, background[scan].values, tolerance=tolerance)
+        elif how == "position":
+            index = np.arange(n)
+        d = normalization_factor(n, thickness=_norm_value(ds, thickness, "thickness"))
+        if index is not None:
+            bI, bS = bI[index], bS[index]
+            bM = None if bM is None else bM[index]
         I, S = ds["intensity"], ds["sigma"]
         if I.chunks is not None:
             I, S = I.chunk({"q": -1}), S.chunk({"q": -1})
+        norm = xr.DataArray(n_s, dims="frame", coords={"frame": ds["frame"]})
+        I, S = I / norm, S / norm
+        dims = ("q",) if bI.shape[0] == 1 and index is None else ("frame", "q")
+        bIa = xr.DataArray(bI[0] if dims == ("q",) else bI, dims=dims)
+        bSa = xr.DataArray(bS[0] if dims == ("q",) else bS, dims=dims)
+        extra = {}
+        if scale == "auto":
+            if scale_q_range is None:
+                qv = ds["q"].values
+                scale_q_range = (float(qv.min() + 0.75 * (qv.max() - qv.min())), float(qv.max()))
+            Im, Sm = self.masked()
+            fit = fit_scale(ds["q"].values, (Im / norm).values, (Sm / norm).values,
+                            bI if dims == ("frame", "q") else bI[0], bS if dims == ("frame", "q") else bS[0],
+                            q_range=scale_q_range)
+            k = xr.DataArray(fit["scale"], dims="frame")
+            extra["background_scale"] = ("frame", fit["scale"], {"units": "1"})
+            extra["background_scale_sigma"] = ("frame", fit["scale_sigma"], {"units": "1"})
+            scale_arg = k
+        elif isinstance(scale, str):
+            raise SaxsInputError(f"scale must be a number or 'auto', got {scale!r}", parameter="scale")
+        else:
+            scale_arg = xr.DataArray(float(scale))
+
+        def _sub(I_, S_, B_, BS_, k_):
+            return subtract_background(I_, S_, B_, BS_, scale=np.asarray(k_)[..., None])
+
         out_i, out_s = xr.apply_ufunc(
-            subtract_background, I, S, bI, bS, kwargs={"scale": float(scale)},
-            input_core_dims=[["q"]] * 4, output_core_dims=[["q"], ["q"]],
+            _sub, I, S, bIa, bSa, scale_arg,
+            input_core_dims=[["q"]] * 4 + [[]], output_core_dims=[["q"], ["q"]],
             dask="parallelized", output_dtypes=[float, float],
         )
+        dd = xr.DataArray(d, dims="frame", coords={"frame": ds["frame"]})
         out = ds.copy()
-        out["intensity"] = out_i.transpose("frame", "q").assign_attrs(ds["intensity"].attrs)
-        out["sigma"] = out_s.transpose("frame", "q").assign_attrs(ds["sigma"].attrs)
+        out["intensity"] = (out_i / dd).transpose("frame", "q").assign_attrs(ds["intensity"].attrs)
+        out["sigma"] = (out_s / dd).transpose("frame", "q").assign_attrs(ds["sigma"].attrs)
         if bM is not None:
-            own = ds["mask"] if "mask" in ds.data_vars else xr.zeros_like(ds["intensity"], dtype=bool)
-            out["mask"] = (own | bM).transpose("frame", "q").assign_attrs(long_name="excluded points")
+            bMa = xr.DataArray(bM[0] if dims == ("q",) else bM, dims=dims)
+            own_m = ds["mask"] if "mask" in ds.data_vars else xr.zeros_like(ds["intensity"], dtype=bool)
+            out["mask"] = (own_m | bMa).transpose("frame", "q").assign_attrs(long_name="excluded points")
+        for name, var in extra.items():
+            out[name] = var
+        if how == "scan":
+            out["background_frame"] = ("frame", index, {"long_name": "matched background frame (position)"})
         if background.attrs.get("sigma_estimated", 0):
             out.attrs["sigma_estimated"] = 1
-        return add_history(
-            out, "subtract", scale=float(scale), background_frames=int(background.sizes["frame"]),
-            background_sample=str(background.attrs.get("sample", "")),
-        )
+        params = dict(scale=scale if scale == "auto" else float(scale),
+                      background_frames=int(background.sizes["frame"]),
+                      background_sample=str(background.attrs.get("sample", "")))
+        if match is not None or how == "scan":
+            params["match"] = how if match is None else match
+        if scale == "auto":
+            params["scale_q_range"] = list(scale_q_range)
+        for k, v in dict(transmission=transmission, thickness=thickness, exposure=exposure,
+                         monitor=monitor, regrid=regrid or None, tolerance=tolerance).items():
+            if v is not None:
+                params[k] = v if isinstance(v, str) or np.ndim(v) == 0 else np.asarray(v).tolist()
+        if background_normalization:
+            params["background_normalization"] = background_normalization
+        return add_history(out, "subtract", **params)
 
 
+def _norm_value(ds: xr.Dataset, value, name: str, required: bool = True):
+    """A normalisation value: number, per-frame values or a name in ``ds``."""
+    if not isinstance(value, str):
+        return None if value is None else np.asarray(value, dtype=float)
+    if value in ds.variables and ds[value].dims == ("frame",):
+        return np.asarray(ds[value].values, dtype=float)
+    if value in ds.attrs:
+        return float(ds.attrs[value])
+    if not required:
+        return None
+    raise SaxsInputError(f"{name}={value!r} names no per-frame variable or attr of the series",
+                         parameter=name)
 
-def _matching_background(ds: xr.Dataset, background) -> tuple[xr.DataArray, ...]:
-    """Background intensity, sigma and mask (or None) ready to combine with ``ds``.
 
-    One background frame gives arrays on ``q`` only; as many frames as ``ds`` gives
-    arrays on ``(frame, q)`` carrying the frame labels of ``ds``. Anything else is a
-    SaxsInputError naming the parameter ``background``.
-    """
+def _orders_differ(ds: xr.Dataset, background: xr.Dataset, scan: str) -> bool:
+    """True when both series carry the scan coordinate with distinct values in different orders."""
+    if scan == "frame" or scan not in background.coords or background.sizes["frame"] != ds.sizes["frame"]:
+        return False
+    a = np.asarray(ds[scan].values)
+    b = np.asarray(background[scan].values)
+    if a.dtype.kind not in "fiu" or b.dtype.kind not in "fiu":
+        return False
+    if np.unique(b).size != b.size or np.unique(a).size != a.size:
+        return False
+    return not np.array_equal(np.argsort(a, kind="stable"), np.argsort(b, kind="stable"))
+
+
+def _background_arrays(ds: xr.Dataset, background, *, regrid: bool = False):
+    """Background intensity, sigma (n_background, n_q) and mask (or None) on the q of ``ds``."""
+    _check_background(ds, background, regrid=regrid)
+    bI = np.asarray(background["intensity"].values, dtype=float)
+    bS = np.asarray(background["sigma"].values, dtype=float)
+    bM = np.asarray(background["mask"].values, dtype=bool) if "mask" in background.data_vars else None
+    q, bq = ds["q"].values, background["q"].values
+    if regrid and (bq.size != q.size or not np.allclose(bq, q, rtol=1e-9, atol=0.0)):
+        if bM is not None:
+            bI, bS = np.where(bM, np.nan, bI), np.where(bM, np.nan, bS)
+        j = np.clip(np.searchsorted(bq, q) - 1, 0, bq.size - 2)
+        t = (q - bq[j]) / (bq[j + 1] - bq[j])
+        inside = (q >= bq[0]) & (q <= bq[-1])
+        bI = np.where(inside, bI[:, j] * (1 - t) + bI[:, j + 1] * t, np.nan)
+        bS = np.where(inside, np.sqrt((bS[:, j] * (1 - t)) ** 2 + (bS[:, j + 1] * t) ** 2), np.nan)
+        bM = None
+    return bI, bS, bM
+
+
+def _check_background(ds: xr.Dataset, background, *, regrid: bool = False) -> None:
     if not isinstance(background, xr.Dataset):
         raise SaxsInputError(
             f"background must be a series Dataset, got {type(background).__name__}",
@@ -288,11 +431,11 @@ def _matching_background(ds: xr.Dataset, background) -> tuple[xr.DataArray, ...]
             f"background q is in {bq.attrs['units']}, the series in {q.attrs['units']}",
             parameter="background",
         )
-    if bq.size != q.size or not np.allclose(bq.values, q.values, rtol=1e-9, atol=0.0):
+    if not regrid and (bq.size != q.size or not np.allclose(bq.values, q.values, rtol=1e-9, atol=0.0)):
         raise SaxsInputError(
             f"background q grid ({bq.size} points, {float(bq.min()):.4g}..{float(bq.max()):.4g}) "
             f"differs from the series ({q.size} points, {float(q.min()):.4g}..{float(q.max()):.4g});"
-            " regrid one of them first",
+            " regrid one of them first or pass regrid=True",
             parameter="background",
         )
     units = ds["intensity"].attrs.get("units", "arb"), background["intensity"].attrs.get("units", "arb")
@@ -301,20 +444,3 @@ def _matching_background(ds: xr.Dataset, background) -> tuple[xr.DataArray, ...]
             f"background intensity is in {units[1]!r}, the series in {units[0]!r}",
             parameter="background",
         )
-    n, nb = ds.sizes["frame"], background.sizes["frame"]
-    names = ["intensity", "sigma"] + (["mask"] if "mask" in background.data_vars else [])
-    if nb == 1:
-        out = [
-            xr.DataArray(background[v].data[0], dims=("q",), coords={"q": q}) for v in names
-        ]
-    elif nb == n:
-        coords = {"frame": ds["frame"], "q": q}
-        out = [xr.DataArray(background[v].data, dims=("frame", "q"), coords=coords) for v in names]
-    else:
-        raise SaxsInputError(
-            f"background has {nb} frames; expected 1 or {n} (one per frame of the series)",
-            parameter="background",
-        )
-    if out[0].chunks is not None:
-        out = [a.chunk({"q": -1}) for a in out]
-    return out[0], out[1], (out[2] if len(out) == 3 else None)

@@ -12,7 +12,9 @@ table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), pe
 (:func:`find_peaks`, :func:`track_peaks`), the distance distribution
 (:func:`distance_distribution`, :func:`forward_transform`), phases (:func:`index_phases`,
 :func:`phase_map`, :func:`q_positions`), corrections (:func:`subtract_background`,
-:func:`scale_intensity`) and the status table (:data:`STATUS`).
+:func:`scale_intensity`), preparation (:func:`compare_frames`, :func:`average_frames`,
+:func:`rebin`, :func:`calibrate_q`, :func:`water_cross_section`, :func:`merge_ranges`,
+:func:`extrapolate_concentration`) and the status table (:data:`STATUS`).
 
 >>> import numpy as np
 >>> from saxsnb import analysis
@@ -21,7 +23,9 @@ table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), pe
 [2.0]
 """
 
-from ._corrections import scale_intensity, subtract_background
+from ._averaging import average_frames, group_labels, rebin
+from ._calibration import SILVER_BEHENATE_D, calibrate_q, calibration_factor, water_cross_section
+from ._corrections import fit_scale, match_frames, normalization_factor, scale_intensity, subtract_background
 from ._distance import (
     default_dmax_candidates,
     distance_distribution,
@@ -43,11 +47,19 @@ from ._linear import (
     linearize,
     weighted_linear_fit,
 )
+from ._merging import extrapolate_concentration, merge_ranges, per_concentration
 from ._peakfit import PROFILES, fit_peaks, guess_peaks, peak_profile
 from ._peaks import detect_peaks, estimate_baseline, find_peaks
 from ._phasemap import BONNET_RATIOS, phase_map
 from ._porod import default_porod_range, porod, porod_fit, power_law_fit
 from ._reflections import PHASES, allowed_reflections, hkl_labels, q_positions, spacing_ratios
+from ._similarity import (
+    adjust_pvalues,
+    compare_frames,
+    longest_run_pvalue,
+    longest_same_sign_run,
+    pairwise_similarity,
+)
 from ._status import STATUS, STATUS_DTYPE, Status
 from ._tracking import link_peaks, track_peaks
 from ._windows import WindowMoments, running_sum
@@ -107,6 +119,25 @@ __all__ = [
     # corrections
     "subtract_background",
     "scale_intensity",
+    "match_frames",
+    "fit_scale",
+    "normalization_factor",
+    # preparation: similarity, averaging, calibration, merging, concentration
+    "compare_frames",
+    "pairwise_similarity",
+    "longest_same_sign_run",
+    "longest_run_pvalue",
+    "adjust_pvalues",
+    "group_labels",
+    "average_frames",
+    "rebin",
+    "water_cross_section",
+    "calibration_factor",
+    "calibrate_q",
+    "SILVER_BEHENATE_D",
+    "merge_ranges",
+    "per_concentration",
+    "extrapolate_concentration",
     # statuses
     "STATUS",
     "STATUS_DTYPE",

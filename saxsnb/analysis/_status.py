@@ -163,6 +163,11 @@ STATUS: dict[str, Status] = {
         "phases",
         "some peaks are not explained by the assigned phase(s)",
     ),
+    "is_reference": Status(
+        "the frame is the reference the others are compared with",
+        "reference",
+        "reference frame of the comparison (not tested against itself)",
+    ),
     "override": Status("the phase was set by hand", "overrides", "override (phase set by hand)"),
 }
 
