@@ -157,7 +157,8 @@ def report_text(ds, *, frame: int | None = None) -> str:
             for name, st in s["values"].items():
                 if st["n"]:
                     sig = f", typical sigma {st['median_sigma']:.2g}" if st.get("median_sigma") else ""
-                    lines.append(f"  {name}: median {st['median']:.4g} {st['units']} "
+                    unit = "" if st["units"] in ("", "1") else f" {st['units']}"
+                    lines.append(f"  {name}: median {st['median']:.4g}{unit} "
                                  f"(range {st['min']:.4g}..{st['max']:.4g}{sig}) over {st['n']} frames")
         for code in s.get("status", {}):
             if code != "ok":
