@@ -14,6 +14,7 @@ attrs and one history format on the result):
   ``phase_report``;
 - :mod:`saxsnb.accessor.distance`: ``distance_distribution``;
 - :mod:`saxsnb.accessor.tables`: ``to_dataframe``, ``to_csv``;
+- :mod:`saxsnb.accessor.recipe`: ``recipe`` (code that rebuilds a result from its files);
 - :mod:`saxsnb.accessor.preparation`: ``compare_frames``, ``average``,
   ``absolute_scale``, ``rescale_q``, ``rebin``, ``per_concentration``,
   ``extrapolate_concentration``.
@@ -28,6 +29,7 @@ from .distance import DistanceMethods
 from .linear import LinearMethods
 from .phases import PhaseMethods
 from .preparation import PreparationMethods
+from .recipe import RecipeMethods
 from .series import SeriesMethods
 from .tables import TableMethods
 
@@ -36,7 +38,7 @@ __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_a
 
 @xr.register_dataset_accessor("saxs")
 class SaxsAccessor(SeriesMethods, LinearMethods, DistanceMethods, PhaseMethods, PreparationMethods,
-                   TableMethods):
+                   TableMethods, RecipeMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples

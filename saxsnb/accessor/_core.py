@@ -71,11 +71,17 @@ def provenance(operation: str, parameters: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
-def result_attrs(source: xr.Dataset, operation: str, parameters: Mapping[str, Any]) -> dict[str, Any]:
+def result_attrs(source: xr.Dataset, operation: str, parameters: Mapping[str, Any],
+                 after: xr.Dataset | None = None) -> dict[str, Any]:
     """The attrs of a result made from ``source``: its attrs (sample, files, ...), its
     history extended by this step (the one history format of
-    :func:`saxsnb.series.add_history`), and ``operation`` / ``parameters`` of this step."""
-    stepped = add_history(xr.Dataset(attrs=dict(source.attrs)), operation, **dict(parameters))
+    :func:`saxsnb.series.add_history`), and ``operation`` / ``parameters`` of this step.
+    ``after``: a result this step was computed from (peaks for phases, a Guinier fit for
+    a Kratky summary); its history, which holds the series' and its own step, is extended."""
+    attrs = dict(source.attrs)
+    if after is not None and "history" in after.attrs:
+        attrs["history"] = list(after.attrs["history"])
+    stepped = add_history(xr.Dataset(attrs=attrs), operation, **dict(parameters))
     out = dict(stepped.attrs)
     for key in ("operation", "parameters", "saxsnb_version"):
         out.pop(key, None)
@@ -223,7 +229,7 @@ class AccessorBase:
         return out.assign_coords(frame=ds["frame"].reset_coords(drop=True))
 
     def _result(self, data: Mapping[str, tuple], operation: str, parameters: Mapping[str, Any],
-                coords=None, like: xr.Dataset | None = None) -> xr.Dataset:
+                coords=None, like: xr.Dataset | None = None, after: xr.Dataset | None = None) -> xr.Dataset:
         """A result Dataset from in-memory arrays, with coordinates and provenance; the
         frame coordinates come from ``like`` (a result on the same frames) when given."""
         out = xr.Dataset(dict(data), coords=coords)
@@ -231,7 +237,7 @@ class AccessorBase:
             out = out.assign_coords({c: like[c] for c in like.coords if like[c].dims == ("frame",)})
         else:
             out = self._frame_coords(out)
-        out.attrs = result_attrs(self._ds, operation, parameters)
+        out.attrs = result_attrs(self._ds, operation, parameters, after)
         return out
 
     # -------------------------------------------------- mapping over frames
@@ -244,6 +250,7 @@ class AccessorBase:
         parameters: Mapping[str, Any] | None = None,
         extra_args: tuple = (),
         errors: str | None = None,
+        after: xr.Dataset | None = None,
         **kwargs,
     ) -> xr.Dataset:
         """Run ``func(q, intensity, sigma, *extra_args, **kwargs)`` over all frames.
@@ -300,7 +307,7 @@ class AccessorBase:
                 attrs["units"] = spec.units
             data_vars[n] = da.assign_attrs(attrs)
         out = self._frame_coords(xr.Dataset(data_vars))
-        out.attrs = result_attrs(self._ds, operation, kwargs if parameters is None else parameters)
+        out.attrs = result_attrs(self._ds, operation, kwargs if parameters is None else parameters, after)
         if errors is not None:
             out = self._raise_failed(out, operation, errors)
         return out

@@ -281,7 +281,7 @@ class LinearMethods(AccessorBase):
         out = self._apply(
             lambda q, I, S, rg, i0: _summary(q, I, rg=rg, i0=i0, **options), outputs,
             operation="kratky_summary", parameters={**options, "guinier": g.attrs.get("parameters")},
-            extra_args=(g["rg"], g["i0"]),
+            extra_args=(g["rg"], g["i0"]), after=g,
         )
         return out.assign(rg=g["rg"], i0=g["i0"])
 

@@ -164,7 +164,7 @@ class PhaseMethods(AccessorBase):
                 for k, v in res.items()}
         data["position"] = pk["position"].reset_coords(drop=True)
         out = self._result(data, "index_phases", params, coords={"slot": np.arange(res["phase"].shape[1])},
-                           like=pk)
+                           like=pk, after=pk)
         out["lattice"].attrs["long_name"] = "d-spacing (lamellar) or cell edge a"
         out.attrs["scan"] = self._scan_name()
         out.attrs["order_by"] = self._scan_name(order_by)

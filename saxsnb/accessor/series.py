@@ -355,7 +355,8 @@ class SeriesMethods(AccessorBase):
             out.attrs["sigma_estimated"] = 1
         params = dict(scale=scale if scale == "auto" else float(scale),
                       background_frames=int(background.sizes["frame"]),
-                      background_sample=str(background.attrs.get("sample", "")))
+                      background_sample=str(background.attrs.get("sample", "")),
+                      background_history=list(background.attrs.get("history", [])))
         if match is not None or how == "scan":
             params["match"] = how if match is None else match
         if scale == "auto":

@@ -167,7 +167,8 @@ def _apply_overrides(out, position, position_sigma, prominence, overrides, *, q_
     """Set frames by hand, in place on the result dict ``out`` (see :func:`index_phases`)."""
     F = position.shape[0]
     slots = out["phase"].shape[1]
-    for frame in sorted(int(f) for f in overrides):
+    overrides = {int(f): v for f, v in overrides.items()}  # keys may come back from JSON as text
+    for frame in sorted(overrides):
         choice = dict(overrides[frame])
         if not 0 <= frame < F:
             raise SaxsInputError(f"override frame {frame} outside 0..{F - 1}", parameter="overrides",

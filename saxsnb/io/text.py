@@ -231,9 +231,28 @@ def read_series(
     files = find_files(source)
     curves = _curves(files, progress)
     ds = build_series(curves, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid)
+    ds = _record_read(ds, source, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid)
     if chunks is not None:
         ds = ds.chunk({"frame": int(chunks)} if isinstance(chunks, int) else dict(chunks))
     return ds
+
+
+def _record_read(ds: xr.Dataset, source, **options) -> xr.Dataset:
+    """Append the read itself to the history (what ``ds.saxs.recipe()`` starts from).
+
+    Files written by saxsnb carry the history of what made them; the steps before the
+    read are in the numbers already, so a recipe starts at the last read."""
+    import json
+
+    from .. import __version__
+
+    src = [str(p) for p in source] if isinstance(source, (list, tuple)) else str(source)
+    kept = {k: v for k, v in options.items() if v is not None}
+    entry = json.dumps({"operation": "read_series", "parameters": {"source": src, **kept},
+                        "version": __version__}, sort_keys=True)
+    out = ds.copy(deep=False)
+    out.attrs = {**ds.attrs, "history": [*ds.attrs.get("history", []), entry]}
+    return out
 
 
 def _value_text(value) -> str:
