@@ -140,7 +140,13 @@ class DatasetTrait(traitlets.TraitType):
         old = self.get(obj)
         obj.__dict__[self._slot()] = new
         if new is not old:
-            obj.notify_change(traitlets.Bunch(name=self.name, old=old, new=new, owner=obj, type="change"))
+            obj.notify_change(_Change(name=self.name, old=old, new=new, owner=obj, type="change"))
+
+
+class _Change(dict):
+    """A change record as traitlets hands to observers: a dict with attribute access."""
+
+    __getattr__ = dict.__getitem__
 
 
 class PanelBase(widgets.VBox):
