@@ -286,7 +286,7 @@ def test_closed_forms_against_references():
 
 # ---------------------------------------------------------------- write_demo
 def test_write_demo_folders(tmp_path):
-    out = demo.write_demo(tmp_path / "demo", seed=2)
+    out = demo.write_demo(tmp_path / "demo", names=demo.SCENARIOS, seed=2)
     assert set(out) == set(demo.SCENARIOS)
     for name, folder in out.items():
         n = SHAPES[name][0]

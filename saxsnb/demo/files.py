@@ -92,7 +92,9 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
         Created if missing. Each scenario goes to ``out_dir/<name>/`` with its
         background in ``out_dir/<name>/background/`` and a README.md.
     names : iterable of str, optional
-        Scenarios to write (default: all of :data:`saxsnb.demo.SCENARIOS`).
+        Scenarios to write (default: all of :data:`saxsnb.demo.SCENARIOS` and the
+        ``"preparation"`` folder: repeat exposures, buffer, empty cell, water and a
+        silver behenate standard, see :mod:`saxsnb.demo.preparation`).
     seed : int
         Seed passed to :func:`saxsnb.demo.make_series`.
 
@@ -110,11 +112,13 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
     41
     """
     from . import SCENARIOS, make_series
+    from .preparation import write_preparation
 
-    names = list(SCENARIOS) if names is None else list(names)
+    known = [*SCENARIOS, "preparation"]
+    names = known if names is None else list(names)
     for name in names:
-        if name not in SCENARIOS:
-            raise SaxsInputError(f"unknown demo scenario {name!r}; choose from {list(SCENARIOS)}",
+        if name not in known:
+            raise SaxsInputError(f"unknown demo scenario {name!r}; choose from {known}",
                                  parameter="names")
     out = Path(out_dir)
     try:
@@ -123,6 +127,12 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
         raise SaxsFileError(f"cannot create the output folder: {exc.strerror}", path=out) from exc
     result: dict[str, Path] = {}
     for name in names:
+        if name == "preparation":
+            try:
+                result[name] = write_preparation(out / name, seed=seed)
+            except OSError as exc:
+                raise SaxsFileError(f"cannot write demo files: {exc}", path=out / name) from exc
+            continue
         series, background = make_series(name, seed=seed)
         prefix, scan, tag, pattern = FILE_NAMES[name]
         folder = out / name

@@ -11,7 +11,9 @@ also works alone:
 - :class:`LinearFitPanel` (``kind="guinier" | "rod" | "sheet" | "porod"``; brush
   selector for the q range, residuals, result text, trend over the scan),
 - :class:`KratkyPanel` (plain or dimensionless, reference levels, shape trend),
-- :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides).
+- :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides),
+- :class:`PreparationPanel` (sample, background, subtracted; scale control; clickable
+  frame-similarity map and outlier flags; in ``explore()`` when a background is given).
 
 The panels of one series share a :class:`SeriesModel` (``panel.model``): the masked
 intensity and sigma once, the whole-series results cached by (analysis, parameters),
@@ -43,6 +45,7 @@ from .kratky import KratkyPanel
 from .linear import LinearFitPanel
 from .model import SeriesModel
 from .peaks import PeaksPanel
+from .preparation import PreparationPanel
 
 __all__ = [
     "explore",
@@ -54,5 +57,6 @@ __all__ = [
     "LinearFitPanel",
     "KratkyPanel",
     "PeaksPanel",
+    "PreparationPanel",
     "SeriesModel",
 ]

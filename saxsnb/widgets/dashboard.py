@@ -16,6 +16,8 @@ __all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
 
 #: Panels of :func:`explore`, in display order.
 PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks")
+#: Panels added when a background is given.
+BACKGROUND_PANELS = ("preparation",)
 
 
 class PanelSet(dict):
@@ -143,6 +145,7 @@ def _factories():
     from .kratky import KratkyPanel
     from .linear import LinearFitPanel
     from .peaks import PeaksPanel
+    from .preparation import PreparationPanel
 
     return {
         "browser": lambda model, bg: SeriesBrowser(model),
@@ -150,6 +153,7 @@ def _factories():
         "guinier": lambda model, bg: LinearFitPanel(model, kind="guinier"),
         "kratky": lambda model, bg: KratkyPanel(model),
         "peaks": lambda model, bg: PeaksPanel(model),
+        "preparation": lambda model, bg: PreparationPanel(model, bg),
     }
 
 
@@ -170,7 +174,9 @@ def explore(
         A background series, drawn in the curve panel.
     panels : sequence of str
         Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``,
-        ``"peaks"`` (default: all).
+        ``"peaks"`` and ``"preparation"`` (default: all; ``"preparation"``, the
+        subtraction and frame-similarity panel, needs a background and is added by
+        default when one is given).
     frame : int
         Initial current frame.
 
@@ -188,14 +194,17 @@ def explore(
     analysis (the automatic Guinier fit, the peak search and indexing) runs once
     whichever panels use it.
     """
-    make = _factories()
-    unknown = [p for p in panels if p not in PANEL_NAMES]
-    if unknown:
-        from ..errors import SaxsInputError
+    from ..errors import SaxsInputError
 
-        raise SaxsInputError(
-            f"unknown panel(s) {unknown}; choose from {list(PANEL_NAMES)}", parameter="panels"
-        )
+    make = _factories()
+    known = (*PANEL_NAMES, *BACKGROUND_PANELS)
+    unknown = [p for p in panels if p not in known]
+    if unknown:
+        raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(known)}", parameter="panels")
+    if background is None and any(p in BACKGROUND_PANELS for p in panels):
+        raise SaxsInputError("the preparation panel needs a background series", parameter="background")
+    if background is not None and panels is PANEL_NAMES:
+        panels = (*PANEL_NAMES, *BACKGROUND_PANELS)
     model = SeriesModel(ds)
     built = {name: make[name](model, background) for name in panels}
     dash = Dashboard(built, model=model)
