@@ -18,6 +18,8 @@ __all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
 PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks")
 #: Panels added when a background is given.
 BACKGROUND_PANELS = ("preparation",)
+#: Longest series for which explore() adds the preparation panel by default.
+MAX_SIMILARITY_FRAMES = 500
 
 
 class PanelSet(dict):
@@ -203,7 +205,9 @@ def explore(
         raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(known)}", parameter="panels")
     if background is None and any(p in BACKGROUND_PANELS for p in panels):
         raise SaxsInputError("the preparation panel needs a background series", parameter="background")
-    if background is not None and panels is PANEL_NAMES:
+    if background is not None and panels is PANEL_NAMES and ds.sizes["frame"] <= MAX_SIMILARITY_FRAMES:
+        # the preparation panel draws the (frame, frame) similarity matrix: by default only
+        # where it stays small; ask for it by name on a longer series
         panels = (*PANEL_NAMES, *BACKGROUND_PANELS)
     model = SeriesModel(ds)
     built = {name: make[name](model, background) for name in panels}
