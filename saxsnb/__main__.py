@@ -18,8 +18,9 @@ def _demo_arguments(parser: argparse.ArgumentParser) -> None:
 
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="folder to write into (created if missing); one sub-folder per scenario")
-    parser.add_argument("--names", nargs="+", choices=SCENARIOS, default=None, metavar="NAME",
-                        help=f"scenarios to write (default: all of {', '.join(SCENARIOS)})")
+    names = (*SCENARIOS, "preparation")
+    parser.add_argument("--names", nargs="+", choices=names, default=None, metavar="NAME",
+                        help=f"scenarios to write (default: all of {', '.join(names)})")
     parser.add_argument("--seed", type=int, default=0, help="random seed of the noise (default 0)")
 
 
@@ -29,7 +30,10 @@ def _demo_run(args: argparse.Namespace) -> int:
     folders = write_demo(args.out, names=args.names, seed=args.seed)
     for name, folder in folders.items():
         n = len(list(folder.glob("*.dat")))
-        print(f"{name}: {n} curves + background in {folder}")
+        parts = [f"{n} curves"] if n else []
+        subs = [sub for sub in sorted(folder.iterdir()) if sub.is_dir()]
+        parts += [f"{sub.name} ({len(list(sub.glob('*.dat')))})" for sub in subs]
+        print(f"{name}: {' + '.join(parts)} in {folder}")
     print("synthetic data from closed-form models; see README.md in each folder")
     return 0
 
