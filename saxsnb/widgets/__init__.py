@@ -11,7 +11,9 @@ also works alone:
 - :class:`LinearFitPanel` (``kind="guinier" | "rod" | "sheet" | "porod"``; brush
   selector for the q range, residuals, result text, trend over the scan),
 - :class:`KratkyPanel` (plain or dimensionless, reference levels, shape trend),
-- :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides).
+- :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides),
+- :class:`DistancePanel` (p(r) +- sigma, fit and residuals, Dmax / weight controls,
+  evidence curve, Rg / Dmax / I0 trends; ``explore(ds, panels=(..., "distance"))``).
 
 The panels of one series share a :class:`SeriesModel` (``panel.model``): the masked
 intensity and sigma once, the whole-series results cached by (analysis, parameters),
@@ -39,6 +41,7 @@ from .base import PanelBase
 from .browser import SeriesBrowser
 from .curve import CurvePanel
 from .dashboard import Dashboard, PanelSet, explore
+from .distance import DistancePanel
 from .kratky import KratkyPanel
 from .linear import LinearFitPanel
 from .model import SeriesModel
@@ -54,5 +57,6 @@ __all__ = [
     "LinearFitPanel",
     "KratkyPanel",
     "PeaksPanel",
+    "DistancePanel",
     "SeriesModel",
 ]

@@ -12,17 +12,19 @@ import xarray as xr
 from .base import PanelBase
 from .model import SeriesModel
 
-__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
+__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES", "DEFAULT_PANELS"]
 
-#: Panels of :func:`explore`, in display order.
-PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks")
+#: Panels :func:`explore` offers, in display order.
+PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks", "distance")
+#: Panels :func:`explore` shows when none are named.
+DEFAULT_PANELS = ("browser", "curve", "guinier", "kratky", "peaks")
 
 
 class PanelSet(dict):
     """The panels of a dashboard: a dict ``name -> panel`` in display order.
 
-    Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"`` (those
-    asked for): ``panels["guinier"]``, ``panels.keys()``, ``panels.items()``,
+    Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"``,
+    ``"distance"`` (those asked for): ``panels["guinier"]``, ``panels.keys()``, ``panels.items()``,
     ``panels.values()``, ``"peaks" in panels`` and ``dict(panels)`` behave as for
     any dict. To be friendly to code that expects a list, iterating gives the
     *panels* (``for panel in dash.panels``, ``list(dash.panels)``), an integer gives
@@ -140,6 +142,7 @@ class Dashboard(widgets.VBox):
 def _factories():
     from .browser import SeriesBrowser
     from .curve import CurvePanel
+    from .distance import DistancePanel
     from .kratky import KratkyPanel
     from .linear import LinearFitPanel
     from .peaks import PeaksPanel
@@ -150,6 +153,7 @@ def _factories():
         "guinier": lambda model, bg: LinearFitPanel(model, kind="guinier"),
         "kratky": lambda model, bg: KratkyPanel(model),
         "peaks": lambda model, bg: PeaksPanel(model),
+        "distance": lambda model, bg: DistancePanel(model),
     }
 
 
@@ -157,7 +161,7 @@ def explore(
     ds: xr.Dataset,
     background: xr.Dataset | None = None,
     *,
-    panels: Sequence[str] = PANEL_NAMES,
+    panels: Sequence[str] = DEFAULT_PANELS,
     frame: int = 0,
 ) -> Dashboard:
     """Open the linked panels of a series in a notebook.
@@ -170,7 +174,8 @@ def explore(
         A background series, drawn in the curve panel.
     panels : sequence of str
         Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``,
-        ``"peaks"`` (default: all).
+        ``"peaks"`` and ``"distance"`` (p(r), :class:`~saxsnb.widgets.DistancePanel`)
+        (default: :data:`DEFAULT_PANELS`, every panel but ``"distance"``).
     frame : int
         Initial current frame.
 
