@@ -13,6 +13,9 @@ from .palette import OKABE_ITO, ROLE
 
 __all__ = ["DistancePanel"]
 
+#: Log-evidence units shown below the best Dmax candidate in the evidence plot.
+EVIDENCE_SPAN = 60.0
+
 
 def _fmt(v, unit: str = "") -> str:
     v = float(v)
@@ -129,8 +132,8 @@ class DistancePanel(PanelBase):
         self.score_pick = bq.Lines(x=np.zeros(2), y=np.array([-1.0, 0.0]), scales={"x": es, "y": ss},
                                    colors=[ROLE["selected"]], stroke_width=1.5)
         efig = make_figure([self.score, self.score_pick], es, ss, x_label="Dmax candidate (nm)",
-                           y_label="log evidence (rel.)", title="evidence of each Dmax (automatic Dmax only)",
-                           height="200px")
+                           y_label="log evidence (rel.)", height="200px",
+                           title="evidence of each Dmax (automatic Dmax; top 60 units)")
         self._es, self._ss = es, ss
         # trends over the series
         tx, ty = bq.LinearScale(), bq.LinearScale()
@@ -163,7 +166,8 @@ class DistancePanel(PanelBase):
         self.figures = [fig, rfig, pfig, efig, tfig, dfig, ifig]
         # controls
         self.dmax_text = widgets.BoundedFloatText(value=10.0, min=0.0, max=1e6, step=0.5,
-                                                  description="Dmax (nm)", layout=widgets.Layout(width="190px"))
+                                                  description="Dmax (nm)")
+        self.dmax_text.layout = widgets.Layout(width="190px")
         self.dmax_auto = widgets.Checkbox(value=True, description="auto Dmax", indent=False,
                                           layout=widgets.Layout(width="auto"))
         self.weight_slider = widgets.FloatLogSlider(value=1.0, base=10, min=-6, max=6, step=0.1,
@@ -379,9 +383,14 @@ class DistancePanel(PanelBase):
         if shown:
             self._set_line(self.score, cx, cy)
             d = float(one["dmax"].values[0])
+            # the near candidates matter: far ones sit thousands of log units below
+            top = float(cy.max())
+            lo = max(float(cy.min()), top - EVIDENCE_SPAN)
+            with self._ss.hold_sync():
+                self._ss.min, self._ss.max = lo - 0.05 * (top - lo + 1.0), top + 0.05 * (top - lo + 1.0)
             with self.score_pick.hold_sync():
                 self.score_pick.x = np.array([d, d])
-                self.score_pick.y = np.array([float(cy.min()), float(cy.max())])
+                self.score_pick.y = np.array([lo, top])
                 self.score_pick.visible = bool(np.isfinite(d))
         else:
             self.score.visible = False
