@@ -149,3 +149,19 @@ def test_matplotlib_export_and_explore(series):
     assert d.model.cached("guinier")
     assert "distance_distribution" in dash.to_code()
     assert "distance" not in explore(series.isel(frame=[0, 1])).panels
+
+
+def test_weight_slider_follows_the_scale_of_the_weight(series):
+    # the weight's scale follows the intensity units: a series 1e12 times brighter (same
+    # relative noise) must still show its automatic weight on the slider
+    bright = series.copy()
+    bright["intensity"] = series.intensity * 1e12
+    bright["sigma"] = series.sigma * 1e12
+    p = DistancePanel(bright, dmax=6.0)
+    w = float(p.result.weight[0])
+    assert p.weight_slider.min <= np.log10(w) <= p.weight_slider.max
+    assert p.weight_slider.value == pytest.approx(w, rel=1e-9)
+    p.weight = w * 1e9  # beyond the slider's end: the slider widens
+    assert p.weight_slider.value == pytest.approx(w * 1e9, rel=1e-9)
+    direct = bright.isel(frame=[0]).saxs.distance_distribution(6.0, weight=w * 1e9)
+    xr.testing.assert_identical(p.result, direct)

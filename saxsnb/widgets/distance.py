@@ -78,6 +78,7 @@ class DistancePanel(PanelBase):
         self._syncing = False
         self._choice = None  # (q_range, dmax, weight, apply_to_all, frame) behind ``result``
         self._ready = False
+        self._weight_range_set = False
         self._series_params = None  # choices behind ``series`` (None: automatic)
         super().__init__(source, frame=None, **kwargs)
         with self.hold_trait_notifications():
@@ -296,8 +297,19 @@ class DistancePanel(PanelBase):
             if np.isfinite(d) and d >= 0:
                 self.dmax_text.value = min(float(d), self.dmax_text.max)
             if np.isfinite(w) and w > 0:
-                lw = float(np.clip(np.log10(w), self.weight_slider.min, self.weight_slider.max))
-                self.weight_slider.value = 10.0 ** lw
+                lw = float(np.log10(w))
+                # the weight's scale follows the intensity units: the slider spans +-6 decades
+                # around the first weight it shows, and widens when one falls outside
+                sl = self.weight_slider
+                if not sl.min <= lw <= sl.max or not self._weight_range_set:
+                    lo, hi = (min(sl.min, np.floor(lw) - 6), max(sl.max, np.ceil(lw) + 6)) \
+                        if self._weight_range_set else (np.floor(lw) - 6, np.ceil(lw) + 6)
+                    if lo > sl.max:
+                        sl.max, sl.min = float(hi), float(lo)
+                    else:
+                        sl.min, sl.max = float(lo), float(hi)
+                    self._weight_range_set = True
+                sl.value = 10.0 ** lw
             self.dmax_text.disabled = self.dmax is None
             self.weight_slider.disabled = self.weight is None
         finally:
