@@ -14,6 +14,8 @@ also works alone:
 - :class:`PeaksPanel` (peaks with hkl, phase table, peak map, lattice trend, overrides),
 - :class:`PreparationPanel` (sample, background, subtracted; scale control; clickable
   frame-similarity map and outlier flags; in ``explore()`` when a background is given).
+- :class:`DistancePanel` (p(r) +- sigma, fit and residuals, Dmax / weight controls,
+  evidence curve, Rg / Dmax / I0 trends; ``explore(ds, panels=(..., "distance"))``).
 
 The panels of one series share a :class:`SeriesModel` (``panel.model``): the masked
 intensity and sigma once, the whole-series results cached by (analysis, parameters),
@@ -41,6 +43,7 @@ from .base import PanelBase
 from .browser import SeriesBrowser
 from .curve import CurvePanel
 from .dashboard import Dashboard, PanelSet, explore
+from .distance import DistancePanel
 from .kratky import KratkyPanel
 from .linear import LinearFitPanel
 from .model import SeriesModel
@@ -58,5 +61,6 @@ __all__ = [
     "KratkyPanel",
     "PeaksPanel",
     "PreparationPanel",
+    "DistancePanel",
     "SeriesModel",
 ]

@@ -12,10 +12,12 @@ import xarray as xr
 from .base import PanelBase
 from .model import SeriesModel
 
-__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES"]
+__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES", "DEFAULT_PANELS"]
 
-#: Panels of :func:`explore`, in display order.
-PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks")
+#: Panels :func:`explore` offers, in display order.
+PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks", "distance")
+#: Panels :func:`explore` shows when none are named.
+DEFAULT_PANELS = ("browser", "curve", "guinier", "kratky", "peaks")
 #: Panels added when a background is given.
 BACKGROUND_PANELS = ("preparation",)
 #: Longest series for which explore() adds the preparation panel by default.
@@ -25,8 +27,8 @@ MAX_SIMILARITY_FRAMES = 500
 class PanelSet(dict):
     """The panels of a dashboard: a dict ``name -> panel`` in display order.
 
-    Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"`` (those
-    asked for): ``panels["guinier"]``, ``panels.keys()``, ``panels.items()``,
+    Keys are ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``, ``"peaks"``,
+    ``"distance"`` (those asked for): ``panels["guinier"]``, ``panels.keys()``, ``panels.items()``,
     ``panels.values()``, ``"peaks" in panels`` and ``dict(panels)`` behave as for
     any dict. To be friendly to code that expects a list, iterating gives the
     *panels* (``for panel in dash.panels``, ``list(dash.panels)``), an integer gives
@@ -144,6 +146,7 @@ class Dashboard(widgets.VBox):
 def _factories():
     from .browser import SeriesBrowser
     from .curve import CurvePanel
+    from .distance import DistancePanel
     from .kratky import KratkyPanel
     from .linear import LinearFitPanel
     from .peaks import PeaksPanel
@@ -156,6 +159,7 @@ def _factories():
         "kratky": lambda model, bg: KratkyPanel(model),
         "peaks": lambda model, bg: PeaksPanel(model),
         "preparation": lambda model, bg: PreparationPanel(model, bg),
+        "distance": lambda model, bg: DistancePanel(model),
     }
 
 
@@ -163,7 +167,7 @@ def explore(
     ds: xr.Dataset,
     background: xr.Dataset | None = None,
     *,
-    panels: Sequence[str] = PANEL_NAMES,
+    panels: Sequence[str] = DEFAULT_PANELS,
     frame: int = 0,
 ) -> Dashboard:
     """Open the linked panels of a series in a notebook.
@@ -176,9 +180,10 @@ def explore(
         A background series, drawn in the curve panel.
     panels : sequence of str
         Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``,
-        ``"peaks"`` and ``"preparation"`` (default: all; ``"preparation"``, the
-        subtraction and frame-similarity panel, needs a background and is added by
-        default when one is given).
+        ``"peaks"``, ``"distance"`` (p(r), :class:`~saxsnb.widgets.DistancePanel`) and
+        ``"preparation"`` (default: :data:`DEFAULT_PANELS`, every panel but ``"distance"``;
+        ``"preparation"``, the subtraction and frame-similarity panel, needs a background
+        and is added by default when one is given, up to 500 frames).
     frame : int
         Initial current frame.
 
@@ -205,10 +210,10 @@ def explore(
         raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(known)}", parameter="panels")
     if background is None and any(p in BACKGROUND_PANELS for p in panels):
         raise SaxsInputError("the preparation panel needs a background series", parameter="background")
-    if background is not None and panels is PANEL_NAMES and ds.sizes["frame"] <= MAX_SIMILARITY_FRAMES:
+    if background is not None and panels is DEFAULT_PANELS and ds.sizes["frame"] <= MAX_SIMILARITY_FRAMES:
         # the preparation panel draws the (frame, frame) similarity matrix: by default only
         # where it stays small; ask for it by name on a longer series
-        panels = (*PANEL_NAMES, *BACKGROUND_PANELS)
+        panels = (*DEFAULT_PANELS, *BACKGROUND_PANELS)
     model = SeriesModel(ds)
     built = {name: make[name](model, background) for name in panels}
     dash = Dashboard(built, model=model)

@@ -48,7 +48,7 @@ __all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS"]
 
 #: Accessor methods whose whole-series results the model caches.
 ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
-            "phase_map", "compare_frames")
+            "phase_map", "compare_frames", "distance_distribution")
 
 #: analysis -> {argument: analysis whose cached result is passed there}. The argument
 #: may be left out (the automatic result), a dict of that analysis' options, or a
