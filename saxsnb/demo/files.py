@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import os
-import tempfile
 from collections.abc import Iterable
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import SaxsFileError, SaxsInputError
+from ..io._atomic import atomic_write_bytes
 
 __all__ = ["write_demo", "write_frames", "FILE_NAMES"]
 
@@ -50,15 +49,7 @@ Subtracting the background gives the model signal; the truth used to make it is 
 
 
 def _atomic_write_text(path: Path, text: str) -> None:
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def write_frames(ds, folder, *, prefix: str, scan: str, tag: str) -> list[Path]:

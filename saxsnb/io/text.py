@@ -129,6 +129,7 @@ def _read_batch(paths: list[str]) -> list[Curve]:
                 attrs=raw.attrs,
                 lines=lines,
                 path=raw.path,
+                attr_lines=raw.attr_lines,
             )
         )
     return curves
