@@ -508,7 +508,8 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
         offsets = np.cumsum([0] + [len(raws[i].body) for i in rest])
         buf = b"".join(raws[i].body for i in rest)
         a = np.frombuffer(buf, dtype=np.uint8)
-        control = bool(_CONTROL_TABLE[a].any())
+        # control bytes (< 32 but not tab, newline or carriage return) would pass as separators
+        control = np.count_nonzero(a < 32) != np.count_nonzero(a == 10) and bool(_CONTROL_TABLE[a].any())
         starts, ends = tokenize(a)
         vals, bad = parse_tokens(buf, a, starts, ends)
         nlgap = _newlines_after(a, starts, ends)
