@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["encode_attrs", "decode_attrs", "MARKER"]
+__all__ = ["encode_attrs", "decode_attrs", "scalar_json", "MARKER"]
 
 #: Prefix of an attribute value that holds JSON-encoded data.
 MARKER = "saxsnb-json:"
@@ -45,8 +45,22 @@ def _plain(value: Any) -> Any:
     return value
 
 
+def scalar_json(value: Any) -> str:
+    """``default=`` of :func:`json.dumps` for numpy scalars: a marked string that
+    :func:`decode_attrs` turns back into the same numpy scalar.
+
+    >>> decode_attrs({"n": scalar_json(np.int32(3))})["n"].dtype
+    dtype('int32')
+    """
+    if isinstance(value, np.generic):
+        return MARKER + json.dumps({"__scalar__": value.item(), "dtype": value.dtype.str})
+    raise TypeError(f"cannot store a {type(value).__name__} in an attr")
+
+
 def _unplain(value: Any) -> Any:
     if isinstance(value, dict):
+        if set(value) == {"__scalar__", "dtype"}:
+            return np.dtype(value["dtype"]).type(value["__scalar__"])
         if set(value) == {"__ndarray__", "dtype"}:
             return np.array(value["__ndarray__"], dtype=value["dtype"])
         if set(value) == {"__tuple__"}:
