@@ -66,8 +66,8 @@ def _fsync_file(path: Path) -> None:
 def _clean_stale(folder: Path, name: str) -> None:
     """Remove temporary files or folders of killed writes of ``name`` in ``folder``."""
     now = time.time()
-    with contextlib.suppress(OSError):
-        for entry in os.scandir(folder):
+    with contextlib.suppress(OSError), os.scandir(folder) as entries:
+        for entry in entries:
             if not (entry.name.startswith(f".{name}.") and entry.name.endswith(TMP_SUFFIX)):
                 continue
             with contextlib.suppress(OSError):
@@ -94,6 +94,11 @@ def _alive(entry: str, name: str) -> bool:
     except OSError:
         return True
     return True
+
+
+def _has_entries(folder: Path) -> bool:
+    with os.scandir(folder) as entries:
+        return any(True for _ in entries)
 
 
 def _prefix(name: str) -> str:
@@ -225,7 +230,7 @@ def atomic_folder(folder, *, overwrite: bool = False) -> Iterator[Path]:
     exists = folder.exists()
     if exists and not folder.is_dir():
         raise SaxsFileError("exists and is not a folder", path=folder)
-    if exists and not overwrite and any(os.scandir(folder)):
+    if exists and not overwrite and _has_entries(folder):
         raise SaxsFileError(
             "the folder is not empty; pass overwrite=True to replace its content as a whole, "
             "or choose a new folder",
@@ -240,8 +245,9 @@ def atomic_folder(folder, *, overwrite: bool = False) -> Iterator[Path]:
         yield tmp
         try:
             os.chmod(tmp, 0o777 & ~_umask() if not exists else stat.S_IMODE(os.stat(folder).st_mode))
-            for entry in os.scandir(tmp):
-                _fsync_file(Path(entry.path))
+            with os.scandir(tmp) as entries:
+                for entry in entries:
+                    _fsync_file(Path(entry.path))
             _fsync_dir(tmp)
             if not exists:
                 os.rename(tmp, folder)

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import time
 from collections.abc import Iterator
 
 import numpy as np
@@ -150,3 +151,79 @@ class Guard:
             if name not in obj.attrs:
                 return default
             return obj.attrs[name]
+
+
+#: Seconds a file without saxsnb's whole-file checksum may take to be read once in a
+#: child process before it is refused (see :func:`run_bounded`).
+READ_TIMEOUT = 20.0
+
+
+def run_bounded(fn, path: str, timeout: float | None = None) -> None:
+    """Run ``fn()`` (a complete read of ``path``, result discarded) in a forked child
+    process and wait at most ``timeout`` seconds.
+
+    Damaged HDF5 metadata can make the HDF5 library loop inside C code, which no
+    Python code can interrupt; a file that saxsnb's whole-file checksum does not vouch
+    for (another program's file, or one changed since) is therefore read once in a
+    child first. A family error raised there is raised here; a crash or a hang of the
+    child is a :class:`SaxsFileError`. The read in this process that follows is then
+    safe: the library behaves the same on the same bytes. Without ``os.fork`` (Windows)
+    this check is skipped.
+    """
+    import pickle
+    import select
+    import signal
+
+    if not hasattr(os, "fork"):
+        fn()
+        return
+    timeout = READ_TIMEOUT if timeout is None else timeout
+    r, w = os.pipe()
+    pid = os.fork()
+    if pid == 0:  # the child: read, report, leave without any cleanup of the parent's
+        code = 0
+        try:
+            os.close(r)
+            try:
+                fn()
+                msg = ("ok", None)
+            except SaxsError as exc:
+                msg = ("family", str(exc))
+            except BaseException as exc:  # noqa: BLE001 - reported to the parent
+                msg = ("crash", f"{type(exc).__name__}: {exc}")
+            os.write(w, pickle.dumps(msg))
+        except BaseException:  # noqa: BLE001
+            code = 1
+        finally:
+            os._exit(code)
+    os.close(w)
+    data = b""
+    deadline = time.monotonic() + timeout
+    try:
+        while True:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                os.kill(pid, signal.SIGKILL)
+                raise SaxsFileError(
+                    f"reading did not finish within {timeout:g} s: the file's HDF5 structure is "
+                    "probably damaged (it is not opened)",
+                    path=path,
+                )
+            ready, _, _ = select.select([r], [], [], min(left, 1.0))
+            if ready:
+                chunk = os.read(r, 1 << 16)
+                if not chunk:
+                    break
+                data += chunk
+    finally:
+        os.close(r)
+        with contextlib.suppress(ChildProcessError):
+            os.waitpid(pid, 0)
+    try:
+        kind, message = pickle.loads(data)
+    except Exception:  # noqa: BLE001 - the child died without a report
+        raise SaxsFileError("reading crashed the HDF5 library: the file is damaged", path=path) from None
+    if kind == "family":
+        raise SaxsFileError(message.split(": ", 1)[-1] if message.startswith(path) else message, path=path)
+    if kind == "crash":
+        raise SaxsFileError(f"cannot read ({message})", path=path)

@@ -18,13 +18,14 @@ Two records, both written by :func:`saxsnb.save_series` (NetCDF and NXcanSAS):
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 
 import numpy as np
 
 from ..errors import SaxsFileError
 
-__all__ = ["ATTR", "TRAILER_SIZE", "digest", "append_trailer", "check_trailer", "verify"]
+__all__ = ["ATTR", "TRAILER_SIZE", "digest", "text_digest", "append_trailer", "check_trailer", "verify"]
 
 #: Attribute that holds the checksum of an array.
 ATTR = "saxsnb_sha256"
@@ -62,6 +63,27 @@ def digest(values) -> str:
         h.update(a.dtype.str.encode())
         h.update(memoryview(a).cast("B"))
     return "sha256:" + h.hexdigest()
+
+
+def _canon(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, bytes):
+        return value.decode("utf-8", "surrogateescape")
+    raise TypeError(type(value).__name__)
+
+
+def text_digest(obj) -> str:
+    """Checksum of a JSON-like record (attrs), independent of key order and of numpy
+    scalar types.
+
+    >>> text_digest({"a": np.int64(1), "b": "x"}) == text_digest({"b": "x", "a": 1})
+    True
+    """
+    text = json.dumps(obj, sort_keys=True, ensure_ascii=False, default=_canon)
+    return "sha256:" + hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()
 
 
 def verify(values, expected, *, path, where: str) -> None:

@@ -92,6 +92,7 @@ class RawFile:
     intensity_unit: str | None = None
     source: bytes = b""
     comma: bool = False
+    cut_check: int = -1
     attr_lines: dict[str, int] = field(default_factory=dict)
 
 
@@ -223,6 +224,7 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
             )
         pos = end + 1
     _refuse_control(path, data, 0, end)
+    _refuse_malformed_before(path, data, start, len(tokens))
     # a line with another count of numbers than the two rows after it (a summary, a row
     # count before the data) is not the first row of data
     counts = _next_counts(data, end + 1, 2)
@@ -233,8 +235,6 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
             path=path,
             line=_line_of(data, start),
         )
-    if not data.endswith(b"\n"):
-        _refuse_truncated(path, data)
     try:
         text = data[:start].decode("utf-8")
     except UnicodeDecodeError:
@@ -249,6 +249,7 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     else:
         body = data[start:] + b"\n"
     raw = RawFile(path, name, body, _line_of(data, start), len(tokens), source=data)
+    raw.cut_check = -1 if data.endswith(b"\n") else start  # checked once the rows have parsed
     raw.comma = b"," in line
     _header(raw, text)
     return raw
@@ -272,23 +273,53 @@ def _next_counts(data: bytes, pos: int, n: int) -> list[int]:
     return out
 
 
-def _refuse_truncated(path: str, data: bytes) -> None:
-    """A file without a final newline whose rows share one layout, except the last one,
-    which is shorter: the last value was cut (e.g. ``1.234e-0`` of ``1.234e-01``)."""
-    lines = data[-4096:].split(b"\n")
-    lines = [ln for ln in lines[1:] if ln.strip()] if len(lines) > 3 else []
+def _refuse_truncated(path: str, data: bytes, start: int) -> None:
+    """A file without a final newline whose last value is shorter than, and laid out
+    like the start of, the last values of all the rows above, which share one layout
+    (signs aside): the last value was cut (e.g. ``1.234e-0`` of ``1.234e-01``)."""
+    lines = [ln for ln in data[start:].split(b"\n") if ln.strip()]
     if len(lines) < 3:
         return
-    last, prev, prev2 = lines[-1], lines[-2], lines[-3]
-    last = last.rstrip()
-    if _layout(prev) == _layout(prev2) and len(last) < len(prev.rstrip()) and (
-        _layout(last) == _layout(prev)[: len(last)]
-    ):
+    last_tokens = [_row_tokens(_strip_comments(ln)) for ln in lines]
+    if len({len(t) for t in last_tokens}) != 1 or not last_tokens[0]:
+        return
+
+    def shape(t: bytes) -> bytes:
+        return _layout(t.lstrip(b"+-"))
+
+    shapes = {shape(t[-1]) for t in last_tokens[:-1]}
+    if len(shapes) != 1:
+        return
+    above, last = shapes.pop(), shape(last_tokens[-1][-1])
+    if len(last) < len(above) and above.startswith(last):
         raise SaxsFileError(
-            "the last row is shorter than the rows above and the file has no final newline: "
+            "the last value is shorter than those above it and the file has no final newline: "
             "it may have been cut off",
             path=path,
             line=data.count(b"\n") + 1,
+        )
+
+
+def _refuse_malformed_before(path: str, data: bytes, start: int, ncols: int) -> None:
+    """The line just before the first row of data, with as many tokens as the rows and
+    every token holding a digit (at least one a number), is a damaged row, not header:
+    ``0.1 1e5e3 0.2`` or ``0x10 5.0``."""
+    if start < 2:
+        return
+    prev_start = data.rfind(b"\n", 0, start - 1) + 1
+    line = data[prev_start : start - 1].strip()
+    if not line or line.startswith(b"#"):
+        return
+    tokens = _row_tokens(_strip_comments(line))
+    if len(tokens) != ncols or not all(any(48 <= c <= 57 for c in t) for t in tokens):
+        return
+    good = [t for t in tokens if _floatable([t])]
+    if good and len(good) < len(tokens):
+        bad = next(t for t in tokens if not _floatable([t]))
+        raise SaxsFileError(
+            f"cannot read {bad.decode('utf-8', 'replace')!r} as a number (the row before the data)",
+            path=path,
+            line=_line_of(data, prev_start),
         )
 
 
@@ -535,5 +566,7 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
                 err = _blank_gap(raw, rows)
                 if err is not None:
                     raise err
+            if raw.cut_check >= 0:
+                _refuse_truncated(raw.path, raw.source, raw.cut_check)
             results[i] = (_columns(vals[t0:t1].reshape(-1, nc)), rows)
     return results  # type: ignore[return-value]

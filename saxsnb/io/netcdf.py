@@ -18,10 +18,14 @@ import xarray as xr
 from ..errors import SaxsError, SaxsFileError
 from ._atomic import atomic_path
 from ._attrs import decode_attrs, encode_attrs
-from ._h5guard import Guard
-from ._integrity import ATTR, append_trailer, check_trailer, digest, verify
+from ._h5guard import Guard, run_bounded
+from ._integrity import ATTR, append_trailer, check_trailer, digest, text_digest, verify
 
 __all__ = ["write_netcdf", "read_netcdf", "engine"]
+
+
+def _str(v) -> str:
+    return v.decode("utf-8", "replace") if isinstance(v, bytes) else str(v)
 
 
 def engine() -> str:
@@ -30,6 +34,14 @@ def engine() -> str:
 
 
 _COORDS = "saxsnb_coordinates"  # names of the coordinates (NetCDF cannot mark names with blanks)
+_ATTRS_SUM = "saxsnb_attrs_sha256"  # checksum of every attr (global and of each variable)
+
+
+def _attrs_record(ds: xr.Dataset) -> dict:
+    rec = {"": {k: v for k, v in ds.attrs.items() if k != _ATTRS_SUM}}
+    for name in ds.variables:
+        rec[str(name)] = {k: v for k, v in ds[name].attrs.items() if k != ATTR}
+    return rec
 
 
 def _encoded(ds: xr.Dataset) -> xr.Dataset:
@@ -45,6 +57,7 @@ def _encoded(ds: xr.Dataset) -> xr.Dataset:
         attrs[ATTR] = digest(ds[name].values)
         out[name].attrs = attrs
         out[name].encoding = {}
+    out.attrs[_ATTRS_SUM] = text_digest(_attrs_record(out))
     return out
 
 
@@ -65,8 +78,15 @@ def write_netcdf(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
 
 
 def _precheck(path: str) -> None:
-    """Checksum of the whole file, then the HDF5 links, before xarray reads anything."""
-    check_trailer(path)
+    """Checksum of the whole file, then the HDF5 links, before xarray reads anything; a
+    file without saxsnb's checksum is read once in a child process first (bounded time,
+    see :func:`._h5guard.run_bounded`)."""
+    if not check_trailer(path):
+        run_bounded(lambda: _read(path, None), path)
+    _walk(path)
+
+
+def _walk(path: str) -> None:
     with open(path, "rb") as fh:
         magic = fh.read(8)
     if magic != b"\x89HDF\r\n\x1a\n":
@@ -90,6 +110,12 @@ def read_netcdf(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
     once, one at a time)."""
     spath = str(path)
     _precheck(spath)
+    return _read(spath, chunks)
+
+
+def _read(spath: str, chunks) -> xr.Dataset:
+    if chunks is None:
+        _walk(spath)
     kwargs = {"engine": engine(), "decode_timedelta": False}
     try:
         if chunks is None:
@@ -97,6 +123,13 @@ def read_netcdf(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
                 ds = f.load()
         else:
             ds = xr.open_dataset(spath, chunks=chunks, **kwargs)
+        expected = ds.attrs.pop(_ATTRS_SUM, None)
+        if expected is not None and text_digest(_attrs_record(ds)) != _str(expected):
+            raise SaxsFileError(
+                "the attributes differ from the checksum stored with them: the file is damaged, or "
+                "another program changed them but kept saxsnb's record",
+                path=spath,
+            )
         for name in list(ds.variables):
             expected = ds[name].attrs.pop(ATTR, None)
             if expected is not None:
