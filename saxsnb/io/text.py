@@ -214,7 +214,13 @@ def read_series(
     Raises
     ------
     SaxsFileError
-        Unreadable, binary, empty or malformed files, naming the file and line.
+        Unreadable, binary, empty or malformed files, naming the file and line. Every
+        row is data or an error, never dropped or added: refused are a malformed first
+        row (``0.1 5e 0.1``), a line of another count of numbers just before the data
+        (a summary), a last row alone after a blank line (a trailer), tokens such as
+        ``1.#INF`` or ``4#2`` (``#`` starts a comment only after a blank), decimal
+        commas (also ``1,5,2`` of integers: ambiguous), control bytes, and a last
+        value cut short in a file without final newline.
     SaxsInputError
         Bad arguments, a missing q unit, an unknown scan name.
 
