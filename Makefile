@@ -29,10 +29,14 @@ demo: install demo-data
 		$(if $(NOBROWSER),--no-browser,) --ServerApp.allow_root=True
 
 # A code-free page for collaborators (Voila: outputs only, no code), on 127.0.0.1.
-# Another notebook: `make app APP_NB=notebooks/02-phase-ramp.ipynb`; NOBROWSER=1 on a headless machine.
+# Like JupyterLab it needs a token: a new random one each run (or APP_TOKEN=...), printed
+# with the URL to open. Another notebook: `make app APP_NB=notebooks/02-phase-ramp.ipynb`;
+# NOBROWSER=1 on a headless machine.
 app: install
+	@TOKEN="$${APP_TOKEN:-$$($(BIN)/python -c 'import secrets; print(secrets.token_hex(24))')}"; \
+	echo "code-free page: http://127.0.0.1:$(PORT)/?token=$$TOKEN"; \
 	$(BIN)/python -m voila $(APP_NB) --Voila.ip=127.0.0.1 --port=$(PORT) --Voila.port_retries=0 \
-		$(if $(NOBROWSER),--no-browser,)
+		--Voila.token="$$TOKEN" $(if $(NOBROWSER),--no-browser,)
 
 # Debian's chromium (/usr/bin/chromium, the path tests/browser uses) for the real-browser
 # tests; CI runs as root, elsewhere sudo is used. Never `playwright install`.

@@ -60,6 +60,8 @@ def to_json_safe(value: Any, *, exact: bool = False, nonfinite: str = "keep") ->
 def from_json_safe(value: Any) -> Any:
     """Inverse of ``to_json_safe(..., exact=True)``."""
     if isinstance(value, dict):
+        if set(value) == {"__scalar__", "dtype"}:
+            return np.dtype(value["dtype"]).type(value["__scalar__"])
         if set(value) == {"__ndarray__", "dtype"}:
             return np.array(value["__ndarray__"], dtype=value["dtype"])
         if set(value) == {"__tuple__"}:

@@ -257,7 +257,12 @@ def from_arrays(
         "sigma": (("frame", "q"), S, {"units": intensity_unit, "long_name": "sigma of intensity"}),
     }
     if mask is not None:
-        M = np.array(mask, dtype=bool, copy=True)
+        M = np.asarray(mask)
+        if M.dtype.kind not in "biu" or (M.dtype.kind != "b" and not bool(np.isin(M, (0, 1)).all())):
+            raise SaxsInputError(
+                f"mask must be boolean (or 0/1 integers), not {M.dtype} values", parameter="mask"
+            )
+        M = np.array(M, dtype=bool, copy=True)
         if M.ndim == 1:
             M = np.broadcast_to(M, I.shape).copy()
         if M.shape != I.shape:
@@ -304,8 +309,17 @@ def validate(ds: xr.Dataset) -> xr.Dataset:
         raise SaxsInputError("the q coordinate has no 'units' attribute", parameter="q")
     normalize_q_unit(qunit)
     qv = ds["q"].values
+    if qv.dtype.kind not in "fiu":
+        raise SaxsInputError(f"q must hold numbers, not {qv.dtype} values", parameter="q")
+    with np.errstate(invalid="ignore"):
+        if qv.size and not bool((qv > 0).all() and np.isfinite(qv).all()):
+            raise SaxsInputError("q must be finite and > 0", parameter="q")
     if qv.size > 1 and not np.all(np.diff(qv) > 0):
         raise SaxsInputError("q must be strictly increasing", parameter="q")
+    if "mask" in ds.data_vars and ds["mask"].dtype != bool:
+        raise SaxsInputError(
+            f"'mask' must be boolean (True = point excluded), not {ds['mask'].dtype}", parameter="mask"
+        )
     return ds
 
 

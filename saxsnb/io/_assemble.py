@@ -48,6 +48,7 @@ class Curve:
     lines: np.ndarray | None = None
     path: str | None = None
     mask: np.ndarray | None = None
+    attr_lines: dict[str, int] = field(default_factory=dict)
 
     def where(self, row: int | None = None) -> dict[str, Any]:
         line = None
@@ -78,8 +79,17 @@ def parse_header_value(value: str) -> tuple[float | None, str | None]:
     return float(m.group(1)), u.group(1)
 
 
+def _normalized(c: Curve) -> str:
+    try:
+        return normalize_q_unit(c.q_unit)
+    except SaxsInputError:
+        raise SaxsFileError(
+            f"unknown q unit {c.q_unit!r}; use one of '1/nm', '1/A' or '1/m'", path=c.path or c.name
+        ) from None
+
+
 def _resolve_q_unit(curves: Sequence[Curve], q_unit: str | None) -> str:
-    declared = [(c, normalize_q_unit(c.q_unit)) for c in curves if c.q_unit]
+    declared = [(c, _normalized(c)) for c in curves if c.q_unit]
     if declared:
         first_c, first_u = declared[0]
         for c, u in declared[1:]:
@@ -275,6 +285,18 @@ def _coordinates(curves: list[Curve], pattern: str | None) -> tuple[dict, dict]:
     return coords, attrs
 
 
+def _check_attr(c: Curve, key: str, value: Any) -> None:
+    """Attrs with a meaning to saxsnb must have the type it needs."""
+    line = getattr(c, "attr_lines", {}).get(key)
+    where = {"path": c.path or c.name, "line": line}
+    if key == "history" and not (isinstance(value, list) and all(isinstance(v, str) for v in value)):
+        raise SaxsFileError("attr.history must be a list of strings", **where)
+    if key == "scan" and not isinstance(value, str):
+        raise SaxsFileError("attr.scan must be a string (the name of the scan coordinate)", **where)
+    if key == "sigma_estimated" and value not in (0, 1):
+        raise SaxsFileError("attr.sigma_estimated must be 0 or 1", **where)
+
+
 def build_series(
     curves: Sequence[Curve],
     *,
@@ -354,10 +376,11 @@ def build_series(
 
     no_sigma = np.array([c.sigma is None for c in curves])
     file_bad = ~np.isfinite(I)
-    if no_sigma.any():
-        file_bad[~no_sigma] |= ~(S[~no_sigma] > 0)
-    else:
-        file_bad |= ~(S > 0)
+    with np.errstate(invalid="ignore"):
+        if no_sigma.any():
+            file_bad[~no_sigma] |= ~((S[~no_sigma] > 0) & np.isfinite(S[~no_sigma]))
+        else:
+            file_bad |= ~((S > 0) & np.isfinite(S))
     mask = file_bad
     if any(c.mask is not None for c in curves):
         # masks stored in the source (NXcanSAS Mask): applied without a warning
@@ -378,10 +401,12 @@ def build_series(
         file_bad &= ~outside
         mask = mask | outside
     if file_bad.any():
-        i = int(np.argmax(file_bad.any(axis=1)))
+        rows = np.flatnonzero(file_bad.any(axis=1))
+        shown = ", ".join(curves[int(i)].name for i in rows[:5])
+        more = f" and {rows.size - 5} more" if rows.size > 5 else ""
         warnings.warn(
             f"{int(file_bad.sum())} points with non-finite intensity or sigma, or sigma <= 0, "
-            f"were masked (first in {curves[i].name})",
+            f"were masked, in {rows.size} of {len(curves)} curves: {shown}{more}",
             SaxsWarning,
             stacklevel=3,
         )
@@ -411,6 +436,7 @@ def build_series(
     extra_attrs: dict[str, Any] = {}
     for c in curves:
         for k, v in c.attrs.items():
+            _check_attr(c, k, v)
             extra_attrs.setdefault(k, v)
     attrs = {**extra_attrs, **const_attrs, **attrs}
     if order is not None:

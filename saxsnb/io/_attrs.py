@@ -16,7 +16,7 @@ import numpy as np
 
 from .._jsonsafe import from_json_safe, to_json_safe
 
-__all__ = ["encode_attrs", "decode_attrs", "MARKER"]
+__all__ = ["encode_attrs", "decode_attrs", "scalar_json", "MARKER"]
 
 #: Prefix of an attribute value that holds JSON-encoded data.
 MARKER = "saxsnb-json:"
@@ -31,6 +31,18 @@ def _native(value: Any) -> bool:
     if isinstance(value, (int, float, np.integer, np.floating)):
         return True
     return False
+
+
+def scalar_json(value: Any) -> str:
+    """``default=`` of :func:`json.dumps` for numpy scalars: a marked string that
+    :func:`decode_attrs` turns back into the same numpy scalar.
+
+    >>> decode_attrs({"n": scalar_json(np.int32(3))})["n"].dtype
+    dtype('int32')
+    """
+    if isinstance(value, np.generic):
+        return MARKER + json.dumps({"__scalar__": value.item(), "dtype": value.dtype.str})
+    raise TypeError(f"cannot store a {type(value).__name__} in an attr")
 
 
 def encode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:

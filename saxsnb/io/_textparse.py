@@ -24,21 +24,56 @@ __all__ = ["RawFile", "split_file", "parse_bodies"]
 
 _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
-_COMMA_NUM = rb"[-+]?\d+,\d+(?:[eE][-+]?\d+)?"
-_COMMA_ALL = re.compile(rb"^\s*" + _COMMA_NUM + rb"(?:(?:\s+|\s*;\s*)" + _COMMA_NUM + rb")+\s*$")
-# with ';' separating the columns, a comma between digits can only be a decimal comma
-_COMMA_WITH_SEMICOLON = re.compile(rb"^(?=[^\n]*;)[^\n]*\d,\d")
+# a '#' starts a comment only where a token could start (line start or after a
+# separator): inside a token such as "1.#INF" it is part of the token
+_COMMENT = re.compile(rb"(?<![^\s,;])#[^\n]*")
+# bytes that are neither text nor the usual white space (tab, newline, carriage return)
+_CONTROL = re.compile(rb"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+_CONTROL_TABLE = np.zeros(256, dtype=bool)
+_CONTROL_TABLE[[*range(0, 9), 11, 12, *range(14, 32), 127]] = True
+# a token that starts like a number and holds nothing but what numbers are made of
+_NUMBERLIKE = re.compile(rb"^[-+]?(?:\d|\.\d)[\w.+\-#]*$")
+_DIGIT_COMMA_DIGIT = re.compile(rb"\d,\d")
+_BLANK_SEP = re.compile(rb"[^\s,;][ \t;]+[^\s,;]")
+_INTEGER = re.compile(rb"^[-+]?\d+$")
 
 
 def _is_comma_decimal(line: bytes) -> bool:
-    """True for a row whose numbers use a decimal comma (all of them, or any of them when
-    ';' separates the columns)."""
-    return bool(_COMMA_ALL.match(line) or _COMMA_WITH_SEMICOLON.match(line))
-# key and value without their trailing blanks (stripped after the match: no backtracking)
-_KEYVAL = re.compile(r"^[ \t#]*([A-Za-z_][\w .\-]*)[ \t]*[=:][ \t]*([^\n]*)", re.M)
-_QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ]\s*[\(\[]\s*([^\)\]]+?)\s*[\)\]]")
+    """True for a row whose commas may be decimal commas: a comma between two digits in a
+    row whose columns are separated by blanks or ';', or a row of integers separated by
+    commas alone (``1,5,2,5``: two decimal numbers or four integers cannot be told apart)."""
+    if not _DIGIT_COMMA_DIGIT.search(line):
+        return False
+    if _BLANK_SEP.search(line.strip()):
+        return True
+    return all(_INTEGER.match(t) for t in line.strip().split(b","))
+
+
+def _strip_comments(data: bytes) -> bytes:
+    return _COMMENT.sub(b"", data)
+
+
+def _line_of(data: bytes, pos: int) -> int:
+    return data.count(b"\n", 0, pos) + 1
+
+
+def _refuse_control(path: str, data: bytes, start: int = 0, end: int | None = None) -> None:
+    m = _CONTROL.search(data, start, len(data) if end is None else end)
+    if m is not None:
+        raise SaxsFileError(
+            f"control byte {m.group()!r} in the text: not a plain text file (or damaged)",
+            path=path,
+            line=_line_of(data, m.start()),
+        )
+
+
+# key and value without their trailing blanks (stripped after the match); possessive
+# quantifiers: no backtracking, linear time on any line
+_KEYVAL = re.compile(r"^[ \t#]*+([A-Za-z_][\w \t.\-]*+)[=:][ \t]*+([^\n]*)", re.M)
+_QCOLUMN = re.compile(r"(?:^|[\s#,;])[qQ][ \t]*+[\(\[]([^\)\]\n]*+)[\)\]]")
 _Q_KEYS = {"q_unit", "q_units", "qunit", "qunits", "unit_q", "q_axis_unit"}
 _I_KEYS = {"intensity_unit", "intensity_units", "i_unit", "i_units", "unit_i"}
+_MAX_DEPTH = 32
 
 
 @dataclass
@@ -55,6 +90,10 @@ class RawFile:
     attrs: dict[str, Any] = field(default_factory=dict)
     q_unit: str | None = None
     intensity_unit: str | None = None
+    source: bytes = b""
+    comma: bool = False
+    cut_check: int = -1
+    attr_lines: dict[str, int] = field(default_factory=dict)
 
 
 def _floatable(tokens) -> bool:
@@ -84,8 +123,21 @@ def _classify_key(raw_key: str) -> tuple[str, str]:
     return "meta", key
 
 
+def _depth(text: str) -> int:
+    """Deepest nesting of JSON brackets in ``text`` (an upper bound, strings included)."""
+    depth = best = 0
+    for ch in text:
+        if ch in "[{":
+            depth += 1
+            best = max(best, depth)
+        elif ch in "]}":
+            depth -= 1
+    return best
+
+
 def _header(raw: RawFile, text: str) -> None:
-    for raw_key, value in _KEYVAL.findall(text):
+    for m in _KEYVAL.finditer(text):
+        raw_key, value = m.group(1), m.group(2)
         value = value.rstrip(" \t\r")
         kind, key = _classify_key(raw_key.rstrip(" \t"))
         if not key:
@@ -99,21 +151,39 @@ def _header(raw: RawFile, text: str) -> None:
         elif kind == "intensity_unit":
             raw.intensity_unit = value
         else:
+            line = text.count("\n", 0, m.start()) + 1
+            if value[:1] in ("[", "{") and _depth(value) > _MAX_DEPTH:
+                raise SaxsFileError(
+                    f"attr.{key} is nested more than {_MAX_DEPTH} levels deep", path=raw.path, line=line
+                )
             try:
-                raw.attrs[key] = json.loads(value)
+                parsed = json.loads(value)
             except ValueError:
-                raw.attrs[key] = value
+                parsed = value
+            raw.attrs[key] = parsed
+            raw.attr_lines[key] = line
     if raw.q_unit is None:
         qm = _QCOLUMN.search(text)
         if qm:
-            raw.q_unit = qm.group(1)
+            raw.q_unit = qm.group(1).strip()
+
+
+def _row_tokens(line: bytes) -> list[bytes]:
+    tokens = _TOKSPLIT.split(line.strip())
+    return [t for t in tokens if t]
+
+
+def _layout(line: bytes) -> bytes:
+    return line.rstrip(b"\r").translate(bytes.maketrans(b"0123456789+", b"0000000000-"))
 
 
 def split_file(path: str, name: str, data: bytes) -> RawFile:
     """Split raw file bytes into header metadata and numeric body.
 
     The first line holding 2 to 4 numbers starts the body; every line before it is
-    header. Raises :class:`SaxsFileError` for binary, empty or header-only files.
+    header. Raises :class:`SaxsFileError` for binary, empty or header-only files, a
+    malformed first row, a summary line before the data, a decimal comma, control
+    bytes and a last row cut short.
     """
     if b"\x00" in data:
         raise SaxsFileError("this is not a text file (it contains NUL bytes)", path=path)
@@ -123,71 +193,185 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     while True:
         m = _NUMROW.search(data, pos)
         if m is None:
+            _refuse_control(path, data)
             what = "the file is empty" if not data.strip() else "no rows of numbers found (header only?)"
             raise SaxsFileError(what, path=path)
         start = m.start()
         end = data.find(b"\n", start)
         end = len(data) if end < 0 else end
-        line = data[start:end].split(b"#", 1)[0].strip()
+        line = _strip_comments(data[start:end]).strip()
         if _is_comma_decimal(line):
             raise SaxsFileError(
                 "numbers use a comma as decimal separator; convert them to a decimal point",
                 path=path,
-                line=data.count(b"\n", 0, start) + 1,
+                line=_line_of(data, start),
             )
-        tokens = _TOKSPLIT.split(line)
-        if _floatable(tokens) and len(tokens) > 1:
+        tokens = _row_tokens(line)
+        if len(tokens) > 1 and _floatable(tokens):
             if len(tokens) > 4:
                 raise SaxsFileError(
                     f"{len(tokens)} columns; expected 2 to 4 (q, I, sigma, dq)",
                     path=path,
-                    line=data.count(b"\n", 0, start) + 1,
+                    line=_line_of(data, start),
                 )
             break
+        if 2 <= len(tokens) <= 4 and all(_NUMBERLIKE.match(t) for t in tokens):
+            bad = next(t for t in tokens if not _floatable([t]))
+            raise SaxsFileError(
+                f"cannot read {bad.decode('utf-8', 'replace')!r} as a number (first row of data)",
+                path=path,
+                line=_line_of(data, start),
+            )
         pos = end + 1
+    _refuse_control(path, data, 0, end)
+    _refuse_malformed_before(path, data, start, len(tokens))
+    # a line with another count of numbers than the two rows after it (a summary, a row
+    # count before the data) is not the first row of data
+    counts = _next_counts(data, end + 1, 2)
+    if len(counts) == 2 and counts[0] == counts[1] != len(tokens):
+        raise SaxsFileError(
+            f"this line holds {len(tokens)} numbers but the rows after it hold {counts[0]}: a summary "
+            "or count line before the data? Start it with '#' to make it a comment",
+            path=path,
+            line=_line_of(data, start),
+        )
     try:
         text = data[:start].decode("utf-8")
     except UnicodeDecodeError:
         text = data[:start].decode("latin-1")
     body: bytes | memoryview
     if data.find(b"#", start) >= 0:
-        body = re.sub(rb"#[^\n]*", b"", data[start:])
+        body = _strip_comments(data[start:])
         if not body.endswith(b"\n"):
             body += b"\n"
     elif data.endswith(b"\n"):
         body = memoryview(data)[start:]  # no copy; joined with the others later
     else:
         body = data[start:] + b"\n"
-    raw = RawFile(path, name, body, data.count(b"\n", 0, start) + 1, len(tokens))
+    raw = RawFile(path, name, body, _line_of(data, start), len(tokens), source=data)
+    raw.cut_check = -1 if data.endswith(b"\n") else start  # checked once the rows have parsed
+    raw.comma = b"," in line
     _header(raw, text)
     return raw
 
 
+def _next_counts(data: bytes, pos: int, n: int) -> list[int]:
+    """Numbers of tokens of the next ``n`` non-blank lines after ``pos`` (fewer if a line is
+    not all numbers)."""
+    out: list[int] = []
+    while pos < len(data) and len(out) < n:
+        e = data.find(b"\n", pos)
+        e = len(data) if e < 0 else e
+        line = _strip_comments(data[pos:e]).strip()
+        pos = e + 1
+        if not line:
+            continue
+        t = _row_tokens(line)
+        if not _floatable(t) or _is_comma_decimal(line):
+            break
+        out.append(len(t))
+    return out
+
+
+def _refuse_truncated(path: str, data: bytes, start: int) -> None:
+    """A file without a final newline whose last value is shorter than, and laid out
+    like the start of, the last values of all the rows above, which share one layout
+    (signs aside): the last value was cut (e.g. ``1.234e-0`` of ``1.234e-01``)."""
+    lines = [ln for ln in data[start:].split(b"\n") if ln.strip()]
+    if len(lines) < 3:
+        return
+    last_tokens = [_row_tokens(_strip_comments(ln)) for ln in lines]
+    if len({len(t) for t in last_tokens}) != 1 or not last_tokens[0]:
+        return
+
+    def shape(t: bytes) -> bytes:
+        return _layout(t.lstrip(b"+-"))
+
+    shapes = {shape(t[-1]) for t in last_tokens[:-1]}
+    if len(shapes) != 1:
+        return
+    above, last = shapes.pop(), shape(last_tokens[-1][-1])
+    if len(last) < len(above) and above.startswith(last):
+        raise SaxsFileError(
+            "the last value is shorter than those above it and the file has no final newline: "
+            "it may have been cut off",
+            path=path,
+            line=data.count(b"\n") + 1,
+        )
+
+
+def _refuse_malformed_before(path: str, data: bytes, start: int, ncols: int) -> None:
+    """The line just before the first row of data, with as many tokens as the rows and
+    every token holding a digit (at least one a number), is a damaged row, not header:
+    ``0.1 1e5e3 0.2`` or ``0x10 5.0``."""
+    if start < 2:
+        return
+    prev_start = data.rfind(b"\n", 0, start - 1) + 1
+    line = data[prev_start : start - 1].strip()
+    if not line or line.startswith(b"#"):
+        return
+    tokens = _row_tokens(_strip_comments(line))
+    if len(tokens) != ncols or not all(any(48 <= c <= 57 for c in t) for t in tokens):
+        return
+    good = [t for t in tokens if _floatable([t])]
+    if good and len(good) < len(tokens):
+        bad = next(t for t in tokens if not _floatable([t]))
+        raise SaxsFileError(
+            f"cannot read {bad.decode('utf-8', 'replace')!r} as a number (the row before the data)",
+            path=path,
+            line=_line_of(data, prev_start),
+        )
+
+
 def _line_errors(raw: RawFile) -> SaxsFileError:
     """Walk the body line by line and describe the first bad line."""
-    for k, line in enumerate(bytes(raw.body).split(b"\n")):
+    body = bytes(raw.body)
+    for k, line in enumerate(body.split(b"\n")):
+        lineno = raw.first_line + k
+        m = _CONTROL.search(line)
+        if m is not None:
+            return SaxsFileError(
+                f"control byte {m.group()!r} in the text: not a plain text file (or damaged)",
+                path=raw.path,
+                line=lineno,
+            )
         line = line.strip()
         if not line:
             continue
-        tokens = _TOKSPLIT.split(line)
-        lineno = raw.first_line + k
-        if not tokens or not tokens[0]:
-            tokens = tokens[1:]
+        if (not raw.comma and b"," in line) or _is_comma_decimal(line):
+            return SaxsFileError(
+                "numbers use a comma as decimal separator (or a comma where the first data row "
+                "has none); convert them to a decimal point",
+                path=raw.path,
+                line=lineno,
+            )
+        tokens = _row_tokens(line)
         for t in tokens:
             if not _floatable([t]):
                 shown = t.decode("utf-8", "replace")
-                if _is_comma_decimal(line):
-                    return SaxsFileError(
-                        "numbers use a comma as decimal separator", path=raw.path, line=lineno
-                    )
                 return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
         if len(tokens) != raw.ncols:
-            if _is_comma_decimal(line):
-                return SaxsFileError("numbers use a comma as decimal separator", path=raw.path, line=lineno)
             return SaxsFileError(
                 f"{len(tokens)} columns where the first data row has {raw.ncols}", path=raw.path, line=lineno
             )
     return SaxsFileError("cannot read the numbers", path=raw.path)
+
+
+def _blank_gap(raw: RawFile, rows: np.ndarray) -> SaxsFileError | None:
+    """The last row of data alone after a blank line (not a comment line): a trailer
+    (a row count, a summary) rather than data. Refused, naming the row."""
+    if rows.size < 2 or rows[-1] - rows[-2] <= 1:
+        return None
+    lines = raw.source.split(b"\n")
+    for ln in range(int(rows[-2]) + 1, int(rows[-1])):
+        if not lines[ln - 1].strip():
+            return SaxsFileError(
+                f"the last row stands alone after a blank line (line {ln}): a trailer such as a row "
+                "count, not data? Remove the blank line, or make the trailer a '#' comment",
+                path=raw.path,
+                line=int(rows[-1]),
+            )
+    return None
 
 
 def _newlines_after(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
@@ -355,6 +539,8 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
         offsets = np.cumsum([0] + [len(raws[i].body) for i in rest])
         buf = b"".join(raws[i].body for i in rest)
         a = np.frombuffer(buf, dtype=np.uint8)
+        # control bytes (< 32 but not tab, newline or carriage return) would pass as separators
+        control = np.count_nonzero(a < 32) != np.count_nonzero(a == 10) and bool(_CONTROL_TABLE[a].any())
         starts, ends = tokenize(a)
         vals, bad = parse_tokens(buf, a, starts, ends)
         nlgap = _newlines_after(a, starts, ends)
@@ -365,13 +551,22 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
             t0, t1 = file_tok[k], file_tok[k + 1]
             nc = raw.ncols
             n = t1 - t0
-            if n == 0 or n % nc or bad[t0:t1].any():
+            ctrl = control and bool(_CONTROL_TABLE[a[offsets[k] : offsets[k + 1]]].any())
+            if n == 0 or n % nc or ctrl or bad[t0:t1].any():
                 raise _line_errors(raw)
             gaps = nlgap[t0:t1].reshape(-1, nc)
             # every row on one line: no newline inside a row, at least one after it
             if (nc > 1 and bool(gaps[:, :-1].any())) or not bool(gaps[:-1, -1].all()):
                 raise _line_errors(raw)
             lead = buf.count(b"\n", int(offsets[k]), int(starts[t0]))
-            rows = line[t0:t1:nc] - line[t0]
-            results[i] = (_columns(vals[t0:t1].reshape(-1, nc)), raw.first_line + lead + rows)
+            rows = raw.first_line + lead + (line[t0:t1:nc] - line[t0])
+            if not raw.comma and buf.find(b",", int(offsets[k]), int(offsets[k + 1])) >= 0:
+                raise _line_errors(raw)
+            if rows.size > 1 and rows[-1] - rows[-2] > 1:
+                err = _blank_gap(raw, rows)
+                if err is not None:
+                    raise err
+            if raw.cut_check >= 0:
+                _refuse_truncated(raw.path, raw.source, raw.cut_check)
+            results[i] = (_columns(vals[t0:t1].reshape(-1, nc)), rows)
     return results  # type: ignore[return-value]

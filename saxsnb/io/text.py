@@ -31,7 +31,7 @@ from .._jsonsafe import to_json_safe
 from ..errors import SaxsFileError, SaxsInputError
 from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
 from ._assemble import Curve, build_series
-from ._atomic import atomic_write_bytes
+from ._atomic import atomic_folder
 from ._textparse import parse_bodies, split_file
 
 __all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS"]
@@ -129,6 +129,7 @@ def _read_batch(paths: list[str]) -> list[Curve]:
                 attrs=raw.attrs,
                 lines=lines,
                 path=raw.path,
+                attr_lines=raw.attr_lines,
             )
         )
     return curves
@@ -213,7 +214,13 @@ def read_series(
     Raises
     ------
     SaxsFileError
-        Unreadable, binary, empty or malformed files, naming the file and line.
+        Unreadable, binary, empty or malformed files, naming the file and line. Every
+        row is data or an error, never dropped or added: refused are a malformed first
+        row (``0.1 5e 0.1``), a line of another count of numbers just before the data
+        (a summary), a last row alone after a blank line (a trailer), tokens such as
+        ``1.#INF`` or ``4#2`` (``#`` starts a comment only after a blank), decimal
+        commas (also ``1,5,2`` of integers: ambiguous), control bytes, and a last
+        value cut short in a file without final newline.
     SaxsInputError
         Bad arguments, a missing q unit, an unknown scan name.
 
@@ -263,24 +270,58 @@ def _value_text(value) -> str:
     return str(value)
 
 
-def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str = "%.8e") -> list[Path]:
+_FMT = re.compile(r"^%[-+ 0#]*\d{0,2}(?:\.\d{1,2})?[eEfFgG]$")
+_CONTROL_TEXT = re.compile(r"[\x00-\x1f\x7f\x85\u2028\u2029]")
+
+
+def _header_safe(text: str, what: str) -> str:
+    """``text`` for a header line; one with a line break or control character could
+    add lines (even rows of data) to the file, so it is refused."""
+    text = str(text)
+    if _CONTROL_TEXT.search(text):
+        raise SaxsInputError(
+            f"{what} {text!r} holds a line break or control character, which a text header cannot hold",
+            parameter=what,
+        )
+    return text
+
+
+def write_text_series(
+    ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str = "%.8e", overwrite: bool = False
+) -> list[Path]:
     """Write each frame to its own text file with a header of units and scan values.
+
+    The files are written as one set: into a temporary folder next to ``folder``,
+    which then takes the place of ``folder`` as a whole, so ``folder`` holds either
+    its old content or the complete new series, never a mix or a part.
 
     Parameters
     ----------
     ds : xarray.Dataset
         A series (see :mod:`saxsnb.series`); it is not modified.
     folder : str or Path
-        Created if missing. Files are ``{stem}_{index:0Nd}.dat`` with the frame
-        index zero-padded; each is written atomically.
+        The folder of the set: new, or empty, or (with ``overwrite=True``) replaced
+        completely. Files are ``{stem}_{index:0Nd}.dat`` with the frame index
+        zero-padded.
     stem : str
         Start of the file names.
     fmt : str
-        printf-style format of the numbers (q, intensity, sigma in columns).
+        printf-style format of one number (``%e``, ``%f`` or ``%g`` with optional
+        flags, width and precision), used for every column.
+    overwrite : bool
+        Replace a folder that already holds files (all of them, not only those of
+        the same names). Without it a non-empty folder is an error.
 
     Returns
     -------
     list of Path, one per frame.
+
+    Raises
+    ------
+    SaxsFileError
+        ``folder`` is not empty and ``overwrite=False``, or cannot be written.
+    SaxsInputError
+        A bad ``fmt`` or ``stem``; a unit, name or text value with a line break.
 
     Notes
     -----
@@ -288,22 +329,31 @@ def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str =
     numeric scan coordinate and ``<name>_units``, ``sample``, other text values as
     ``key = value``, and other scalar attrs as ``attr.<name> = <JSON>`` so that
     :func:`read_series` gives them back as attrs. Masked points are written as NaN.
+    Temporary folders left by a killed write are removed by the next write.
 
     Examples
     --------
-    >>> import tempfile, numpy as np, saxsnb
+    >>> import tempfile, os, numpy as np, saxsnb
     >>> ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]], scan={"time": [3.0]})
-    >>> paths = write_text_series(ds, tempfile.mkdtemp())
+    >>> paths = write_text_series(ds, os.path.join(tempfile.mkdtemp(), "set"))
     >>> print(paths[0].read_text().splitlines()[3])
     # time = 3.0
     """
     validate(ds)
+    if not isinstance(fmt, str) or not _FMT.match(fmt):
+        raise SaxsInputError(
+            f"fmt={fmt!r} is not a printf format of one number such as '%.8e' or '%.6g'", parameter="fmt"
+        )
+    if not isinstance(stem, str) or not stem or not re.fullmatch(r"[\w.\-]+", stem) or stem.startswith("."):
+        raise SaxsInputError(
+            f"stem={stem!r} must be letters, digits, '_', '-' or '.' (not first)", parameter="stem"
+        )
     folder = Path(folder)
-    folder.mkdir(parents=True, exist_ok=True)
     n = ds.sizes["frame"]
     width = max(4, len(str(max(n - 1, 0))))
     q = ds["q"].values
-    unit = ds["q"].attrs.get("units", CANONICAL_Q_UNIT)
+    unit = _header_safe(ds["q"].attrs.get("units", CANONICAL_Q_UNIT), "q units")
+    iunit = _header_safe(ds["intensity"].attrs.get("units", "arb"), "intensity units")
     I = np.asarray(ds["intensity"].values, dtype=float)
     S = np.asarray(ds["sigma"].values, dtype=float)
     if "mask" in ds.data_vars:
@@ -317,35 +367,40 @@ def write_text_series(ds: xr.Dataset, folder, *, stem: str = "frame", fmt: str =
         D = np.asarray(ds["dq"].values, dtype=float) / q_unit_factor(unit)
         cols.append("dq")
     scans = scan_coords(ds)
+    for name in scans:
+        _header_safe(name, "coordinate name")
+        _header_safe(ds[name].attrs.get("units", "") or "", f"units of {name}")
     const: list[str] = []
     for key, value in ds.attrs.items():
         if key in ("source_files",):
             continue
-        if key in ("sample", "scan") and isinstance(value, str) and "\n" not in value:
+        key = _header_safe(key, "attr name")
+        if key in ("sample", "scan") and isinstance(value, str) and not _CONTROL_TEXT.search(value):
             const.append(f"# {key} = {value}")
         else:
             text = json.dumps(to_json_safe(value, nonfinite="str"), ensure_ascii=False)
             const.append(f"# attr.{key} = {text}")
-    paths = []
+    names = [f"{stem}_{i:0{width}d}.dat" for i in range(n)]
     row_fmt = " ".join([fmt] * len(cols))
-    for i in range(n):
-        lines = [
-            f"# saxsnb series frame {i}",
-            f"# q_unit = {unit}",
-            f"# intensity_unit = {ds['intensity'].attrs.get('units', 'arb')}",
-        ]
-        for name in scans:
-            v = ds[name].values[i]
-            lines.append(f"# {name} = {_value_text(v)}")
-            u = ds[name].attrs.get("units")
-            if u:
-                lines.append(f"# {name}_units = {u}")
-        lines.extend(const)
-        lines.append("# " + " ".join(cols))
-        block = np.column_stack([q, I[i], S[i]] + ([D[i]] if D is not None else []))
-        body = "\n".join(row_fmt % tuple(r) for r in block)
-        text = "\n".join(lines) + "\n" + body + "\n"
-        path = folder / f"{stem}_{i:0{width}d}.dat"
-        atomic_write_bytes(path, text.encode("utf-8"))
-        paths.append(path)
-    return paths
+    with atomic_folder(folder, overwrite=overwrite) as tmp:
+        for i in range(n):
+            lines = [
+                f"# saxsnb series frame {i}",
+                f"# q_unit = {unit}",
+                f"# intensity_unit = {iunit}",
+            ]
+            for name in scans:
+                v = ds[name].values[i]
+                lines.append(f"# {name} = {_header_safe(_value_text(v), f'value of {name}')}")
+                u = ds[name].attrs.get("units")
+                if u:
+                    lines.append(f"# {name}_units = {u}")
+            lines.extend(const)
+            lines.append("# " + " ".join(cols))
+            block = np.column_stack([q, I[i], S[i]] + ([D[i]] if D is not None else []))
+            body = "\n".join(row_fmt % tuple(r) for r in block)
+            text = "\n".join(lines) + "\n" + body + "\n"
+            with open(tmp / names[i], "wb") as fh:
+                fh.write(text.encode("utf-8"))
+    return [folder / name for name in names]
+
