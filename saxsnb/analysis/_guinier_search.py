@@ -299,18 +299,24 @@ def _moments(q, Ic, Sc, usable, kind, quadratic=False):
     """Prefix sums of the linearised data: x = q^2, y = ln(q^p I) with p = 0, 1, 2 for
     compact, rod, sheet; weights (I / sigma)^2 (first-order propagation, as
     :func:`~saxsnb.analysis._linear.linearize`)."""
+    y, w = _linearised(q, Ic, Sc, usable, kind)
+    return WindowMoments.from_weights(q * q, y, w, usable, quadratic=quadratic)
+
+
+def _linearised(q, I, S, usable, kind):
+    """y = ln(q^p I) and weights (I / sigma)^2 (1 without sigma), 0 where not usable."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        y = np.log(np.where(usable, Ic, 1.0))
+        y = np.log(np.where(usable, I, 1.0))
         if kind == "rod":
             y += np.log(q)
         elif kind == "sheet":
             y += 2.0 * np.log(q)
-        if Sc is None:
+        if S is None:
             w = usable.astype(float)
         else:
-            w = np.where(usable, Ic / Sc, 0.0)
+            w = np.where(usable, I / S, 0.0)
             w *= w
-    return WindowMoments.from_weights(q * q, y, w, usable, quadratic=quadratic)
+    return y, w
 
 
 def _window_fit(mom, q, finite, neg, zero, usable, start, stop, scale):
@@ -372,17 +378,8 @@ def _fit_shared_window(q, I, S, start, stop, kind):
     Iw = I[:, start:stop]
     Sw = None if S is None else S[:, start:stop]
     finite, neg, zero, usable = _flags(Iw, Sw)
+    y, w = _linearised(qw, Iw, Sw, usable, kind)
     with np.errstate(divide="ignore", invalid="ignore"):
-        y = np.log(np.where(usable, Iw, 1.0))
-        if kind == "rod":
-            y += np.log(qw)
-        elif kind == "sheet":
-            y += 2.0 * np.log(qw)
-        if Sw is None:
-            w = usable.astype(float)
-        else:
-            w = np.where(usable, Iw / Sw, 0.0)
-            w *= w
         x = qw * qw
         x0 = float(x.mean()) if x.size else 0.0
         u = x - x0

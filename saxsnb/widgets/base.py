@@ -143,6 +143,16 @@ class DatasetTrait(traitlets.TraitType):
             obj.notify_change(_Change(name=self.name, old=old, new=new, owner=obj, type="change"))
 
 
+def checked_range(value):
+    """A q range trait value: None, or (low, high) floats, finite, in increasing order."""
+    if value is None:
+        return None
+    lo, hi = (float(v) for v in value)
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        raise traitlets.TraitError(f"q_range {value!r} must be finite")
+    return (min(lo, hi), max(lo, hi))
+
+
 class _Change(dict):
     """A change record as traitlets hands to observers: a dict with attribute access."""
 
@@ -344,6 +354,19 @@ class PanelBase(widgets.VBox):
             if mark.visible != show:
                 mark.visible = show
         return True
+
+    # a panel with a brush selector commits it when a drag ends (or from Python)
+    def _on_brushing(self, change) -> None:
+        if not change["new"]:
+            self._commit_selector()
+
+    def _on_selected(self, change) -> None:
+        if not self.selector.brushing:
+            self._commit_selector()
+
+    def _commit_selector(self) -> None:
+        """Turn ``self.selector.selected`` into the panel's ``q_range`` (brush panels)."""
+        raise NotImplementedError
 
     def _on_point_click(self, mark, content) -> None:
         """Jump to the frame of a clicked point. Panels record, per mark, the frame of

@@ -8,7 +8,7 @@ import traitlets
 
 from ..display import finite_points, value_range
 from . import _bq as bq
-from .base import DatasetTrait, PanelBase, control_row, make_figure
+from .base import DatasetTrait, PanelBase, checked_range, control_row, make_figure
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["DistancePanel"]
@@ -238,21 +238,7 @@ class DistancePanel(PanelBase):
 
     @traitlets.validate("q_range")
     def _check_range(self, proposal):
-        value = proposal["value"]
-        if value is None:
-            return None
-        lo, hi = (float(v) for v in value)
-        if not (np.isfinite(lo) and np.isfinite(hi)):
-            raise traitlets.TraitError(f"q_range {value!r} must be finite")
-        return (min(lo, hi), max(lo, hi))
-
-    def _on_brushing(self, change) -> None:
-        if not change["new"]:
-            self._commit_selector()
-
-    def _on_selected(self, change) -> None:
-        if not self.selector.brushing:
-            self._commit_selector()
+        return checked_range(proposal["value"])
 
     def _commit_selector(self) -> None:
         if self._syncing:

@@ -20,7 +20,7 @@ from ..display import (
 from ..display.report import frame_lines
 from ..errors import SaxsInputError
 from . import _bq as bq
-from .base import PanelBase, control_row, make_figure
+from .base import PanelBase, checked_range, control_row, make_figure
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["LinearFitPanel"]
@@ -280,21 +280,7 @@ class LinearFitPanel(PanelBase):
     # --------------------------------------------------------------- selector
     @traitlets.validate("q_range")
     def _check_range(self, proposal):
-        value = proposal["value"]
-        if value is None:
-            return None
-        lo, hi = (float(v) for v in value)
-        if not (np.isfinite(lo) and np.isfinite(hi)):
-            raise traitlets.TraitError(f"q_range {value!r} must be finite")
-        return (min(lo, hi), max(lo, hi))
-
-    def _on_brushing(self, change) -> None:
-        if not change["new"]:
-            self._commit_selector()
-
-    def _on_selected(self, change) -> None:
-        if not self.selector.brushing:
-            self._commit_selector()
+        return checked_range(proposal["value"])
 
     def _commit_selector(self) -> None:
         if self._syncing:

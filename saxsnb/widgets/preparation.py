@@ -146,7 +146,9 @@ class PreparationPanel(PanelBase):
                                 labels=["flagged frames"], visible=bool(flagged.size))
         self.current_row = bq.Lines(x=np.array([-0.5, n - 0.5]), y=np.zeros(2), scales={"x": mx, "y": my},
                                     colors=[ROLE["current"]], stroke_width=1.5)
-        caxis = bq.ColorAxis(scale=cs, label="-log10 p", side="right")
+        top = float(-np.log10(P_FLOOR))
+        caxis = bq.ColorAxis(scale=cs, label="-log10 p", side="right",
+                             tick_values=np.array([0.0, top / 2, top]), tick_format="~g")
         map_fig = make_figure(
             [self.cells, self.flags, self.current_row], mx, my, x_label="frame", y_label="frame",
             title=f"frame similarity ({self.test}; click a cell)", height="360px",
