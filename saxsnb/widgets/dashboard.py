@@ -20,8 +20,6 @@ PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks", "distance")
 DEFAULT_PANELS = ("browser", "curve", "guinier", "kratky", "peaks")
 #: Panels added when a background is given.
 BACKGROUND_PANELS = ("preparation",)
-#: Longest series for which explore() adds the preparation panel by default.
-MAX_SIMILARITY_FRAMES = 500
 
 
 class PanelSet(dict):
@@ -183,7 +181,7 @@ def explore(
         ``"peaks"``, ``"distance"`` (p(r), :class:`~saxsnb.widgets.DistancePanel`) and
         ``"preparation"`` (default: :data:`DEFAULT_PANELS`, every panel but ``"distance"``;
         ``"preparation"``, the subtraction and frame-similarity panel, needs a background
-        and is added by default when one is given, up to 500 frames).
+        and is shown when named).
     frame : int
         Initial current frame.
 
@@ -210,10 +208,8 @@ def explore(
         raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(known)}", parameter="panels")
     if background is None and any(p in BACKGROUND_PANELS for p in panels):
         raise SaxsInputError("the preparation panel needs a background series", parameter="background")
-    if background is not None and panels is DEFAULT_PANELS and ds.sizes["frame"] <= MAX_SIMILARITY_FRAMES:
-        # the preparation panel draws the (frame, frame) similarity matrix: by default only
-        # where it stays small; ask for it by name on a longer series
-        panels = (*DEFAULT_PANELS, *BACKGROUND_PANELS)
+    # the preparation panel (frame x frame similarity map) is shown when asked for by name:
+    # explore(ds, bg, panels=(*DEFAULT_PANELS, "preparation"))
     model = SeriesModel(ds)
     built = {name: make[name](model, background) for name in panels}
     dash = Dashboard(built, model=model)

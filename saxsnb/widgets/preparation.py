@@ -126,7 +126,9 @@ class PreparationPanel(PanelBase):
 
         n = self.n_frames
         sim = self.similarity()
-        mx, my = bq.LinearScale(), bq.LinearScale(reverse=True)
+        # fixed domains: the grid of cells alone gives bqplot no data range at first draw
+        mx = bq.LinearScale(min=-1.5, max=n - 0.5)
+        my = bq.LinearScale(min=-0.5, max=n - 0.5, reverse=True)
         self.map_values = self._map_values(sim)
         cs = bq.ColorScale(scheme=MAP_SCHEME, min=0.0, max=float(-np.log10(P_FLOOR)))
         edges = np.arange(n + 1, dtype=float) - 0.5
