@@ -36,6 +36,7 @@ _NUMBERLIKE = re.compile(rb"^[-+]?(?:\d|\.\d)[\w.+\-#]*$")
 _DIGIT_COMMA_DIGIT = re.compile(rb"\d,\d")
 _BLANK_SEP = re.compile(rb"[^\s,;][ \t;]+[^\s,;]")
 _INTEGER = re.compile(rb"^[-+]?\d+$")
+_DIGITS = bytes.maketrans(b"0123456789", b"0000000000")
 
 
 def _is_comma_decimal(line: bytes) -> bool:
@@ -227,7 +228,9 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     _refuse_malformed_before(path, data, start, len(tokens))
     # a line with another count of numbers than the two rows after it (a summary, a row
     # count before the data) is not the first row of data
-    counts = _next_counts(data, end + 1, 2)
+    e2 = data.find(b"\n", end + 1)
+    same = e2 > 0 and data[end + 1 : e2].translate(_DIGITS) == data[start:end].translate(_DIGITS)
+    counts = [] if same else _next_counts(data, end + 1, 2)  # a row laid out like the first: fine
     if len(counts) == 2 and counts[0] == counts[1] != len(tokens):
         raise SaxsFileError(
             f"this line holds {len(tokens)} numbers but the rows after it hold {counts[0]}: a summary "

@@ -124,6 +124,7 @@ def _read(spath: str, chunks) -> xr.Dataset:
         else:
             ds = xr.open_dataset(spath, chunks=chunks, **kwargs)
         expected = ds.attrs.pop(_ATTRS_SUM, None)
+        sums = expected is not None
         if expected is not None and text_digest(_attrs_record(ds)) != _str(expected):
             raise SaxsFileError(
                 "the attributes differ from the checksum stored with them: the file is damaged, or "
@@ -132,6 +133,11 @@ def _read(spath: str, chunks) -> xr.Dataset:
             )
         for name in list(ds.variables):
             expected = ds[name].attrs.pop(ATTR, None)
+            if expected is None and sums:
+                raise SaxsFileError(
+                    f"variable {name!r} has lost its checksum attribute {ATTR!r}: the file is damaged",
+                    path=spath,
+                )
             if expected is not None:
                 verify(ds[name].values, expected, path=spath, where=f"variable {name!r}")
         coords = ds.attrs.pop(_COORDS, None)

@@ -160,7 +160,13 @@ def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
 
 
 class _Stale(Exception):
-    """The private layout record disagrees with the standard attributes."""
+    """The private layout record disagrees with the standard attributes; ``changed``
+    names the datasets whose units differ (their values were converted on purpose, so
+    their checksums no longer apply)."""
+
+    def __init__(self, message: str, changed: set[str] | None = None):
+        super().__init__(message)
+        self.changed = changed or set()
 
 
 def _units_of(g: Guard, dset, where: str) -> str | None:
@@ -191,6 +197,20 @@ def _read_layout(g: Guard, d, dpath: str, layout) -> xr.Dataset:
     for have, want, where in pointers:
         if want is not None and have != want:
             raise _Stale(f"{where} names {have!r} where saxsnb's record says {want!r}")
+    changed, first = set(), None
+    for spec in layout["variables"].values():
+        if not (isinstance(spec, dict) and isinstance(spec.get("path"), str) and spec["path"] in d):
+            continue
+        want = decode_attrs(spec.get("attrs") or {}).get("units")
+        h5where = f"{dpath}/{spec['path']}"
+        have = _units_of(g, d[spec["path"]], h5where)
+        if want is not None and have is not None:
+            expect = _nx_intensity_unit(str(want)) if spec["path"] in ("I", "Idev") else str(want)
+            if have != expect:
+                changed.add(spec["path"])
+                first = first or f"{h5where} has units {have!r} where saxsnb's record says {expect!r}"
+    if changed:
+        raise _Stale(first, changed)
     for name, spec in layout["variables"].items():
         where = f"{dpath}@{_LAYOUT}[{name!r}]"
         if not (
@@ -215,6 +235,8 @@ def _read_layout(g: Guard, d, dpath: str, layout) -> xr.Dataset:
         expected = g.attr(dset, ATTR, h5where)
         if expected is not None:
             verify(raw, expected, path=g.path, where=h5where)
+        elif g.attr(d, _LAYOUT_SUM, dpath) is not None:  # written with checksums: one is gone
+            raise g.error(f"has lost its checksum attribute {ATTR!r}: the file is damaged", h5where)
         if raw.ndim != len(spec["dims"]):
             raise g.error(f"has {raw.ndim} dimensions where the record gives {spec['dims']}", h5where)
         if spec["dtype"] == "str":
@@ -468,11 +490,7 @@ def _read_open(g: Guard, f):
                     SaxsWarning,
                     stacklevel=4,
                 )
-                skip = {
-                    str(s.get("path"))
-                    for s in layout["variables"].values()
-                    if isinstance(s, dict) and "units" in (s.get("attrs") or {})
-                }
+                skip = exc.changed
             except (ValueError, TypeError, KeyError) as exc:
                 raise g.error(f"damaged saxsnb layout record: {exc}", f"{dpath}@{_LAYOUT}") from None
     curves: list[Curve] = []
