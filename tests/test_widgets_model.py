@@ -202,3 +202,20 @@ def test_kratky_frame_result_uses_the_shared_guinier_fit(particles):
     direct = particles.isel(frame=[9]).saxs.kratky(normalize="rg").to_dataset(name="kratky")
     xr.testing.assert_identical(k.result, direct)
     assert isinstance(k.summary, xr.Dataset) and "summary" in k.trait_names()
+
+
+def test_exported_code_cannot_be_injected_from_metadata():
+    # issue 12, item 7: a scan unit from a file with a line break and code in it
+    import numpy as np
+
+    import saxsnb
+    from saxsnb.widgets import CurvePanel, LinearFitPanel
+
+    q = np.linspace(0.05, 2.0, 80)
+    I = np.exp(-np.outer([2.0, 2.2], q) ** 2 / 3) + 0.01
+    ds = saxsnb.from_arrays(q, I, 0.01 * I, scan={"temperature": [20.0, 21.0]})
+    ds["temperature"].attrs["units"] = "degC\nraise SystemExit('injected')"
+    for panel in (LinearFitPanel(ds), CurvePanel(ds)):
+        code = panel.to_code()
+        assert "\nraise SystemExit" not in code
+        exec(code, {"ds": ds})  # runs, and the injected line is only a comment

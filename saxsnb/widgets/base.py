@@ -293,6 +293,12 @@ class PanelBase(widgets.VBox):
     def _handle_frame(self, change) -> None:
         self._on_frame()
 
+    def code_comment(self, index: int | None = None) -> str:
+        """:meth:`frame_label` safe to put after ``#`` in exported code: scan names and
+        units come from file metadata, and a line break in them would end the comment
+        (every non-printable character becomes a space)."""
+        return "".join(ch if ch.isprintable() else " " for ch in self.frame_label(index))
+
     def frame_label(self, index: int | None = None) -> str:
         """Plain label of a frame, e.g. ``"temperature 45.5 degC (frame 51)"``."""
         return self.model.frame_label(self.frame if index is None else index)

@@ -218,4 +218,4 @@ class SeriesBrowser(PanelBase):
         self.status = ""
 
     def _code_lines(self, target: str) -> list[str]:
-        return [f"{target} = ds.isel(frame=[{self.frame}])  # {self.frame_label()}"]
+        return [f"{target} = ds.isel(frame=[{self.frame}])  # {self.code_comment()}"]

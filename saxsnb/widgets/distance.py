@@ -432,4 +432,4 @@ class DistancePanel(PanelBase):
         if every:
             return [f"{target} = ds.saxs.distance_distribution({args})  # every frame"]
         return [f"{target} = ds.isel(frame=[{frame}]).saxs.distance_distribution({args})"
-                f"  # {self.frame_label(frame)}"]
+                f"  # {self.code_comment(frame)}"]

@@ -317,5 +317,5 @@ class KratkyPanel(PanelBase):
         norm = "None" if self.normalize is None else repr(self.normalize)
         return [
             f"{target} = ds.isel(frame=[{self.frame}]).saxs.kratky(normalize={norm})"
-            f".to_dataset(name='kratky')  # {self.frame_label()}"
+            f".to_dataset(name='kratky')  # {self.code_comment()}"
         ]

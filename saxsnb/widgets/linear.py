@@ -116,7 +116,7 @@ class LinearFitPanel(PanelBase):
         if every:
             return [f"{target} = {self._call_code('ds', q_range)}  # every frame"]
         call = self._call_code(f"ds.isel(frame=[{frame}])", q_range)
-        return [f"{target} = {call}  # {self.frame_label(frame)}"]
+        return [f"{target} = {call}  # {self.code_comment(frame)}"]
 
     # ------------------------------------------------------------------- build
     def _build(self):
