@@ -161,3 +161,12 @@ def test_subtract_properties(arrays_, scale):
     # quadrature: never below either part, never above their sum (common practice)
     assert np.all(sig >= np.maximum(S, scale * BS) * (1 - 1e-12))
     assert np.all(sig <= (S + scale * BS) * (1 + 1e-12))
+
+
+@pytest.mark.parametrize("bad", ["abc", "1.5", None, [1, 2], {"a": 1}, True, -1.0, float("nan"), float("inf")])
+def test_subtract_refuses_a_scale_that_is_not_a_number(bad):
+    # issue 12 item 9: a non-numeric or negative scale= is an error from the family
+    ds = saxsnb.demo.example_series("spheres")
+    with pytest.raises(saxsnb.SaxsInputError, match="scale") as info:
+        ds.saxs.subtract(ds.isel(frame=[0]), scale=bad, match="mean")
+    assert info.value.parameter == "scale"

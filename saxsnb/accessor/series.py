@@ -329,7 +329,7 @@ class SeriesMethods(AccessorBase):
         elif isinstance(scale, str):
             raise SaxsInputError(f"scale must be a number or 'auto', got {scale!r}", parameter="scale")
         else:
-            scale_arg = xr.DataArray(float(scale))
+            scale_arg = xr.DataArray(_background_scale(scale))
 
         def _sub(I_, S_, B_, BS_, k_):
             return subtract_background(I_, S_, B_, BS_, scale=np.asarray(k_)[..., None])
@@ -445,3 +445,13 @@ def _check_background(ds: xr.Dataset, background, *, regrid: bool = False) -> No
             f"background intensity is in {units[1]!r}, the series in {units[0]!r}",
             parameter="background",
         )
+
+
+def _background_scale(scale) -> float:
+    """A fixed background scale: a finite, non-negative real number (not a bool)."""
+    if isinstance(scale, (bool, np.bool_)) or not isinstance(scale, (int, float, np.integer, np.floating)):
+        raise SaxsInputError(f"scale must be a number or 'auto', got {scale!r}", parameter="scale")
+    value = float(scale)
+    if not np.isfinite(value) or value < 0:
+        raise SaxsInputError(f"scale must be a finite number >= 0, got {scale!r}", parameter="scale")
+    return value
