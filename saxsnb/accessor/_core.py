@@ -168,6 +168,9 @@ class AccessorBase:
         """With errors="raise", a SaxsFitError naming the first failed frame and status."""
         if errors != "raise":
             return out
+        if out["status"].chunks is not None:
+            # computed once: the status check and the user's later compute share the work
+            out = out.persist()
         status = np.asarray(out["status"].values)
         bad = np.flatnonzero(status != "ok")
         if bad.size == 0:
