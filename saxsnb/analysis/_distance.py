@@ -52,12 +52,14 @@ Hanson 1974) for any frame where it has not converged; uncertainties are then th
 the free values, zero on the values held at zero.
 
 **Series speed.** For each Dmax the matrix is built once for the shared q grid (and
-cached). The per-frame data term A^T W A is one matrix product of the weights
-(n_frames, n_q) with a shared table of products of matrix rows; frames whose weights
-are the same up to a factor (no sigma, or sigma in proportion, same usable points)
-share one eigendecomposition; other frames (their own sigma, NaN or masked points) get
-their own small (n_r - 2)^2 eigendecomposition, batched. The weight search is then
-elementwise over (frame, weight, eigenvalue).
+cached). Frames whose weights are the same up to a factor (no sigma, or sigma in
+proportion, same usable points) share one data term A^T W A and one
+eigendecomposition; other frames (their own sigma, NaN or masked points) get their own
+small (n_r - 2)^2 product and eigendecomposition, batched. The weight search is then
+elementwise over (frame, weight, eigenvalue). Every number of a frame is computed
+from that frame's data alone, by the same operations whatever else is in the batch:
+a frame solved alone, in a series or in any dask chunk gives the same result to the
+last digit.
 
 **Automatic Dmax.** All candidates (default :func:`default_dmax_candidates`, 24 values
 depending on the q grid only) are scored for every frame; around each frame's best

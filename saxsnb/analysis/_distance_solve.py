@@ -28,9 +28,6 @@ __all__ = []
 _CHUNK = 512  # frames per block in the weight search (memory ~ chunk * n_weights * n_r)
 
 
-_TABLE_MIN_FRAMES = 16  # at or above: data terms through the shared product table
-
-
 _WEIGHTS_COARSE = 10.0 ** np.arange(-12.0, 2.5)  # weight search: one per decade, then
 
 
@@ -42,11 +39,23 @@ _FLOOR = 1e-13  # weights below this times the largest eigenvalue are not resolv
 
 # --------------------------------------------------------------------- the engine
 class _Frames:
-    """Weighted data of the frames (zero weight on unused points)."""
+    """Weighted data of the frames (zero weight on unused points).
+
+    The weights of a frame are ``scale * shape`` with ``scale`` its largest weight and
+    ``shape`` rounded to 10 significant digits in log: frames with the same shape share
+    one eigendecomposition, and every number of a frame depends on its own data only
+    (the same to the last digit whether it is solved alone, in a batch or in any dask
+    chunk).
+    """
 
     def __init__(self, q, I, S, usable, background):
         self.known_sigma = S is not None
         w = np.where(usable, 1.0 / np.where(usable, S if S is not None else 1.0, 1.0) ** 2, 0.0)
+        scale = w.max(axis=1)
+        with np.errstate(divide="ignore"):
+            key = np.where(w > 0, np.round(np.log(w / np.where(scale > 0, scale, 1.0)[:, None]), 10), -np.inf)
+        shape = np.exp(key)  # exactly zero on unused points
+        w = scale[:, None] * shape
         y = np.where(usable, I, 0.0)
         self.q, self.w, self.y = q, w, y
         self.wy = w * y
@@ -57,35 +66,42 @@ class _Frames:
             self.sw = w.sum(axis=1)
             self.swy = self.wy.sum(axis=1)
             self.yy = self.yy - self.swy**2 / self.sw
-        # frames with the same weights up to a factor share one eigendecomposition
-        scale = w.max(axis=1, keepdims=True)
-        with np.errstate(divide="ignore"):
-            key = np.where(w > 0, np.round(np.log(w / np.where(scale > 0, scale, 1.0)), 10), -1e300)
-        _, self.rep, self.group = np.unique(key, axis=0, return_index=True, return_inverse=True)
-        self.group = self.group.ravel()
-        self.scale = scale[:, 0]
+        if w.shape[0] == 1:
+            self.rep, self.group = np.zeros(1, dtype=int), np.zeros(1, dtype=int)
+        else:
+            rows = np.ascontiguousarray(shape).view(np.dtype((np.void, shape.itemsize * shape.shape[1])))[:, 0]
+            _, self.rep, self.group = np.unique(rows, return_index=True, return_inverse=True)
+        self.group = np.asarray(self.group).ravel()
+        self.shape = shape
+        self.scale = scale
+
+
+_G_BLOCK = 128  # frames per product in the data terms (memory ~ block * n_q * n_r)
 
 
 def _data_terms(sh, fr, rows):
-    """Li A^T W A Li^T (len(rows), K, K), its trace in the p metric, Li A^T W y."""
-    w = fr.w[rows]
-    K = sh.K
-    if len(rows) >= _TABLE_MIN_FRAMES:
-        G = (w @ sh.table).reshape(len(rows), K, K)
-    else:
-        G = np.einsum("mi,fm,mj->fij", sh.At, w, sh.At)
-    trace = w @ sh.rownorm2
+    """Li A^T W A Li^T (len(rows), K, K) and its trace in the p metric, for the weight
+    shapes of the frames ``rows`` (scale 1). Each matrix is its own product (a batched
+    matmul), so it does not depend on which other frames are computed with it."""
+    w = fr.shape[rows]
+    AtT = sh.At.T
+    G = np.empty((len(rows), sh.K, sh.K))
+    for a in range(0, len(rows), _G_BLOCK):
+        G[a : a + _G_BLOCK] = (AtT[None, :, :] * w[a : a + _G_BLOCK, None, :]) @ sh.At
+    trace = np.einsum("fm,m->f", w, sh.rownorm2)
     if fr.background:
-        u = w @ sh.At
-        G -= u[:, :, None] * u[:, None, :] / fr.sw[rows, None, None]
-        trace = trace - np.einsum("fk,fk->f", w @ sh.A, w @ sh.A) / fr.sw[rows]
+        sw = w.sum(axis=1)
+        u = (w[:, None, :] @ sh.At)[:, 0]
+        G -= u[:, :, None] * u[:, None, :] / sw[:, None, None]
+        v = (w[:, None, :] @ sh.A)[:, 0]
+        trace = trace - np.einsum("fk,fk->f", v, v) / sw
     return G, trace
 
 
 def _rhs(sh, fr, rows):
-    b = fr.wy[rows] @ sh.At
+    b = (fr.wy[rows][:, None, :] @ sh.At)[:, 0]
     if fr.background:
-        b = b - (fr.w[rows] @ sh.At) * (fr.swy[rows] / fr.sw[rows])[:, None]
+        b = b - (fr.w[rows][:, None, :] @ sh.At)[:, 0] * (fr.swy[rows] / fr.sw[rows])[:, None]
     return b
 
 
@@ -146,13 +162,12 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
     groups, where = np.unique(fr.group[rows], return_inverse=True)
     where = where.ravel()
     rep_rows = fr.rep[groups]
-    G, trace = _data_terms(sh, fr, rep_rows)
-    c_rep = trace / sh.trace_omega
-    Gs = G / c_rep[:, None, None]
+    G, trace = _data_terms(sh, fr, rep_rows)  # of the weight shapes (scale 1)
+    c_shape = trace / sh.trace_omega
+    Gs = G / c_shape[:, None, None]
     s, Q = np.linalg.eigh(Gs)
     s = np.maximum(s, 0.0)
-    # weights in proportion to the representative's: c in the same proportion
-    c = c_rep[where] * fr.scale[rows] / fr.scale[rep_rows][where]
+    c = c_shape[where] * fr.scale[rows]
     b = _rhs(sh, fr, rows) / np.sqrt(c)[:, None]
     sf = s[where]
     Qf = Q[where] if len(groups) > 1 else np.broadcast_to(Q[0], (len(rows), sh.K, sh.K))
@@ -170,7 +185,7 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
     den = sf + lam[:, None]
     z = cc / den
     u = (Qf @ z[:, :, None])[:, :, 0]
-    p_in = (u @ sh.Li) / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
+    p_in = (u[:, None, :] @ sh.Li)[:, 0] / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
     n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
     dof = np.maximum(n - n_eff, 1.0)
     cov = None
@@ -186,7 +201,7 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
             # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
             B = sh.Li.T @ Qf
             var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
-        fit = p_in @ sh.A.T
+        fit = (p_in[:, None, :] @ sh.A.T)[:, 0]
         if fr.background:
             bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
             fit = fit + bg[:, None]
@@ -197,7 +212,7 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
     noise = np.ones(len(rows)) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
     h = sh.h
     tot = p_in.sum(axis=1)
-    mom = p_in @ sh.m2
+    mom = np.einsum("fk,k->f", p_in, sh.m2)
     with np.errstate(invalid="ignore", divide="ignore"):
         rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
         if cov is None:
@@ -242,7 +257,7 @@ def _nonnegative(sh, Gs, c, b, lam, p0, max_iter=30):
     F, K = p0.shape
     eye = np.eye(K)
     H = np.einsum("ij,fjk,lk->fil", sh.Lc, Gs + lam[:, None, None] * eye, sh.Lc)
-    rhs = (b @ sh.Lc.T) / np.sqrt(c)[:, None]
+    rhs = (b[:, None, :] @ sh.Lc.T)[:, 0] / np.sqrt(c)[:, None]
     active = p0 < 0
     done = np.zeros(F, dtype=bool)
     p = p0.copy()
