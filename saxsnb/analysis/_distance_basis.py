@@ -14,7 +14,7 @@ from ..errors import SaxsInputError
 __all__ = ["transform_matrix", "forward_transform", "sphere_distance_distribution", "default_dmax_candidates"]
 
 
-_CACHE_SIZE = 64
+_CACHE_SIZE = 128  # per-Dmax terms, about 0.45 MB each at 500 q points
 _CACHE: OrderedDict = OrderedDict()
 
 
