@@ -347,3 +347,16 @@ def test_rg_sigma_on_a_mixed_unfolding_frame():
     ratio = np.std(res["rg"]) / np.median(res["rg_sigma"])
     bias = (np.mean(res["rg"]) - truth) / np.median(res["rg_sigma"])
     assert 0.8 < ratio < 1.2 and abs(bias) < 3, (ratio, bias)
+
+
+def test_short_dmax_with_a_good_fit_is_flagged():
+    # two spheres of 3 and 6 nm: largest dimension 12 nm (common practice: Dmax of a
+    # sphere is 2R). Fixed 13 % short, the fit is still good (chi2 ~ 1) but Rg is biased
+    # low by several rg_sigma: the status must not be "ok"
+    I0, _ = _mixture(Q)
+    Y, S = noisy(I0, 0.01, 20, seed=5, floor=1e-3)
+    short = distance_distribution(Q, Y, S, dmax=10.44)
+    assert np.median(short["chi2_reduced"]) < 1.2
+    assert (short["status"] == "dmax_too_small").all()
+    fine = distance_distribution(Q, Y, S, dmax=12.5)
+    assert (fine["status"] == "ok").all()

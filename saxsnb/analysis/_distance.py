@@ -449,8 +449,11 @@ def _scan_dmax(q, fr, cand, n_r, weight):
 
 
 def _dmax_check(q, fr, res, d_sel, n_r, weight):
-    """Frames whose fit misses the data (chi2 significantly above its expectation, or
-    every frame without sigma) and for which 1.5 Dmax is decisively more probable."""
+    """Frames for which 1.5 Dmax is decisively more probable (log Bayes factor above
+    ``_DECISIVE``), among the suspect ones: the fit misses the data (chi2 significantly
+    above its expectation; every frame without sigma), or p(r) is still significantly
+    above zero at the last inner point (p > 3 p_sigma: the particle goes on beyond
+    Dmax, and a short Dmax biases Rg even when the fit is good)."""
     F = d_sel.size
     rows = np.arange(F)
     if fr.known_sigma:
@@ -458,6 +461,8 @@ def _dmax_check(q, fr, res, d_sel, n_r, weight):
         suspect = res["chi2"] / dof > 1.0 + 3.0 * np.sqrt(2.0 / dof)
     else:
         suspect = np.ones(F, dtype=bool)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        suspect |= res["p_inner"][:, -1] > 3.0 * np.sqrt(res["p_var"][:, -1])
     flag = np.zeros(F, dtype=bool)
     r_s = rows[suspect]
     if r_s.size:
