@@ -132,9 +132,13 @@ def test_dumbbell_by_debye_formula():
     res = distance_distribution(Q, Y, S)
     assert (res["status"] == "ok").all()
     assert np.allclose(res["rg"], rg_true, rtol=0.01)
-    # Dmax close to d + 2R = 16 nm (the point cloud's largest distance 15.9 nm): within 7 %,
-    # estimates fall short because the last pairs are few (p ~ (Dmax - r)^3)
-    assert np.allclose(res["dmax"], d + 2 * R, rtol=0.07)
+    # Dmax close to d + 2R = 16 nm (common practice: the largest dimension); the point
+    # cloud's largest pair distance is 15.74 nm. The evidence stops where the last pairs
+    # sink into the noise: measured 15.14-15.42 nm, 3.8 % short of the cloud's largest
+    # distance, 5.4 % short of d + 2R, leaving out 0.05 % of the pairs
+    assert np.allclose(res["dmax"], d + 2 * R, rtol=0.06)
+    assert np.allclose(res["dmax"], dist.max(), rtol=0.045)
+    assert np.all([(dist > v).mean() < 2e-3 for v in res["dmax"]])
     for p, r in zip(res["p"], res["r"]):
         # bimodal: a maximum near 2 R-ish (within a sphere) and one near d, with a dip
         inner = p[(r > 1.5) & (r < 5.5)].max()
