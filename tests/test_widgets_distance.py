@@ -81,8 +81,11 @@ def test_brush_sets_q_range(series):
     xr.testing.assert_identical(
         p.result, series.isel(frame=[0]).saxs.distance_distribution(5.0, q_range=p.q_range)
     )
+    # residuals of the fitted points only
+    assert np.all((p.residuals.x >= 0.2) & (p.residuals.x <= 2.0))
     p.range_button.click()
     assert p.q_range is None and p.selector.selected is None
+    assert p.residuals.x.size == series.sizes["q"]
 
 
 def test_apply_to_all_and_code(series):
