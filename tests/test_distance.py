@@ -364,3 +364,24 @@ def test_short_dmax_with_a_good_fit_is_flagged():
     assert (short["status"] == "dmax_too_small").all()
     fine = distance_distribution(Q, Y, S, dmax=12.5)
     assert (fine["status"] == "ok").all()
+
+
+def test_bad_frames_with_automatic_dmax_and_weight():
+    # the same bad frames with nothing fixed: each gets its status, the others their numbers
+    I, S = noisy(sphere_intensity(Q, R_SPHERE), 0.01, 6, floor=1e-3)
+    I[1] = np.nan
+    I[2] = -I[2]
+    S[3, 10] = 0.0
+    I[4, 8:] = np.nan
+    res = distance_distribution(Q, I, S)
+    assert res["status"].tolist() == ["ok", "no_data", "negative_i0", "zero_sigma", "too_few_points", "ok"]
+    assert np.isfinite(res["rg"][[0, 5]]).all() and np.isnan(res["rg"][1:5]).all()
+    assert np.allclose(res["rg"][[0, 5]], np.sqrt(0.6) * R_SPHERE, rtol=0.01)  # Guinier & Fournet (1955)
+    # a q range without two positive q values leaves no Dmax to scan: a clear error
+    with pytest.raises(SaxsInputError) as err:
+        distance_distribution(Q, I, S, q_range=(5.0, 6.0))
+    assert err.value.parameter == "q_range"
+    # too few Shannon channels with the automatic Dmax (q_max 0.4 1/nm, Dmax ~ 10 nm)
+    few = distance_distribution(Q, I, S, q_range=(None, 0.4))
+    assert few["status"][0] in ("too_few_shannon_channels", "dmax_at_scan_edge")
+    assert few["shannon_channels"][0] < 3

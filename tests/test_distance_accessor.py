@@ -66,3 +66,16 @@ def test_per_frame_dmax_and_bad_input(flow):
     assert str(res.status.values[0]) != "ok"
     with pytest.raises(saxsnb.SaxsError):
         flow.saxs.distance_distribution(dmax=d[:3])
+
+
+def test_errors_raise_names_frame_and_parameter(flow):
+    bad = flow.copy(deep=True)
+    bad["intensity"][3] = np.nan  # an all-NaN frame
+    res = bad.saxs.distance_distribution(dmax=30.0)
+    assert str(res.status.values[3]) == "no_data" and (res.status.values[[0, 1, 2, 4]] == "ok").all()
+    with pytest.raises(saxsnb.SaxsError) as err:
+        bad.saxs.distance_distribution(dmax=30.0, errors="raise")
+    assert err.value.frame == int(bad.frame.values[3]) and err.value.parameter == "intensity"
+    with pytest.raises(saxsnb.SaxsError) as err:
+        flow.saxs.distance_distribution(dmax=1.0, errors="raise")  # far too short for these particles
+    assert err.value.parameter == "dmax" and err.value.frame == int(flow.frame.values[0])

@@ -168,3 +168,14 @@ def test_weight_slider_follows_the_scale_of_the_weight(series):
     assert p.weight_slider.value == pytest.approx(w * 1e9, rel=1e-9)
     direct = bright.isel(frame=[0]).saxs.distance_distribution(6.0, weight=w * 1e9)
     xr.testing.assert_identical(p.result, direct)
+
+
+def test_all_nan_frame_shows_status(series):
+    bad = series.copy(deep=True)
+    bad["intensity"][2] = np.nan
+    p = DistancePanel(bad, dmax=6.0)
+    p.frame = 2
+    assert p.status.endswith("no_data") and p.result.status.values[0] == "no_data"
+    assert not p.p_line.visible
+    p.frame = 1  # the next frame draws again
+    assert p.status == "" and p.p_line.visible
