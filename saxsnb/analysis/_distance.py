@@ -112,7 +112,7 @@ from ._distance_basis import (
     sphere_distance_distribution,
     transform_matrix,
 )
-from ._distance_solve import _evaluate, _Frames
+from ._distance_solve import _evaluate, _evaluate_many, _Frames
 from ._status import STATUS_DTYPE
 
 __all__ = [
@@ -360,16 +360,18 @@ def _store(out, res, good, n_r):
 
 
 def _evaluate_at(q, fr, rows, dvals, n_r, weight, full):
-    """Evaluate frames ``rows`` at Dmax ``dvals`` (one per frame; grouped by value)."""
-    res: dict = {}
+    """Evidence (and I0, Rg when ``full`` is "stats") of frames ``rows`` at Dmax
+    ``dvals`` (one per frame), all pairs in as few batched calls as the block size allows."""
     values, inverse = np.unique(dvals, return_inverse=True)
-    for k, value in enumerate(values):  # one shared matrix per distinct Dmax
-        sel = inverse.ravel() == k
-        part = _evaluate(_shared(q, value, n_r), fr, rows[sel], weight, full=full)
-        for key, v in part.items():
-            if key not in res:
-                res[key] = np.empty((rows.size, *v.shape[1:]))
-            res[key][sel] = v
+    inverse = inverse.ravel()
+    order = np.argsort(inverse, kind="stable")
+    bounds = np.searchsorted(inverse[order], np.arange(values.size + 1))
+    items = [(_shared(q, v, n_r), rows[order[bounds[k] : bounds[k + 1]]]) for k, v in enumerate(values)]
+    part = _evaluate_many(items, fr, weight, full)
+    res = {}
+    for key, v in part.items():
+        res[key] = np.empty((rows.size, *v.shape[1:]))
+        res[key][order] = v
     return res
 
 
@@ -389,10 +391,9 @@ def _scan_dmax(q, fr, cand, n_r, weight):
     rows = np.arange(F)
     nc = cand.size
     coarse = {key: np.empty((F, nc)) for key in ("evidence", "i0", "rg", "i0_sigma", "rg_sigma")}
-    for k, value in enumerate(cand):
-        part = _evaluate(_shared(q, value, n_r), fr, rows, weight, full="stats")
-        for key in coarse:
-            coarse[key][:, k] = part[key]
+    part = _evaluate_many([(_shared(q, value, n_r), rows) for value in cand], fr, weight, "stats")
+    for key in coarse:
+        coarse[key][:] = part[key].reshape(nc, F).T
     score = np.where(np.isfinite(coarse["evidence"]), coarse["evidence"], -np.inf)
     best_c = np.argmax(score, axis=1)
     edge = (best_c == 0) | (best_c == nc - 1)

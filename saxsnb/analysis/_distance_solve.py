@@ -59,7 +59,7 @@ class _Frames:
         y = np.where(usable, I, 0.0)
         self.q, self.w, self.y = q, w, y
         self.wy = w * y
-        self.yy = np.einsum("fm,fm->f", self.wy, y)
+        self.yy = (self.wy * y).sum(axis=1)
         self.n = np.count_nonzero(usable, axis=1)
         self.background = background
         if background:
@@ -88,13 +88,13 @@ def _data_terms(sh, fr, rows):
     G = np.empty((len(rows), sh.K, sh.K))
     for a in range(0, len(rows), _G_BLOCK):
         G[a : a + _G_BLOCK] = (AtT[None, :, :] * w[a : a + _G_BLOCK, None, :]) @ sh.At
-    trace = np.einsum("fm,m->f", w, sh.rownorm2)
+    trace = (w * sh.rownorm2).sum(axis=1)
     if fr.background:
         sw = w.sum(axis=1)
         u = (w[:, None, :] @ sh.At)[:, 0]
         G -= u[:, :, None] * u[:, None, :] / sw[:, None, None]
         v = (w[:, None, :] @ sh.A)[:, 0]
-        trace = trace - np.einsum("fk,fk->f", v, v) / sw
+        trace = trace - (v * v).sum(axis=1) / sw
     return G, trace
 
 
@@ -148,9 +148,11 @@ def _choose_weight(s, cc2, yy, n, known_sigma):
 
 
 def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
-    """Solve the frames ``rows`` at one Dmax, in blocks of frames; evidence and weight
-    only unless ``full``."""
+    """Solve the frames ``rows`` at one Dmax, in blocks of frames: the full solution when
+    ``full`` is True; I0, Rg and their variances when "stats"; else evidence and weight."""
     rows = np.asarray(rows)
+    if full is not True:
+        return _evaluate_many([(sh, rows)], fr, weight, full)
     parts = [
         _evaluate_block(sh, fr, rows[a : a + _CHUNK], weight, full, nonnegative)
         for a in range(0, rows.size, _CHUNK)
@@ -158,7 +160,95 @@ def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
     return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
 
 
+def _evaluate_many(items, fr, weight, full):
+    """Evidence and weight (and I0, Rg with their variances when ``full`` is "stats") of
+    many (Dmax, frame) pairs: ``items`` is a list of (shared terms, frame rows). Pairs
+    are packed in blocks of at most ``_CHUNK`` whatever their Dmax (a short scan of a
+    few frames is a few batched calls); every number of a pair comes from its own
+    frame and Dmax by the same operations, whatever the packing. Returns arrays in the
+    order of the items' rows, concatenated."""
+    blocks, cur, size = [], [], 0
+    for sh, rows in items:
+        rows = np.asarray(rows)
+        for a in range(0, rows.size, _CHUNK):
+            part = rows[a : a + _CHUNK]
+            if size + part.size > _CHUNK and cur:
+                blocks.append(cur)
+                cur, size = [], 0
+            cur.append((sh, part))
+            size += part.size
+    if cur:
+        blocks.append(cur)
+    parts = [_stats_block(block, fr, weight, full) for block in blocks]
+    return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
+
+
+def _stats_block(items, fr, weight, full):
+    Gs, c, b, where, m2, li_m2, h, rows_all = [], [], [], [], [], [], [], []
+    offset = 0
+    for sh, rows in items:
+        groups, wh = np.unique(fr.group[rows], return_inverse=True)
+        wh = wh.ravel()
+        G, trace = _data_terms(sh, fr, fr.rep[groups])  # of the weight shapes (scale 1)
+        c_shape = trace / sh.trace_omega
+        Gs.append(G / c_shape[:, None, None])
+        ci = c_shape[wh] * fr.scale[rows]
+        c.append(ci)
+        b.append(_rhs(sh, fr, rows) / np.sqrt(ci)[:, None])
+        where.append(wh + offset)
+        offset += groups.size
+        m2.append(np.broadcast_to(sh.m2, (rows.size, sh.K)))
+        li_m2.append(np.broadcast_to(sh.li_m2, (rows.size, sh.K)))
+        h.append(np.full(rows.size, sh.h))
+        rows_all.append(rows)
+    sh0 = items[0][0]  # Li, its sums and the trace of the prior depend on n_r only
+    s, Q = np.linalg.eigh(np.concatenate(Gs))
+    s = np.maximum(s, 0.0)
+    where = np.concatenate(where)
+    c, b, rows = np.concatenate(c), np.concatenate(b), np.concatenate(rows_all)
+    sf, Qf = s[where], Q[where]
+    cc = (b[:, None, :] @ Qf)[:, 0, :]
+    cc2 = cc * cc
+    yy, n = fr.yy[rows], fr.n[rows].astype(float)
+    if weight is None:
+        lam, ev = _choose_weight(sf, cc2, yy, n, fr.known_sigma)
+    else:
+        lam = np.full(rows.size, float(weight))
+        ev = _log_evidence(sf, cc2, yy, n, lam, fr.known_sigma)
+    out = {"evidence": ev, "weight": lam}
+    if not full:
+        return out
+    den = sf + lam[:, None]
+    z = cc / den
+    u = (Qf @ z[:, :, None])[:, :, 0]
+    p_in = (u[:, None, :] @ sh0.Li)[:, 0] / np.sqrt(c)[:, None]
+    n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
+    dof = np.maximum(n - n_eff, 1.0)
+    chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    noise = np.ones(rows.size) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
+    tot = p_in.sum(axis=1)
+    mom = (p_in * np.concatenate(m2)).sum(axis=1)
+    h = np.concatenate(h)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
+        g1 = sh0.li_one @ Qf  # (Li 1)^T Q, (F, K)
+        g2 = (np.concatenate(li_m2)[:, None, :] @ Qf)[:, 0]
+        v_one = np.sum(g1 * g1 / den, axis=1) / c
+        gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
+        v_rg2 = np.sum(gr * gr / den, axis=1) / c
+        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
+        rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
+    out.update(
+        i0=4 * np.pi * h * tot,
+        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
+        rg=rg,
+        rg_sigma=rg_sigma,
+    )
+    return out
+
+
 def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
+    """The full solution of the frames ``rows`` at one Dmax."""
     groups, where = np.unique(fr.group[rows], return_inverse=True)
     where = where.ravel()
     rep_rows = fr.rep[groups]
@@ -180,8 +270,6 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         lam = np.full(len(rows), float(weight))
         ev = _log_evidence(sf, cc2, yy, n, lam, fr.known_sigma)
     out = {"evidence": ev, "weight": lam}
-    if not full:
-        return out
     den = sf + lam[:, None]
     z = cc / den
     u = (Qf @ z[:, :, None])[:, :, 0]
@@ -189,35 +277,32 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
     n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
     dof = np.maximum(n - n_eff, 1.0)
     cov = None
-    if full == "stats":  # I0, Rg and their posterior variances only (the Dmax scan)
-        chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    if nonnegative:
+        p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
+        n_eff = n_eff + (1.0 if fr.background else 0.0)
+        dof = np.maximum(n - n_eff, 1.0)
+        var = np.einsum("fkk->fk", cov)
     else:
-        if nonnegative:
-            p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
-            n_eff = n_eff + (1.0 if fr.background else 0.0)
-            dof = np.maximum(n - n_eff, 1.0)
-            var = np.einsum("fkk->fk", cov)
-        else:
-            # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
-            B = sh.Li.T @ Qf
-            var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
-        fit = (p_in[:, None, :] @ sh.A.T)[:, 0]
-        if fr.background:
-            bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
-            fit = fit + bg[:, None]
-        else:
-            bg = np.zeros(len(rows))
-        resid = fr.y[rows] - fit
-        chi2 = np.einsum("fm,fm->f", fr.w[rows], resid * resid)
+        # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
+        B = sh.Li.T @ Qf
+        var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
+    fit = (p_in[:, None, :] @ sh.A.T)[:, 0]
+    if fr.background:
+        bg = (fr.w[rows] * (fr.y[rows] - fit)).sum(axis=1) / fr.sw[rows]
+        fit = fit + bg[:, None]
+    else:
+        bg = np.zeros(len(rows))
+    resid = fr.y[rows] - fit
+    chi2 = (fr.w[rows] * resid * resid).sum(axis=1)
     noise = np.ones(len(rows)) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
     h = sh.h
     tot = p_in.sum(axis=1)
-    mom = np.einsum("fk,k->f", p_in, sh.m2)
+    mom = (p_in * sh.m2).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
         if cov is None:
             g1 = sh.li_one @ Qf  # (Li 1)^T Q, (F, K)
-            g2 = sh.li_m2 @ Qf
+            g2 = (np.broadcast_to(sh.li_m2, (len(rows), sh.K))[:, None, :] @ Qf)[:, 0]
             v_one = np.sum(g1 * g1 / den, axis=1) / c
             gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
             v_rg2 = np.sum(gr * gr / den, axis=1) / c
@@ -233,8 +318,6 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         rg=rg,
         rg_sigma=rg_sigma,
     )
-    if full == "stats":
-        return out
     out.update(
         p_inner=p_in,
         p_var=var * noise[:, None],
