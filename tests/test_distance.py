@@ -310,12 +310,14 @@ def test_default_candidates_depend_on_grid_only():
 def _mixture(q):
     # two homogeneous spheres, radii 3 and 6 nm, equal I0 (Guinier & Fournet 1955 form
     # factor); Rg^2 of a mixture is the I0-weighted mean of the Rg^2 (common practice)
-    return 0.5 * sphere_intensity(q, 3.0) + 0.5 * sphere_intensity(q, 6.0), np.sqrt(0.6 * (0.5 * 9 + 0.5 * 36))
+    I = 0.5 * sphere_intensity(q, 3.0) + 0.5 * sphere_intensity(q, 6.0)
+    return I, np.sqrt(0.6 * (0.5 * 9 + 0.5 * 36))
 
 
 @pytest.mark.parametrize(
     ("shape", "dmax"),
-    [("sphere", None), ("sphere", 11.0), ("mixture", None), ("mixture", 13.0), ("chain", None), ("chain", 18.0)],
+    [("sphere", None), ("sphere", 11.0), ("mixture", None), ("mixture", 13.0),
+     ("chain", None), ("chain", 18.0)],
 )
 def test_rg_sigma_matches_spread_over_noise_draws(shape, dmax):
     # 100 noise draws of one curve: the standard deviation of Rg over the draws against

@@ -301,7 +301,8 @@ def distance_distribution(
             for key in ("i0", "rg"):
                 s_key = key + "_sigma"
                 out[key][good] = out[key][good] + spread[key + "_shift"]
-                out[s_key][good] = np.sqrt(np.maximum(out[s_key][good] ** 2 + spread[key + "_var_shift"], 0.0))
+                var = out[s_key][good] ** 2 + spread[key + "_var_shift"]
+                out[s_key][good] = np.sqrt(np.maximum(var, 0.0))
         else:
             out["dmax_sigma"][good] = 0.0
     out["n_points"] = n_pts
@@ -426,7 +427,8 @@ def _scan_dmax(q, fr, cand, n_r, weight):
     e_all = np.concatenate([ev_fine, score], axis=1)
     w_all = np.concatenate([w_fine, w_coarse], axis=1)
     vals = {key: np.concatenate([fine[key], coarse[key]], axis=1) for key in ("i0", "rg")}
-    sig = {key: np.concatenate([fine[key + "_sigma"], coarse[key + "_sigma"]], axis=1) for key in ("i0", "rg")}
+    sig = {key: np.concatenate([fine[key + "_sigma"], coarse[key + "_sigma"]], axis=1)
+           for key in ("i0", "rg")}
     vals["dmax"] = np.concatenate([d_fine, np.broadcast_to(cand, (F, nc))], axis=1)
     ok = np.isfinite(e_all) & (w_all > 0) & np.isfinite(vals["rg"]) & np.isfinite(vals["i0"])
     e_max = np.max(np.where(ok, e_all, -np.inf), axis=1, keepdims=True)

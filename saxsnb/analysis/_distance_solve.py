@@ -69,7 +69,8 @@ class _Frames:
         if w.shape[0] == 1:
             self.rep, self.group = np.zeros(1, dtype=int), np.zeros(1, dtype=int)
         else:
-            rows = np.ascontiguousarray(shape).view(np.dtype((np.void, shape.itemsize * shape.shape[1])))[:, 0]
+            void = np.dtype((np.void, shape.itemsize * shape.shape[1]))
+            rows = np.ascontiguousarray(shape).view(void)[:, 0]
             _, self.rep, self.group = np.unique(rows, return_index=True, return_inverse=True)
         self.group = np.asarray(self.group).ravel()
         self.shape = shape
