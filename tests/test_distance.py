@@ -132,9 +132,13 @@ def test_dumbbell_by_debye_formula():
     res = distance_distribution(Q, Y, S)
     assert (res["status"] == "ok").all()
     assert np.allclose(res["rg"], rg_true, rtol=0.01)
-    # Dmax close to d + 2R = 16 nm (the point cloud's largest distance 15.9 nm): within 7 %,
-    # estimates fall short because the last pairs are few (p ~ (Dmax - r)^3)
-    assert np.allclose(res["dmax"], d + 2 * R, rtol=0.07)
+    # Dmax close to d + 2R = 16 nm (common practice: the largest dimension); the point
+    # cloud's largest pair distance is 15.74 nm. The evidence stops where the last pairs
+    # sink into the noise: measured 15.14-15.42 nm, 3.8 % short of the cloud's largest
+    # distance, 5.4 % short of d + 2R, leaving out 0.05 % of the pairs
+    assert np.allclose(res["dmax"], d + 2 * R, rtol=0.06)
+    assert np.allclose(res["dmax"], dist.max(), rtol=0.045)
+    assert np.all([(dist > v).mean() < 2e-3 for v in res["dmax"]])
     for p, r in zip(res["p"], res["r"]):
         # bimodal: a maximum near 2 R-ish (within a sphere) and one near d, with a dip
         inner = p[(r > 1.5) & (r < 5.5)].max()
@@ -242,13 +246,12 @@ def test_batch_equals_loop():
         for f in range(6):
             one = distance_distribution(Q, I[f], S[f], **kw)
             for key, v in batch.items():
-                if v.dtype.kind == "U":
-                    assert one[key][0] == v[f], (key, f)
-                elif key == "dmax_score":  # candidates far off (score < -100) lose digits to rounding
-                    near = v[f] > -100
-                    assert np.allclose(one[key][0][near], v[f][near], rtol=1e-6, atol=1e-6), (key, f)
-                else:
-                    assert np.allclose(one[key][0], v[f], rtol=1e-6, atol=1e-9, equal_nan=True), (key, f, kw)
+                # each frame from its own data by the same operations: identical digits
+                np.testing.assert_array_equal(one[key][0], v[f], err_msg=f"{key} frame {f} {kw}")
+        # and in any split of the series
+        parts = [distance_distribution(Q, I[a:b], S[a:b], **kw) for a, b in ((0, 1), (1, 4), (4, 6))]
+        for key, v in batch.items():
+            np.testing.assert_array_equal(np.concatenate([p[key] for p in parts]), v, err_msg=key)
 
 
 def test_bad_input_per_frame_statuses():
@@ -301,3 +304,86 @@ def test_default_candidates_depend_on_grid_only():
     c = default_dmax_candidates(Q)
     assert c[0] == pytest.approx(2 * np.pi / Q.max()) and c[-1] == pytest.approx(np.pi / Q.min())
     assert np.all(np.diff(np.log(c)) > 0)
+
+
+# ------------------------------------------------------------------ calibration of rg_sigma
+def _mixture(q):
+    # two homogeneous spheres, radii 3 and 6 nm, equal I0 (Guinier & Fournet 1955 form
+    # factor); Rg^2 of a mixture is the I0-weighted mean of the Rg^2 (common practice)
+    I = 0.5 * sphere_intensity(q, 3.0) + 0.5 * sphere_intensity(q, 6.0)
+    return I, np.sqrt(0.6 * (0.5 * 9 + 0.5 * 36))
+
+
+@pytest.mark.parametrize(
+    ("shape", "dmax"),
+    [("sphere", None), ("sphere", 11.0), ("mixture", None), ("mixture", 13.0),
+     ("chain", None), ("chain", 18.0)],
+)
+def test_rg_sigma_matches_spread_over_noise_draws(shape, dmax):
+    # 100 noise draws of one curve: the standard deviation of Rg over the draws against
+    # the median rg_sigma (a calibrated uncertainty gives a ratio near 1; 100 draws pin
+    # a standard deviation to about 7 %, so 0.8 .. 1.2 is a 3-sigma band; common practice)
+    I0, rg_true = {"sphere": (sphere_intensity(Q, R_SPHERE), np.sqrt(0.6) * R_SPHERE),
+                   "mixture": _mixture(Q), "chain": (gaussian_chain(Q, 3.0), 3.0)}[shape]
+    Y, S = noisy(I0, 0.01, 100, seed=21, floor=1e-3)
+    res = distance_distribution(Q, Y, S, dmax=dmax)
+    ok = res["status"] == "ok"
+    assert ok.mean() > 0.95
+    ratio = np.std(res["rg"][ok]) / np.median(res["rg_sigma"][ok])
+    assert 0.8 < ratio < 1.2, ratio
+    # and the mean is within a few rg_sigma of the truth (chain with automatic Dmax:
+    # biased low by the cut tail, module notes)
+    bias = (np.mean(res["rg"][ok]) - rg_true) / np.median(res["rg_sigma"][ok])
+    assert abs(bias) < (3.0 if (shape, dmax) != ("chain", None) else 4.0), bias
+
+
+@pytest.mark.xfail(strict=False, reason="compact particle with a small unfolded fraction, automatic Dmax: "
+                   "the weak tail is cut (module notes); measured spread / rg_sigma 1.85, bias -15 rg_sigma")
+def test_rg_sigma_on_a_mixed_unfolding_frame():
+    import saxsnb
+
+    Is, Ss = [], []
+    for seed in range(100):
+        s, b = saxsnb.demo.make_series("unfolding", seed=seed)
+        I, S = s.saxs.subtract(b).isel(frame=[10]).saxs.masked()
+        Is.append(I.values[0])
+        Ss.append(S.values[0])
+    truth = saxsnb.demo.truth(s)["rg_mixture_nm"][10]
+    res = distance_distribution(s.q.values, np.array(Is), np.array(Ss))
+    ratio = np.std(res["rg"]) / np.median(res["rg_sigma"])
+    bias = (np.mean(res["rg"]) - truth) / np.median(res["rg_sigma"])
+    assert 0.8 < ratio < 1.2 and abs(bias) < 3, (ratio, bias)
+
+
+def test_short_dmax_with_a_good_fit_is_flagged():
+    # two spheres of 3 and 6 nm: largest dimension 12 nm (common practice: Dmax of a
+    # sphere is 2R). Fixed 13 % short, the fit is still good (chi2 ~ 1) but Rg is biased
+    # low by several rg_sigma: the status must not be "ok"
+    I0, _ = _mixture(Q)
+    Y, S = noisy(I0, 0.01, 20, seed=5, floor=1e-3)
+    short = distance_distribution(Q, Y, S, dmax=10.44)
+    assert np.median(short["chi2_reduced"]) < 1.2
+    assert (short["status"] == "dmax_too_small").all()
+    fine = distance_distribution(Q, Y, S, dmax=12.5)
+    assert (fine["status"] == "ok").all()
+
+
+def test_bad_frames_with_automatic_dmax_and_weight():
+    # the same bad frames with nothing fixed: each gets its status, the others their numbers
+    I, S = noisy(sphere_intensity(Q, R_SPHERE), 0.01, 6, floor=1e-3)
+    I[1] = np.nan
+    I[2] = -I[2]
+    S[3, 10] = 0.0
+    I[4, 8:] = np.nan
+    res = distance_distribution(Q, I, S)
+    assert res["status"].tolist() == ["ok", "no_data", "negative_i0", "zero_sigma", "too_few_points", "ok"]
+    assert np.isfinite(res["rg"][[0, 5]]).all() and np.isnan(res["rg"][1:5]).all()
+    assert np.allclose(res["rg"][[0, 5]], np.sqrt(0.6) * R_SPHERE, rtol=0.01)  # Guinier & Fournet (1955)
+    # a q range without two positive q values leaves no Dmax to scan: a clear error
+    with pytest.raises(SaxsInputError) as err:
+        distance_distribution(Q, I, S, q_range=(5.0, 6.0))
+    assert err.value.parameter == "q_range"
+    # too few Shannon channels with the automatic Dmax (q_max 0.4 1/nm, Dmax ~ 10 nm)
+    few = distance_distribution(Q, I, S, q_range=(None, 0.4))
+    assert few["status"][0] in ("too_few_shannon_channels", "dmax_at_scan_edge")
+    assert few["shannon_channels"][0] < 3

@@ -81,8 +81,11 @@ def test_brush_sets_q_range(series):
     xr.testing.assert_identical(
         p.result, series.isel(frame=[0]).saxs.distance_distribution(5.0, q_range=p.q_range)
     )
+    # residuals of the fitted points only
+    assert np.all((p.residuals.x >= 0.2) & (p.residuals.x <= 2.0))
     p.range_button.click()
     assert p.q_range is None and p.selector.selected is None
+    assert p.residuals.x.size == series.sizes["q"]
 
 
 def test_apply_to_all_and_code(series):
@@ -165,3 +168,14 @@ def test_weight_slider_follows_the_scale_of_the_weight(series):
     assert p.weight_slider.value == pytest.approx(w * 1e9, rel=1e-9)
     direct = bright.isel(frame=[0]).saxs.distance_distribution(6.0, weight=w * 1e9)
     xr.testing.assert_identical(p.result, direct)
+
+
+def test_all_nan_frame_shows_status(series):
+    bad = series.copy(deep=True)
+    bad["intensity"][2] = np.nan
+    p = DistancePanel(bad, dmax=6.0)
+    p.frame = 2
+    assert p.status.endswith("no_data") and p.result.status.values[0] == "no_data"
+    assert not p.p_line.visible
+    p.frame = 1  # the next frame draws again
+    assert p.status == "" and p.p_line.visible

@@ -14,7 +14,7 @@ from ..errors import SaxsInputError
 __all__ = ["transform_matrix", "forward_transform", "sphere_distance_distribution", "default_dmax_candidates"]
 
 
-_CACHE_SIZE = 64
+_CACHE_SIZE = 128  # per-Dmax terms, about 0.45 MB each at 500 q points
 _CACHE: OrderedDict = OrderedDict()
 
 
@@ -163,7 +163,7 @@ def _second_differences(K: int):
 
 class _Shared:
     """What one Dmax needs for any frame on the q grid: the matrix, its version in the
-    prior's metric, the product table, the functionals of I0 and the r^2 moment."""
+    prior's metric, the functionals of I0 and the r^2 moment."""
 
     def __init__(self, q, dmax, n_r):
         A, r = transform_matrix(q, dmax, n_r)
@@ -178,20 +178,11 @@ class _Shared:
         self.trace_omega = float(np.trace(omega))
         self.At = A @ Li.T  # A p = At u with u = Lc^T p
         self.rownorm2 = np.einsum("mk,mk->m", A, A)  # trace(A^T W A) = w @ rownorm2
-        self.lower = np.tril_indices(K)
-        self._table = None
         one = np.ones(K)
         m2 = r[1:-1] ** 2 + self.h**2 / 6.0
         self.li_one = Li @ one  # functionals in the u metric: g^T p = (Li g)^T u
         self.li_m2 = Li @ m2
         self.m2 = m2
-
-    @property
-    def table(self):
-        """(n_q, K^2): products At[m, i] At[m, j] (built when first needed)."""
-        if self._table is None:
-            self._table = (self.At[:, :, None] * self.At[:, None, :]).reshape(self.At.shape[0], -1)
-        return self._table
 
 
 def _shared(q, dmax, n_r):

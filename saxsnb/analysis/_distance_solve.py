@@ -28,9 +28,6 @@ __all__ = []
 _CHUNK = 512  # frames per block in the weight search (memory ~ chunk * n_weights * n_r)
 
 
-_TABLE_MIN_FRAMES = 16  # at or above: data terms through the shared product table
-
-
 _WEIGHTS_COARSE = 10.0 ** np.arange(-12.0, 2.5)  # weight search: one per decade, then
 
 
@@ -42,50 +39,70 @@ _FLOOR = 1e-13  # weights below this times the largest eigenvalue are not resolv
 
 # --------------------------------------------------------------------- the engine
 class _Frames:
-    """Weighted data of the frames (zero weight on unused points)."""
+    """Weighted data of the frames (zero weight on unused points).
+
+    The weights of a frame are ``scale * shape`` with ``scale`` its largest weight and
+    ``shape`` rounded to 10 significant digits in log: frames with the same shape share
+    one eigendecomposition, and every number of a frame depends on its own data only
+    (the same to the last digit whether it is solved alone, in a batch or in any dask
+    chunk).
+    """
 
     def __init__(self, q, I, S, usable, background):
         self.known_sigma = S is not None
         w = np.where(usable, 1.0 / np.where(usable, S if S is not None else 1.0, 1.0) ** 2, 0.0)
+        scale = w.max(axis=1)
+        with np.errstate(divide="ignore"):
+            key = np.where(w > 0, np.round(np.log(w / np.where(scale > 0, scale, 1.0)[:, None]), 10), -np.inf)
+        shape = np.exp(key)  # exactly zero on unused points
+        w = scale[:, None] * shape
         y = np.where(usable, I, 0.0)
         self.q, self.w, self.y = q, w, y
         self.wy = w * y
-        self.yy = np.einsum("fm,fm->f", self.wy, y)
+        self.yy = (self.wy * y).sum(axis=1)
         self.n = np.count_nonzero(usable, axis=1)
         self.background = background
         if background:
             self.sw = w.sum(axis=1)
             self.swy = self.wy.sum(axis=1)
             self.yy = self.yy - self.swy**2 / self.sw
-        # frames with the same weights up to a factor share one eigendecomposition
-        scale = w.max(axis=1, keepdims=True)
-        with np.errstate(divide="ignore"):
-            key = np.where(w > 0, np.round(np.log(w / np.where(scale > 0, scale, 1.0)), 10), -1e300)
-        _, self.rep, self.group = np.unique(key, axis=0, return_index=True, return_inverse=True)
-        self.group = self.group.ravel()
-        self.scale = scale[:, 0]
+        if w.shape[0] == 1:
+            self.rep, self.group = np.zeros(1, dtype=int), np.zeros(1, dtype=int)
+        else:
+            void = np.dtype((np.void, shape.itemsize * shape.shape[1]))
+            rows = np.ascontiguousarray(shape).view(void)[:, 0]
+            _, self.rep, self.group = np.unique(rows, return_index=True, return_inverse=True)
+        self.group = np.asarray(self.group).ravel()
+        self.shape = shape
+        self.scale = scale
+
+
+_G_BLOCK = 128  # frames per product in the data terms (memory ~ block * n_q * n_r)
 
 
 def _data_terms(sh, fr, rows):
-    """Li A^T W A Li^T (len(rows), K, K), its trace in the p metric, Li A^T W y."""
-    w = fr.w[rows]
-    K = sh.K
-    if len(rows) >= _TABLE_MIN_FRAMES:
-        G = (w @ sh.table).reshape(len(rows), K, K)
-    else:
-        G = np.einsum("mi,fm,mj->fij", sh.At, w, sh.At)
-    trace = w @ sh.rownorm2
+    """Li A^T W A Li^T (len(rows), K, K) and its trace in the p metric, for the weight
+    shapes of the frames ``rows`` (scale 1). Each matrix is its own product (a batched
+    matmul), so it does not depend on which other frames are computed with it."""
+    w = fr.shape[rows]
+    AtT = sh.At.T
+    G = np.empty((len(rows), sh.K, sh.K))
+    for a in range(0, len(rows), _G_BLOCK):
+        G[a : a + _G_BLOCK] = (AtT[None, :, :] * w[a : a + _G_BLOCK, None, :]) @ sh.At
+    trace = (w * sh.rownorm2).sum(axis=1)
     if fr.background:
-        u = w @ sh.At
-        G -= u[:, :, None] * u[:, None, :] / fr.sw[rows, None, None]
-        trace = trace - np.einsum("fk,fk->f", w @ sh.A, w @ sh.A) / fr.sw[rows]
+        sw = w.sum(axis=1)
+        u = (w[:, None, :] @ sh.At)[:, 0]
+        G -= u[:, :, None] * u[:, None, :] / sw[:, None, None]
+        v = (w[:, None, :] @ sh.A)[:, 0]
+        trace = trace - (v * v).sum(axis=1) / sw
     return G, trace
 
 
 def _rhs(sh, fr, rows):
-    b = fr.wy[rows] @ sh.At
+    b = (fr.wy[rows][:, None, :] @ sh.At)[:, 0]
     if fr.background:
-        b = b - (fr.w[rows] @ sh.At) * (fr.swy[rows] / fr.sw[rows])[:, None]
+        b = b - (fr.w[rows][:, None, :] @ sh.At)[:, 0] * (fr.swy[rows] / fr.sw[rows])[:, None]
     return b
 
 
@@ -132,9 +149,11 @@ def _choose_weight(s, cc2, yy, n, known_sigma):
 
 
 def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
-    """Solve the frames ``rows`` at one Dmax, in blocks of frames; evidence and weight
-    only unless ``full``."""
+    """Solve the frames ``rows`` at one Dmax, in blocks of frames: the full solution when
+    ``full`` is True; I0, Rg and their variances when "stats"; else evidence and weight."""
     rows = np.asarray(rows)
+    if full is not True:
+        return _evaluate_many([(sh, rows)], fr, weight, full)
     parts = [
         _evaluate_block(sh, fr, rows[a : a + _CHUNK], weight, full, nonnegative)
         for a in range(0, rows.size, _CHUNK)
@@ -142,17 +161,104 @@ def _evaluate(sh, fr, rows, weight, *, full, nonnegative=False):
     return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
 
 
+def _evaluate_many(items, fr, weight, full):
+    """Evidence and weight (and I0, Rg with their variances when ``full`` is "stats") of
+    many (Dmax, frame) pairs: ``items`` is a list of (shared terms, frame rows). Pairs
+    are packed in blocks of at most ``_CHUNK`` whatever their Dmax (a short scan of a
+    few frames is a few batched calls); every number of a pair comes from its own
+    frame and Dmax by the same operations, whatever the packing. Returns arrays in the
+    order of the items' rows, concatenated."""
+    blocks, cur, size = [], [], 0
+    for sh, rows in items:
+        rows = np.asarray(rows)
+        for a in range(0, rows.size, _CHUNK):
+            part = rows[a : a + _CHUNK]
+            if size + part.size > _CHUNK and cur:
+                blocks.append(cur)
+                cur, size = [], 0
+            cur.append((sh, part))
+            size += part.size
+    if cur:
+        blocks.append(cur)
+    parts = [_stats_block(block, fr, weight, full) for block in blocks]
+    return {key: np.concatenate([part[key] for part in parts]) for key in parts[0]}
+
+
+def _stats_block(items, fr, weight, full):
+    Gs, c, b, where, m2, li_m2, h, rows_all = [], [], [], [], [], [], [], []
+    offset = 0
+    for sh, rows in items:
+        groups, wh = np.unique(fr.group[rows], return_inverse=True)
+        wh = wh.ravel()
+        G, trace = _data_terms(sh, fr, fr.rep[groups])  # of the weight shapes (scale 1)
+        c_shape = trace / sh.trace_omega
+        Gs.append(G / c_shape[:, None, None])
+        ci = c_shape[wh] * fr.scale[rows]
+        c.append(ci)
+        b.append(_rhs(sh, fr, rows) / np.sqrt(ci)[:, None])
+        where.append(wh + offset)
+        offset += groups.size
+        m2.append(np.broadcast_to(sh.m2, (rows.size, sh.K)))
+        li_m2.append(np.broadcast_to(sh.li_m2, (rows.size, sh.K)))
+        h.append(np.full(rows.size, sh.h))
+        rows_all.append(rows)
+    sh0 = items[0][0]  # Li, its sums and the trace of the prior depend on n_r only
+    s, Q = np.linalg.eigh(np.concatenate(Gs))
+    s = np.maximum(s, 0.0)
+    where = np.concatenate(where)
+    c, b, rows = np.concatenate(c), np.concatenate(b), np.concatenate(rows_all)
+    sf, Qf = s[where], Q[where]
+    cc = (b[:, None, :] @ Qf)[:, 0, :]
+    cc2 = cc * cc
+    yy, n = fr.yy[rows], fr.n[rows].astype(float)
+    if weight is None:
+        lam, ev = _choose_weight(sf, cc2, yy, n, fr.known_sigma)
+    else:
+        lam = np.full(rows.size, float(weight))
+        ev = _log_evidence(sf, cc2, yy, n, lam, fr.known_sigma)
+    out = {"evidence": ev, "weight": lam}
+    if not full:
+        return out
+    den = sf + lam[:, None]
+    z = cc / den
+    u = (Qf @ z[:, :, None])[:, :, 0]
+    p_in = (u[:, None, :] @ sh0.Li)[:, 0] / np.sqrt(c)[:, None]
+    n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
+    dof = np.maximum(n - n_eff, 1.0)
+    chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    noise = np.ones(rows.size) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
+    tot = p_in.sum(axis=1)
+    mom = (p_in * np.concatenate(m2)).sum(axis=1)
+    h = np.concatenate(h)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
+        g1 = sh0.li_one @ Qf  # (Li 1)^T Q, (F, K)
+        g2 = (np.concatenate(li_m2)[:, None, :] @ Qf)[:, 0]
+        v_one = np.sum(g1 * g1 / den, axis=1) / c
+        gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
+        v_rg2 = np.sum(gr * gr / den, axis=1) / c
+        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
+        rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
+    out.update(
+        i0=4 * np.pi * h * tot,
+        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
+        rg=rg,
+        rg_sigma=rg_sigma,
+    )
+    return out
+
+
 def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
+    """The full solution of the frames ``rows`` at one Dmax."""
     groups, where = np.unique(fr.group[rows], return_inverse=True)
     where = where.ravel()
     rep_rows = fr.rep[groups]
-    G, trace = _data_terms(sh, fr, rep_rows)
-    c_rep = trace / sh.trace_omega
-    Gs = G / c_rep[:, None, None]
+    G, trace = _data_terms(sh, fr, rep_rows)  # of the weight shapes (scale 1)
+    c_shape = trace / sh.trace_omega
+    Gs = G / c_shape[:, None, None]
     s, Q = np.linalg.eigh(Gs)
     s = np.maximum(s, 0.0)
-    # weights in proportion to the representative's: c in the same proportion
-    c = c_rep[where] * fr.scale[rows] / fr.scale[rep_rows][where]
+    c = c_shape[where] * fr.scale[rows]
     b = _rhs(sh, fr, rows) / np.sqrt(c)[:, None]
     sf = s[where]
     Qf = Q[where] if len(groups) > 1 else np.broadcast_to(Q[0], (len(rows), sh.K, sh.K))
@@ -165,44 +271,39 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         lam = np.full(len(rows), float(weight))
         ev = _log_evidence(sf, cc2, yy, n, lam, fr.known_sigma)
     out = {"evidence": ev, "weight": lam}
-    if not full:
-        return out
     den = sf + lam[:, None]
     z = cc / den
     u = (Qf @ z[:, :, None])[:, :, 0]
-    p_in = (u @ sh.Li) / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
+    p_in = (u[:, None, :] @ sh.Li)[:, 0] / np.sqrt(c)[:, None]  # p = Li^T u / sqrt(c)
     n_eff = np.sum(sf / den, axis=1) + (1.0 if fr.background else 0.0)
     dof = np.maximum(n - n_eff, 1.0)
     cov = None
-    if full == "stats":  # I0, Rg and their posterior variances only (the Dmax scan)
-        chi2 = yy - np.sum(cc2 * (sf + 2 * lam[:, None]) / den**2, axis=1)
+    if nonnegative:
+        p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
+        n_eff = n_eff + (1.0 if fr.background else 0.0)
+        dof = np.maximum(n - n_eff, 1.0)
+        var = np.einsum("fkk->fk", cov)
     else:
-        if nonnegative:
-            p_in, cov, n_eff = _nonnegative(sh, Gs[where], c, b, lam, p_in)
-            n_eff = n_eff + (1.0 if fr.background else 0.0)
-            dof = np.maximum(n - n_eff, 1.0)
-            var = np.einsum("fkk->fk", cov)
-        else:
-            # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
-            B = sh.Li.T @ Qf
-            var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
-        fit = p_in @ sh.A.T
-        if fr.background:
-            bg = np.einsum("fm,fm->f", fr.w[rows], fr.y[rows] - fit) / fr.sw[rows]
-            fit = fit + bg[:, None]
-        else:
-            bg = np.zeros(len(rows))
-        resid = fr.y[rows] - fit
-        chi2 = np.einsum("fm,fm->f", fr.w[rows], resid * resid)
+        # posterior covariance of p: Li^T Q diag(1/den) Q^T Li / c
+        B = sh.Li.T @ Qf
+        var = ((B * B) @ (1.0 / den)[:, :, None])[:, :, 0] / c[:, None]
+    fit = (p_in[:, None, :] @ sh.A.T)[:, 0]
+    if fr.background:
+        bg = (fr.w[rows] * (fr.y[rows] - fit)).sum(axis=1) / fr.sw[rows]
+        fit = fit + bg[:, None]
+    else:
+        bg = np.zeros(len(rows))
+    resid = fr.y[rows] - fit
+    chi2 = (fr.w[rows] * resid * resid).sum(axis=1)
     noise = np.ones(len(rows)) if fr.known_sigma else np.maximum(chi2, 0.0) / dof
     h = sh.h
     tot = p_in.sum(axis=1)
-    mom = p_in @ sh.m2
+    mom = (p_in * sh.m2).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         rg2 = np.where(tot > 0, mom / (2 * tot), np.nan)
         if cov is None:
             g1 = sh.li_one @ Qf  # (Li 1)^T Q, (F, K)
-            g2 = sh.li_m2 @ Qf
+            g2 = (np.broadcast_to(sh.li_m2, (len(rows), sh.K))[:, None, :] @ Qf)[:, 0]
             v_one = np.sum(g1 * g1 / den, axis=1) / c
             gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
             v_rg2 = np.sum(gr * gr / den, axis=1) / c
@@ -218,8 +319,6 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
         rg=rg,
         rg_sigma=rg_sigma,
     )
-    if full == "stats":
-        return out
     out.update(
         p_inner=p_in,
         p_var=var * noise[:, None],
@@ -242,7 +341,7 @@ def _nonnegative(sh, Gs, c, b, lam, p0, max_iter=30):
     F, K = p0.shape
     eye = np.eye(K)
     H = np.einsum("ij,fjk,lk->fil", sh.Lc, Gs + lam[:, None, None] * eye, sh.Lc)
-    rhs = (b @ sh.Lc.T) / np.sqrt(c)[:, None]
+    rhs = (b[:, None, :] @ sh.Lc.T)[:, 0] / np.sqrt(c)[:, None]
     active = p0 < 0
     done = np.zeros(F, dtype=bool)
     p = p0.copy()

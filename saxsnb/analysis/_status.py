@@ -122,7 +122,8 @@ STATUS: dict[str, Status] = {
         "extend q_max or read only I0 and Rg",
     ),
     "dmax_too_small": Status(
-        "fixed Dmax: the fit misses the data and a 1.5 times longer Dmax is decisively more probable",
+        "fixed Dmax: the fit misses the data or p(r) is still above zero at Dmax, and a 1.5 times longer "
+        "Dmax is decisively more probable",
         "dmax",
         "Dmax is too short for these data: the particle is larger; increase Dmax",
     ),

@@ -344,6 +344,8 @@ class DistancePanel(PanelBase):
         self._set_line(self.fit_line, fx, fy, positive=True)
         with np.errstate(invalid="ignore", divide="ignore"):
             res = (I - fit) / S
+        if self.q_range is not None:  # residuals of the fitted points only
+            res = np.where((self.q >= self.q_range[0]) & (self.q <= self.q_range[1]), res, np.nan)
         rx, ry, _ = finite_points(self.q, res)
         self._set_points(self.residuals, rx, ry)
         if ry.size:

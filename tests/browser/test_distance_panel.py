@@ -1,5 +1,6 @@
-"""The p(r) panel alone in Voila, driven in headless Chromium: it renders, and a fixed
-Dmax typed into its control changes the plotted p(r)."""
+"""The p(r) panel alone in Voila, driven in headless Chromium: it renders, a fixed Dmax
+typed into its control changes the plotted p(r), and so does a q range dragged on the
+I(q) plot."""
 
 import re
 
@@ -49,4 +50,14 @@ def test_distance_panel_renders_and_dmax_changes_p(servers, probe, tmp_path):
     shown = page.locator(".widget-html", has_text=re.compile(r"Dmax = 8 \+- .*\(fixed\)")).first
     expect(shown).to_be_visible()
     probe.screenshot("distance-fixed")
+    # the q range as a brush on the I(q) plot: drag across the middle of the curve
+    qfig = figure(page, "body", re.compile(r"^Distance distribution p\(r\): "))
+    expect(qfig).to_have_count(1)
+    sig2 = paths_signature(pfig)
+    fit_sig = paths_signature(qfig)
+    probe.drag(qfig.locator("rect.plotarea_events"), 0.15, 0.75)
+    wait_signature_changes(probe, pfig, sig2, "q range dragged on the I(q) plot")
+    wait_signature_changes(probe, qfig, fit_sig, "fit redrawn over the dragged q range")
+    expect(shown).to_be_visible()  # Dmax stays as typed
+    probe.screenshot("distance-brushed")
     probe.assert_clean()
