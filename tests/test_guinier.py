@@ -74,7 +74,10 @@ def test_search_alone_and_fit_agree(rng):
     # the same range given by hand gives the same numbers
     ranges = np.stack([q[found["start"]], q[found["stop"] - 1]], axis=1)
     fixed = guinier(q, I, s, q_range=ranges)
-    np.testing.assert_allclose(fixed["rg"], r["rg"], rtol=1e-12)
+    # the automatic result is the average over the acceptable windows (module notes):
+    # the chosen window's own line lies within the reported sigma of it
+    assert (np.abs(fixed["rg"] - r["rg"]) <= r["rg_sigma"]).all()
+    np.testing.assert_allclose(fixed["qrg_max"], r["qrg_max"], rtol=1e-12)
 
 
 def test_batch_equals_loop(rng):
@@ -102,7 +105,8 @@ def test_long_cylinder_cross_section():
     auto = guinier(qa, 1e4 * cylinder(qa, R, 1000.0), np.full(300, 1e-3), shape="rod")
     assert auto["status"][0] == "ok"
     # docs/REFERENCES.md (from memory): cylinder cross-section Rc^2 = R^2 / 2
-    assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.01)
+    # (the automatic result averages acceptable windows: within the 1.4 % bias above)
+    assert auto["rc"][0] == pytest.approx(np.sqrt(0.5) * R, rel=0.02)
 
 
 def test_flat_disc_thickness():

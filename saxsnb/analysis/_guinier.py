@@ -50,6 +50,17 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis._linear.W
    noise bias (c^2 - sigma_c^2, floored at 0). With noisy data this picks long windows
    (the variance dominates), with precise data shorter ones (the curvature bias
    dominates). The frame fails with a status when no window is acceptable.
+4. the reported line (slope, intercept, hence Rg, I0 and their sigmas) is the average
+   over all acceptable windows of the frame, weighted by exp(-(m - m_best) /
+   (5 m_best)) with m a window's relative mean-squared error from step 3, and its
+   variance is the weighted mean of each window's variance plus its squared offset
+   from the average (model averaging, Buckland, Burnham & Augustin 1997, Biometrics
+   53, 603): the sigma then includes the range-choice variance. ``q_min``, ``q_max``,
+   ``n_points``, ``start``, ``stop`` and ``qrg_max`` describe the best window. Each
+   window's variance is scaled by the reduced chi-square of its quadratic fit when
+   that exceeds 1. Measured (tests/validation, 120-200 noise draws, nine shapes,
+   0.1-10 % noise at I(0)): spread of Rg over draws / median reported sigma
+   0.86-1.16 (was 1.4-2.9 with the single best window), for I0 0.94-1.04.
 
 Measured on noisy Schulz-sphere curves (tests/test_guinier.py): the median error of Rg
 against the apparent Rg of Kotlarchyk & Chen (1983) is below 1 % at 1 % noise.
@@ -180,7 +191,9 @@ def guinier(
         size_sigma = k * fit["slope_sigma"] / (2.0 * size)
         i0 = np.exp(fit["intercept"])
         i0_sigma = i0 * fit["intercept_sigma"]
-        qr = fit["q_max"] * size
+        # q_max R of the chosen window, with the window's own size (the automatic range
+        # reports the average over acceptable windows, each within the limit)
+        qr = fit["q_max"] * np.sqrt(-k * fit.get("slope_window", fit["slope"]))
     if q_range is not None:
         # frames without a finite point in range: no data at all, or a range outside them
         empty = fit["n_finite"] == 0
