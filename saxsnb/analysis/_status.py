@@ -115,6 +115,12 @@ STATUS: dict[str, Status] = {
         "the curve does not yet fall as q^-4 on this range: the Porod constant "
         "and the quantities built on it do not apply here",
     ),
+    "no_porod_signal": Status(
+        "porod(): the Porod constant is below 2 sigma or the exponent undetermined: numbers kept",
+        "q_range",
+        "no falling power law above the noise on this range (a flat curve or background only): "
+        "no Porod constant or exponent to read",
+    ),
     "too_few_shannon_channels": Status(
         "q_max Dmax / pi below min_channels (default 3): numbers kept",
         "q_range",
