@@ -204,3 +204,21 @@ def test_nasty_frames_give_a_status_and_no_warning(kind):
     kratky_summary(q, I, rg=2.0, i0=1.0)
     r = invariant(q, I, S, rg=np.array([2.0]), i0=np.array([5.0]), porod_constant=np.array([1.0]))
     assert "status" in r
+
+
+def test_invariant_without_guinier_when_low_q_part_is_tiny():
+    # sphere R = 1 (Guinier & Fournet 1955) measured from q R = 0.5: the part below is
+    # about 4e-3 of the invariant 3 pi / 2 (docs/REFERENCES.md, der), so it is estimated
+    from saxsnb.analysis import invariant
+
+    q = np.linspace(0.5, 400.0, 200001)
+    x = q
+    I = (3 * (np.sin(x) - x * np.cos(x)) / x**3) ** 2
+    r = invariant(q, I, rg=np.nan, i0=np.nan, porod_constant=4.5)
+    assert r["status"][0] == "low_q_estimated"
+    assert r["invariant"][0] == pytest.approx(1.5 * np.pi, rel=2e-3)
+    assert r["invariant_low_sigma"][0] == pytest.approx(r["invariant_low"][0])
+    # from q R = 2 the low-q part is a large share: still refused
+    m = q >= 2.0
+    r = invariant(q[m], I[m], rg=np.nan, i0=np.nan, porod_constant=4.5)
+    assert r["status"][0] == "no_guinier"

@@ -101,6 +101,13 @@ STATUS: dict[str, Status] = {
     "no_guinier": Status(
         "no Guinier result for the low-q extrapolation", "guinier", "no Guinier region at low q"
     ),
+    "low_q_estimated": Status(
+        "no Guinier result; the low-q part, estimated flat at I(q_min) with 100 % "
+        "uncertainty, is at most 1 % of the invariant: numbers kept",
+        "guinier",
+        "no Guinier fit: the part of the invariant below q_min is estimated (it is at most "
+        "1 % of the total, with its full size as uncertainty)",
+    ),
     "no_porod_constant": Status(
         "no Porod constant for the high-q tail", "porod", "no Porod region at high q"
     ),
