@@ -135,7 +135,10 @@ def guinier(
     (str), ``i0``, ``i0_sigma`` (the extrapolated intercept exp(a): I(0) for compact,
     lim q I for rod, lim q^2 I for sheet), ``slope``, ``slope_sigma``, ``intercept``,
     ``intercept_sigma``, ``slope_intercept_cov``, ``qrg_max`` (q_max times the size),
-    ``start``, ``stop`` (column indices); and by shape: compact ``rg``, ``rg_sigma``
+    ``start``, ``stop`` (column indices), ``sigma_scale`` (the factor applied to the
+    sigmas: sqrt(chi2_reduced) for a fixed range whose chi2_reduced exceeds
+    1 + 3 sqrt(2 / dof), else 1; automatic range: the best window's
+    sqrt(max(chi2_reduced of its quadratic fit, 1))); and by shape: compact ``rg``, ``rg_sigma``
     (nm); rod ``rc``, ``rc_sigma``, ``radius``, ``radius_sigma`` (solid circular
     cross-section, sqrt(2) Rc), ``length``, ``length_sigma`` (NaN without ``rg``);
     sheet ``rt``, ``rt_sigma``, ``thickness``, ``thickness_sigma`` (sqrt(12) Rt).
@@ -186,6 +189,23 @@ def guinier(
         status = np.full(F, "ok", dtype=_STATUS_DTYPE)
         fit = _fit_windows(q, I, S, start, stop, kind)
     n = fit["n_points"]
+    # fixed range with sigma: the covariance is scaled by chi2_reduced when the line
+    # misses the data clearly (chi2_reduced > 1 + 3 sqrt(2 / dof); common practice);
+    # the automatic range scales each window by its quadratic fit's chi2_reduced > 1
+    sigma_scale = np.ones(F)
+    if q_range is not None and S is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dof = np.maximum(n - 2.0, 1.0)
+            c2 = fit["chi2_reduced"]
+            far = c2 > 1.0 + 3.0 * np.sqrt(2.0 / dof)
+            sigma_scale = np.where(far, np.sqrt(np.where(far, c2, 1.0)), 1.0)
+        if far.any():
+            fit = dict(fit)
+            fit["slope_sigma"] = fit["slope_sigma"] * sigma_scale
+            fit["intercept_sigma"] = fit["intercept_sigma"] * sigma_scale
+            fit["slope_intercept_cov"] = fit["slope_intercept_cov"] * sigma_scale**2
+    elif q_range is None:
+        sigma_scale = fit.get("sigma_scale", sigma_scale)
     with np.errstate(invalid="ignore", divide="ignore"):
         size = np.sqrt(-k * fit["slope"])
         size_sigma = k * fit["slope_sigma"] / (2.0 * size)
@@ -235,6 +255,7 @@ def guinier(
         "intercept_sigma": keep(fit["intercept_sigma"]),
         "slope_intercept_cov": keep(fit["slope_intercept_cov"]),
         "qrg_max": keep(qr),
+        "sigma_scale": keep(sigma_scale),
         "start": np.where(good, start, -1).astype(np.int64),
         "stop": np.where(good, stop, -1).astype(np.int64),
     }

@@ -247,6 +247,7 @@ def _search_chunk(
         bs, be = np.unravel_index(best, (s2.shape[1], E))
         avg = _window_average(accept, key, slope, st["slope_var"] * var_scale, st["intercept"],
                               st["intercept_var"] * var_scale, st["slope_intercept_cov"] * var_scale)
+        avg["sigma_scale"] = np.sqrt(var_scale.reshape(len(r), -1)[np.arange(len(r)), best])
         return ok_, s2[np.arange(len(r)), bs], stops[r, be], (geom, negative, inside, flat, st["c"]), avg
 
     # stage 1: windows from the first usable point (compact) or from all starts (rod,
@@ -303,6 +304,7 @@ def _search_chunk(
         fit[key_] = np.where(ok, np.sqrt(avg[key_[:-6] + "_var"]), np.nan)
     fit["slope_intercept_cov"] = np.where(ok, avg["cov"], np.nan)
     fit["n_windows"] = np.where(ok, avg["n_windows"], 0)
+    fit["sigma_scale"] = np.where(ok, avg["sigma_scale"], np.nan)
     fit["q_min"] = np.where(ok, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
     fit["q_max"] = np.where(ok, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
     return start, stop, status, fit

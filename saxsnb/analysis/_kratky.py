@@ -190,7 +190,8 @@ def kratky_summary(
     # curve (a Gaussian chain) with noise otherwise shows a local maximum
     with np.errstate(invalid="ignore", divide="ignore"):
         n_fit = m.sum(-1)
-        resid = np.where(m, Kz - (a0[:, None] + tz * (a1[:, None] + tz * (a2[:, None] + tz * a3[:, None]))), 0.0)
+        cubic = a0[:, None] + tz * (a1[:, None] + tz * (a2[:, None] + tz * a3[:, None]))
+        resid = np.where(m, Kz - cubic, 0.0)
         s_res = np.sqrt((resid * resid).sum(-1) / np.maximum(n_fit - 4, 1))
         after = finite & (x >= (peak_x + 1.0)[:, None]) & (x <= (peak_x + 2.5)[:, None])
         n_after = after.sum(-1)
