@@ -74,3 +74,18 @@ def test_porod_status_when_region_not_reached():
     assert r["status"][0] == "porod_region_not_reached"
     # local exponent of the Debye function at q Rg 2.5..10 is 2 (1 - 1/x) / (1 - 1/x + ...) ~ 1.8 (der)
     assert 1.6 < r["exponent"][0] < 2.1
+
+
+@pytest.mark.parametrize("background", ["fit", "given"])
+def test_porod_exponent_sigma_is_calibrated(background):
+    # Schulz spheres (z = 20) fall as q^-4 beyond the oscillations (Porod 1951); target
+    # (issue 15): spread over >= 100 draws / median sigma within ~20 %
+    q = np.linspace(2.0, 6.0, 200)
+    I, _ = t.schulz_spheres(q, 5.0, 20)
+    B = 2e-3 * np.interp(2.0, q, I)
+    rng = np.random.default_rng(9)
+    S = 0.01 * (I + B)[None].repeat(150, 0)
+    Iobs = (I + B)[None] + S * rng.standard_normal(S.shape)
+    r = porod(q, Iobs, S, q_range=(2.0, 6.0), background="fit" if background == "fit" else B)
+    ratio = np.nanstd(r["exponent"]) / np.nanmedian(r["exponent_sigma"])
+    assert 0.8 <= ratio <= 1.25
