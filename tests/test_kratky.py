@@ -98,3 +98,27 @@ def test_accessor_kratky(rng):
     assert s.peak_qrg.attrs["units"] == "1" and s.rg.attrs["units"] == "nm"
     with pytest.raises(SaxsInputError, match="normalize"):
         ds.saxs.kratky("i0")
+
+
+def test_no_peak_reported_for_noisy_gaussian_chains():
+    # Debye (1947): the Kratky plot of a Gaussian chain rises to a plateau, no maximum;
+    # a compact Guinier form exp(-(q Rg)^2 / 3) peaks at q Rg = sqrt(3) (der)
+    from saxsnb.analysis import guinier, kratky_summary
+
+    rng = np.random.default_rng(1234)
+    q = np.linspace(0.01, 1.6, 300)
+    rg = 5.0
+    x = (q * rg) ** 2
+    chain = 2.0 * (np.expm1(-x) + x) / x**2 * 1000.0
+    glob = np.exp(-x / 3.0) * 1000.0
+    for noise in (0.01, 0.03, 0.1):
+        for curve, want in ((chain, 0.05), (glob, 0.85)):
+            S = noise * np.sqrt(curve * curve[0]) + 1e-4 * curve[0]
+            I = curve + S * rng.standard_normal((60, q.size))
+            g = guinier(q, I, np.broadcast_to(S, I.shape))
+            k = kratky_summary(q, I, rg=g["rg"], i0=g["i0"])
+            frac = np.isfinite(k["peak_qrg"]).mean()
+            if curve is chain:
+                assert frac <= want, (noise, frac)
+            else:
+                assert frac >= want, (noise, frac)

@@ -13,6 +13,14 @@ from ._core import AccessorBase, OutputSpec, scalar_outputs
 __all__ = ["LinearMethods"]
 
 
+#: How the Guinier sigmas are made (result attrs "sigma_note" and the report).
+GUINIER_SIGMA_NOTE = (
+    "sigmas from the weights (1/sigma^2), multiplied by sigma_scale = sqrt(chi2_reduced) where "
+    "the fit misses the data (fixed range: chi2_reduced > 1 + 3 sqrt(2/dof)); automatic range: "
+    "averaged over the acceptable windows, including the spread between them"
+)
+
+
 class LinearMethods(AccessorBase):
     """Guinier, Porod, invariant and Kratky analyses of every frame."""
 
@@ -70,7 +78,7 @@ class LinearMethods(AccessorBase):
         units = {"q_min": "1/nm", "q_max": "1/nm", "n_points": "1", "chi2_reduced": "1", "status": None,
                  "i0": i0_unit, "i0_sigma": i0_unit, "slope": "nm^2", "slope_sigma": "nm^2",
                  "intercept": "1", "intercept_sigma": "1", "slope_intercept_cov": "nm^2", "qrg_max": "1",
-                 "start": "1", "stop": "1"}
+                 "start": "1", "stop": "1", "sigma_scale": "1"}
         for name in (plot.size, *plot.derived):
             units[name] = units[f"{name}_sigma"] = "nm"
         outputs = scalar_outputs(units, {"n_points": np.int64, "start": np.int64, "stop": np.int64})
@@ -89,8 +97,10 @@ class LinearMethods(AccessorBase):
             return _guinier(q, I, S, q_range=rng_, shape=shape, qrg_limit=qrg_limit,
                                min_points=min_points, rg=rg_, rg_sigma=rgs_, **search_options)
 
-        return self._apply(run, outputs, operation="guinier", parameters=params,
-                               extra_args=extra + rg_arrays, errors=errors)
+        out = self._apply(run, outputs, operation="guinier", parameters=params,
+                          extra_args=extra + rg_arrays, errors=errors)
+        out.attrs["sigma_note"] = GUINIER_SIGMA_NOTE
+        return out
 
     def porod(self, q_range=None, *, background="fit", errors: str = "ignore") -> xr.Dataset:
         """Porod constant, flat background and power-law exponent of every frame.

@@ -26,7 +26,7 @@ class TableMethods(AccessorBase):
         >>> res = saxsnb.demo.example_series("spheres").saxs.guinier()
         >>> df = res.saxs.to_dataframe()
         >>> list(df.columns[:2]), len(df), df["rg [nm]"].round(3).tolist()
-        (['time [s]', 'q_min [1/nm]'], 2, [1.572, 1.966])
+        (['time [s]', 'q_min [1/nm]'], 2, [1.567, 1.96])
         """
         import pandas as pd
 

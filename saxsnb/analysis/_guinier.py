@@ -50,6 +50,17 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis._linear.W
    noise bias (c^2 - sigma_c^2, floored at 0). With noisy data this picks long windows
    (the variance dominates), with precise data shorter ones (the curvature bias
    dominates). The frame fails with a status when no window is acceptable.
+4. the reported line (slope, intercept, hence Rg, I0 and their sigmas) is the average
+   over all acceptable windows of the frame, weighted by exp(-(m - m_best) /
+   (5 m_best)) with m a window's relative mean-squared error from step 3, and its
+   variance is the weighted mean of each window's variance plus its squared offset
+   from the average (model averaging, Buckland, Burnham & Augustin 1997, Biometrics
+   53, 603): the sigma then includes the range-choice variance. ``q_min``, ``q_max``,
+   ``n_points``, ``start``, ``stop`` and ``qrg_max`` describe the best window. Each
+   window's variance is scaled by the reduced chi-square of its quadratic fit when
+   that exceeds 1. Measured (tests/validation, 120-200 noise draws, nine shapes,
+   0.1-10 % noise at I(0)): spread of Rg over draws / median reported sigma
+   0.86-1.16 (was 1.4-2.9 with the single best window), for I0 0.94-1.04.
 
 Measured on noisy Schulz-sphere curves (tests/test_guinier.py): the median error of Rg
 against the apparent Rg of Kotlarchyk & Chen (1983) is below 1 % at 1 % noise.
@@ -124,7 +135,10 @@ def guinier(
     (str), ``i0``, ``i0_sigma`` (the extrapolated intercept exp(a): I(0) for compact,
     lim q I for rod, lim q^2 I for sheet), ``slope``, ``slope_sigma``, ``intercept``,
     ``intercept_sigma``, ``slope_intercept_cov``, ``qrg_max`` (q_max times the size),
-    ``start``, ``stop`` (column indices); and by shape: compact ``rg``, ``rg_sigma``
+    ``start``, ``stop`` (column indices), ``sigma_scale`` (the factor applied to the
+    sigmas: sqrt(chi2_reduced) for a fixed range whose chi2_reduced exceeds
+    1 + 3 sqrt(2 / dof), else 1; automatic range: the best window's
+    sqrt(max(chi2_reduced of its quadratic fit, 1))); and by shape: compact ``rg``, ``rg_sigma``
     (nm); rod ``rc``, ``rc_sigma``, ``radius``, ``radius_sigma`` (solid circular
     cross-section, sqrt(2) Rc), ``length``, ``length_sigma`` (NaN without ``rg``);
     sheet ``rt``, ``rt_sigma``, ``thickness``, ``thickness_sigma`` (sqrt(12) Rt).
@@ -175,12 +189,31 @@ def guinier(
         status = np.full(F, "ok", dtype=_STATUS_DTYPE)
         fit = _fit_windows(q, I, S, start, stop, kind)
     n = fit["n_points"]
+    # fixed range with sigma: the covariance is scaled by chi2_reduced when the line
+    # misses the data clearly (chi2_reduced > 1 + 3 sqrt(2 / dof); common practice);
+    # the automatic range scales each window by its quadratic fit's chi2_reduced > 1
+    sigma_scale = np.ones(F)
+    if q_range is not None and S is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dof = np.maximum(n - 2.0, 1.0)
+            c2 = fit["chi2_reduced"]
+            far = c2 > 1.0 + 3.0 * np.sqrt(2.0 / dof)
+            sigma_scale = np.where(far, np.sqrt(np.where(far, c2, 1.0)), 1.0)
+        if far.any():
+            fit = dict(fit)
+            fit["slope_sigma"] = fit["slope_sigma"] * sigma_scale
+            fit["intercept_sigma"] = fit["intercept_sigma"] * sigma_scale
+            fit["slope_intercept_cov"] = fit["slope_intercept_cov"] * sigma_scale**2
+    elif q_range is None:
+        sigma_scale = fit.get("sigma_scale", sigma_scale)
     with np.errstate(invalid="ignore", divide="ignore"):
         size = np.sqrt(-k * fit["slope"])
         size_sigma = k * fit["slope_sigma"] / (2.0 * size)
         i0 = np.exp(fit["intercept"])
         i0_sigma = i0 * fit["intercept_sigma"]
-        qr = fit["q_max"] * size
+        # q_max R of the chosen window, with the window's own size (the automatic range
+        # reports the average over acceptable windows, each within the limit)
+        qr = fit["q_max"] * np.sqrt(-k * fit.get("slope_window", fit["slope"]))
     if q_range is not None:
         # frames without a finite point in range: no data at all, or a range outside them
         empty = fit["n_finite"] == 0
@@ -222,6 +255,7 @@ def guinier(
         "intercept_sigma": keep(fit["intercept_sigma"]),
         "slope_intercept_cov": keep(fit["slope_intercept_cov"]),
         "qrg_max": keep(qr),
+        "sigma_scale": keep(sigma_scale),
         "start": np.where(good, start, -1).astype(np.int64),
         "stop": np.where(good, stop, -1).astype(np.int64),
     }

@@ -58,6 +58,10 @@ def _trapezoid_weights(q, usable):
     return np.where(usable, 0.5 * (q_next - q_prev), 0.0)
 
 
+#: largest share of the invariant the flat low-q estimate may carry (no Guinier result)
+_LOW_ESTIMATE_MAX = 0.01
+
+
 def invariant(
     q,
     intensity,
@@ -153,6 +157,17 @@ def invariant(
     j2, j4 = guinier_integrals(q_first, s)
     low = i0 * j2
     var_low = (j2 * i0_s) ** 2 + (i0 * j4 * 2.0 * rg / 3.0 * rg_s) ** 2
+    # without a Guinier result: the low-q part as a flat extrapolation at the mean of the
+    # first three measured points, q_first^3 I / 3, with 100 % uncertainty; kept (status
+    # "low_q_estimated") when it is at most _LOW_ESTIMATE_MAX of the total
+    no_g = ~np.isfinite(low) & usable.any(-1)
+    if no_g.any():
+        first3 = usable & (np.cumsum(usable, -1) <= 3)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            i_first = np.where(first3, I - B[:, None], 0.0).sum(-1) / first3.sum(-1)
+            est = np.maximum(i_first, 0.0) * q_first**3 / 3.0
+        low = np.where(no_g, est, low)
+        var_low = np.where(no_g, est * est, var_low)
     with np.errstate(divide="ignore", invalid="ignore"):
         high = Kp / q_last
         dQ_dK = 1.0 / q_last
@@ -182,9 +197,12 @@ def invariant(
         high_frac = high / total
     status = np.full(F, "ok", dtype=_STATUS_DTYPE)
     status[~np.isfinite(low)] = "no_guinier"
+    with np.errstate(invalid="ignore"):
+        status[no_g & np.isfinite(low) & ~(low_frac <= _LOW_ESTIMATE_MAX)] = "no_guinier"
+    status[no_g & (status == "ok")] = "low_q_estimated"
     status[~np.isfinite(high)] = "no_porod_constant"
     status[~has] = "no_data"
-    good = status == "ok"
+    good = (status == "ok") | (status == "low_q_estimated")
     nan = np.nan
 
     def keep(a):

@@ -91,6 +91,7 @@ def kratky_summary(
     bell_level: float = 0.6,
     rise_trend: float = 0.1,
     fall_trend: float = 0.3,
+    peak_z: float = 3.0,
 ) -> dict:
     """Peak and high-q behaviour of each frame's dimensionless Kratky plot.
 
@@ -117,10 +118,16 @@ def kratky_summary(
         rises by about 40 % between the bands, a Gaussian chain by about 4 %), else
         "plateau".
 
+    peak_z : float
+        Significance of a peak: its height must exceed the mean level 1 to 2.5 in q Rg
+        beyond it by ``peak_z`` standard errors (from the scatter of the points about
+        the fitted cubic), else there is no peak (a noisy rising curve).
+
     Returns
     -------
     dict of arrays (n_frames,): ``peak_qrg``, ``peak_height`` (dimensionless; NaN when
-    the maximum sits at the upper end of ``peak_window``, i.e. there is no peak),
+    the maximum sits at the upper end of ``peak_window``, i.e. there is no peak, or is
+    not significant, see ``peak_z``),
     ``level_mid``, ``level_high``, ``trend`` (level_high / level_mid - 1),
     ``qrg_max`` (largest q Rg measured), ``shape_class`` (str, see
     :data:`SHAPE_CLASSES`).
@@ -177,7 +184,22 @@ def kratky_summary(
     with np.errstate(invalid="ignore"):
         peak_h = a0 + shift * (a1 + shift * (a2 + shift * a3))
     at_edge = peak_x > peak_window[1] - half_width
-    peak_x = np.where(at_edge, np.nan, peak_x)
+    # significance of the peak: it must stand above the mean level of the points from
+    # 1 to 2.5 in q Rg after it by more than ``peak_z`` standard errors (the scatter of
+    # the points about the cubic, for the peak and for the level); a rising or flat
+    # curve (a Gaussian chain) with noise otherwise shows a local maximum
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n_fit = m.sum(-1)
+        cubic = a0[:, None] + tz * (a1[:, None] + tz * (a2[:, None] + tz * a3[:, None]))
+        resid = np.where(m, Kz - cubic, 0.0)
+        s_res = np.sqrt((resid * resid).sum(-1) / np.maximum(n_fit - 4, 1))
+        after = finite & (x >= (peak_x + 1.0)[:, None]) & (x <= (peak_x + 2.5)[:, None])
+        n_after = after.sum(-1)
+        level_after = np.where(after, Kz, 0.0).sum(-1) / n_after
+        se = s_res * np.sqrt(4.0 / np.maximum(n_fit, 1) + 1.0 / np.maximum(n_after, 1))
+        drop = a0 + shift * (a1 + shift * (a2 + shift * a3)) - level_after
+        not_significant = (n_after >= 3) & ~(drop > peak_z * se)
+    peak_x = np.where(at_edge | not_significant, np.nan, peak_x)
     peak_h = np.where(np.isfinite(peak_x), peak_h, np.nan)
     level_mid, n_mid = _band_mean(x, K, *bands[0])
     level_high, n_high = _band_mean(x, K, *bands[1])

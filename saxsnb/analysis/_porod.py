@@ -351,6 +351,11 @@ def porod(q, intensity, sigma=None, *, q_range=None, background="fit") -> dict:
     with np.errstate(invalid="ignore"):
         off = np.abs(out["exponent"] - 4.0) > np.maximum(3.0 * out["exponent_sigma"], 0.3)
     out["status"] = np.where((out["status"] == "ok") & off, "porod_region_not_reached", out["status"])
+    # a flat (constant) or background-only frame: no q^-4 term above its noise
+    with np.errstate(invalid="ignore"):
+        flat = ~(out["porod_constant"] > 2.0 * out["porod_constant_sigma"])
+        flat |= ~np.isfinite(out["exponent_sigma"])
+    out["status"] = np.where((out["status"] == "ok") & flat, "no_porod_signal", out["status"])
     return out
 
 

@@ -101,6 +101,13 @@ STATUS: dict[str, Status] = {
     "no_guinier": Status(
         "no Guinier result for the low-q extrapolation", "guinier", "no Guinier region at low q"
     ),
+    "low_q_estimated": Status(
+        "no Guinier result; the low-q part, estimated flat at I(q_min) with 100 % "
+        "uncertainty, is at most 1 % of the invariant: numbers kept",
+        "guinier",
+        "no Guinier fit: the part of the invariant below q_min is estimated (it is at most "
+        "1 % of the total, with its full size as uncertainty)",
+    ),
     "no_porod_constant": Status(
         "no Porod constant for the high-q tail", "porod", "no Porod region at high q"
     ),
@@ -114,6 +121,12 @@ STATUS: dict[str, Status] = {
         "q_range",
         "the curve does not yet fall as q^-4 on this range: the Porod constant "
         "and the quantities built on it do not apply here",
+    ),
+    "no_porod_signal": Status(
+        "porod(): the Porod constant is below 2 sigma or the exponent undetermined: numbers kept",
+        "q_range",
+        "no falling power law above the noise on this range (a flat curve or background only): "
+        "no Porod constant or exponent to read",
     ),
     "too_few_shannon_channels": Status(
         "q_max Dmax / pi below min_channels (default 3): numbers kept",

@@ -202,7 +202,8 @@ class WindowMoments:
         -------
         dict of arrays of the broadcast shape of ``start`` and ``stop``: ``slope``,
         ``slope_var``, ``n_points``, ``c``, ``c_var``, ``chi2_quadratic``, ``drift``,
-        ``lever``, ``chi2_line`` (the straight line's chi-square) and, for objects
+        ``lever``, ``chi2_line`` (the straight line's chi-square), ``intercept``,
+        ``intercept_var``, ``slope_intercept_cov`` and, for objects
         made by :meth:`from_weights`, ``first_residual2``: the squared weighted residual
         of each window's first point from its straight line. Degenerate windows give
         NaN (compare with care). ``rows`` (optional int array) restricts the
@@ -243,6 +244,13 @@ class WindowMoments:
                 "lever": mu3 / mu2 + 2.0 * (m + (self.x_ref if rows is None else self.x_ref[rows])[extra]),
                 "chi2_line": Svv - Sv * Y - S0 * slope * cuy,
             }
+            # intercept of the straight line in absolute x, y, its variance and its
+            # covariance with the slope (from the weights)
+            xm = m + (self.x_ref if rows is None else self.x_ref[rows])[extra]
+            ym = Y + (self.y_ref if rows is None else self.y_ref[rows])[extra]
+            out["intercept"] = ym - slope * xm
+            out["intercept_var"] = inv * (1.0 + xm * xm / mu2)
+            out["slope_intercept_cov"] = -xm * inv / mu2
             if hasattr(self, "_v"):
                 st = np.clip(np.asarray(start, dtype=np.int64), 0, max(self._v.shape[0] - 1, 0))
                 f = np.arange(self._F) if rows is None else np.asarray(rows)

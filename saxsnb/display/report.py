@@ -21,7 +21,9 @@ __all__ = ["report_summary", "report_text", "report_html", "frame_lines", "ASSUM
 #: What each analysis assumes, said beside its numbers.
 ASSUMPTIONS = {
     "guinier": "Guinier approximation ln I = ln I0 - (q Rg)^2 / 3 (rod, sheet: cross-section forms), valid "
-               "for q_max R below the stated limit; a flat, correctly subtracted background.",
+               "for q_max R below the stated limit; a flat, correctly subtracted background. Sigmas "
+               "are multiplied by sqrt(chi2_reduced) where the fit misses the data (sigma_scale > 1); "
+               "the automatic range's sigma includes the spread over the acceptable ranges.",
     "porod": "sharp interfaces (I ~ Kp / q^4) plus a flat background over the chosen q range.",
     "invariant": "Guinier extrapolation below the measured range and a Kp / q^4 tail above it; absolute "
                  "values only as good as the intensity calibration.",

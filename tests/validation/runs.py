@@ -69,6 +69,8 @@ def guinier_accuracy(I, q, rg_true, noise, n_draws, seed, **options):
         "median_abs_err": float(np.median(np.abs(err))) if ok.any() else np.nan,
         "within_1sigma": float(np.mean(np.abs(rg - rg_true) <= sg)) if ok.any() else np.nan,
         "spread_over_sigma": float(np.std(rg) / np.median(sg)) if ok.sum() > 2 else np.nan,
+        "i0_spread_over_sigma": float(np.std(r["i0"][ok]) / np.median(r["i0_sigma"][ok]))
+        if ok.sum() > 2 else np.nan,
         "statuses": sorted(set(r["status"].tolist())),
         "qrg_max": float(np.nanmedian(r["qrg_max"])) if ok.any() else np.nan,
     }
