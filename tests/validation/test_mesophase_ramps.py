@@ -64,9 +64,6 @@ def test_coexistence_600_counts(pair):
     assert a["right"].mean() >= 0.9, a["labels"]
 
 
-@pytest.mark.xfail(reason="issue 15 open: Im3m+Pn3m read as Pm3n+Pn3m (Im3m reflections are a subset "
-                          "of Pm3n's; the pair cost does not recount Pm3n's absent reflections)",
-                   strict=False)
 def test_coexistence_subset_cubic():
     a = runs.ramp_accuracy(("Pn3m", "Im3m"), 600, 8, seed=21)
     assert a["right"].mean() >= 0.9, a["labels"]
