@@ -49,17 +49,22 @@ def main(argv=None):
     ramps = [(p,) for p in t.PHASES] + [("Fd3m", "hexagonal"), ("Im3m", "Pm3n"), ("Ia3d", "Pn3m"),
                                          ("hexagonal", "Ia3d"), ("lamellar", "Pn3m"), ("Pn3m", "Im3m")]
     for counts in (3000, 600, 150):
-        tot = right = 0
+        tot = right = tot_i = right_i = 0
         for ph in ramps:
             a = runs.ramp_accuracy(ph, counts, args.frames, seed=3)
             lab, c = np.unique(a["labels"][~a["right"]], return_counts=True)
             tot += a["right"].size
             right += a["right"].sum()
+            tot_i += a["identifiable"].sum()
+            right_i += (a["right"] & a["identifiable"]).sum()
             print(f"{'+'.join(ph):22s} {counts:6d} {a['right'].mean():6.2f} {a['lattice_err']:11.5f}  "
                   + ", ".join(f"{x or 'none'} x{n}" for x, n in zip(lab, c)))
         a = runs.ramp_accuracy(("Pn3m",), counts, args.frames, seed=4, spikes=3)
         print(f"{'Pn3m + 3 spikes':22s} {counts:6d} {a['right'].mean():6.2f} {a['lattice_err']:11.5f}")
         print(f"{'all ramps':22s} {counts:6d} {right / tot:6.3f}")
+        share = right_i / max(tot_i, 1)
+        print(f"{'identifiable frames':22s} {counts:6d} {share:6.3f}  ({tot_i} of {tot} frames: "
+              "every phase with >= 3 (cubic) or 2 reflections above 3 sigma)")
     print()
     print("No-lattice series: frames given a phase (target 0)")
     for kind in ("spheres z100", "spheres z30", "vesicles z100", "vesicles z50", "spikes", "featureless"):

@@ -162,3 +162,17 @@ def test_order_by_time_for_a_heating_cooling_cycle(rng):
     assert len(set(by_temperature["track"].values[:, 0].tolist())) > 1
     with pytest.raises(SaxsInputError, match="order_by"):
         ds.saxs.find_peaks(order_by="pressure")
+
+
+def test_negative_constant_and_nan_frames_get_a_status_and_no_warning():
+    # issue 12 item 9: find_peaks on negative intensities gives a status, not "ok";
+    # all-NaN and constant frames likewise; no numpy RuntimeWarning (warnings are errors)
+    from saxsnb.analysis import index_phases
+
+    q = np.linspace(0.3, 3.0, 500)
+    bumps = 3 * np.exp(-(((q - 1.0) / 0.01) ** 2)) + 3 * np.exp(-(((q - 2.0) / 0.01) ** 2))
+    I = np.stack([-5.0 + bumps, np.full(q.size, np.nan), np.ones(q.size), 10.0 + bumps])
+    r = find_peaks(q, I, np.full(I.shape, 0.1))
+    assert r["status"].tolist() == ["negative_intensity", "no_data", "no_peaks", "ok"]
+    x = index_phases(r["position"], r["position_sigma"], r["fwhm"], r["prominence"], peak_status=r["status"])
+    assert x["status"][1] == "no_data" and x["status"][2] == "no_peaks"

@@ -234,6 +234,7 @@ class PhaseMethods(AccessorBase):
             transitions=json.dumps(m["transitions"]),
             coexistence=json.dumps(m["coexistence"]),
             bonnet=json.dumps(m["bonnet"]),
+            caveats=json.dumps(_caveat_summary(idx)),
         )
         return out
 
@@ -255,5 +256,21 @@ class PhaseMethods(AccessorBase):
         x = None if xs is None or xs.dtype.kind not in "fiu" else np.sort(xs.astype(float))
         step = float(np.median(np.diff(x))) if x is not None and x.size > 1 else None
         res = {k: json.loads(pm.attrs[k]) for k in ("transitions", "coexistence", "bonnet")}
-        return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step)
+        return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step,
+                                caveats=json.loads(pm.attrs.get("caveats", "{}")))
 
+
+
+def _caveat_summary(idx) -> dict:
+    """Frames of an indexing result whose label has a close alternative or rests on few
+    peaks: ``{"n_frames", "close": {alternative: frames}, "few_peaks": frames}``."""
+    phase = np.asarray(idx["phase"].values).astype(str)
+    labelled = (phase != "").any(axis=-1) if phase.ndim > 1 else phase != ""
+    none = np.full(labelled.shape, "")
+    alt = np.asarray(idx["alternative"].values).astype(str) if "alternative" in idx else none
+    cav = np.asarray(idx["caveat"].values).astype(str) if "caveat" in idx else none
+    close = {}
+    for a in alt[labelled & (alt != "")]:
+        close[str(a)] = close.get(str(a), 0) + 1
+    few = int(sum(1 for c in cav[labelled] if "rests on few ratios" in c))
+    return {"n_frames": int(labelled.size), "close": close, "few_peaks": few}

@@ -370,10 +370,18 @@ def index_peaks(
     ).astype(STATUS_DTYPE)
     caveat = np.full(F, "", dtype=object)
     few = found & (n_obs <= 3)
-    for i in np.nonzero(few | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]:
+    # a phase of a pair indexed on three peaks or fewer of its own says so too
+    n_own = np.stack([(ch_slot == j).sum(-1) for j in range(2)], -1)
+    pair = (ch_phase >= 0).all(-1)[:, None]
+    few_own = found[:, None] & ~few[:, None] & (phase_str != "") & pair & (
+        n_own <= np.where(np.isin(phase_str, ("lamellar", "hexagonal")), 2, 3))
+    for i in np.nonzero(few | few_own.any(-1) | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]:
         parts = []
         if few[i]:
             parts.append(f"only {int(n_obs[i])} peaks: assignment rests on few ratios")
+        for j in np.nonzero(few_own[i])[0]:
+            parts.append(f"{phase_str[i, j]} on {int(n_own[i, j])} peaks of its own: "
+                         "assignment rests on few ratios")
         if alt[i]:
             parts.append(f"close alternative: {alt[i]}")
         if n_unexpl[i]:

@@ -26,6 +26,9 @@ __all__ = ["PHASE_COST", "CLOSE_COST"]
 PHASE_COST = 1.0
 #: A different explanation within this cost of the chosen one is reported as close.
 CLOSE_COST = 1.2
+#: Share of the miss cost paid by a reflection of one phase of a pair that lies under a
+#: peak given to the other phase (hidden, not absent).
+HIDDEN_FRACTION = 1.0
 _ANCHOR_PEAKS = 6
 _VITERBI_STATES = 8
 
@@ -125,13 +128,39 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
             only_a = (ma & ~mb).sum(-1)
             only_b = (mb & ~ma).sum(-1)
             cs = cat["cost"][rows]
-            miss, fit = cat["miss"][rows], cat["fit"][rows]
+            to_a, to_b = _share(ma, mb, cat["mc"][rows][:, a], cat["mc"][rows][:, b],
+                                cat["err"][rows][:, a], cat["err"][rows][:, b])
+            tabs = _phase_set(tuple(phases))
+            ph_id = np.repeat(np.arange(len(phases)), _KEEP)
+            qr, qlo_r = np.nan_to_num(q[rows], nan=0.0), q_lo[rows]
+
+            def recount(idx, own, other_m):
+                """Missing reflections and misfit of one phase of each pair, recomputed from
+                the peaks the pair gives it (a peak is not counted for both phases)."""
+                L = cat["L"][rows][:, idx]
+                mc = cat["mc"][rows][:, idx]
+                off = tabs["c_off"][ph_id[idx]][None, :]
+                top = tabs["c_top"][ph_id[idx]][None, :]
+                with np.errstate(invalid="ignore"):
+                    q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
+                    x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
+                    x_lo = np.nan_to_num((qlo_r[:, None] * L) ** 2, nan=0.0, posinf=0.0)
+                hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
+                lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
+                in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
+                miss = np.maximum(in_range - _sum_peaks(np.where(own, mc, 0.0)), 0.0)
+                # a reflection under the other phase's peak is hidden, not absent: it costs
+                # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable)
+                hidden = other_m & ~own & (qr[:, None, :] <= q_hi[..., None])
+                miss = np.maximum(miss - (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc, 0.0)), 0.0)
+                e = np.nan_to_num(cat["err"][rows][:, idx], nan=0.0) / tol
+                fit = 0.25 * _sum_peaks(np.where(own, e * e, 0.0))
+                return miss + fit
+
             pc = (
                 _sum_peaks(np.where(explained, 0.0, unexpl[rows][:, None, :]))
-                + miss[:, a]
-                + miss[:, b]
-                + fit[:, a]
-                + fit[:, b]
+                + recount(a, to_a, ma)
+                + recount(b, to_b, mb)
                 + PHASE_COST
             )
             # each phase indexes two peaks or more, at least one of them its own; a peak
@@ -149,6 +178,16 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
             pair_cost[rows] = np.where(ok, pc, np.inf)
         cost.append(pair_cost)
     return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}
+
+
+def _share(ma, mb, mca, mcb, ea, eb):
+    """Which phase of a pair takes each peak: the one it matches; a peak both match goes
+    to the phase for which it is the lower order (the larger miss cost), then to the
+    closer fit. Returns ``to_a``, ``to_b`` (bool, disjoint)."""
+    with np.errstate(invalid="ignore"):
+        a_wins = (mca > mcb) | ((mca == mcb) & ~(eb < ea))
+    to_a = ma & (~mb | a_wins)
+    return to_a, mb & ~to_a
 
 
 def _states(H, sel, P):
@@ -175,8 +214,7 @@ def _states(H, sel, P):
     sa, sb = pick(sx, ia), pick(sx, ib)
     ea = np.where(sa > 0, pick(ex, ia), np.inf)
     eb = np.where(sb > 0, pick(ex, ib), np.inf)
-    to_a = (sa > 0) & (ea <= eb)
-    to_b = (sb > 0) & ~to_a
+    to_a, to_b = _share(sa > 0, sb > 0, pick(ext(cat["mc"], 0.0), ia), pick(ext(cat["mc"], 0.0), ib), ea, eb)
     slot = np.full((B, sel.shape[1], P), -1)
     s = np.zeros((B, sel.shape[1], P), dtype=np.int64)
     slot[..., :pb] = np.where(to_a, 0, np.where(to_b, 1, -1))

@@ -22,7 +22,7 @@ MISS_COST = (1.5, 1.0, 0.6, 0.4, 0.3)
 _N_REF = {"lamellar": 12, "hexagonal": 20}
 _N_REF_CUBIC = 30
 _ANCHOR_REFLECTIONS = 3
-_KEEP = 3  # distinct lattices kept per phase per frame
+_KEEP = 4  # distinct lattices kept per phase per frame
 #: Fewest peaks a candidate must index: two orders identify a lamellar (1:2) or
 #: hexagonal (1:sqrt 3) phase, but two numbers fit some cubic ratio by chance (any ratio
 #: within 1 % of one of dozens), so a cubic phase needs three (issue 15).
@@ -324,6 +324,7 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
         "sL": take(sL),
         "s": s_kept,
         "err": np.where(s_kept > 0, take(err), np.nan),
+        "mc": take(mc),
         "miss": take(miss),
         "fit": take(fitc),
         "cost": np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP),

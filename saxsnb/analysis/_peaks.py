@@ -379,7 +379,8 @@ def find_peaks(
     ``fwhm_sigma``, ``height``, ``height_sigma``, ``area``, ``area_sigma``,
     ``prominence`` (in noise units), ``eta``, ``chi2_reduced``, sorted by position and
     NaN padded to ``max_peaks``; per frame ``n_peaks`` (int) and ``status``
-    ("ok", "no_peaks", "no_data").
+    ("ok", "no_peaks", "no_data", or "negative_intensity" when most points are at or
+    below zero: peaks kept, heights suspect).
 
     Notes
     -----
@@ -515,6 +516,11 @@ def find_peaks(
         fit[key] = np.where(valid, fit[key], np.nan)
     n_peaks = valid.sum(axis=1).astype(np.int64)
     status = np.where(~enough, "no_data", np.where(n_peaks == 0, "no_peaks", "ok")).astype(_STATUS)
+    # a frame whose intensity is mostly at or below zero (an over-subtracted background)
+    # is not "ok": its peaks are kept, but heights and prominences are suspect (issue 12)
+    with np.errstate(invalid="ignore"):
+        nonpos = (finite & (Is <= 0)).sum(axis=1) > 0.5 * finite.sum(axis=1)
+    status = np.where(enough & nonpos, "negative_intensity", status).astype(_STATUS)
     fit["n_peaks"] = n_peaks
     fit["status"] = status
     return fit

@@ -78,8 +78,13 @@ def indexing_summary(status) -> str:
     return "no frame could be indexed: " + "; ".join(parts)
 
 
-def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step: float | None = None) -> str:
+def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step: float | None = None,
+                     caveats: dict | None = None) -> str:
     """A short text report of :func:`phase_map` output.
+
+    ``caveats`` (optional, as the ``caveats`` attribute of ``ds.saxs.phase_map()``):
+    frames whose label has a close alternative explanation or rests on few peaks are
+    said so after the map, with the alternatives (issue 15: no label without its doubts).
 
     >>> import numpy as np
     >>> from saxsnb.analysis import phase_map
@@ -89,6 +94,11 @@ def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step:
       lamellar: from the start to 20.5 degC (between 20 and 21)
       hexagonal: from 20.5 degC (between 20 and 21) to the end
     No coexistence window found.
+    >>> cav = {"n_frames": 2, "close": {"Fm3m": 1}, "few_peaks": 1}
+    >>> for line in phase_map_report(phase_map(ph, np.array([20.0, 21.0])), caveats=cav).splitlines()[-2:]:
+    ...     print(line)
+    Caveat: close alternative explanations in 1 of 2 frames (Fm3m): the label there is not certain.
+    Caveat: 1 of 2 frames are labelled from three peaks or fewer (the assignment rests on few ratios).
     """
     u = f" {units}" if units else ""
 
@@ -124,4 +134,14 @@ def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step:
         )
     if step is not None:
         lines.append(f"Transitions are located to +-{step / 2:.3g}{u} (half a scan step).")
+    cv = caveats or {}
+    n = cv.get("n_frames", 0)
+    close = cv.get("close", {})
+    if close:
+        order = sorted(close.items(), key=lambda kv: -kv[1])
+        lines.append("Caveat: close alternative explanations in " + ", ".join(
+            f"{c} of {n} frames ({a})" for a, c in order[:4]) + ": the label there is not certain.")
+    if cv.get("few_peaks"):
+        lines.append(f"Caveat: {cv['few_peaks']} of {n} frames are labelled from three peaks or fewer "
+                     "(the assignment rests on few ratios).")
     return "\n".join(lines)

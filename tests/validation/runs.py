@@ -123,19 +123,22 @@ def labels(r):
     return np.array(["+".join(sorted(p for p in row if p)) for row in r["phase"]])
 
 
-def n_reflections_above_noise(q, I_clean, N_scale, S, phases, lat, fwhm, factor=3.0):
-    """Per frame: reflections (of all phases) whose noise-free height stands above
-    ``factor`` times the local sigma; the target applies where there are >= 3."""
-    out = np.zeros(len(lat), dtype=int)
+def identifiable(q, I_max, S, phases, lat, *, second_scale=0.7, rel=None, counts=1.0, factor=3.0):
+    """Per frame: does every phase have enough reflections whose noise-free height (over
+    the background) stands above ``factor`` times the local sigma: three for a cubic
+    phase, two for lamellar or hexagonal (the issue-15 target applies to such frames)."""
+    rows = np.arange(len(lat))
+    ok = np.ones(len(lat), dtype=bool)
     for k, ph in enumerate(phases):
-        rel = t.RELATIVE[ph]
-        for (s, _), _r in zip(t.reflections(ph, len(rel)), rel):
+        r = t.RELATIVE[ph] if rel is None or k else rel
+        n = np.zeros(len(lat), dtype=int)
+        for (s, _), rr in zip(t.reflections(ph, len(r)), r):
             qs = t.q_of(ph, lat[:, k], s)
             j = np.clip(np.searchsorted(q, qs), 0, q.size - 1)
-            rows = np.arange(len(lat))
-            height = (I_clean[rows, j] - t.diffuse(q, 0.0)[j]) * N_scale[:, 0]
-            out += (qs < q[-1]) & (height > factor * S[rows, j])
-    return out
+            height = rr * (1.0 if k == 0 else second_scale) * counts / I_max
+            n += (qs < q[-1]) & (height > factor * S[rows, j])
+        ok &= n >= (2 if ph in ("lamellar", "hexagonal") else 3)
+    return ok
 
 
 def ramp_accuracy(phases, counts, n_frames, seed, spikes=0, **options):
@@ -156,8 +159,10 @@ def ramp_accuracy(phases, counts, n_frames, seed, spikes=0, **options):
         got = np.where(np.isfinite(got), got, np.nan)
         lat_err.append(np.abs(got / lat[:, k] - 1.0))
     lat_err = np.nanmedian(np.stack(lat_err)[:, right]) if right.any() else np.nan
+    ident = identifiable(q, I.max(-1), S, phases, lat, second_scale=options.get("second_scale", 0.7),
+                         rel=options.get("rel"), counts=counts)
     return {"right": right, "labels": lab, "lattice_err": float(lat_err), "status": r["status"],
-            "alternative": r["alternative"]}
+            "alternative": r["alternative"], "identifiable": ident}
 
 
 def no_lattice_series(kind, n_frames, seed):
