@@ -204,7 +204,8 @@ def _trailer(rng, lines: list, refuse, what: str, sep: str, ncols: int):
     to ``lines``, sometimes damaged; returns (refuse_line, what, expected metadata)."""
     tr = float(f"{rng.uniform(0.1, 1.0):.6f}")
     wl = float(f"{rng.uniform(0.05, 0.2):.5f}")
-    stamp = f"2024-05-{int(rng.integers(1, 29)):02d}T{int(rng.integers(0, 24)):02d}:00:0{int(rng.integers(0, 10))}"
+    day, hour, sec = int(rng.integers(1, 29)), int(rng.integers(0, 24)), int(rng.integers(0, 10))
+    stamp = f"2024-05-{day:02d}T{hour:02d}:00:0{sec}"
     style = str(rng.choice(["json", "json_lines", "colon", "equals", "both"]))
     block: list[str] = []
     if style in ("json", "both"):

@@ -191,7 +191,10 @@ def _header(raw: RawFile, text: str) -> None:
 
 
 # a line of a trailing metadata section: blank, a comment, a [title] or key = value / key: value
-_TRAILER_LINE = re.compile(rb"^[ \t]*(?:#[^\n]*|\[[^\]\n]*\][ \t]*|#?[ \t]*[A-Za-z_][\w \t.\-]*[=:][^\n]*|)\r?$")
+_TRAILER_LINE = re.compile(
+    rb"^[ \t]*(?:#[^\n]*|\[[^\]\n]*\][ \t]*|#?[ \t]*[A-Za-z_][\w \t.\-]*[=:][^\n]*|)\r?$"
+)
+_KEYVAL_BYTES = re.compile(rb"^[ \t]*[A-Za-z_][\w \t.\-]*[=:]")
 _SPACE = frozenset(b" \t\r\n")
 
 
@@ -512,6 +515,13 @@ def _line_errors(raw: RawFile) -> SaxsFileError:
         for t in tokens:
             if not _floatable([t]):
                 shown = t.decode("utf-8", "replace")
+                if _KEYVAL_BYTES.match(line) or line.startswith(b"{"):
+                    return SaxsFileError(
+                        f"cannot read {shown!r} as a number: a metadata line among the rows of data, or "
+                        "rows after the trailing metadata (metadata may only follow the last row)",
+                        path=raw.path,
+                        line=lineno,
+                    )
                 return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
         if len(tokens) != raw.ncols:
             return SaxsFileError(

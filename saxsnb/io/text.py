@@ -24,9 +24,9 @@ import json
 import os
 import re
 import sys
-from datetime import datetime
 from collections.abc import Iterable, Mapping
 from concurrent.futures import ThreadPoolExecutor
+from datetime import datetime
 from pathlib import Path
 
 import numpy as np
