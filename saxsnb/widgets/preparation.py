@@ -8,6 +8,7 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
+from ..display.axes import positive_range
 from ..display.plots import similarity_map
 from ..errors import SaxsError
 from . import _bq as bq
@@ -99,8 +100,16 @@ class PreparationPanel(PanelBase):
 
     # ------------------------------------------------------------------- build
     def _build(self):
+        lo, hi = self.model.positive_range()
+        try:  # the subtracted curves lie below the measured ones: the range holds both
+            slo, shi = positive_range(self.subtracted()["intensity"].values)
+            lo, hi = min(lo, slo), max(hi, shi)
+        except SaxsError:
+            pass
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
-        ys = bq.LogScale()
+        # a fixed y domain: from the data alone bqplot's first draw has none (the lines start
+        # as placeholders) and lays the log axis ticks at translate(0,NaN) in the page
+        ys = bq.LogScale(min=lo, max=hi)
         scales = {"x": xs, "y": ys}
         self.sample_line = bq.Lines(x=self.q, y=np.ones_like(self.q), scales=scales,
                                     colors=[ROLE["data"]], labels=["sample"], stroke_width=1.5)
@@ -109,7 +118,6 @@ class PreparationPanel(PanelBase):
                                         stroke_width=1.5)
         self.subtracted_line = bq.Lines(x=self.q, y=np.ones_like(self.q), scales=scales,
                                         colors=[ROLE["fit"]], labels=["subtracted"], stroke_width=1.5)
-        lo, hi = self.model.positive_range()
         curve_fig = make_figure(
             [self.background_line, self.sample_line, self.subtracted_line], xs, ys,
             x_label=f"q ({self.q_units})", y_label=f"I ({self.intensity_units})",
