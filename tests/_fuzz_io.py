@@ -169,6 +169,13 @@ def text_case(rng: np.random.Generator, folder: Path, index: int = 0) -> Case:
     if comment_lines and refuse is None and n > 3:
         lines.insert(first + 1, "# a comment line between rows")
         what += "+comment"
+    meta: dict = {}
+    if rng.random() < 0.4 and what != "cut_last":
+        # trailing metadata after the rows (common practice: instrument software appends a
+        # JSON object or key: value / key = value lines after the numeric block)
+        refuse, what, meta = _trailer(rng, lines, refuse, what, sep, ncols)
+    if n < 5 and refuse is None:
+        refuse, what = 0, what + "+few_points"  # fewer than saxsnb.io.text.MIN_Q_POINTS rows
     eol = "\r\n" if rng.random() < 0.2 else "\n"
     text = eol.join(lines)
     if not (what == "cut_last") and rng.random() < 0.9:
@@ -187,8 +194,61 @@ def text_case(rng: np.random.Generator, folder: Path, index: int = 0) -> Case:
             "intensity": values[:, 1],
             "sigma": values[:, 2] if ncols > 2 else None,
             "mask": mask,
+            "meta": meta,
         }
     return Case(path, "text", what, expect, refuse)
+
+
+def _trailer(rng, lines: list, refuse, what: str, sep: str, ncols: int):
+    """Append a trailing metadata section (JSON, key: value or key = value lines, or both)
+    to ``lines``, sometimes damaged; returns (refuse_line, what, expected metadata)."""
+    tr = float(f"{rng.uniform(0.1, 1.0):.6f}")
+    wl = float(f"{rng.uniform(0.05, 0.2):.5f}")
+    day, hour, sec = int(rng.integers(1, 29)), int(rng.integers(0, 24)), int(rng.integers(0, 10))
+    stamp = f"2024-05-{day:02d}T{hour:02d}:00:0{sec}"
+    style = str(rng.choice(["json", "json_lines", "colon", "equals", "both"]))
+    block: list[str] = []
+    if style in ("json", "both"):
+        block.append(
+            f'{{"exposure_start": "{stamp}", "beam": {{"wavelength": {wl:.5f}, "transmission": {tr:.6f}}}}}'
+        )
+    elif style == "json_lines":
+        block += ["{", f'  "exposure_start": "{stamp}",', '  "beam": {', f'    "wavelength": {wl:.5f},',
+                  f'    "transmission": {tr:.6f}', "  }", "}"]
+    else:
+        s = ": " if style == "colon" else " = "
+        block += [f"exposure_start{s}{stamp}", f"beam.wavelength{s}{wl:.5f}", f"beam.transmission{s}{tr:.6f}"]
+    if style == "both":
+        block.insert(0, "# trailing metadata")
+        block.append("operator = A. Person")
+    meta = {"exposure_start": stamp, "beam.wavelength": wl, "beam.transmission": tr}
+    if rng.random() < 0.3:
+        block.insert(0, "")  # a blank line between the rows and the metadata
+    mutation = str(rng.choice(["none", "none", "none", "row_after", "bad_json", "free_text", "count_row"]))
+    if refuse is not None:
+        mutation = "none"
+    if mutation == "row_after":
+        block.append(sep.join(["1.0"] * ncols))  # a row after the metadata: refused, not data
+        # named: the first metadata line, read as a row of the data block
+        refuse = len(lines) + 1 + next(i for i, b in enumerate(block) if b and not b.startswith("#"))
+    elif mutation == "bad_json" and style in ("json", "json_lines"):
+        if style == "json":
+            block[-1] = block[-1][:-1] + ",}"  # a trailing comma: invalid JSON
+            refuse = len(lines) + len(block)
+        else:
+            block[-2] = "  },"
+            refuse = len(lines) + len(block)  # the closing brace after the comma
+    elif mutation == "free_text":
+        block.append("end of file")
+        refuse = len(lines) + len(block)
+    elif mutation == "count_row":
+        # the last row alone after a blank line, before the metadata: a count, not data
+        block[:0] = ["", sep.join([str(int(rng.integers(1, 999)))] * ncols)]
+        refuse = len(lines) + 2
+    else:
+        mutation = "none"
+    lines.extend(block)
+    return refuse, f"{what}+trailer_{style}" + ("" if mutation == "none" else f"_{mutation}"), meta
 
 
 def _read_text(path):
@@ -341,6 +401,13 @@ def _equal(ds, expect) -> bool:
         return False
     if expect.get("sigma") is not None and not same(S, expect["sigma"]):
         return False
+    for name, value in (expect.get("meta") or {}).items():
+        if name not in ds.coords and name not in ds.attrs:
+            return False
+        # text equal in all frames is an attr, other values per-frame coordinates
+        got = ds[name].values.ravel()[0] if name in ds.coords else ds.attrs[name]
+        if (got != value) if isinstance(value, str) else not same(got, value):
+            return False
     return bool(np.array_equal(M, np.asarray(expect["mask"], dtype=bool)))
 
 

@@ -85,7 +85,7 @@ def test_text_header_refusals(tmp_path):
     assert info.value.path.endswith("a.dat")
 
 
-def test_long_blank_header_lines_parse(tmp_path):
+def test_long_blank_header_lines_parse(tmp_path, few_points):
     # 32 KB lines of blanks: the header regexes are linear (possessive quantifiers); a
     # quadratic one would take minutes here. The bound below only catches such a hang.
     blank = " " * 32000
@@ -96,7 +96,7 @@ def test_long_blank_header_lines_parse(tmp_path):
     assert ds.intensity.values.tolist() == [[5.0, 4.0]]
 
 
-def test_text_odd_but_exact(tmp_path):
+def test_text_odd_but_exact(tmp_path, few_points):
     # one-number lines before the data are header (a count), not a point
     ds = _read(tmp_path, H + "100\n0.1 5 0.1\n0.2 4 0.1\n")
     assert ds.intensity.values.tolist() == [[5.0, 4.0]]
@@ -111,7 +111,7 @@ def test_text_odd_but_exact(tmp_path):
     assert ds.intensity.values.tolist() == [[5.0, 4.0, 3.0]]
 
 
-def test_non_finite_intensity_and_sigma_masked_warning_names_files(tmp_path):
+def test_non_finite_intensity_and_sigma_masked_warning_names_files(tmp_path, few_points):
     files = (("a.dat", "0.1 5 inf\n0.2 nan 0.1\n0.3 3 0.1\n"),
              ("b.dat", "0.1 5 0.1\n0.2 4 0.1\n0.3 3 -inf\n"))
     for name, body in files:

@@ -182,7 +182,7 @@ def test_separators(tmp_path, sep):
     np.testing.assert_allclose(ds.intensity.values[0], _curve()[:, 1], rtol=1e-5)
 
 
-def test_comments_blank_lines_and_crlf(tmp_path):
+def test_comments_blank_lines_and_crlf(tmp_path, few_points):
     body = "# q_unit = 1/nm\r\n\r\n0.1 5 0.1 # first\r\n\r\n0.2 4 0.1\r\n# trailing note\r\n0.3 3 0.1\r\n"
     (tmp_path / "a.dat").write_bytes(body.encode())
     ds = read_series(tmp_path / "a.dat")
@@ -273,7 +273,7 @@ def test_nan_intensity_and_bad_sigma_are_masked_with_a_warning(tmp_path):
     assert ds.mask.values[0].tolist() == [False, True, True, True, False]
 
 
-def test_unsorted_q_is_sorted_with_a_warning(tmp_path):
+def test_unsorted_q_is_sorted_with_a_warning(tmp_path, few_points):
     path = tmp_path / "a.dat"
     path.write_text("# q_unit = 1/nm\n0.2 4 0.1\n0.1 5 0.1\n0.3 3 0.1\n")
     with pytest.warns(SaxsWarning, match="sorted"):
@@ -344,7 +344,7 @@ _finite = st.floats(min_value=-1e12, max_value=1e12, allow_nan=False, allow_infi
     sep=st.sampled_from([" ", "\t", ",", ";", ", ", "  "]),
     fmt=st.sampled_from(["%.8e", "%.17g", "%r", "%.6E"]),
 )
-def test_property_text_round_trip(tmp_path, values, sep, fmt):
+def test_property_text_round_trip(tmp_path, values, sep, fmt, few_points):
     n = len(values)
     q = np.linspace(0.01, 5.0, n)
     I = np.array([v[0] for v in values])
@@ -438,14 +438,14 @@ def test_unreadable_file_is_named(tmp_path, monkeypatch):
         read_series(path)
 
 
-def test_byte_order_mark_and_progress_bar(tmp_path, capsys):
+def test_byte_order_mark_and_progress_bar(tmp_path, capsys, few_points):
     (tmp_path / "a.dat").write_bytes(b"\xef\xbb\xbf# q_unit = 1/A\n0.1 5 0.1\n0.2 4 0.1\n")
     ds = read_series(tmp_path, progress=True)
     np.testing.assert_allclose(ds.q.values, [1.0, 2.0])
     assert "reading" in capsys.readouterr().err
 
 
-def test_multiline_sample_name_survives_text_round_trip(tmp_path):
+def test_multiline_sample_name_survives_text_round_trip(tmp_path, few_points):
     ds = saxsnb.from_arrays([0.1, 0.2], [[2.0, 1.0]], [[0.1, 0.1]], sample="line one\nline two")
     write_text_series(ds, tmp_path)
     assert read_series(tmp_path).attrs["sample"] == "line one\nline two"
@@ -460,7 +460,7 @@ def test_q_unit_from_column_header(tmp_path, header, factor):
     np.testing.assert_allclose(read_series(path).q.values, factor * Q, rtol=1e-15)  # 1/A = 10/nm
 
 
-def test_equal_width_columns_with_different_layouts(tmp_path):
+def test_equal_width_columns_with_different_layouts(tmp_path, few_points):
     # every row the same length, but the columns differ in layout ("2.2323" vs "811596"):
     # each column must be parsed with its own layout; Python's float is the reference
     rows = ["0.1000 811596 0.5000", "0.2000 702113 0.2500", "0.3000 612000 0.1250"]

@@ -81,3 +81,28 @@ def test_explore_adds_the_panel_with_a_background(prep):
     ns = {"ds": ds, "background": bg, "saxsnb": saxsnb}
     exec(dash.to_code(), ns)
     xr.testing.assert_identical(ns["preparation"], dash.panels["preparation"].result)
+
+
+def test_long_series_map_is_shown_in_blocks():
+    from saxsnb.display.plots import similarity_map
+    from saxsnb.widgets.preparation import MAP_CELLS
+
+    rng = np.random.default_rng(1234)
+    q = np.linspace(0.1, 3.0, 60)
+    n = 450
+    I = np.exp(-q**2) + 0.01 * rng.normal(size=(n, q.size))
+    I[300:] += 0.05 * np.exp(-(q / 0.5) ** 2)  # a change from frame 300 on
+    ds = saxsnb.from_arrays(q, I, np.full_like(I, 0.01))
+    bg = saxsnb.from_arrays(q, np.zeros(q.size), np.full(q.size, 0.01))
+    p = PreparationPanel(ds, bg)
+    full = PreparationPanel._map_values(p.similarity())
+    m = similarity_map(full, max_cells=MAP_CELLS)
+    assert p.cells.color.shape == (150, 150) and max(p.cells.color.shape) <= MAP_CELLS  # blocks of 3
+    # each block shows its most dissimilar pair
+    assert p.cells.color[0, 149] == full[0:3, 447:450].max()
+    np.testing.assert_array_equal(p.cells.color, m["values"])
+    assert p.cells.row.tolist() == (np.arange(0, n + 1, 3) - 0.5).tolist()
+    p.select_cell(101)  # map row 101 = frames 303..305: the first becomes current
+    assert p.frame == 303
+    p.cells.set_state({"selected": [[10, 2]]})
+    assert p.frame == 30

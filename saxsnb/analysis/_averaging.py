@@ -116,20 +116,44 @@ def average_frames(q, intensity, sigma, *, labels=None, include=None) -> dict[st
         starts = np.flatnonzero(np.r_[True, g_of[1:] != g_of[:-1]])
         in_order = rows.size == I.shape[0] and np.array_equal(rows, np.arange(rows.size))
         Ir, Sr = (I, S) if in_order else (I[rows], S[rows])
-        ok = np.isfinite(Ir) & np.isfinite(Sr)
         present = g_of[starts]
-        if ok.all():  # the common case: no masked point, no copies
-            k[present] = np.diff(np.r_[starts, rows.size])[:, None]
-            total[present] = np.add.reduceat(Ir, starts, axis=0)
-            var[present] = np.add.reduceat(Sr * Sr, starts, axis=0)
+        sizes = np.diff(np.r_[starts, rows.size])
+        nq = I.shape[1]
+        if sizes.size and bool((sizes == sizes[0]).all()):
+            # groups of equal size (blocks, or all frames): one reshape, sums over the
+            # middle axis, squares summed without a temporary (einsum)
+            m = int(sizes[0])
+            I3, S3 = Ir.reshape(-1, m, nq), Sr.reshape(-1, m, nq)
+            with np.errstate(invalid="ignore", over="ignore"):
+                # a (1, m) x (m, n_q) product per group (BLAS) sums the repeats fastest
+                tot_p = np.matmul(np.ones((1, m)), I3)[:, 0, :]
+                var_p = np.einsum("gmq,gmq->gq", S3, S3)
         else:
+            with np.errstate(invalid="ignore", over="ignore"):
+                tot_p = np.add.reduceat(Ir, starts, axis=0)
+                var_p = np.add.reduceat(Sr * Sr, starts, axis=0)
+        # a non-finite input makes its sum non-finite: checked on the sums, not on the input
+        if bool(np.isfinite(tot_p).all() and np.isfinite(var_p).all()):
+            if present.size == G:  # every group has frames (sorted: row g is group g): means in place
+                tot_p /= sizes[:, None]
+                np.sqrt(var_p, out=var_p)
+                var_p /= sizes[:, None]
+                return {"intensity": tot_p, "sigma": var_p, "n_averaged": np.bincount(lab[inc], minlength=G),
+                        "members": members}
+            else:
+                k[present] = sizes[:, None]
+                total[present] = tot_p
+                var[present] = var_p
+        else:
+            ok = np.isfinite(Ir) & np.isfinite(Sr)
             k[present] = np.add.reduceat(ok.astype(float), starts, axis=0)
             total[present] = np.add.reduceat(np.where(ok, Ir, 0.0), starts, axis=0)
             var[present] = np.add.reduceat(np.where(ok, Sr**2, 0.0), starts, axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(k > 0, total / k, np.nan)
         sig = np.where(k > 0, np.sqrt(var) / k, np.nan)
-    return {"intensity": mean, "sigma": sig, "n_averaged": members.sum(axis=1), "members": members}
+    n_avg = np.bincount(lab[inc], minlength=G) if nf else np.zeros(G, dtype=np.int64)
+    return {"intensity": mean, "sigma": sig, "n_averaged": n_avg, "members": members}
 
 
 def rebin(q, intensity, sigma, n: int, *, spacing: str = "log", q_range=None) -> dict[str, np.ndarray]:

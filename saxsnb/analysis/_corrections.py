@@ -81,9 +81,37 @@ def subtract_background(
     _broadcast(I, B, ("intensity", "bg_intensity"))
     _broadcast(B, BS, ("bg_intensity", "bg_sigma"))
     _broadcast(I, scale, ("intensity", "scale"))
-    out_i = I - scale * B
-    out_s = np.hypot(S, scale * BS)
-    return out_i, np.broadcast_to(out_s, out_i.shape).copy()
+    shape = np.broadcast_shapes(I.shape, S.shape, B.shape, BS.shape, np.shape(scale))
+    out_i = np.empty(shape)
+    out_s = np.empty(shape)
+    if not out_i.size:
+        return out_i, out_s
+    n_q = shape[-1] if shape else 1
+    views = [np.broadcast_to(a, shape).reshape(-1, n_q) if np.ndim(a) else a
+             for a in (I, S, B, BS, scale)]
+    I2, S2, B2, BS2, sc2 = views
+    oi, os_ = out_i.reshape(-1, n_q), out_s.reshape(-1, n_q)
+    one = np.ndim(scale) == 0 and scale == 1.0
+    # in cache-sized blocks of rows, in place: each value is read and written once
+    step = max(1, 16384 // n_q)
+    tmp = np.empty((min(step, oi.shape[0]), n_q))
+    with np.errstate(invalid="ignore", over="ignore"):
+        for a in range(0, oi.shape[0], step):
+            b = slice(a, a + step)
+            t = tmp[: oi[b].shape[0]]
+            if one:
+                np.subtract(I2[b], B2[b], out=oi[b])
+                np.multiply(BS2[b], BS2[b], out=t)
+            else:
+                f = sc2 if np.ndim(sc2) == 0 else sc2[b]
+                np.multiply(B2[b], f, out=t)
+                np.subtract(I2[b], t, out=oi[b])
+                np.multiply(BS2[b], f, out=t)
+                np.multiply(t, t, out=t)
+            np.multiply(S2[b], S2[b], out=os_[b])
+            np.add(os_[b], t, out=os_[b])
+            np.sqrt(os_[b], out=os_[b])
+    return out_i, out_s
 
 
 def scale_intensity(

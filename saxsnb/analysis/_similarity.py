@@ -66,6 +66,29 @@ def _longest_true_run(e: np.ndarray) -> np.ndarray:
     return length
 
 
+def _longest_equal_run_columns(sT: np.ndarray) -> np.ndarray:
+    """Longest run of equal consecutive values down each column of a 2-D bool array
+    ``sT`` (n_points, n_curves), in points (0 for no point).
+
+    One pass down the points, each step vectorised over all curves (the run length
+    so far: ``L = (L + 1) * same``), so the memory touched per step is one row of
+    ``sT``: every curve at once in a few small, cache-resident arrays.
+    """
+    n, P = sT.shape
+    if n == 0 or P == 0:
+        return np.zeros(P, dtype=np.int64)
+    dt = np.uint16 if n < 65000 else np.int64
+    L = np.zeros(P, dtype=dt)
+    best = np.zeros(P, dtype=dt)
+    same = np.empty(P, dtype=bool)
+    for j in range(1, n):  # over q points, each step over every curve
+        np.equal(sT[j], sT[j - 1], out=same)
+        np.add(L, 1, out=L)
+        np.multiply(L, same, out=L)
+        np.maximum(best, L, out=best)
+    return best.astype(np.int64) + 1
+
+
 def longest_same_sign_run(difference) -> np.ndarray:
     """Longest run of consecutive points with the same sign of a difference.
 
@@ -216,8 +239,9 @@ def _pair_stats(A, SA, b, sb, test):
     """Score and p-value of each row of A (m, n) against curve b (n,)."""
     n = A.shape[1]
     if test == "cormap":
-        s = A >= b
-        C = 1 + _longest_true_run(s[:, 1:] == s[:, :-1]) if n else np.zeros(A.shape[0], int)
+        sT = np.empty((n, A.shape[0]), dtype=bool)
+        np.greater_equal(A.T, b[:, None], out=sT)  # points down, curves across
+        C = _longest_equal_run_columns(sT)
         return C.astype(float), longest_run_pvalue(n, C)
     chi = ((A - b) ** 2 / (SA**2 + sb**2)).sum(axis=1)
     return chi / n, _chi2_pvalue(chi, n)
@@ -286,6 +310,9 @@ def pairwise_similarity(q, intensity, sigma=None, *, test: str = "cormap",
     if n == 0 or m < 2:
         return {"score": score, "p_value": pval}
     per_row = max(1, block_elements // max(n, 1))
+    if test == "cormap":  # one byte per pair and point: blocks of 4x the elements, fewer steps
+        per_row = max(1, 4 * block_elements // max(n, 1))
+    AT = None
     sc = np.full((m, m), np.nan)
     pv = np.full((m, m), np.nan)
     i = 0
@@ -298,9 +325,14 @@ def pairwise_similarity(q, intensity, sigma=None, *, test: str = "cormap",
         ii = np.concatenate([np.full(m - 1 - a, a) for a in range(i, j)])
         jj = np.concatenate([np.arange(a + 1, m) for a in range(i, j)])
         if test == "cormap":
-            s = A[ii] >= A[jj]
-            C = 1 + _longest_true_run(s[:, 1:] == s[:, :-1])
-            sc[ii, jj] = C
+            if AT is None:
+                AT = np.ascontiguousarray(A.T)
+            sT = np.empty((n, count), dtype=bool)
+            off = 0
+            for a in range(i, j):  # one comparison per row of the block, all its pairs at once
+                np.greater_equal(AT[:, a + 1 :], AT[:, a : a + 1], out=sT[:, off : off + m - 1 - a])
+                off += m - 1 - a
+            sc[ii, jj] = _longest_equal_run_columns(sT)
         else:
             sc[ii, jj] = ((A[ii] - A[jj]) ** 2 / (SA[ii] ** 2 + SA[jj] ** 2)).sum(axis=1) / n
         i = j
@@ -379,14 +411,19 @@ def compare_frames(q, intensity, sigma=None, *, test: str = "cormap", reference:
     if idx.size < 3:
         raise SaxsInputError(f"only {idx.size} q points are finite in every frame; at least 3 are needed",
                              parameter="intensity")
-    A = I[:, idx]
-    SA = S[:, idx] if S is not None else None
+    whole = idx.size == I.shape[1]  # usually every point: no copies
+    A = I if whole else I[:, idx]
+    SA = (S if whole else S[:, idx]) if S is not None else None
     others = np.flatnonzero(has & (np.arange(nf) != ref))
     score = np.full(nf, np.nan)
     pval = np.full(nf, np.nan)
     if others.size:
-        sc, pv = _pair_stats(A[others], None if SA is None else SA[others], A[ref],
-                             None if SA is None else SA[ref], test)
+        if others.size == nf - 1:  # all frames have data: every row at once, the reference dropped after
+            sc, pv = _pair_stats(A, SA, A[ref], None if SA is None else SA[ref], test)
+            sc, pv = sc[others], pv[others]
+        else:
+            sc, pv = _pair_stats(A[others], None if SA is None else SA[others], A[ref],
+                                 None if SA is None else SA[ref], test)
         score[others], pval[others] = sc, pv
     padj = adjust_pvalues(pval, correction)
     status = np.where(has, "ok", "no_data").astype("<U32")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable
 from pathlib import Path
 
@@ -52,11 +53,32 @@ def _atomic_write_text(path: Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def write_frames(ds, folder, *, prefix: str, scan: str, tag: str) -> list[Path]:
+def _trailer_text(meta: dict, style: str) -> str:
+    """Trailing metadata after the rows: a JSON object or ``key: value`` lines (nested
+    keys joined with dots; a ``{"value", "units"}`` pair as ``value units``)."""
+    if style == "json":
+        return json.dumps(meta, indent=2) + "\n"
+
+    def flat(d, prefix=""):
+        for k, v in d.items():
+            if isinstance(v, dict) and set(v) != {"value", "units"}:
+                yield from flat(v, f"{prefix}{k}.")
+            elif isinstance(v, dict):
+                yield f"{prefix}{k}", f"{v['value']} {v['units']}"
+            else:
+                yield f"{prefix}{k}", v
+
+    return "".join(f"{k}: {v}\n" for k, v in flat(meta))
+
+
+def write_frames(ds, folder, *, prefix: str, scan: str, tag: str, trailers=None,
+                 trailer_style: str = "json") -> list[Path]:
     """Write every frame of ``ds`` to ``folder/<prefix>_<tag>_<index>.dat``, atomically.
 
     The header records the frame index, sample, units, the scan value and its units;
-    the columns are q (1/nm), I and sigma.
+    the columns are q (1/nm), I and sigma. ``trailers`` (one dict per frame) are written
+    after the rows as trailing metadata, a JSON object (``trailer_style="json"``) or
+    ``key: value`` lines (``"colon"``), as instrument software often does (common practice).
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -77,6 +99,8 @@ def write_frames(ds, folder, *, prefix: str, scan: str, tag: str) -> list[Path]:
             "# q I sigma\n"
         )
         body = row_block % tuple(np.column_stack([q, I[i], S[i]]).ravel().tolist())
+        if trailers is not None:
+            body += _trailer_text(trailers[i], trailer_style)
         path = folder / f"{prefix}_{tag.format(v)}_{i:04d}.dat"
         _atomic_write_text(path, head + body)
         paths.append(path)

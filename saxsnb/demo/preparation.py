@@ -21,12 +21,18 @@ relative intensity unit is ``INSTRUMENT_GAIN`` times 1/cm:
     x written q).
 
 All files share one q grid, 0.08 .. 6 1/nm (written q), and the header format of
-:func:`saxsnb.demo.files.write_frames`. The truth is in :data:`TRUTH`.
+:func:`saxsnb.demo.files.write_frames`. After the rows, sample files carry a JSON object
+and buffer, empty and water files ``key: value`` lines: ``timestamp`` (ISO 8601),
+``exposure.time`` and, for sample and buffer, ``beam.transmission`` and
+``beam.wavelength``. Sample and buffer intensities are as measured (times their
+transmission, :data:`TRANSMISSION`); divide by it on subtraction
+(``subtract(..., transmission="beam.transmission")``). The truth is in :data:`TRUTH`.
 """
 
 from __future__ import annotations
 
 import json
+from datetime import datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +41,8 @@ from ..analysis import water_cross_section
 from ..series import from_arrays
 from ._common import counting_noise, sphere_form_factor
 
-__all__ = ["write_preparation", "preparation_series", "TRUTH", "Q_SCALE", "INSTRUMENT_GAIN", "N_DAMAGED"]
+__all__ = ["write_preparation", "preparation_series", "TRUTH", "Q_SCALE", "INSTRUMENT_GAIN", "N_DAMAGED",
+           "TRANSMISSION"]
 
 #: True q = Q_SCALE x written q (the written q scale is 2 % off).
 Q_SCALE = 0.98
@@ -48,6 +55,12 @@ N_REPEATS = 10
 AGGREGATE_RG = 6.0
 #: Counts per written intensity unit (noise level).
 COUNTS = 400.0
+#: X-ray transmission of the sample and of the buffer, in their files' trailing metadata
+#: (``beam.transmission``); their intensities are as measured, not yet divided by it.
+#: Water, empty cell and standard are written already divided by their transmission.
+TRANSMISSION = {"sample": 0.84, "buffer": 0.85}
+#: Wall-clock start of the first exposure (ISO 8601); each file's ``timestamp``.
+START = "2026-03-14T09:30:00"
 
 TRUTH = {
     "q_scale": Q_SCALE,
@@ -93,8 +106,9 @@ def preparation_series(seed: int = 0) -> dict:
     excess = np.outer(damage * TRUTH["i0_per_cm"], np.exp(-(q * AGGREGATE_RG) ** 2 / 3))
     cell = _cell(q)
     buf = cell + buffer_level
-    sample_model = k * (cell + TRUTH["buffer_scale"] * buffer_level + protein + excess)
-    buffer_model = k * np.tile(buf, (N_REPEATS, 1))
+    sample_model = (TRANSMISSION["sample"] * k
+                    * (cell + TRUTH["buffer_scale"] * buffer_level + protein + excess))
+    buffer_model = TRANSMISSION["buffer"] * k * np.tile(buf, (N_REPEATS, 1))
     empty_model = k * np.tile(cell, (3, 1))
     water_model = k * np.tile(cell + water_cross_section(TRUTH["water_temperature_c"]), (3, 1))
     q1 = 2 * np.pi / TRUTH["d_spacing_nm"]
@@ -128,6 +142,10 @@ from closed forms by `saxsnb.demo.preparation.preparation_series(seed={seed})`.
 - `empty/`: the empty cell; `water/`: water at 20 degC in the cell;
 - `standard/`: silver behenate (d = 5.8380 nm), written with the q scale 2 % off.
 
+After the rows of numbers, sample files carry a JSON object and the others `key: value`
+lines: `timestamp`, `exposure.time`, and for sample and buffer `beam.transmission` (their
+intensities are not yet divided by it) and `beam.wavelength`.
+
 Intensities are in the instrument's relative unit ({gain:g} x 1/cm). Read a folder with
 `saxsnb.read_series("preparation/sample/*.dat", scan="exposure_start")`.
 The truth: {truth}
@@ -142,8 +160,23 @@ def write_preparation(folder, seed: int = 0) -> Path:
     from .files import _atomic_write_text, write_frames
 
     folder = Path(folder)
+    start = datetime.fromisoformat(START)
     for name, ds in preparation_series(seed).items():
-        write_frames(ds, folder / name, prefix=f"gp31_{name}", scan="exposure_start", tag="t{:05.1f}s")
+        trailers, style = None, "json"
+        if name != "standard":
+            # trailing metadata as instrument software appends it: sample files a JSON
+            # object, the others key: value lines (nested keys flattened with dots on read)
+            trailers = []
+            for t in ds["exposure_start"].values:
+                meta = {"timestamp": (start + timedelta(seconds=float(t))).isoformat(),
+                        "exposure": {"time": {"value": 1.0, "units": "s"}}}
+                if name in TRANSMISSION:
+                    meta["beam"] = {"transmission": TRANSMISSION[name],
+                                    "wavelength": {"value": 0.1, "units": "nm"}}
+                trailers.append(meta)
+            style = "json" if name == "sample" else "colon"
+        write_frames(ds, folder / name, prefix=f"gp31_{name}", scan="exposure_start", tag="t{:05.1f}s",
+                     trailers=trailers, trailer_style=style)
     _atomic_write_text(folder / "README.md", _README.format(seed=seed, n_damaged=N_DAMAGED,
                                                            gain=INSTRUMENT_GAIN, truth=json.dumps(TRUTH)))
     return folder

@@ -14,6 +14,7 @@ from ..analysis._linear import linear_plot
 from ..errors import SaxsInputError
 
 __all__ = [
+    "similarity_map",
     "linear_x",
     "q_from_linear_x",
     "line_coefficients",
@@ -271,3 +272,39 @@ def errorbar_segments(q, intensity, sigma, *, floor: float | None = None):
     y[1::3] = I + S
     y[2::3] = np.nan
     return x, y
+
+
+def similarity_map(values, *, max_cells: int = 200) -> dict:
+    """Shrink a (n_frames, n_frames) pair map to at most ``max_cells`` x ``max_cells``
+    blocks of consecutive frames, each showing the largest value of its pairs (for
+    -log10 p: the most dissimilar pair, so that no change is averaged away).
+
+    Parameters
+    ----------
+    values : array (n, n)
+    max_cells : int
+        Largest number of blocks along each side.
+
+    Returns
+    -------
+    dict with ``values`` (n_blocks, n_blocks), ``frame_start`` (n_blocks,) the first
+    frame of each block, ``edges`` (n_blocks + 1,) the block edges in frame units
+    (``start - 0.5``, last ``n - 0.5``) and ``step`` (frames per block, 1 when nothing
+    was merged).
+
+    Examples
+    --------
+    >>> m = similarity_map(np.arange(16.0).reshape(4, 4), max_cells=2)
+    >>> m["values"].tolist(), m["frame_start"].tolist(), m["edges"].tolist(), m["step"]
+    ([[5.0, 7.0], [13.0, 15.0]], [0, 2], [-0.5, 1.5, 3.5], 2)
+    """
+    v = np.asarray(values, dtype=float)
+    if v.ndim != 2 or v.shape[0] != v.shape[1]:
+        raise SaxsInputError(f"values has shape {v.shape}; expected (n, n)", parameter="values")
+    n = v.shape[0]
+    if n == 0:
+        return {"values": v, "frame_start": np.zeros(0, np.int64), "edges": np.array([-0.5]), "step": 1}
+    starts = _block_edges(n, max_cells)
+    step = int(starts[1] - starts[0]) if starts.size > 1 else 1
+    out = v if step == 1 else np.maximum.reduceat(np.maximum.reduceat(v, starts, axis=0), starts, axis=1)
+    return {"values": out, "frame_start": starts, "edges": np.append(starts, n) - 0.5, "step": step}

@@ -95,6 +95,7 @@ class RawFile:
     comma: bool = False
     cut_check: int = -1
     attr_lines: dict[str, int] = field(default_factory=dict)
+    key_lines: dict = field(default_factory=dict)
 
 
 def _floatable(tokens) -> bool:
@@ -114,13 +115,15 @@ def _classify_key(raw_key: str) -> tuple[str, str]:
     raw_key = raw_key.strip()
     if raw_key.lower().startswith("attr.") and len(raw_key) > 5:
         return "attr", raw_key[5:].strip()
-    key = re.sub(r"\W+", "_", raw_key.lower()).strip("_")
+    # nested keys (a JSON trailer, ``beam.wavelength = ...``) keep their dots
+    key = re.sub(r"\.+", ".", re.sub(r"[^\w.]+", "_", raw_key.lower())).strip("_.")
     if key in _Q_KEYS:
         return "q_unit", key
     if key in _I_KEYS:
         return "intensity_unit", key
-    if key.endswith("_units") or key.endswith("_unit"):
-        return "units", key.rsplit("_", 1)[0]
+    for end in ("_units", "_unit", ".units", ".unit"):
+        if key.endswith(end) and len(key) > len(end):
+            return "units", key[: -len(end)]
     return "meta", key
 
 
@@ -136,37 +139,186 @@ def _depth(text: str) -> int:
     return best
 
 
+def _put(raw: RawFile, raw_key: str, value: str, line: int, trailer_line: int = 0) -> None:
+    """Store one ``key = value`` of the header (``trailer_line == 0``) or of the trailing
+    metadata (then a key the header gave another value is an error naming both lines)."""
+    kind, key = _classify_key(raw_key.rstrip(" \t"))
+    if not key:
+        return
+    if kind == "attr":
+        if value[:1] in ("[", "{") and _depth(value) > _MAX_DEPTH:
+            raise SaxsFileError(
+                f"attr.{key} is nested more than {_MAX_DEPTH} levels deep", path=raw.path, line=line
+            )
+        try:
+            parsed = json.loads(value)
+        except ValueError:
+            parsed = value
+        old, store = raw.attrs.get(key, parsed), raw.attrs
+    elif kind == "meta":
+        old, store = raw.meta.get(key, value), raw.meta
+    elif kind == "units":
+        old, store = raw.units.get(key, value), raw.units
+    else:
+        old = getattr(raw, kind) or value
+        store = None
+    if trailer_line and old != (parsed if kind == "attr" else value):
+        first = raw.key_lines.get((kind, key))
+        where = f" (line {first})" if first else ""
+        raise SaxsFileError(
+            f"the trailing metadata gives {key!r} = {value!r} but the header{where} gives {old!r}",
+            path=raw.path,
+            line=line,
+        )
+    raw.key_lines[(kind, key)] = line
+    if store is None:
+        setattr(raw, kind, value)
+    elif kind == "attr":
+        store[key] = parsed
+        raw.attr_lines[key] = line
+    else:
+        store[key] = value
+
+
 def _header(raw: RawFile, text: str) -> None:
     for m in _KEYVAL.finditer(text):
         raw_key, value = m.group(1), m.group(2)
-        value = value.rstrip(" \t\r")
-        kind, key = _classify_key(raw_key.rstrip(" \t"))
-        if not key:
-            continue
-        if kind == "meta":
-            raw.meta[key] = value
-        elif kind == "units":
-            raw.units[key] = value
-        elif kind == "q_unit":
-            raw.q_unit = value
-        elif kind == "intensity_unit":
-            raw.intensity_unit = value
-        else:
-            line = text.count("\n", 0, m.start()) + 1
-            if value[:1] in ("[", "{") and _depth(value) > _MAX_DEPTH:
-                raise SaxsFileError(
-                    f"attr.{key} is nested more than {_MAX_DEPTH} levels deep", path=raw.path, line=line
-                )
-            try:
-                parsed = json.loads(value)
-            except ValueError:
-                parsed = value
-            raw.attrs[key] = parsed
-            raw.attr_lines[key] = line
+        _put(raw, raw_key, value.rstrip(" \t\r"), text.count("\n", 0, m.start()) + 1)
     if raw.q_unit is None:
         qm = _QCOLUMN.search(text)
         if qm:
             raw.q_unit = qm.group(1).strip()
+
+
+# a line of a trailing metadata section: blank, a comment, a [title] or key = value / key: value
+_TRAILER_LINE = re.compile(
+    rb"^[ \t]*(?:#[^\n]*|\[[^\]\n]*\][ \t]*|#?[ \t]*[A-Za-z_][\w \t.\-]*[=:][^\n]*|)\r?$"
+)
+_KEYVAL_BYTES = re.compile(rb"^[ \t]*[A-Za-z_][\w \t.\-]*[=:]")
+_SPACE = frozenset(b" \t\r\n")
+
+
+def _trailer_start(data: bytes, after: int) -> int | None:
+    """Where a trailing metadata section starts (a line start after position ``after``,
+    the end of the first data row), or None when the file ends with a row of numbers.
+
+    The section is a JSON object (from a line starting with ``{``) and/or ``key = value``
+    / ``key: value`` lines, comments and blank lines, up to the end of the file; it is
+    never data (a row after it makes the file an error)."""
+    j = len(data)
+    while True:
+        while j > after and data[j - 1] in _SPACE:
+            j -= 1
+        if j <= after:
+            return None
+        ls = data.rfind(b"\n", 0, j) + 1
+        if ls <= after:
+            return None
+        k = ls
+        while data[k] in (32, 9):
+            k += 1
+        if data[k] != 35:  # not a comment line
+            break
+        j = ls
+    if _NUMROW.match(data, ls):
+        return None  # ends with a row of numbers: no trailer
+    jp = data.find(b"\n{", after)
+    t0 = jp + 1 if 0 <= jp < ls else ls
+    while True:  # metadata lines just above belong to the section too
+        ps = data.rfind(b"\n", 0, t0 - 1) + 1
+        if ps <= after or not _TRAILER_LINE.match(data[ps : t0 - 1]):
+            return t0
+        t0 = ps
+
+
+def _flatten(obj: dict, prefix: str, out: list) -> None:
+    for k, v in obj.items():
+        name = f"{prefix}{k}"
+        if isinstance(v, dict):
+            unit_key = next((u for u in ("units", "unit") if u in v), None)
+            if unit_key and set(v) == {"value", unit_key} and not isinstance(v["value"], (dict, list)):
+                out.append((name, v["value"]))
+                out.append((f"{name}_units", v[unit_key]))
+            else:
+                _flatten(v, f"{name}.", out)
+        else:
+            out.append((name, v))
+
+
+def _json_text(value) -> str | None:
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, (int, str)):
+        return str(value)
+    return None
+
+
+def _trailer(raw: RawFile, data: bytes, t0: int) -> None:
+    """Read the trailing metadata section starting at byte ``t0`` into ``raw``."""
+    _refuse_control(raw.path, data, t0)
+    first = _line_of(data, t0)
+    try:
+        text = data[t0:].decode("utf-8")
+    except UnicodeDecodeError:
+        text = data[t0:].decode("latin-1")
+    decoder = json.JSONDecoder()
+    pos, n = 0, len(text)
+    while pos < n:
+        end = text.find("\n", pos)
+        end = n if end < 0 else end
+        line = text[pos:end]
+        lineno = first + text.count("\n", 0, pos)
+        stripped = line.strip()
+        if stripped.startswith("{"):
+            brace = pos + line.index("{")
+            if _depth(text[brace:]) > _MAX_DEPTH:
+                raise SaxsFileError(
+                    f"the trailing JSON metadata is nested more than {_MAX_DEPTH} levels deep",
+                    path=raw.path,
+                    line=lineno,
+                )
+            try:
+                obj, stop = decoder.raw_decode(text, brace)
+            except ValueError as exc:
+                where = first + text.count("\n", 0, getattr(exc, "pos", brace))
+                raise SaxsFileError(
+                    f"the trailing metadata is not valid JSON: {getattr(exc, 'msg', exc)}",
+                    path=raw.path,
+                    line=where,
+                ) from None
+            items: list = []
+            _flatten(obj, "", items)
+            for key, value in items:
+                if isinstance(value, list):
+                    _put(raw, f"attr.{key}", json.dumps(value), lineno, trailer_line=lineno)
+                    continue
+                shown = _json_text(value)
+                if shown is not None:
+                    _put(raw, key, shown.strip(), lineno, trailer_line=lineno)
+            rest_end = text.find("\n", stop)
+            rest_end = n if rest_end < 0 else rest_end
+            if text[stop:rest_end].strip():
+                raise SaxsFileError(
+                    "text after the JSON object on the same line", path=raw.path,
+                    line=first + text.count("\n", 0, stop),
+                )
+            pos = rest_end + 1
+            continue
+        m = _KEYVAL.match(line)
+        if m is not None:
+            _put(raw, m.group(1), m.group(2).rstrip(" \t\r"), lineno, trailer_line=lineno)
+        elif stripped and not stripped.startswith("#") and not (stripped[0] == "[" and stripped[-1] == "]"):
+            raise SaxsFileError(
+                "after the data, a line that is neither 'key = value', 'key: value', a JSON object nor "
+                "a '#' comment (rows of data cannot follow the trailing metadata)",
+                path=raw.path,
+                line=lineno,
+            )
+        pos = end + 1
 
 
 def _row_tokens(line: bytes) -> list[bytes]:
@@ -242,19 +394,24 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
         text = data[:start].decode("utf-8")
     except UnicodeDecodeError:
         text = data[:start].decode("latin-1")
+    t0 = _trailer_start(data, end)
+    stop = len(data) if t0 is None else t0
     body: bytes | memoryview
-    if data.find(b"#", start) >= 0:
-        body = _strip_comments(data[start:])
+    if data.find(b"#", start, stop) >= 0:
+        body = _strip_comments(data[start:stop])
         if not body.endswith(b"\n"):
             body += b"\n"
-    elif data.endswith(b"\n"):
-        body = memoryview(data)[start:]  # no copy; joined with the others later
+    elif t0 is not None or data.endswith(b"\n"):
+        body = memoryview(data)[start:stop]  # no copy; joined with the others later
     else:
         body = data[start:] + b"\n"
     raw = RawFile(path, name, body, _line_of(data, start), len(tokens), source=data)
-    raw.cut_check = -1 if data.endswith(b"\n") else start  # checked once the rows have parsed
+    # a last value cut short: checked once the rows have parsed
+    raw.cut_check = -1 if (t0 is not None or data.endswith(b"\n")) else start
     raw.comma = b"," in line
     _header(raw, text)
+    if t0 is not None:
+        _trailer(raw, data, t0)
     return raw
 
 
@@ -305,8 +462,9 @@ def _refuse_truncated(path: str, data: bytes, start: int) -> None:
 
 def _refuse_malformed_before(path: str, data: bytes, start: int, ncols: int) -> None:
     """The line just before the first row of data, with as many tokens as the rows and
-    every token holding a digit (at least one a number), is a damaged row, not header:
-    ``0.1 1e5e3 0.2`` or ``0x10 5.0``."""
+    every token holding a digit (at least one a number), or with 3 or 4 tokens all but
+    one of them numbers, is a damaged row, not header: ``0.1 1e5e3 0.2``, ``0x10 5.0``,
+    ``0.1 abc 0.3``."""
     if start < 2:
         return
     prev_start = data.rfind(b"\n", 0, start - 1) + 1
@@ -314,9 +472,14 @@ def _refuse_malformed_before(path: str, data: bytes, start: int, ncols: int) -> 
     if not line or line.startswith(b"#"):
         return
     tokens = _row_tokens(_strip_comments(line))
-    if len(tokens) != ncols or not all(any(48 <= c <= 57 for c in t) for t in tokens):
+    if len(tokens) != ncols:
         return
     good = [t for t in tokens if _floatable([t])]
+    # every token holds a digit, or (3 or 4 columns) all but one cell are numbers:
+    # ``0.1 abc 0.3`` is a row with a bad cell; ``Temperature 25.0`` (2 columns) stays header
+    digits = all(any(48 <= c <= 57 for c in t) for t in tokens)
+    if not (digits or (ncols >= 3 and len(good) >= ncols - 1)):
+        return
     if good and len(good) < len(tokens):
         bad = next(t for t in tokens if not _floatable([t]))
         raise SaxsFileError(
@@ -352,6 +515,13 @@ def _line_errors(raw: RawFile) -> SaxsFileError:
         for t in tokens:
             if not _floatable([t]):
                 shown = t.decode("utf-8", "replace")
+                if _KEYVAL_BYTES.match(line) or line.startswith(b"{"):
+                    return SaxsFileError(
+                        f"cannot read {shown!r} as a number: a metadata line among the rows of data, or "
+                        "rows after the trailing metadata (metadata may only follow the last row)",
+                        path=raw.path,
+                        line=lineno,
+                    )
                 return SaxsFileError(f"cannot read {shown!r} as a number", path=raw.path, line=lineno)
         if len(tokens) != raw.ncols:
             return SaxsFileError(

@@ -11,6 +11,10 @@ File layout understood by :func:`read_series` (and written by
     # temperature_units = degC          <- its units (or "temperature = 25.5 degC")
     # q I sigma                         <- column header; "q(1/A)" also gives the unit
     1.000000e-01 2.5e+02 1.2e+00        <- 2 to 4 columns: q, I, sigma, dq
+    ...
+    exposure_start: 2024-05-01T12:00:03 <- optional trailing metadata after the rows:
+    transmission = 0.81                    key: value / key = value lines and/or
+    {"beam": {"wavelength": 0.1}}          a JSON object (nested keys: beam.wavelength)
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ import re
 import sys
 from collections.abc import Iterable, Mapping
 from concurrent.futures import ThreadPoolExecutor
+from datetime import datetime
 from pathlib import Path
 
 import numpy as np
@@ -34,13 +39,16 @@ from ._assemble import Curve, build_series
 from ._atomic import atomic_folder
 from ._textparse import parse_bodies, split_file
 
-__all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS"]
+__all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS", "MIN_Q_POINTS"]
 
 #: File extensions picked from a folder (when any such file exists).
 DATA_EXTENSIONS = (".dat", ".txt", ".csv", ".chi", ".xy")
 _BATCH = 128
 _THREADS = min(4, os.cpu_count() or 1) or 1
 _PROGRESS_MIN = 500
+#: Fewest rows of data a curve may have: fewer q points are refused (no fit or
+#: comparison means anything on them; often a file cut short or a summary table).
+MIN_Q_POINTS = 5
 
 
 def _natural_key(path: str):
@@ -167,6 +175,7 @@ def read_series(
     regrid: str | None = None,
     chunks: int | Mapping | None = None,
     progress: bool | None = None,
+    time_from: str | None = None,
 ) -> xr.Dataset:
     """Read a series of text-column curves (one file per frame) into one Dataset.
 
@@ -176,11 +185,21 @@ def read_series(
         A folder (its files ending in .dat, .txt, .csv, .chi or .xy, else all
         non-hidden files), a glob such as ``"run7/*.dat"``, one file or a list of files.
         Columns are separated by whitespace, commas or semicolons; ``#`` starts a
-        comment; lines before the first row of numbers are header. 2, 3 or 4 columns
-        are q, intensity, sigma and dq (q resolution, kept as variable ``dq``).
+        comment; lines before the first row of numbers are header (free text, column
+        names, a row count, ``key = value`` / ``key: value`` lines). 2, 3 or 4 columns
+        are q, intensity, sigma and dq (q resolution, kept as variable ``dq``). After
+        the rows a trailing metadata section may follow, up to the end of the file:
+        ``key = value`` / ``key: value`` lines, ``#`` comments, ``[title]`` lines and
+        JSON objects (starting on a line of their own with ``{``; nested keys are
+        flattened with dots, ``{"beam": {"wavelength": 0.1}}`` gives
+        ``beam.wavelength``; ``{"value": 0.5, "units": "s"}`` gives a value with units;
+        lists become attrs). Header and trailer values are read alike; a key they give
+        different values is an error. Keys are lower-cased, other characters than
+        letters, digits, ``_`` and ``.`` become ``_``; ``<key>_units`` gives the units.
     scan : str, optional
         Name of the scan coordinate; frames are sorted by it and ``attrs["scan"]`` is
-        set. It must come from a header line or ``pattern``.
+        set. It must come from the metadata (header or trailer), ``pattern`` or
+        ``time_from`` (``"time"``).
     pattern : str, optional
         Regular expression with named groups applied to each file name, e.g.
         ``r"T(?P<temperature>[-\\d.]+)C"``; each group becomes a per-frame coordinate
@@ -197,6 +216,12 @@ def read_series(
         Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames).
     progress : bool, optional
         Show a progress bar; by default only for many files in an interactive terminal.
+    time_from : str, optional
+        Name of an ISO 8601 timestamp in the files' metadata (``2024-05-01T12:00:03.5``,
+        with or without a time zone, in all files alike), e.g. ``"exposure_start"``: a
+        per-frame ``time`` coordinate in seconds from the earliest of them (the first
+        frame in acquisition order) is added; ``scan="time"`` then sorts by it. The
+        timestamps stay as text in their own coordinate.
 
     Returns
     -------
@@ -221,6 +246,10 @@ def read_series(
         ``1.#INF`` or ``4#2`` (``#`` starts a comment only after a blank), decimal
         commas (also ``1,5,2`` of integers: ambiguous), control bytes, and a last
         value cut short in a file without final newline.
+        Also refused: a file with fewer than :data:`MIN_Q_POINTS` (5) rows of data,
+        a line after the data that is neither metadata nor a comment (rows of data
+        after the trailing metadata), invalid JSON in the trailer, a timestamp
+        ``time_from`` cannot read.
     SaxsInputError
         Bad arguments, a missing q unit, an unknown scan name.
 
@@ -228,20 +257,83 @@ def read_series(
     --------
     >>> import tempfile, pathlib, numpy as np, saxsnb
     >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> rows = "".join(f"{0.01 * k:.2f} {6 - k} 0.1\\n" for k in range(1, 6))
     >>> for i, T in enumerate([30.0, 20.0]):
     ...     _ = (d / f"s{i}.dat").write_text(
-    ...         f"# temperature = {T} degC\\n# q_unit = 1/A\\n0.01 5 0.1\\n0.02 4 0.1\\n")
-    >>> ds = read_series(d, scan="temperature")
-    >>> ds.temperature.values.tolist(), ds.q.values.tolist(), ds.temperature.attrs["units"]
+    ...         f"# temperature = {T} degC\\n# q_unit = 1/A\\n{rows}"
+    ...         f'{{"exposure_start": "2024-05-01T12:00:0{3 * i}", "transmission": 0.8}}\\n')
+    >>> ds = read_series(d, scan="temperature", time_from="exposure_start")
+    >>> ds.temperature.values.tolist(), ds.q.values[:2].tolist(), ds.temperature.attrs["units"]
     ([20.0, 30.0], [0.1, 0.2], 'degC')
+    >>> ds.time.values.tolist(), ds.time.attrs["units"], ds.transmission.values.tolist()
+    ([3.0, 0.0], 's', [0.8, 0.8])
     """
+    if time_from is not None and not isinstance(time_from, str):
+        raise SaxsInputError("time_from must be the name of a timestamp in the files", parameter="time_from")
     files = find_files(source)
     curves = _curves(files, progress)
+    if time_from is not None:
+        _times(curves, time_from)
     ds = build_series(curves, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid)
-    ds = _record_read(ds, source, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid)
+    short = next((c for c in curves if c.q.size < MIN_Q_POINTS), None)
+    if short is not None:  # checked last: an error in the file itself is named first
+        raise SaxsFileError(
+            f"only {short.q.size} rows of data: a curve needs at least {MIN_Q_POINTS} q points",
+            path=short.path or short.name,
+        )
+    ds = _record_read(
+        ds, source, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid, time_from=time_from
+    )
     if chunks is not None:
         ds = ds.chunk({"frame": int(chunks)} if isinstance(chunks, int) else dict(chunks))
     return ds
+
+
+def _timestamp(text: str) -> datetime | None:
+    t = text.strip()
+    if len(t) < 10 or not _ISO_DATE.match(t):
+        return None
+    try:
+        return datetime.fromisoformat(t[:-1] + "+00:00" if t[-1:] in "Zz" else t)
+    except ValueError:
+        return None
+
+
+_ISO_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}")
+
+
+def _times(curves: list[Curve], key: str) -> None:
+    """Set a numeric ``time`` (seconds from the earliest timestamp ``key``) on each curve."""
+    from ..io._textparse import _classify_key
+
+    name = _classify_key(key)[1]
+    stamps = []
+    for c in curves:
+        if "time" in c.meta and name != "time":
+            raise SaxsFileError(
+                f"has a 'time' value already, so time_from={key!r} cannot make one", path=c.path or c.name
+            )
+        value = c.meta.get(name)
+        if value is None:
+            raise SaxsFileError(f"has no {key!r} value (time_from)", path=c.path or c.name)
+        ts = _timestamp(value)
+        if ts is None:
+            raise SaxsFileError(
+                f"{key} = {value!r} is not an ISO 8601 timestamp such as 2024-05-01T12:00:03.5",
+                path=c.path or c.name,
+            )
+        stamps.append(ts)
+    aware = {ts.tzinfo is not None and ts.utcoffset() is not None for ts in stamps}
+    if len(aware) > 1:
+        c = curves[[ts.tzinfo is None for ts in stamps].index(True)]
+        raise SaxsFileError(
+            f"its {key!r} has no time zone while other files' have one; the times cannot be compared",
+            path=c.path or c.name,
+        )
+    t0 = min(stamps)
+    for c, ts in zip(curves, stamps):
+        c.meta["time"] = repr((ts - t0).total_seconds())
+        c.units["time"] = "s"
 
 
 def _record_read(ds: xr.Dataset, source, **options) -> xr.Dataset:

@@ -8,6 +8,8 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
+from ..display.axes import positive_range
+from ..display.plots import similarity_map
 from ..errors import SaxsError
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
@@ -17,6 +19,8 @@ __all__ = ["PreparationPanel"]
 
 #: Smallest p-value drawn on the map (-log10 p is clipped at 12).
 P_FLOOR = 1e-12
+#: Most cells along a side of the similarity map; longer series are shown in blocks.
+MAP_CELLS = 200
 
 
 class PreparationPanel(PanelBase):
@@ -96,8 +100,16 @@ class PreparationPanel(PanelBase):
 
     # ------------------------------------------------------------------- build
     def _build(self):
+        lo, hi = self.model.positive_range()
+        try:  # the subtracted curves lie below the measured ones: the range holds both
+            slo, shi = positive_range(self.subtracted()["intensity"].values)
+            lo, hi = min(lo, slo), max(hi, shi)
+        except SaxsError:
+            pass
         xs = bq.LogScale() if np.all(self.q > 0) else bq.LinearScale()
-        ys = bq.LogScale()
+        # a fixed y domain: from the data alone bqplot's first draw has none (the lines start
+        # as placeholders) and lays the log axis ticks at translate(0,NaN) in the page
+        ys = bq.LogScale(min=lo, max=hi)
         scales = {"x": xs, "y": ys}
         self.sample_line = bq.Lines(x=self.q, y=np.ones_like(self.q), scales=scales,
                                     colors=[ROLE["data"]], labels=["sample"], stroke_width=1.5)
@@ -106,7 +118,6 @@ class PreparationPanel(PanelBase):
                                         stroke_width=1.5)
         self.subtracted_line = bq.Lines(x=self.q, y=np.ones_like(self.q), scales=scales,
                                         colors=[ROLE["fit"]], labels=["subtracted"], stroke_width=1.5)
-        lo, hi = self.model.positive_range()
         curve_fig = make_figure(
             [self.background_line, self.sample_line, self.subtracted_line], xs, ys,
             x_label=f"q ({self.q_units})", y_label=f"I ({self.intensity_units})",
@@ -129,9 +140,12 @@ class PreparationPanel(PanelBase):
         # fixed domains: the grid of cells alone gives bqplot no data range at first draw
         mx = bq.LinearScale(min=-1.5, max=n - 0.5)
         my = bq.LinearScale(min=-0.5, max=n - 0.5, reverse=True)
-        self.map_values = self._map_values(sim)
+        # a long series: blocks of frames, at most MAP_CELLS a side, each its most dissimilar pair
+        shrunk = similarity_map(self._map_values(sim), max_cells=MAP_CELLS)
+        self.map_values = shrunk["values"]
+        self.map_frames = shrunk["frame_start"]
         cs = bq.ColorScale(scheme=MAP_SCHEME, min=0.0, max=float(-np.log10(P_FLOOR)))
-        edges = np.arange(n + 1, dtype=float) - 0.5
+        edges = shrunk["edges"]
         self.cells = bq.CellTargets(
             color=self.map_values, row=edges, column=edges,
             scales={"row": my, "column": mx, "color": cs},
@@ -202,12 +216,15 @@ class PreparationPanel(PanelBase):
 
     # ---------------------------------------------------------------- clicking
     def select_cell(self, row: int, column: int | None = None) -> None:
-        """Make the frame of map row ``row`` current (the column is the partner frame)."""
+        """Make the frame of map row ``row`` current (the column is the partner frame);
+        on a shrunk map (more than ``MAP_CELLS`` frames) a row is a block of frames and
+        its first frame becomes current."""
         row = int(row)
-        if not 0 <= row < self.n_frames:
-            self.status = f"map row {row} outside 0..{self.n_frames - 1}"
+        n_rows = len(self.map_frames)
+        if not 0 <= row < n_rows:
+            self.status = f"map row {row} outside 0..{n_rows - 1}"
             return
-        self.frame = row
+        self.frame = int(self.map_frames[row])
 
     def _on_cell_click(self, _mark, content) -> None:
         data = content.get("data") or {}
