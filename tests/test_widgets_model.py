@@ -58,7 +58,8 @@ def _count_whole_series_calls(monkeypatch, n_frames):
 
 def test_explore_computes_each_whole_series_analysis_once(monkeypatch, particles):
     counts = _count_whole_series_calls(monkeypatch, particles.sizes["frame"])
-    d = saxsnb.explore(particles)
+    # every default panel named (a particle series alone would leave the peaks panel out)
+    d = saxsnb.explore(particles, panels=("browser", "curve", "guinier", "kratky", "peaks"))
     k = d.panels["kratky"]
     assert k.normalize == "rg"  # the dimensionless plot uses the automatic Guinier fit too
     # before the shared model: 3 automatic Guinier fits (Guinier panel, Kratky panel,

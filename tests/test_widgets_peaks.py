@@ -91,8 +91,10 @@ def test_peaks_panel_reports_analysis_error(cubic_series):
 
 
 def test_explore_all_panels_linked_and_exported(cubic_series):
-    d = saxsnb.explore(cubic_series)
-    assert list(d.panels.keys()) == ["browser", "curve", "guinier", "kratky", "peaks"]
+    # Bragg peaks only: explore() alone would leave the particle panels out; named, all are shown
+    assert list(saxsnb.explore(cubic_series).panels.keys()) == ["browser", "curve", "peaks"]
+    d = saxsnb.explore(cubic_series, panels=("browser", "curve", "guinier", "kratky", "peaks"))
+    assert list(d.panels.keys()) == ["browser", "curve", "guinier", "kratky", "peaks"] and not d.reason
     d.panels["browser"].slider.value = 3
     assert all(p.frame == 3 for p in d.panels.values())
     d.panels["guinier"].q_range = (0.3, 0.6)
@@ -140,7 +142,7 @@ def _check_drawable(panel):
 def test_demo_dashboard_is_drawable(scenario):
     series, background = saxsnb.demo.make_series(scenario, seed=0)
     ds = series.saxs.subtract(background)  # negative intensities at high q after subtraction
-    d = saxsnb.explore(ds, background)
+    d = saxsnb.explore(ds, background, panels=("browser", "curve", "guinier", "kratky", "peaks"))
     d.panels["curve"].every = 10
     for p in d.panels.values():
         _check_drawable(p)

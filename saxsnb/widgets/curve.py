@@ -69,6 +69,9 @@ class CurvePanel(PanelBase):
                 self.overlay = self._init_overlay
                 self.every = self._init_every
 
+    def _background_dataset(self):
+        return self._given_background
+
     def _check_background(self) -> None:
         bg = self._given_background
         if bg is None:

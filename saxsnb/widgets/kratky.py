@@ -190,6 +190,10 @@ class KratkyPanel(PanelBase):
                     self._point_frames[id(mark)] = frames
         return [self.toggle, fig, self.summary_text, tfig, self.trend_key]
 
+    def table_result(self):
+        """``kratky_summary()`` of the whole series (the dashboard's table)."""
+        return self.summary
+
     def _on_toggle(self, change) -> None:
         self.normalize = None if change["new"] == "plain" else "rg"
 

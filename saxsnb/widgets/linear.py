@@ -269,6 +269,13 @@ class LinearFitPanel(PanelBase):
             return self.model.result("porod", q_range=key)
         return self.model.result("guinier", q_range=key, shape=self.shape)
 
+    def table_result(self):
+        """The fit of every frame with the current range (the dashboard's table)."""
+        try:
+            return self.series_result(self.q_range)
+        except Exception:  # the range was refused: the status line says why
+            return self._auto_series
+
     def _compute_trend(self) -> None:
         try:
             self._auto_series = self.series_result(None)
