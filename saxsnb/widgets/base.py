@@ -52,7 +52,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..display import describe_status, drawable_line, log_ticks
+from ..display import describe_status, drawable_line, log_ticks, pretty_label, tick_format
 from ..errors import SaxsInputError
 from . import _bq as bq
 from .model import SeriesModel, as_model
@@ -99,19 +99,43 @@ def make_figure(
             if ticks.size >= 2:
                 kw["tick_values"] = ticks
                 kw["tick_format"] = "~g"
+    for scale, kw in ((x_scale, xkw), (y_scale, ykw)):
+        if not isinstance(scale, bq.LogScale) and scale.min is not None and scale.max is not None:
+            kw["tick_format"] = tick_format(scale.min, scale.max)
     axes = [
-        bq.Axis(scale=x_scale, label=x_label, grid_lines="none", **xkw),
-        bq.Axis(scale=y_scale, label=y_label, side="left", grid_lines="none", **ykw),
+        bq.Axis(scale=x_scale, label=pretty_label(x_label), grid_lines="none", **xkw),
+        bq.Axis(scale=y_scale, label=pretty_label(y_label), side="left", grid_lines="none", **ykw),
     ]
     kw = {"interaction": interaction} if interaction is not None else {}
     return bq.Figure(
         marks=list(marks),
         axes=axes,
-        title=title,
+        title=pretty_label(title),
         fig_margin=dict(FIG_MARGIN),
         animation_duration=0,
         layout=widgets.Layout(width="100%", height=height, min_width="260px"),
         **kw,
+    )
+
+
+def set_ticks(fig, lo: float, hi: float, *, axis: int = 1) -> None:
+    """Give a linear axis of ``fig`` (0: x, 1: y) the tick format of a ``lo .. hi``
+    range (``display.tick_format``: exponents for tiny or huge values)."""
+    ax = fig.axes[axis]
+    if isinstance(ax.scale, bq.LogScale) or lo is None or hi is None:
+        return
+    fmt = tick_format(lo, hi)
+    if ax.tick_format != fmt:
+        ax.tick_format = fmt
+
+
+def key_html(entries) -> str:
+    """A key under a plot (a legend box inside would hide points and block clicks):
+    ``entries`` are (colour, symbol, text); text is escaped."""
+    return (
+        "<small>"
+        + " &nbsp; ".join(f'<span style="color:{c}">{sym}</span> {html.escape(t)}' for c, sym, t in entries)
+        + "</small>"
     )
 
 
@@ -334,19 +358,22 @@ class PanelBase(widgets.VBox):
             layout=widgets.Layout(width="100%", height="9em", display="none"),
         )
         self.png_button = widgets.Button(
-            description="PNG", icon="download", tooltip="Save the main figure as PNG (in the browser)"
+            description="PNG", icon="download",
+            tooltip="A PNG of the whole panel (all its figures, 1800 px wide) to download",
         )
+        #: The download link of the last whole-panel PNG ("PNG" button; a data: URI).
+        self.png_link = widgets.HTML("")
         self.svg_button = widgets.Button(
             description="SVG", icon="download", tooltip="Save the main figure as SVG (in the browser)"
         )
         for b in (self.export_button, self.png_button, self.svg_button):
             b.layout = widgets.Layout(width="auto")
         self.export_button.on_click(lambda _b: self.show_code())
-        self.png_button.on_click(lambda _b: self.save_png())
+        self.png_button.on_click(lambda _b: self._png_from_button())
         self.svg_button.on_click(lambda _b: self.save_svg())
         self.set_trait("frame", self.model.frame)  # no observer yet: nothing is drawn twice
         body = self._build()
-        tools = control_row([self.export_button, self.png_button, self.svg_button])
+        tools = control_row([self.export_button, self.png_button, self.svg_button, self.png_link])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
         # CSS hooks for page tests and styling: the panel and each of its figures
         self.add_class("saxsnb-panel")
@@ -585,24 +612,64 @@ class PanelBase(widgets.VBox):
         return f"saxsnb-{self.name}-frame{self.frame}"
 
     def save_png(self, filename: str | None = None) -> None:
-        """Ask the browser to save the main figure as PNG (needs a live front end)."""
+        """Ask the browser to save the main figure as PNG (needs a live front end);
+        :meth:`to_png` makes a PNG of the whole panel without a browser."""
         self.figure.save_png(filename or self._file_stem() + ".png")
+
+    def to_png(self, path=None, *, width_px: int = 1800, width: float = 8.0) -> bytes:
+        """A PNG of the whole panel (every figure shown, stacked), ``width_px`` wide.
+
+        Drawn by :meth:`to_matplotlib` (no browser needed), at ``width_px / width``
+        dots per inch. With ``path`` it is also written there, atomically.
+
+        Returns
+        -------
+        bytes of the PNG file.
+        """
+        from ..io._atomic import atomic_write_bytes
+
+        if int(width_px) < 1:
+            raise SaxsInputError("width_px must be positive", parameter="width_px")
+        fig = self.to_matplotlib(width=width)
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=int(width_px) / float(width))
+        data = buf.getvalue()
+        if path is not None:
+            atomic_write_bytes(path, data)
+        return data
+
+    def _png_from_button(self) -> None:
+        import base64
+
+        try:
+            data = self.to_png()
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "PNG")
+            return
+        name = self._file_stem() + ".png"
+        self.png_link.value = (
+            f'<a download="{html.escape(name)}" href="data:image/png;base64,'
+            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">&#11015; {html.escape(name)}</a>'
+        )
 
     def save_svg(self, filename: str | None = None) -> None:
         """Ask the browser to save the main figure as SVG (needs a live front end)."""
         self.figure.save_svg(filename or self._file_stem() + ".svg")
 
-    def to_matplotlib(self, *, width: float = 6.0, height_per_plot: float = 3.2):
+    def to_matplotlib(self, *, width: float = 6.0, height_per_plot: float = 3.2, dpi: float | None = None):
         """The panel's plots as a :class:`matplotlib.figure.Figure` for publication.
 
         Draws the current contents of each bqplot figure of the panel (same data,
-        scales, labels and colours), one subplot per figure, without a browser and
-        without pyplot's global state. Save it with ``fig.savefig("name.pdf")``.
+        scales, labels with their symbols and units, colours, error bars), one subplot
+        per figure, without a browser and without pyplot's global state. Save it with
+        ``fig.savefig("name.pdf")`` (vector) or ``fig.savefig("name.png")``; ``dpi``
+        (e.g. 300 for print) is the figure's resolution, used by ``savefig`` too.
         """
         from matplotlib.figure import Figure as MplFigure
 
         figs = [f for f in self.figures if f.layout.display != "none"]
-        mfig = MplFigure(figsize=(width, height_per_plot * len(figs)), layout="constrained")
+        kw = {} if dpi is None else {"dpi": float(dpi)}
+        mfig = MplFigure(figsize=(width, height_per_plot * len(figs)), layout="constrained", **kw)
         axes = mfig.subplots(len(figs), 1, squeeze=False)[:, 0]
         for ax, fig in zip(axes, figs):
             figure_to_matplotlib(fig, ax)
