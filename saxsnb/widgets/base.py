@@ -649,7 +649,8 @@ class PanelBase(widgets.VBox):
         name = self._file_stem() + ".png"
         self.png_link.value = (
             f'<a download="{html.escape(name)}" href="data:image/png;base64,'
-            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">&#11015; {html.escape(name)}</a>'
+            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">'
+            f"&#11015; {html.escape(name)}</a>"
         )
 
     def save_svg(self, filename: str | None = None) -> None:

@@ -368,7 +368,8 @@ class PeaksPanel(PanelBase):
         level = label_levels(px, min_gap=0.035 * span)
         ly = py * (1.8 ** level) if px.size else py
         self._set_points(self.markers, px, py, colors=colours or [ROLE["fit"]])
-        self._set_points(self.labels, px, ly, text=[str(h) for h in hkl[kept]], colors=colours or [ROLE["reference"]])
+        self._set_points(self.labels, px, ly, text=[str(h) for h in hkl[kept]],
+                         colors=colours or [ROLE["reference"]])
         self.table.value = self._table_html(i)
         self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
         status = str(res["status"].values[i])
