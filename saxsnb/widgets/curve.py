@@ -66,6 +66,7 @@ class CurvePanel(PanelBase):
         super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_overlay, ["overlay", "every", "show_background"])
         if self._init_overlay or self._init_every:
+            self._check_overlay({"value": self._init_overlay})  # raises before anything is drawn
             with self.hold_trait_notifications():
                 self.overlay = self._init_overlay
                 self.every = self._init_every
