@@ -23,10 +23,12 @@ $(DEMO_DIR)/.written: $(STAMP)
 
 demo-data: $(DEMO_DIR)/.written
 
-# Open JupyterLab on the quickstart notebook; NOBROWSER=1 for a headless machine.
+# Open JupyterLab on the quickstart notebook; NOBROWSER=1 for a headless machine. Its file
+# browser starts at the top of the repository (root_dir), where demo-data/ and notebooks/
+# sit side by side (without it Lab serves notebooks/ only and the demo data are out of reach).
 demo: install demo-data
-	$(BIN)/python -m jupyterlab notebooks/01-quickstart.ipynb --ip=127.0.0.1 --port=$(PORT) \
-		$(if $(NOBROWSER),--no-browser,) --ServerApp.allow_root=True
+	$(BIN)/python -m jupyterlab notebooks/01-quickstart.ipynb --ServerApp.root_dir=. \
+		--ip=127.0.0.1 --port=$(PORT) $(if $(NOBROWSER),--no-browser,) --ServerApp.allow_root=True
 
 # A code-free page for collaborators (Voila: outputs only, no code), on 127.0.0.1.
 # Like JupyterLab it needs a token: a new random one each run (or APP_TOKEN=...), printed

@@ -115,9 +115,9 @@ def test_matplotlib_export(series):
     fig = CurvePanel(ds, bg).to_matplotlib()
     ax = fig.axes[0]
     assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
-    assert ax.get_xlabel() == "q (1/nm)"
+    assert ax.get_xlabel() == "q (nm⁻¹)"  # units in print form
     assert len(ax.lines) >= 2
-    assert SeriesBrowser(ds).to_matplotlib().axes[0].get_ylabel() == "temperature (degC)"
+    assert SeriesBrowser(ds).to_matplotlib().axes[0].get_ylabel() == "temperature (°C)"
 
 
 def test_explore_links_frames(series):

@@ -198,7 +198,7 @@ def test_linear_panel_matplotlib_export(series):
     p = LinearFitPanel(series, q_range=(0.05, 0.3))
     fig = p.to_matplotlib()
     ax, rax, tax = fig.axes
-    assert ax.get_xlabel() == "q^2 (1/nm)^2" and ax.get_ylabel() == "ln I"
+    assert ax.get_xlabel() == "q² (nm⁻²)" and ax.get_ylabel() == "ln I"  # symbols and units
     fit = [line for line in ax.lines if line.get_color() == ROLE["fit"]]
     assert len(fit) == 1
     np.testing.assert_allclose(fit[0].get_ydata(), p.fit_line.y)

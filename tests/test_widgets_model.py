@@ -13,6 +13,7 @@ import xarray as xr
 import saxsnb
 import saxsnb.accessor.linear
 import saxsnb.accessor.phases
+from saxsnb.display import format_value
 from saxsnb.display.report import frame_lines
 from saxsnb.errors import SaxsInputError
 from saxsnb.widgets import KratkyPanel, LinearFitPanel, SeriesBrowser, SeriesModel
@@ -58,7 +59,8 @@ def _count_whole_series_calls(monkeypatch, n_frames):
 
 def test_explore_computes_each_whole_series_analysis_once(monkeypatch, particles):
     counts = _count_whole_series_calls(monkeypatch, particles.sizes["frame"])
-    d = saxsnb.explore(particles)
+    # every default panel named (a particle series alone would leave the peaks panel out)
+    d = saxsnb.explore(particles, panels=("browser", "curve", "guinier", "kratky", "peaks"))
     k = d.panels["kratky"]
     assert k.normalize == "rg"  # the dimensionless plot uses the automatic Guinier fit too
     # before the shared model: 3 automatic Guinier fits (Guinier panel, Kratky panel,
@@ -194,7 +196,7 @@ def test_linear_panel_text_says_what_the_report_says(particles):
             assert value in shown, (line, shown)
     assert "Rg</b> = " in p.result_text.value and "q_max Rg = " in shown
     rg, sigma = float(p.result.rg[0]), float(p.result.rg_sigma[0])
-    assert f"{rg:.4g} +- {sigma:.2g} nm" in shown
+    assert f"{format_value(rg, sigma, pm=' +- ')} nm" in shown  # the one number formatter
 
 
 def test_kratky_frame_result_uses_the_shared_guinier_fit(particles):

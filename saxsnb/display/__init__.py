@@ -19,20 +19,33 @@ from .axes import (
     finite_points,
     log_ticks,
     positive_range,
+    tick_format,
     value_range,
 )
 from .plots import (
     KRATKY_REFERENCES,
+    PHASE_COLOURS,
     curve_at,
     errorbar_segments,
+    label_levels,
     line_coefficients,
     line_residuals,
     linear_x,
     overview_map,
+    phase_colours,
     q_from_linear_x,
     scaled_q,
+    scaled_sigma,
 )
-from .text import describe_status, indexing_summary, phase_map_report, status_message
+from .text import (
+    describe_status,
+    format_value,
+    indexing_summary,
+    phase_map_report,
+    pretty_label,
+    pretty_unit,
+    status_message,
+)
 
 __all__ = [
     "colour_bar_ticks",
@@ -56,4 +69,12 @@ __all__ = [
     "indexing_summary",
     "phase_map_report",
     "status_message",
+    "tick_format",
+    "PHASE_COLOURS",
+    "phase_colours",
+    "label_levels",
+    "scaled_sigma",
+    "format_value",
+    "pretty_label",
+    "pretty_unit",
 ]

@@ -180,6 +180,22 @@ def fill_missing(a):
     return np.where(ok, a, low), ~ok
 
 
+def tick_format(lo: float, hi: float) -> str:
+    """A d3 tick format that keeps the ticks of a linear axis over ``lo .. hi`` short:
+    ``"~g"`` for ordinary ranges, exponent form (``"1e-6"``, not ``"0.000001"``) when the
+    largest magnitude is below 1e-3 or from 1e5 on.
+
+    >>> tick_format(0.0, 5.0), tick_format(0.0, 3e-6), tick_format(-2e5, 1e6)
+    ('~g', '.2~e', '.2~e')
+    >>> tick_format(float("nan"), 1.0)
+    '~g'
+    """
+    top = max(abs(float(lo)), abs(float(hi))) if np.isfinite(lo) and np.isfinite(hi) else np.nan
+    if np.isfinite(top) and top > 0 and (top < 1e-3 or top >= 1e5):
+        return ".2~e"
+    return "~g"
+
+
 def log_ticks(lo: float, hi: float) -> np.ndarray:
     """Tick positions of a logarithmic axis from ``lo`` to ``hi`` (both > 0): the
     decades, plus 2 and 5 times them when the range spans fewer than three decades.

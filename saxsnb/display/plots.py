@@ -24,7 +24,74 @@ __all__ = [
     "curve_at",
     "overview_map",
     "errorbar_segments",
+    "PHASE_COLOURS",
+    "phase_colours",
+    "label_levels",
+    "scaled_sigma",
 ]
+
+#: The one colour code of the phases, in notebook figures and panels alike (Okabe & Ito
+#: 2008 colour-blind-safe colours, in the order of ``analysis._reflections.PHASES``;
+#: "" = a peak assigned to no phase, grey).
+PHASE_COLOURS = {
+    "lamellar": "#0072B2",
+    "hexagonal": "#D55E00",
+    "Pn3m": "#009E73",
+    "Im3m": "#CC79A7",
+    "Ia3d": "#E69F00",
+    "Fd3m": "#56B4E9",
+    "Pm3n": "#000000",
+    "Fm3m": "#B8A800",
+    "": "#7F7F7F",
+}
+
+
+def phase_colours(phases) -> list[str]:
+    """The colour of each phase name (:data:`PHASE_COLOURS`; unknown names grey).
+
+    >>> phase_colours(["Pn3m", "", "lamellar"])
+    ['#009E73', '#7F7F7F', '#0072B2']
+    """
+    return [PHASE_COLOURS.get(str(p), PHASE_COLOURS[""]) for p in np.asarray(phases).ravel()]
+
+
+def label_levels(x, *, min_gap: float) -> np.ndarray:
+    """Stacking level (0, 1, 2, ...) of text labels at positions ``x`` so that labels
+    closer than ``min_gap`` along x go on different levels (the first free level from
+    the left), e.g. the hkl labels of two coexisting phases.
+
+    >>> label_levels([1.0, 1.01, 1.02, 2.0], min_gap=0.05).tolist()
+    [0, 1, 2, 0]
+    >>> label_levels([1.0, 1.2, 1.21], min_gap=0.05).tolist()
+    [0, 0, 1]
+    """
+    x = np.asarray(x, dtype=float).ravel()
+    levels = np.zeros(x.size, dtype=int)
+    last: list[float] = []  # right-most x placed on each level
+    for k in np.argsort(x, kind="stable"):
+        for lev, end in enumerate(last):
+            if x[k] - end >= min_gap:
+                levels[k], last[lev] = lev, x[k]
+                break
+        else:
+            levels[k] = len(last)
+            last.append(x[k])
+    return levels
+
+
+def scaled_sigma(transformed, intensity, sigma):
+    """Sigma of a curve transformed by a factor per point (``transformed = f(q) I``,
+    e.g. the Kratky plot q² I): ``f(q) sigma = transformed / I * sigma``; NaN where
+    I is 0 or missing.
+
+    >>> scaled_sigma([4.0, 9.0], [1.0, 1.0], [0.1, 0.2]).tolist()
+    [0.4, 1.8]
+    """
+    t = np.asarray(transformed, dtype=float)
+    i = np.asarray(intensity, dtype=float)
+    s = np.asarray(sigma, dtype=float)
+    ok = np.isfinite(i) & (i != 0)
+    return np.where(ok, t * s / np.where(ok, i, 1.0), np.nan)
 
 
 def linear_x(q, kind: str):

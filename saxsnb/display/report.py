@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from .._jsonsafe import to_json_safe
-from .text import phase_map_report, status_message
+from .text import format_value, phase_map_report, status_message
 
 __all__ = ["report_summary", "report_text", "report_html", "frame_lines", "ASSUMPTIONS"]
 
@@ -107,12 +107,10 @@ def report_summary(ds) -> dict[str, Any]:
 
 
 def _fmt(v, unit="", sigma=None) -> str:
+    """``display.text.format_value`` (the one number formatter), ASCII "+-"."""
     if v is None or not np.isfinite(v):
         return "n/a"
-    text = f"{v:.4g}"
-    if sigma is not None and np.isfinite(sigma):
-        text += f" +- {sigma:.2g}"
-    return text + (f" {unit}" if unit and unit != "1" else "")  # "1": dimensionless
+    return format_value(v, sigma, unit if unit != "1" else "", pm=" +- ")  # "1": dimensionless
 
 
 def frame_lines(ds, index: int) -> list[str]:
@@ -122,7 +120,7 @@ def frame_lines(ds, index: int) -> list[str]:
     >>> q = np.linspace(0.02, 1.0, 100)
     >>> res = saxsnb.from_arrays(q, np.exp(-(2 * q) ** 2 / 3), np.full(100, 0.01)).saxs.guinier()
     >>> frame_lines(res, 0)[:2]
-    ['status: ok', 'rg = 2 +- 0.01 nm']
+    ['status: ok', 'rg = 2.000 +- 0.010 nm']
     """
     lines = []
     if "status" in ds.data_vars:

@@ -10,7 +10,111 @@ import numpy as np
 
 from ..analysis._status import INDEXED, STATUS
 
-__all__ = ["status_message", "describe_status", "indexing_summary", "phase_map_report"]
+__all__ = ["status_message", "describe_status", "indexing_summary", "phase_map_report", "format_value",
+           "pretty_unit", "pretty_label"]
+
+#: Most decimals shown in fixed notation (beyond, a relative uncertainty is shown).
+_MAX_DECIMALS = 6
+
+
+def _sci(v: float, digits: int) -> str:
+    m, e = f"{v:.{digits - 1}e}".split("e")
+    m = m.rstrip("0").rstrip(".") if "." in m else m
+    return f"{m}e{int(e)}"
+
+
+def format_value(value, sigma=None, unit: str = "", *, digits: int = 4, pm: str = " ± ") -> str:
+    """A number, or a number with its uncertainty, with sensible significant figures.
+
+    The one number formatter of the panels and reports. Alone, a value keeps
+    ``digits`` significant figures (scientific notation below 1e-3 or from 1e5). With
+    an uncertainty, sigma keeps two significant figures and the value is rounded to
+    the same decimal place (common practice), in a shared power of ten when the
+    numbers are very small or large; a sigma far below the last digit that matters is
+    given as a relative uncertainty instead of a long tail of digits.
+
+    Examples
+    --------
+    >>> format_value(5.0, 3.3e-05)
+    '5.000000 ± 0.000033'
+    >>> format_value(2.0, 3e-9)
+    '2.0000 (± 1.5e-7 %)'
+    >>> format_value(27.71234, 0.4321, "nm")
+    '27.71 ± 0.43 nm'
+    >>> format_value(1.234e-6, 4.1e-8, "cm⁻¹")
+    '(1.234 ± 0.041)e-6 cm⁻¹'
+    >>> format_value(0.000012345), format_value(12345.678), format_value(float("nan"), 1.0)
+    ('1.235e-5', '1.235e4', 'n/a')
+    >>> format_value(3.0, float("nan"), "M"), format_value(12, 0)
+    ('3 M', '12')
+    """
+    u = f" {unit}" if unit else ""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return f"{value}{u}"
+    if not np.isfinite(v):
+        return "n/a"
+    s = None if sigma is None else float(sigma)
+    if s is None or not np.isfinite(s) or s <= 0:
+        a = abs(v)
+        if a != 0 and (a < 1e-3 or a >= 1e5):
+            return _sci(v, digits) + u
+        text = f"{v:.{digits}g}"
+        return text + u
+    e_s = int(np.floor(np.log10(s)))
+    a = abs(v)
+    e_v = int(np.floor(np.log10(a))) if a > 0 else e_s
+    if a != 0 and (a < 1e-3 or a >= 1e5) and e_v >= e_s:
+        # a shared power of ten: (m ± sm)e<k>
+        scale = 10.0**e_v
+        dec = max(0, 1 - (e_s - e_v))
+        if dec <= _MAX_DECIMALS:
+            return f"({v / scale:.{dec}f}{pm}{s / scale:.{dec}f})e{e_v}{u}"
+    dec = max(0, 1 - e_s)
+    if dec > _MAX_DECIMALS and a > 0:
+        return f"{v:.{digits}f}{u} ({pm.strip()} {_sci(100 * s / a, 2)} %)"
+    return f"{v:.{dec}f}{pm}{s:.{dec}f}{u}"
+
+
+_SUPERSCRIPT = str.maketrans("0123456789-+", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻⁺")
+
+
+def pretty_unit(unit: str) -> str:
+    """A unit in print form: ``"1/nm"`` -> ``"nm⁻¹"``, ``"degC"`` -> ``"°C"``,
+    ``"(1/nm)^2"`` -> ``"nm⁻²"``, ``"1/cm nm^-4"`` -> ``"cm⁻¹ nm⁻⁴"``.
+
+    >>> [pretty_unit(u) for u in ("1/nm", "(1/nm)^2", "degC", "1/cm nm^-4", "arb", "nm^2")]
+    ['nm⁻¹', 'nm⁻²', '°C', 'cm⁻¹ nm⁻⁴', 'arb', 'nm²']
+    """
+    import re
+
+    u = str(unit)
+    u = re.sub(r"\(1/([A-Za-z\u00c5]+)\)\^(\d+)", lambda m: f"{m.group(1)}^-{m.group(2)}", u)
+    u = re.sub(r"\b1/([A-Za-z\u00c5]+)(\^(\d+))?", lambda m: f"{m.group(1)}^-{m.group(3) or 1}", u)
+    u = re.sub(r"\bdeg ?C\b", "\u00b0C", u)
+    u = re.sub(r"\^(-?\d+)", lambda m: m.group(1).translate(_SUPERSCRIPT), u)
+    return u
+
+
+def pretty_label(label: str) -> str:
+    """An axis label in print form: powers as superscripts (``q^2`` -> ``q²``), units
+    through :func:`pretty_unit`, ``sqrt`` as ``√``, ``log10`` as ``log₁₀``.
+
+    >>> pretty_label("q^2 (1/nm)^2"), pretty_label("temperature (degC)")
+    ('q² (nm⁻²)', 'temperature (°C)')
+    >>> pretty_label("q^2 I (1/cm 1/nm^2)"), pretty_label("(q Rg)^2 I / I0")
+    ('q² I (cm⁻¹ nm⁻²)', '(q Rg)² I / I₀')
+    """
+    import re
+
+    # "(1/nm)^2" in a label is the unit in brackets: "(nm^-2)"
+    text = re.sub(r"\(1/([A-Za-z\u00c5]+)\)\^(\d+)", lambda m: f"({m.group(1)}^-{m.group(2)})", str(label))
+    text = pretty_unit(text)
+    text = re.sub(r"\blog10\b", "log\u2081\u2080", text)
+    text = re.sub(r"\bI0\b", "I\u2080", text)
+    text = re.sub(r"\bsqrt\(", "\u221a(", text)
+    return re.sub(r"\^(-?\d+)", lambda m: m.group(1).translate(_SUPERSCRIPT), text)
 
 
 def status_message(code: str, *, size: str = "Rg", limit: float = 1.3) -> str:

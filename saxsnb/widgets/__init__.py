@@ -1,6 +1,6 @@
 """Interactive linked panels (ipywidgets 8 + bqplot) over a SAXS series.
 
-``saxsnb.explore(ds, background=None)`` shows every panel linked on one current frame
+``saxsnb.explore(ds, background=None)`` shows the panels linked on one current frame
 and returns a :class:`Dashboard` (an ``ipywidgets.VBox``); ``dashboard.panels`` is a
 :class:`PanelSet`, a dict ``"browser" | "curve" | "guinier" | "kratky" | "peaks" ->
 panel`` that also iterates over the panels and takes integer positions. Each panel
@@ -26,10 +26,16 @@ Every panel (:class:`PanelBase`) has the traits ``frame`` (int), ``result`` (rea
 xarray.Dataset for the current choices), ``status`` (str, "" when no error; also shown
 in ``panel.status_line``), ``last_error`` (the exception behind it, or None) and
 ``code`` (read-only str), and the methods ``to_code()``
-(Python that reproduces ``result`` from the series bound to the name ``ds``; it
-starts with ``import saxsnb`` and assigns ``result``), ``show_code()`` (what the
-"Export code" button does), ``save_png()`` / ``save_svg()`` (browser only) and
-``to_matplotlib()`` (a matplotlib Figure of the same plots, no browser needed).
+(Python that starts from the files, through ``ds.saxs.recipe``, and rebuilds ``result``
+exactly, about the user's own variable: ``explore(ramp)`` writes code about ``ramp``;
+``name=`` / ``series_name=`` where it cannot be found; a series made in memory is
+expected in ``ds``), ``show_code()`` (what the "Export code" button does),
+``to_png()`` (the whole panel, 1800 px wide; the "PNG" button offers it for download),
+``save_png()`` / ``save_svg()`` (the main figure, browser only) and
+``to_matplotlib(dpi=...)`` (a matplotlib Figure of the same plots, no browser needed).
+``explore()`` chooses its panels from what the series holds (Bragg peaks or a particle
+curve, ``dashboard.reason``) and writes the results tables (``write_tables()``, the
+"Write results tables" button, download links on a code-free page).
 Range-selecting panels also have ``q_range`` ((q_min, q_max) in 1/nm, or None for the
 automatic range) and ``selector`` (a bqplot BrushIntervalSelector on the linearised
 x axis, q^2 or q^4).

@@ -20,11 +20,18 @@ lives in traits:
 ``last_error`` (exception or None)
     The exception behind the last error shown in ``status``.
 
-Code convention: the exported code expects the series in a variable named ``ds``
-(and, where a background is used, the background series in ``background``); it
-starts with ``import saxsnb`` and assigns the result to ``result`` (or to the name
-given to :meth:`to_code`). So ``exec(panel.to_code(), {"ds": ds})`` re-runs the
-analysis exactly.
+Code convention: the exported code starts with ``import saxsnb``, then rebuilds the
+series from its files with :meth:`ds.saxs.recipe <saxsnb.accessor.recipe.RecipeMethods.recipe>`
+(the read, the subtraction with the background's own files, ...) under the user's
+own variable name (``explore(ramp)`` writes code about ``ramp``: the name is found in
+the caller's variables by identity; pass ``series_name=`` to a panel, ``name=`` to
+:func:`explore` or to :meth:`to_code` where it cannot be found), and assigns the
+result to ``result`` (or to the name given to :meth:`to_code`). Run in a fresh
+namespace it gives ``result`` identically. A series without a history of files
+(made in memory, e.g. ``saxsnb.from_arrays``) cannot be rebuilt: the code then
+expects it in ``ds`` (and the background in ``background``), as its first comment
+says. Panels write their steps about ``ds`` / ``background`` in ``_code_lines``; the
+shared :func:`export_code` renames them and puts the recipe in front.
 
 Adding a panel (e.g. for P(r)) is one new module: subclass :class:`PanelBase`, build
 the figures in ``_build()``, compute in ``_update()`` (whole-series results from
@@ -34,6 +41,10 @@ the figures in ``_build()``, compute in ``_update()`` (whole-series results from
 from __future__ import annotations
 
 import html
+import io
+import keyword
+import sys
+import tokenize
 from collections.abc import Sequence
 
 import ipywidgets as widgets
@@ -41,13 +52,15 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..display import describe_status, drawable_line, log_ticks
+from ..display import describe_status, drawable_line, log_ticks, pretty_label, tick_format
+from ..errors import SaxsInputError
 from . import _bq as bq
-from .model import as_model
+from .model import SeriesModel, as_model
 from .mpl import figure_to_matplotlib
 from .palette import ROLE
 
-__all__ = ["PanelBase", "DatasetTrait", "make_figure", "figure_to_matplotlib"]
+__all__ = ["PanelBase", "DatasetTrait", "make_figure", "figure_to_matplotlib", "caller_variable",
+           "export_code"]
 
 #: Margins of every figure, in pixels.
 FIG_MARGIN = {"top": 30, "bottom": 48, "left": 64, "right": 16}
@@ -86,15 +99,18 @@ def make_figure(
             if ticks.size >= 2:
                 kw["tick_values"] = ticks
                 kw["tick_format"] = "~g"
+    for scale, kw in ((x_scale, xkw), (y_scale, ykw)):
+        if not isinstance(scale, bq.LogScale) and scale.min is not None and scale.max is not None:
+            kw["tick_format"] = tick_format(scale.min, scale.max)
     axes = [
-        bq.Axis(scale=x_scale, label=x_label, grid_lines="none", **xkw),
-        bq.Axis(scale=y_scale, label=y_label, side="left", grid_lines="none", **ykw),
+        bq.Axis(scale=x_scale, label=pretty_label(x_label), grid_lines="none", **xkw),
+        bq.Axis(scale=y_scale, label=pretty_label(y_label), side="left", grid_lines="none", **ykw),
     ]
     kw = {"interaction": interaction} if interaction is not None else {}
     return bq.Figure(
         marks=list(marks),
         axes=axes,
-        title=title,
+        title=pretty_label(title),
         fig_margin=dict(FIG_MARGIN),
         animation_duration=0,
         layout=widgets.Layout(width="100%", height=height, min_width="260px"),
@@ -102,9 +118,138 @@ def make_figure(
     )
 
 
+def set_ticks(fig, lo: float, hi: float, *, axis: int = 1) -> None:
+    """Give a linear axis of ``fig`` (0: x, 1: y) the tick format of a ``lo .. hi``
+    range (``display.tick_format``: exponents for tiny or huge values)."""
+    ax = fig.axes[axis]
+    if isinstance(ax.scale, bq.LogScale) or lo is None or hi is None:
+        return
+    fmt = tick_format(lo, hi)
+    if ax.tick_format != fmt:
+        ax.tick_format = fmt
+
+
+def key_html(entries) -> str:
+    """A key under a plot (a legend box inside would hide points and block clicks):
+    ``entries`` are (colour, symbol, text); text is escaped."""
+    return (
+        "<small>"
+        + " &nbsp; ".join(f'<span style="color:{c}">{sym}</span> {html.escape(t)}' for c, sym, t in entries)
+        + "</small>"
+    )
+
+
 def control_row(children: Sequence[widgets.Widget]) -> widgets.HBox:
     """A row of controls that wraps onto more lines in a narrow panel (no label is cut)."""
     return widgets.HBox(list(children), layout=widgets.Layout(flex_flow="row wrap", align_items="center"))
+
+
+def _is_name(name) -> bool:
+    return isinstance(name, str) and name.isidentifier() and not keyword.iskeyword(name)
+
+
+def checked_name(name: str | None, parameter: str = "name") -> str | None:
+    """``name`` if it is a Python variable name (or None), else a SaxsInputError."""
+    if name is not None and not _is_name(name):
+        raise SaxsInputError(f"{name!r} is not a Python variable name", parameter=parameter)
+    return name
+
+
+def caller_variable(obj) -> str | None:
+    """The user's variable name of ``obj``: the first name bound to this very object
+    (identity, not equality) in the locals, then the globals, of the first calling frame
+    outside saxsnb (a notebook cell, a script, a test). Names starting with ``_``
+    (IPython's ``_``, ``_3``, ...) are skipped; None when no variable holds it."""
+    if obj is None:
+        return None
+    f = sys._getframe(1)
+    while f is not None and str(f.f_globals.get("__name__", "")).split(".")[0] == "saxsnb":
+        f = f.f_back
+    if f is None:
+        return None
+    for scope in (f.f_locals, f.f_globals):
+        for k, v in list(scope.items()):
+            if v is obj and _is_name(k) and not k.startswith("_"):
+                return k
+    return None
+
+
+def _rename(code: str, names: dict[str, str]) -> str:
+    """``code`` with the variables ``names`` (old -> new) renamed: Python tokens only,
+    so comments, strings and attributes (``x.ds``) are left alone."""
+    names = {k: v for k, v in names.items() if k != v}
+    if not names:
+        return code
+    lines = code.splitlines(keepends=True)
+    edits = []
+    prev = None
+    for tok in tokenize.generate_tokens(io.StringIO(code).readline):
+        attribute = prev is not None and prev.string == "."
+        if tok.type == tokenize.NAME and tok.string in names and not attribute:
+            edits.append((tok.start, tok.end, names[tok.string]))
+        if tok.type not in (tokenize.NL, tokenize.COMMENT):
+            prev = tok
+    for (r, c0), (_r, c1), new in reversed(edits):
+        line = lines[r - 1]
+        lines[r - 1] = line[:c0] + new + line[c1:]
+    return "".join(lines)
+
+
+def _names_in(code: str) -> set[str]:
+    return {t.string for t in tokenize.generate_tokens(io.StringIO(code).readline) if t.type == tokenize.NAME}
+
+
+def _recipe_lines(ds, name: str) -> list[str] | None:
+    """The lines of ``ds.saxs.recipe(name)`` after ``import saxsnb`` (None: no history)."""
+    try:
+        code = ds.saxs.recipe(name)
+    except SaxsInputError:
+        return None
+    return [line for line in code.splitlines() if line.strip() and line != "import saxsnb"]
+
+
+def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, name: str | None = None,
+                background_name: str | None = None) -> str:
+    """The code of one or more panels: the recipe of the series (and of the background
+    where the steps use it) from the files, then ``steps`` (lines about ``ds`` and
+    ``background``) renamed to the user's variables.
+
+    ``name`` / ``background_name`` default to the model's (found by
+    :func:`caller_variable` or given by the user); a series without a history of files
+    keeps ``ds`` (``background``) unless a name was given, and the code says to define it.
+    """
+    body = "\n".join(steps) + "\n"
+    uses_bg = "background" in _names_in(body)
+    out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
+    series = checked_name(name) or model.name or "ds"
+    rec = _recipe_lines(model.ds, series)
+    if rec is None:
+        series = checked_name(name) or (model.name if model.name_given else None) or "ds"
+        out.append(f"# {series}: the series was made in memory (no history of files to rebuild it "
+                   "from): define it before this code")
+    else:
+        out += rec
+    bg_name = checked_name(background_name, "background_name")
+    if bg_name is None:
+        bg_name = model.background_name or "background"
+    if bg_name == series:
+        bg_name = f"{series}_background"
+    if uses_bg:
+        bg = model.background if background is None else background
+        brec = None if bg is None else _recipe_lines(bg, bg_name)
+        if brec is None:
+            if not (background_name or model.background_name_given):
+                bg_name = "background" if series != "background" else "ds_background"
+            out.append(f"# {bg_name}: the background series was made in memory (no history of files): "
+                       "define it before this code")
+        elif set(brec) <= set(rec or ()):
+            pass  # already read by the series' own recipe under this name
+        elif bg_name != "background" and set(_recipe_lines(bg, "background")) <= set(rec or ()):
+            out.append(f"{bg_name} = background")  # the background the series' recipe read
+        else:
+            out += brec
+    out.append(_rename(body, {"ds": series, "background": bg_name}).rstrip("\n"))
+    return "\n".join(out) + "\n"
 
 
 class DatasetTrait(traitlets.TraitType):
@@ -185,9 +330,20 @@ class PanelBase(widgets.VBox):
     #: The exception behind the last error shown in ``status`` (None when none).
     last_error = traitlets.Any(None, allow_none=True)
 
-    def __init__(self, source, *, frame: int | None = None, **kwargs):
+    def __init__(self, source, *, frame: int | None = None, series_name: str | None = None,
+                 background_name: str | None = None, **kwargs):
         #: The shared :class:`SeriesModel` (series, masked arrays, cached results, frame).
         self.model = as_model(source)
+        # the user's variable names for the exported code (see the module docstring)
+        self.model.set_names(series_name, background_name)
+        if not isinstance(source, SeriesModel) and self.model.name is None:
+            self.model.name = caller_variable(source)
+        bg = self._background_dataset()
+        if bg is not None:
+            if self.model.background is None:
+                self.model.background = bg
+            if self.model.background_name is None and self.model.background is bg:
+                self.model.background_name = caller_variable(bg)
         #: Per clickable mark (by id), the frame of each drawn point (see _on_point_click).
         self._point_frames: dict[int, np.ndarray] = {}
         super().__init__(**kwargs)
@@ -202,19 +358,22 @@ class PanelBase(widgets.VBox):
             layout=widgets.Layout(width="100%", height="9em", display="none"),
         )
         self.png_button = widgets.Button(
-            description="PNG", icon="download", tooltip="Save the main figure as PNG (in the browser)"
+            description="PNG", icon="download",
+            tooltip="A PNG of the whole panel (all its figures, 1800 px wide) to download",
         )
+        #: The download link of the last whole-panel PNG ("PNG" button; a data: URI).
+        self.png_link = widgets.HTML("")
         self.svg_button = widgets.Button(
             description="SVG", icon="download", tooltip="Save the main figure as SVG (in the browser)"
         )
         for b in (self.export_button, self.png_button, self.svg_button):
             b.layout = widgets.Layout(width="auto")
         self.export_button.on_click(lambda _b: self.show_code())
-        self.png_button.on_click(lambda _b: self.save_png())
+        self.png_button.on_click(lambda _b: self._png_from_button())
         self.svg_button.on_click(lambda _b: self.save_svg())
         self.set_trait("frame", self.model.frame)  # no observer yet: nothing is drawn twice
         body = self._build()
-        tools = control_row([self.export_button, self.png_button, self.svg_button])
+        tools = control_row([self.export_button, self.png_button, self.svg_button, self.png_link])
         self.children = [self.heading, *body, self.status_line, tools, self.code_area]
         # CSS hooks for page tests and styling: the panel and each of its figures
         self.add_class("saxsnb-panel")
@@ -279,8 +438,18 @@ class PanelBase(widgets.VBox):
         self._update()
 
     def _code_lines(self, target: str) -> list[str]:
-        """Lines of code assigning the result to ``target`` (``ds`` is the series)."""
+        """Lines of code assigning the result to ``target`` (``ds`` is the series,
+        ``background`` the background; :func:`export_code` renames both)."""
         raise NotImplementedError
+
+    def _background_dataset(self):
+        """The background series the panel's code uses as ``background`` (None: none)."""
+        return None
+
+    def table_result(self):
+        """The result tabulated by the dashboard's "Write results tables" (one row per
+        frame): ``result`` by default; fit panels give their whole-series result."""
+        return self.result
 
     # ----------------------------------------------------------------- frames
     @traitlets.validate("frame")
@@ -409,18 +578,23 @@ class PanelBase(widgets.VBox):
             self.status_line.value = ""
 
     # ----------------------------------------------------------------- code
-    def to_code(self, target: str = "result") -> str:
-        """Python source that reproduces ``result`` without widgets.
+    def to_code(self, target: str = "result", *, name: str | None = None,
+                background_name: str | None = None) -> str:
+        """Python source that rebuilds ``result`` from the files, without widgets.
 
-        The code expects the series in a variable ``ds`` (and the background in
-        ``background`` where the panel uses one) and assigns the result to ``target``.
+        The code reads the series (and the background where the panel uses one) as
+        its recipe says (``ds.saxs.recipe``), under the user's variable names (or
+        ``name`` / ``background_name``), then repeats the panel's choices and assigns
+        the result to ``target``. Run in a fresh namespace it gives ``result``
+        identically (see the module docstring for a series made in memory).
 
         Returns
         -------
         str, ending with a newline.
         """
-        lines = ["import saxsnb  # noqa: F401  (registers ds.saxs)", *self._code_lines(target)]
-        return "\n".join(lines) + "\n"
+        checked_name(target, "target")
+        return export_code(self.model, self._code_lines(target), background=self._background_dataset(),
+                           name=name, background_name=background_name)
 
     def show_code(self) -> str:
         """Show the exported code in the panel's text area (what "Export code" does)."""
@@ -438,24 +612,65 @@ class PanelBase(widgets.VBox):
         return f"saxsnb-{self.name}-frame{self.frame}"
 
     def save_png(self, filename: str | None = None) -> None:
-        """Ask the browser to save the main figure as PNG (needs a live front end)."""
+        """Ask the browser to save the main figure as PNG (needs a live front end);
+        :meth:`to_png` makes a PNG of the whole panel without a browser."""
         self.figure.save_png(filename or self._file_stem() + ".png")
+
+    def to_png(self, path=None, *, width_px: int = 1800, width: float = 8.0) -> bytes:
+        """A PNG of the whole panel (every figure shown, stacked), ``width_px`` wide.
+
+        Drawn by :meth:`to_matplotlib` (no browser needed), at ``width_px / width``
+        dots per inch. With ``path`` it is also written there, atomically.
+
+        Returns
+        -------
+        bytes of the PNG file.
+        """
+        from ..io._atomic import atomic_write_bytes
+
+        if int(width_px) < 1:
+            raise SaxsInputError("width_px must be positive", parameter="width_px")
+        fig = self.to_matplotlib(width=width)
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=int(width_px) / float(width))
+        data = buf.getvalue()
+        if path is not None:
+            atomic_write_bytes(path, data)
+        return data
+
+    def _png_from_button(self) -> None:
+        import base64
+
+        try:
+            data = self.to_png()
+        except Exception as exc:  # shown in the status line
+            self.report(exc, "PNG")
+            return
+        name = self._file_stem() + ".png"
+        self.png_link.value = (
+            f'<a download="{html.escape(name)}" href="data:image/png;base64,'
+            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">'
+            f"&#11015; {html.escape(name)}</a>"
+        )
 
     def save_svg(self, filename: str | None = None) -> None:
         """Ask the browser to save the main figure as SVG (needs a live front end)."""
         self.figure.save_svg(filename or self._file_stem() + ".svg")
 
-    def to_matplotlib(self, *, width: float = 6.0, height_per_plot: float = 3.2):
+    def to_matplotlib(self, *, width: float = 6.0, height_per_plot: float = 3.2, dpi: float | None = None):
         """The panel's plots as a :class:`matplotlib.figure.Figure` for publication.
 
         Draws the current contents of each bqplot figure of the panel (same data,
-        scales, labels and colours), one subplot per figure, without a browser and
-        without pyplot's global state. Save it with ``fig.savefig("name.pdf")``.
+        scales, labels with their symbols and units, colours, error bars), one subplot
+        per figure, without a browser and without pyplot's global state. Save it with
+        ``fig.savefig("name.pdf")`` (vector) or ``fig.savefig("name.png")``; ``dpi``
+        (e.g. 300 for print) is the figure's resolution, used by ``savefig`` too.
         """
         from matplotlib.figure import Figure as MplFigure
 
         figs = [f for f in self.figures if f.layout.display != "none"]
-        mfig = MplFigure(figsize=(width, height_per_plot * len(figs)), layout="constrained")
+        kw = {} if dpi is None else {"dpi": float(dpi)}
+        mfig = MplFigure(figsize=(width, height_per_plot * len(figs)), layout="constrained", **kw)
         axes = mfig.subplots(len(figs), 1, squeeze=False)[:, 0]
         for ax, fig in zip(axes, figs):
             figure_to_matplotlib(fig, ax)

@@ -6,10 +6,11 @@ import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..display import drawable_lines, errorbar_segments
+from ..display import drawable_lines, errorbar_segments, pretty_label
+from ..errors import SaxsInputError
 from ..series import validate
 from . import _bq as bq
-from .base import PanelBase, control_row, make_figure
+from .base import PanelBase, control_row, key_html, make_figure
 from .palette import ROLE, SEQUENCE
 
 __all__ = ["CurvePanel"]
@@ -65,9 +66,13 @@ class CurvePanel(PanelBase):
         super().__init__(source, frame=frame, **kwargs)
         self.observe(self._on_overlay, ["overlay", "every", "show_background"])
         if self._init_overlay or self._init_every:
+            self._check_overlay({"value": self._init_overlay})  # raises before anything is drawn
             with self.hold_trait_notifications():
                 self.overlay = self._init_overlay
                 self.every = self._init_every
+
+    def _background_dataset(self):
+        return self._given_background
 
     def _check_background(self) -> None:
         bg = self._given_background
@@ -167,10 +172,12 @@ class CurvePanel(PanelBase):
         widgets.link((self.every_box, "value"), (self, "every"))
         widgets.link((self.background_box, "value"), (self, "show_background"))
         self.overlay_note = widgets.HTML("")
+        #: The key of the plot, under it (a legend inside would cover the curves).
+        self.key = widgets.HTML("")
         # the row wraps in narrow panels instead of cutting labels off
         controls = control_row([self.overlay_text, self.every_box, self.background_box])
         self._draw_background()
-        return [fig, controls, self.overlay_note]
+        return [fig, self.key, controls, self.overlay_note]
 
     # ------------------------------------------------------------- overlays
     def _parse_overlay(self, change) -> None:
@@ -180,13 +187,22 @@ class CurvePanel(PanelBase):
         except ValueError as exc:
             self.report(exc, "overlay frames must be integers separated by commas")
             return
-        self.overlay = frames
+        try:
+            self.overlay = frames
+        except SaxsInputError as exc:  # typed in the browser: said in the status line
+            self.report(exc, "overlay")
+            return
+        if self.status.startswith("overlay"):
+            self.status = self._background_note
 
     @traitlets.validate("overlay")
     def _check_overlay(self, proposal):
-        bad = [v for v in proposal["value"] if not 0 <= int(v) < self.n_frames]
+        bad = [int(v) for v in proposal["value"] if not 0 <= int(v) < self.n_frames]
         if bad:
-            raise traitlets.TraitError(f"overlay frames {bad} outside 0..{self.n_frames - 1}")
+            raise SaxsInputError(
+                f"overlay frame(s) {bad} outside the series (frames 0..{self.n_frames - 1})",
+                parameter="overlay", frame=bad[0],
+            )
         return [int(v) for v in proposal["value"]]
 
     @traitlets.validate("every")
@@ -236,6 +252,24 @@ class CurvePanel(PanelBase):
             else ""
         )
         self._draw_background()
+        self._draw_key()
+
+    def _draw_key(self) -> None:
+        entries = [(ROLE["data"], "&#9473;", pretty_label(self.frame_label())),
+                   (ROLE["error"], "&#9474;", "\u00b1\u03c3")]
+        if self.background_line.visible:
+            entries.append((ROLE["background"], "- -", "background"))
+        if self.overlays.visible:
+            colours = list(self.overlays.colors)
+            frames = self.overlay_frames()
+            shown = frames[:8]
+            entries += [(colours[k % len(colours)], "&#9473;", pretty_label(self.frame_label(f)))
+                        for k, f in enumerate(shown)]
+            if len(frames) > len(shown):
+                entries.append((ROLE["reference"], "", f"and {len(frames) - len(shown)} more overlays"))
+        value = key_html(entries)
+        if self.key.value != value:
+            self.key.value = value
 
     def _draw_background(self) -> None:
         bg = self.background
@@ -252,9 +286,10 @@ class CurvePanel(PanelBase):
         ex, ey = errorbar_segments(self.q, I, S, floor=self._floor)
         self._set_line(self.curve, self.q, I, positive=True)
         self._set_line(self.errorbars, ex, ey, positive=True)
-        self.figure.title = self.frame_label(i)
+        self.figure.title = pretty_label(self.frame_label(i))
         if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:
             self._draw_background()
+        self._draw_key()
         self._set_result(self.ds.isel(frame=self.shown_frames()))
         self.status = self._background_note
 

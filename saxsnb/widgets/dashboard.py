@@ -2,22 +2,35 @@
 
 from __future__ import annotations
 
+import base64
 import html
+import os
 from collections.abc import Sequence
+from pathlib import Path
 
 import ipywidgets as widgets
+import numpy as np
 import traitlets
 import xarray as xr
 
-from .base import PanelBase
+from .base import PanelBase, caller_variable, checked_name, control_row, export_code
 from .model import SeriesModel
 
-__all__ = ["Dashboard", "PanelSet", "explore", "PANEL_NAMES", "DEFAULT_PANELS"]
+__all__ = ["Dashboard", "PanelSet", "explore", "choose_panels", "PANEL_NAMES", "DEFAULT_PANELS",
+           "PARTICLE_PANELS", "BRAGG_PANELS"]
 
-#: Panels :func:`explore` offers, in display order.
-PANEL_NAMES = ("browser", "curve", "guinier", "kratky", "peaks", "distance")
-#: Panels :func:`explore` shows when none are named.
+#: Panels :func:`explore` offers, in display order ("rod", "sheet", "porod": the
+#: other straight-line fits of :class:`~saxsnb.widgets.LinearFitPanel`).
+PANEL_NAMES = ("browser", "curve", "guinier", "rod", "sheet", "porod", "kratky", "peaks", "distance")
+#: Every default panel (a series with Bragg peaks in some sampled frames, and a particle
+#: curve in others).
 DEFAULT_PANELS = ("browser", "curve", "guinier", "kratky", "peaks")
+#: Default panels of a particle curve (no Bragg peaks in the sampled frames).
+PARTICLE_PANELS = ("browser", "curve", "guinier", "kratky")
+#: Default panels of a series whose sampled frames mostly index as a lattice.
+BRAGG_PANELS = ("browser", "curve", "peaks")
+#: Frames sampled by :func:`choose_panels`.
+SAMPLED_FRAMES = 5
 #: Panels added when a background is given.
 BACKGROUND_PANELS = ("preparation",)
 
@@ -76,10 +89,16 @@ class Dashboard(widgets.VBox):
 
     frame = traitlets.Int(0)
 
-    def __init__(self, panels: dict[str, PanelBase], *, model: SeriesModel | None = None, **kwargs):
+    def __init__(self, panels: dict[str, PanelBase], *, model: SeriesModel | None = None, reason: str = "",
+                 **kwargs):
         super().__init__(**kwargs)
         self.panels = PanelSet(panels)
         self.model = model
+        #: Why these panels (one line, shown above them; "" when the panels were named).
+        self.reason = reason
+        self.reason_line = widgets.HTML(f"<small>{html.escape(reason)}</small>" if reason else "")
+        #: Folder :meth:`write_tables` writes to when its button is pressed.
+        self.table_folder = "."
         targets = [model] if model is not None else list(self.panels.values())
         self._links = [traitlets.link((t, "frame"), (self, "frame")) for t in targets]
         self.status_line = widgets.HTML("")
@@ -93,9 +112,18 @@ class Dashboard(widgets.VBox):
             "", layout=widgets.Layout(width="100%", height="12em", display="none")
         )
         self.export_button.on_click(lambda _b: self.show_code())
+        self.table_button = widgets.Button(
+            description="Write results tables", icon="table", layout=widgets.Layout(width="auto"),
+            tooltip="Write one CSV table per panel (one row per frame) and offer them for download",
+        )
+        self.table_button.on_click(lambda _b: self._tables_from_button())
+        #: Download links of the tables last written (data: URIs; work on a code-free page).
+        self.download = widgets.HTML("")
         self.children = [
+            self.reason_line,
             *self._arrange(),
-            widgets.HBox([self.export_button]),
+            control_row([self.export_button, self.table_button]),
+            self.download,
             self.code_area,
             self.status_line,
         ]
@@ -118,16 +146,90 @@ class Dashboard(widgets.VBox):
         parts = [f"{name}: {p.status_text}" for name, p in self.panels.items() if p.status]
         self.status_line.value = "<br>".join(html.escape(t) for t in parts)
 
-    def to_code(self) -> str:
-        """Code reproducing every panel's result, one variable per panel (its name).
+    def _variables(self) -> dict[str, str]:
+        """panel name -> variable of its result in the exported code (the panel's name,
+        unless that is the series' or the background's variable)."""
+        taken = {self._model().name or "ds", self._model().background_name or "background", "saxsnb"}
+        return {name: (f"{name}_result" if name in taken else name) for name in self.panels.keys()}
 
-        The code expects the series in ``ds`` (and ``background`` where used).
+    def _model(self) -> SeriesModel:
+        return self.model if self.model is not None else next(iter(self.panels.values())).model
+
+    def to_code(self, *, name: str | None = None, background_name: str | None = None) -> str:
+        """Code that rebuilds every panel's result from the files, one variable per
+        panel (its name: ``guinier``, ``peaks``, ...), about the user's variables.
+
+        The series (and the background where a panel uses it) is read as its recipe
+        says (``ds.saxs.recipe``) once, then each panel's steps follow.
         """
-        out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
+        steps = []
+        background = None
+        for p, var in zip(self.panels.values(), self._variables().values()):
+            steps.append(f"# {p.title}")
+            steps.extend(p._code_lines(var))
+            background = background if background is not None else p._background_dataset()
+        return export_code(self._model(), steps, background=background, name=name,
+                           background_name=background_name)
+
+    # ---------------------------------------------------------------- tables
+    def tables(self) -> dict:
+        """Per panel with per-frame numbers, its table (``panel.table_result()``, i.e.
+        the whole-series fit for fit panels, the shape summary for Kratky, the result
+        otherwise, through ``.saxs.to_dataframe()``: one row per frame, the scan
+        coordinates first, units in the column names). The browser and curve panels
+        show curves only and have no table."""
+        out = {}
         for name, p in self.panels.items():
-            out.append(f"# {p.title}")
-            out.extend(p._code_lines(name))
-        return "\n".join(out) + "\n"
+            res = p.table_result()
+            if res is None or "frame" not in res.dims:
+                continue
+            if not any(v.dims == ("frame",) for v in res.data_vars.values()):
+                continue
+            out[name] = res.saxs.to_dataframe()
+        return out
+
+    def write_tables(self, folder=None, *, stem: str | None = None) -> list[Path]:
+        """Write :meth:`tables` as CSV files, one per panel, each atomically
+        (``result.saxs.to_csv``): ``<folder>/<stem>-<panel>.csv``.
+
+        Parameters
+        ----------
+        folder : path, optional
+            Where to write (default :attr:`table_folder`, the working directory).
+        stem : str, optional
+            File name start (default ``"saxsnb-<series variable>"``).
+
+        Returns
+        -------
+        The paths written. The download links (:attr:`download`) are refreshed.
+        """
+        folder = Path(self.table_folder if folder is None else folder)
+        stem = stem or f"saxsnb-{self._model().name or 'series'}"
+        paths, links = [], []
+        for name in self.tables():
+            res = self.panels[name].table_result()
+            path = folder / f"{stem}-{name}.csv"
+            res.saxs.to_csv(path)
+            paths.append(path)
+            data = base64.b64encode(path.read_bytes()).decode("ascii")
+            links.append(
+                f'<a download="{html.escape(path.name)}" href="data:text/csv;base64,{data}" '
+                f'class="saxsnb-download" style="margin-right:1em">&#11015; {html.escape(path.name)}</a>'
+            )
+        self.download.value = (
+            "<small>tables (one row per frame):</small> " + "".join(links) if links
+            else "<small>no panel has per-frame numbers to tabulate</small>"
+        )
+        return paths
+
+    def _tables_from_button(self) -> None:
+        try:
+            paths = self.write_tables()
+        except Exception as exc:  # shown in the status line
+            self.status_line.value = html.escape(f"tables: {type(exc).__name__}: {exc}")
+            return
+        where = os.path.abspath(self.table_folder)
+        self.status_line.value = html.escape(f"{len(paths)} table(s) written to {where}")
 
     @property
     def code(self) -> str:
@@ -139,6 +241,45 @@ class Dashboard(widgets.VBox):
         self.code_area.value = self.to_code()
         self.code_area.layout.display = None
         return self.code_area.value
+
+
+def choose_panels(ds: xr.Dataset, *, n_sample: int = SAMPLED_FRAMES) -> tuple[tuple[str, ...], str]:
+    """Default panels for what a series holds, and why in one line.
+
+    A few evenly spaced frames are indexed (``ds.isel(frame=...).saxs.index_phases()``,
+    the accessor's own peak search and Bragg tests; nothing new is computed here):
+    frames whose peaks index as a lattice (status in ``INDEXED``) hold Bragg peaks.
+    Mostly Bragg frames give :data:`BRAGG_PANELS`, none :data:`PARTICLE_PANELS`
+    (Guinier and Kratky, which need a particle curve), a mix :data:`DEFAULT_PANELS`.
+
+    Examples
+    --------
+    >>> import saxsnb
+    >>> from saxsnb.widgets.dashboard import choose_panels
+    >>> choose_panels(saxsnb.demo.example_series("cubic"))[0]
+    ('browser', 'curve', 'peaks')
+    """
+    from ..analysis._status import INDEXED
+
+    n = int(ds.sizes["frame"])
+    picks = np.unique(np.linspace(0, n - 1, min(n_sample, n)).round().astype(int))
+    try:
+        ix = ds.isel(frame=picks).saxs.index_phases()
+    except Exception as exc:  # the panels report their own errors
+        return DEFAULT_PANELS, f"Every panel shown (the sampled peak search failed: {type(exc).__name__})."
+    status = np.asarray(ix["status"].values).astype(str)
+    bragg = np.isin(status, INDEXED)
+    k, m = int(bragg.sum()), int(picks.size)
+    phases = sorted({str(p) for p in np.asarray(ix["phase"].values).ravel() if str(p)})
+    found = f"Bragg peaks indexed in {k} of {m} sampled frames"
+    if k and 2 * k >= m:
+        return BRAGG_PANELS, (f"{found} ({', '.join(phases)}): peaks panel shown; Guinier and Kratky "
+                              "(particle curves) left out; name any panel with panels=[...].")
+    if k:
+        return DEFAULT_PANELS, (f"{found} ({', '.join(phases)}), particle curves in the others: "
+                                "Guinier, Kratky and peaks panels shown.")
+    return PARTICLE_PANELS, (f"No Bragg peaks in {m} sampled frames (a particle curve): Guinier and Kratky "
+                             "panels shown, peaks panel left out; name any panel with panels=[...].")
 
 
 def _factories():
@@ -154,6 +295,9 @@ def _factories():
         "browser": lambda model, bg: SeriesBrowser(model),
         "curve": lambda model, bg: CurvePanel(model, bg),
         "guinier": lambda model, bg: LinearFitPanel(model, kind="guinier"),
+        "rod": lambda model, bg: LinearFitPanel(model, kind="rod"),
+        "sheet": lambda model, bg: LinearFitPanel(model, kind="sheet"),
+        "porod": lambda model, bg: LinearFitPanel(model, kind="porod"),
         "kratky": lambda model, bg: KratkyPanel(model),
         "peaks": lambda model, bg: PeaksPanel(model),
         "preparation": lambda model, bg: PreparationPanel(model, bg),
@@ -165,8 +309,10 @@ def explore(
     ds: xr.Dataset,
     background: xr.Dataset | None = None,
     *,
-    panels: Sequence[str] = DEFAULT_PANELS,
+    panels: Sequence[str] | None = None,
     frame: int = 0,
+    name: str | None = None,
+    background_name: str | None = None,
 ) -> Dashboard:
     """Open the linked panels of a series in a notebook.
 
@@ -176,21 +322,28 @@ def explore(
         A series in the saxsnb layout (never modified).
     background : xarray.Dataset, optional
         A background series, drawn in the curve panel.
-    panels : sequence of str
-        Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"kratky"``,
-        ``"peaks"``, ``"distance"`` (p(r), :class:`~saxsnb.widgets.DistancePanel`) and
-        ``"preparation"`` (default: :data:`DEFAULT_PANELS`, every panel but ``"distance"``;
-        ``"preparation"``, the subtraction and frame-similarity panel, needs a background
-        and is shown when named).
+    panels : sequence of str, optional
+        Which panels, among ``"browser"``, ``"curve"``, ``"guinier"``, ``"rod"``,
+        ``"sheet"``, ``"porod"`` (the straight-line fits of
+        :class:`~saxsnb.widgets.LinearFitPanel`), ``"kratky"``, ``"peaks"``,
+        ``"distance"`` (p(r), :class:`~saxsnb.widgets.DistancePanel`) and
+        ``"preparation"`` (subtraction and frame similarity; needs a background).
+        Default: chosen from what the series holds (:func:`choose_panels`: Bragg
+        peaks or a particle curve), the reason shown in one line above the panels.
     frame : int
         Initial current frame.
+    name, background_name : str, optional
+        Variable names of the series and background in exported code (default:
+        the caller's own variables holding them, found by identity, else ``ds``).
 
     Returns
     -------
     Dashboard
         An ``ipywidgets.VBox``; ``dashboard.panels`` is a dict ``name -> panel`` (a
-        :class:`PanelSet`), ``dashboard.frame`` the shared current frame and
-        ``dashboard.to_code()`` the code that reproduces every panel's result.
+        :class:`PanelSet`), ``dashboard.frame`` the shared current frame,
+        ``dashboard.reason`` why these panels, ``dashboard.to_code()`` the code that
+        rebuilds every panel's result from the files and ``dashboard.write_tables()``
+        the CSV tables of their results.
 
     Notes
     -----
@@ -203,6 +356,11 @@ def explore(
 
     make = _factories()
     known = (*PANEL_NAMES, *BACKGROUND_PANELS)
+    reason = ""
+    if panels is None:
+        panels, reason = choose_panels(ds)
+    elif isinstance(panels, str):
+        panels = (panels,)
     unknown = [p for p in panels if p not in known]
     if unknown:
         raise SaxsInputError(f"unknown panel(s) {unknown}; choose from {list(known)}", parameter="panels")
@@ -211,8 +369,13 @@ def explore(
     # the preparation panel (frame x frame similarity map) is shown when asked for by name:
     # explore(ds, bg, panels=(*DEFAULT_PANELS, "preparation"))
     model = SeriesModel(ds)
-    built = {name: make[name](model, background) for name in panels}
-    dash = Dashboard(built, model=model)
+    model.name = checked_name(name) or caller_variable(ds)
+    model.name_given = name is not None
+    model.background = background
+    model.background_name = checked_name(background_name, "background_name") or caller_variable(background)
+    model.background_name_given = background_name is not None
+    built = {p: make[p](model, background) for p in panels}
+    dash = Dashboard(built, model=model, reason=reason)
     if frame:
         dash.frame = int(frame)
     return dash

@@ -9,9 +9,18 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..display import KRATKY_REFERENCES, finite_points, scaled_q, value_range
+from ..display import (
+    KRATKY_REFERENCES,
+    errorbar_segments,
+    finite_points,
+    format_value,
+    pretty_label,
+    scaled_q,
+    scaled_sigma,
+    value_range,
+)
 from . import _bq as bq
-from .base import DatasetTrait, PanelBase, make_figure
+from .base import DatasetTrait, PanelBase, key_html, make_figure, set_ticks
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["KratkyPanel"]
@@ -101,6 +110,15 @@ class KratkyPanel(PanelBase):
             stroke_width=1.5,
             labels=["current frame"],
         )
+        # +-sigma of the current curve (sigma scaled as the intensity is)
+        self.errorbars = bq.Lines(
+            x=self.q,
+            y=np.zeros(self.q.size),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["error"]],
+            stroke_width=1.0,
+            visible=False,
+        )
         ref = KRATKY_REFERENCES
         self.references = bq.Lines(
             x=np.array([[0.0, 12.0], [ref["globule_peak_qrg"]] * 2, [0.0, 12.0]]),
@@ -119,7 +137,7 @@ class KratkyPanel(PanelBase):
         )
         self.axis_note = widgets.HTML("")
         fig = make_figure(
-            [self.references, self.curve],
+            [self.references, self.errorbars, self.curve],
             xs,
             ys,
             x_label="q Rg",
@@ -168,12 +186,9 @@ class KratkyPanel(PanelBase):
             (OKABE_ITO["blue"], "&#9632;", "high-q level (q Rg 4.5-6)"),
             (OKABE_ITO["orange"], "- -", "globule peak 3/e"),
             (OKABE_ITO["black"], "- -", "chain plateau 2"),
+            (ROLE["current"], "&#9474;", "current frame"),
         ]
-        self.trend_key = widgets.HTML(
-            "<small>"
-            + " &nbsp; ".join(f'<span style="color:{c}">{sym}</span> {t}' for c, sym, t in key)
-            + "</small>"
-        )
+        self.trend_key = widgets.HTML(key_html(key))
         self.figures = [fig, tfig]
         self.toggle = widgets.ToggleButtons(
             options=[("q^2 I", "plain"), ("(q Rg)^2 I / I0", "rg")],
@@ -189,6 +204,10 @@ class KratkyPanel(PanelBase):
                 if self._set_points(mark, x, y):
                     self._point_frames[id(mark)] = frames
         return [self.toggle, fig, self.summary_text, tfig, self.trend_key]
+
+    def table_result(self):
+        """``kratky_summary()`` of the whole series (the dashboard's table)."""
+        return self.summary
 
     def _on_toggle(self, change) -> None:
         self.normalize = None if change["new"] == "plain" else "rg"
@@ -250,7 +269,13 @@ class KratkyPanel(PanelBase):
             x = self.q
         y = np.asarray(one.values[0], dtype=float)
         # without Rg the dimensionless abscissa is undefined: the curve is hidden
-        self._set_line(self.curve, x, y)
+        shown = self._set_line(self.curve, x, y)
+        I, S = self.model.rows(i)
+        sy = scaled_sigma(y, I, S)
+        if shown and np.isfinite(sy).any():
+            self._set_line(self.errorbars, *errorbar_segments(x, y, sy))
+        elif self.errorbars.visible:
+            self.errorbars.visible = False
         if dimensionless:
             self._set_axes("q Rg", "(q Rg)^2 I / I0", visible=True)
         else:
@@ -261,7 +286,7 @@ class KratkyPanel(PanelBase):
         with self.trend_current.hold_sync():
             v = float(self.scan_values[i])
             self.trend_current.x = np.array([v, v])
-        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        self.figure.title = pretty_label(f"{self.title}: {self.frame_label(i)}")
         self.summary_text.value = self._summary_html(i, rg)
         self.status = (
             ""
@@ -290,9 +315,12 @@ class KratkyPanel(PanelBase):
             self._xs.min, self._xs.max = xr_
         with self._ys.hold_sync():
             self._ys.min, self._ys.max = yr
+        set_ticks(self.figure, *yr)
+        set_ticks(self.figure, *xr_, axis=0)
         self._range_key = key
 
     def _set_axes(self, xlabel: str, ylabel: str, *, visible: bool) -> None:
+        xlabel, ylabel = pretty_label(xlabel), pretty_label(ylabel)
         if self._x_axis.label != xlabel:
             self._x_axis.label = xlabel
         if self._y_axis.label != ylabel:
@@ -306,11 +334,12 @@ class KratkyPanel(PanelBase):
             return ""
         get = lambda k: s[k].values[i] if k in s else np.nan  # noqa: E731
         cls = html.escape(str(get("shape_class")))
+        f = lambda k: format_value(get(k), digits=3)  # noqa: E731
         return (
-            f"shape: <b>{cls}</b>; peak at q Rg = {float(get('peak_qrg')):.3g}, height "
-            f"{float(get('peak_height')):.3g} (globule 1.73, 1.10); "
-            f"high-q level {float(get('level_high')):.3g} "
-            f"(chain plateau 2)" + (f"; Rg = {rg:.3g} nm" if np.isfinite(rg) else "")
+            f"shape: <b>{cls}</b>; peak at q Rg = {f('peak_qrg')}, height "
+            f"{f('peak_height')} (globule 1.73, 1.10); "
+            f"high-q level {f('level_high')} "
+            f"(chain plateau 2)" + (f"; Rg = {format_value(rg, digits=3)} nm" if np.isfinite(rg) else "")
         )
 
     def _code_lines(self, target: str) -> list[str]:

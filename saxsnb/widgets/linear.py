@@ -10,24 +10,28 @@ import traitlets
 
 from ..analysis._linear import LINEAR_PLOTS, linearize
 from ..display import (
+    errorbar_segments,
     finite_points,
+    format_value,
     line_coefficients,
     line_residuals,
     linear_x,
+    pretty_label,
+    pretty_unit,
     q_from_linear_x,
     value_range,
 )
 from ..display.report import frame_lines
 from ..errors import SaxsInputError
 from . import _bq as bq
-from .base import PanelBase, checked_range, control_row, make_figure
+from .base import PanelBase, checked_range, control_row, key_html, make_figure, set_ticks
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["LinearFitPanel"]
 
 
 def _number(v: float, unit: str = "") -> str:
-    return "n/a" if not np.isfinite(v) else f"{v:.4g}" + (f" {unit}" if unit else "")
+    return format_value(v, unit=unit)
 
 
 class LinearFitPanel(PanelBase):
@@ -148,6 +152,15 @@ class LinearFitPanel(PanelBase):
             default_size=16,
             labels=["fitted points"],
         )
+        # +-sigma of the fitted points (sigma of the linearised y, as the fit weights them)
+        self.in_range_bars = bq.Lines(
+            x=np.zeros(2),
+            y=np.zeros(2),
+            scales={"x": xs, "y": ys},
+            colors=[ROLE["selected"]],
+            stroke_width=1.0,
+            visible=False,
+        )
         self.fit_line = bq.Lines(
             x=np.zeros(2),
             y=np.zeros(2),
@@ -161,9 +174,9 @@ class LinearFitPanel(PanelBase):
         self.selector = bq.BrushIntervalSelector(scale=xs, marks=[self.data], color=ROLE["selected"])
         xq = self.plot.x_label
         qu = self.q_units
-        xunit = f"({qu})^{self.plot.x_power}"
+        xunit = f"({pretty_unit(f'({qu})^{self.plot.x_power}')})"
         fig = make_figure(
-            [self.data, self.fit_line, self.data_points, self.in_range],
+            [self.data, self.in_range_bars, self.fit_line, self.data_points, self.in_range],
             xs,
             ys,
             x_label=f"{xq} {xunit}",
@@ -211,11 +224,16 @@ class LinearFitPanel(PanelBase):
             default_size=80,
             marker="diamond",
         )
+        # +-sigma of the trend points (the fit's standard error)
+        self.trend_bars = bq.Lines(
+            x=np.zeros(2), y=np.zeros(2), scales=trend_scales, colors=[ROLE["trend"]], stroke_width=1.0,
+            visible=False,
+        )
         for m in (self.trend, self.trend_fixed):
             m.on_element_click(self._on_point_click)
         unit = self._size_unit()
         tfig = make_figure(
-            [self.trend, self.trend_fixed, self.trend_current],
+            [self.trend_bars, self.trend, self.trend_fixed, self.trend_current],
             tx,
             ty,
             x_label=self.scan_label,
@@ -225,6 +243,11 @@ class LinearFitPanel(PanelBase):
             x_limits=self.scan_limits,
         )
         self.figures = [fig, rfig, tfig]
+        self.trend_key = widgets.HTML(key_html([
+            (ROLE["trend"], "&#9679;", f"automatic range (\u00b1\u03c3{self.size_label})"),
+            (OKABE_ITO["orange"], "&#9632;", "range applied to all frames"),
+            (ROLE["current"], "&#9670;", "current frame"),
+        ]))
 
         self.auto_button = widgets.Button(
             description="Automatic range",
@@ -245,7 +268,8 @@ class LinearFitPanel(PanelBase):
         self.selector.observe(self._on_brushing, "brushing")
         self.selector.observe(self._on_selected, "selected")
         self._compute_trend()
-        return [fig, rfig, self.result_text, control_row([self.auto_button, self.apply_button]), tfig]
+        return [fig, rfig, self.result_text, control_row([self.auto_button, self.apply_button]), tfig,
+                self.trend_key]
 
     def _status_context(self) -> dict:
         if self.plot.limit is not None:
@@ -269,13 +293,30 @@ class LinearFitPanel(PanelBase):
             return self.model.result("porod", q_range=key)
         return self.model.result("guinier", q_range=key, shape=self.shape)
 
+    def table_result(self):
+        """The fit of every frame with the current range (the dashboard's table)."""
+        try:
+            return self.series_result(self.q_range)
+        except Exception:  # the range was refused: the status line says why
+            return self._auto_series
+
     def _compute_trend(self) -> None:
         try:
             self._auto_series = self.series_result(None)
         except Exception as exc:  # shown in the status line
             self.report(exc, "automatic fit of the series")
             return
-        self._draw_points(self.trend, self._auto_series[self.size_var].values)
+        values = self._auto_series[self.size_var].values
+        self._draw_points(self.trend, values)
+        sig = f"{self.size_var}_sigma"
+        if sig in self._auto_series:
+            x, y, kept = finite_points(self.scan_values, values)
+            s_ = np.asarray(self._auto_series[sig].values, dtype=float)[kept]
+            bx, by = errorbar_segments(x, y, s_)
+            self._set_line(self.trend_bars, bx, by)
+            if x.size:
+                lo, hi = value_range(np.concatenate([y - s_, y + s_]), lower=0, upper=100)
+                set_ticks(self.figures[2], lo, hi)
 
     # --------------------------------------------------------------- selector
     @traitlets.validate("q_range")
@@ -384,6 +425,10 @@ class LinearFitPanel(PanelBase):
         line, _ = line_residuals(np.array([x_start, x_end]), np.zeros(2), None, a, b)
         _, res = line_residuals(xin, yin, syin, a, b)
         self._set_points(self.in_range, xin, yin)
+        if xin.size and np.isfinite(syin).any():
+            self._set_line(self.in_range_bars, *errorbar_segments(xin, yin, syin))
+        elif self.in_range_bars.visible:
+            self.in_range_bars.visible = False
         fx, fy, _ = finite_points(np.array([x_start, x_end]), line)
         self._set_line(self.fit_line, fx, fy)
         rx, ry, _ = finite_points(xin, res)
@@ -395,13 +440,17 @@ class LinearFitPanel(PanelBase):
         # points, which must not stretch the axes
         self._set_view(self._xs, (x_start, x_end), pad=0.02)
         self._set_view(self._ys, value_range(np.concatenate([y, fy]), lower=0, upper=100, pad=0.05))
+        fig, rfig = self.figures[0], self.figures[1]
+        set_ticks(fig, self._xs.min, self._xs.max, axis=0)
+        set_ticks(fig, self._ys.min, self._ys.max, axis=1)
         if rx.size:
             self._set_view(self._rxs, (float(rx.min()), float(rx.max())), pad=0.03)
             self._set_view(self._rys, value_range(ry, lower=0, upper=100, pad=0.1, include=(0.0,)))
+            set_ticks(rfig, self._rxs.min, self._rxs.max, axis=0)
         self._move_selector(q_lo, q_hi)
         cx, cy, _ = finite_points([float(self.scan_values[i])], [vals.get(self.size_var, np.nan)])
         self._set_points(self.trend_current, cx, cy)
-        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        self.figure.title = pretty_label(f"{self.title}: {self.frame_label(i)}")
 
     @staticmethod
     def _set_view(scale, rng, pad: float = 0.0) -> None:

@@ -31,6 +31,7 @@ model as its first argument.
 from __future__ import annotations
 
 import inspect
+import keyword
 from collections import OrderedDict
 from collections.abc import Mapping
 from typing import Any
@@ -136,11 +137,28 @@ class SeriesModel(traitlets.HasTraits):
         else:
             self.scan_values = np.asarray(ds[self.scan].values)
             self.scan_units = str(ds[self.scan].attrs.get("units", ""))
+        #: The user's variable names of the series and of its background in exported code
+        #: (found by ``caller_variable`` or given; None: not known) and the background.
+        self.name: str | None = None
+        self.name_given = False
+        self.background = None
+        self.background_name: str | None = None
+        self.background_name_given = False
         self.max_results = int(max_results)
         self._results: OrderedDict = OrderedDict()
         super().__init__(**kwargs)
         if frame:
             self.frame = int(frame)
+
+    def set_names(self, name: str | None = None, background_name: str | None = None) -> None:
+        """Give the variable names the exported code uses for the series and background."""
+        for value, attr in ((name, "name"), (background_name, "background_name")):
+            if value is None:
+                continue
+            if not (isinstance(value, str) and value.isidentifier() and not keyword.iskeyword(value)):
+                raise SaxsInputError(f"{value!r} is not a Python variable name", parameter=attr)
+            setattr(self, attr, value)
+            setattr(self, f"{attr}_given", True)
 
     @staticmethod
     def _read_only(values) -> np.ndarray:

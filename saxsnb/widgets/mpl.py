@@ -21,18 +21,19 @@ def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
         if isinstance(mark, bq.HeatMap):
             c = np.asarray(mark.color, dtype=float)
             mesh = ax.pcolormesh(np.asarray(mark.x), np.asarray(mark.y), c, shading="nearest", cmap="viridis")
-            ax.figure.colorbar(mesh, ax=ax, label="log10 I")
+            ax.figure.colorbar(mesh, ax=ax, label="log\u2081\u2080 I")
         elif isinstance(mark, bq.GridHeatMap):
             continue  # transparent click targets
         elif isinstance(mark, bq.Label):
-            for x, y, t in zip(np.atleast_1d(mark.x), np.atleast_1d(mark.y), mark.text):
+            colors = list(mark.colors) or ["black"]
+            for k, (x, y, t) in enumerate(zip(np.atleast_1d(mark.x), np.atleast_1d(mark.y), mark.text)):
                 ax.annotate(
                     str(t),
                     (float(x), float(y)),
                     fontsize=7,
                     ha="center",
                     va="bottom",
-                    color=(mark.colors or ["black"])[0],
+                    color=colors[k % len(colors)],
                 )
         elif isinstance(mark, bq.Scatter):
             x, y = np.atleast_1d(mark.x), np.atleast_1d(mark.y)
@@ -42,6 +43,8 @@ def figure_to_matplotlib(fig: bq.Figure, ax) -> None:
             if mark.color is not None and np.size(mark.color) == x.size and len(colors) > 1:
                 idx = np.asarray(mark.color, dtype=int) % len(colors)
                 col = [colors[i] for i in idx]
+            elif len(colors) == x.size > 1:  # one colour per point (e.g. peaks by phase)
+                col = colors
             else:
                 col = colors[0]
             label = mark.labels[0] if mark.labels and mark.display_legend else None

@@ -12,14 +12,19 @@ import traitlets
 from ..analysis._reflections import PHASES
 from ..analysis._status import INDEXED
 from ..display import (
+    PHASE_COLOURS,
     curve_at,
     finite_points,
+    format_value,
     indexing_summary,
+    label_levels,
+    phase_colours,
+    pretty_label,
     status_message,
 )
 from . import _bq as bq
-from .base import PanelBase, control_row, make_figure
-from .palette import ROLE, phase_colour
+from .base import PanelBase, control_row, key_html, make_figure
+from .palette import ROLE
 
 __all__ = ["PeaksPanel"]
 
@@ -134,8 +139,8 @@ class PeaksPanel(PanelBase):
         lx, ly = bq.LinearScale(), bq.LinearScale()
         self._phase_names = list(PHASES) + ["unassigned"]
         self.map_marks, self.trend_marks = {}, {}
-        for k, ph in enumerate(self._phase_names):
-            colour = ROLE["background"] if ph == "unassigned" else phase_colour(k)
+        for ph in self._phase_names:
+            colour = PHASE_COLOURS.get("" if ph == "unassigned" else ph, PHASE_COLOURS[""])
             m = bq.clickable_points({"x": mx, "y": my}, colour, ph, size=10, display_legend=False)
             t = bq.clickable_points({"x": lx, "y": ly}, colour, ph, size=14, display_legend=False)
             m.on_element_click(self._on_point_click)
@@ -184,8 +189,9 @@ class PeaksPanel(PanelBase):
             height="260px",
             x_limits=self.scan_limits,
         )
-        mfig.legend_location = tfig.legend_location = "top-right"
         self.figures = [fig, mfig, tfig]
+        #: The phase colour key under the maps (one code for every figure: PHASE_COLOURS).
+        self.phase_key = widgets.HTML("")
         self.map_note = widgets.HTML("")
         # override controls
         self.phase_choice = widgets.Dropdown(
@@ -211,7 +217,7 @@ class PeaksPanel(PanelBase):
         self.overrides_text = widgets.HTML("")
         controls = control_row([self.phase_choice, self.lattice_box, self.override_button, self.clear_button])
         self._analyse()
-        return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.map_note]
+        return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.phase_key, self.map_note]
 
     def _index_params(self, overrides=None) -> dict:
         """Arguments of ``model.result("index_phases", ...)``: the peaks by their options."""
@@ -294,16 +300,24 @@ class PeaksPanel(PanelBase):
         lat = np.asarray(res["lattice"].values, dtype=float)[rows]
         lphase = np.asarray(res["phase"].values)[rows]
         frames_slot = np.broadcast_to(rows[:, None], lat.shape)
+        present = []
         for ph in self._phase_names:
             key = "" if ph == "unassigned" else ph
             sel = np.isfinite(pos) & (pphase == key)
             m = self.map_marks[ph]
-            self._set_points(m, scan[frames_2d[sel]], pos[sel], display_legend=bool(sel.any()))
+            self._set_points(m, scan[frames_2d[sel]], pos[sel])
             self._point_frames[id(m)] = frames_2d[sel]
             t = self.trend_marks[ph]
             tsel = np.isfinite(lat) & (lphase == key) if key else np.zeros(lat.shape, bool)
-            self._set_points(t, scan[frames_slot[tsel]], lat[tsel], display_legend=bool(tsel.any()))
+            self._set_points(t, scan[frames_slot[tsel]], lat[tsel])
             self._point_frames[id(t)] = frames_slot[tsel]
+            if sel.any():
+                present.append(ph)
+        self.phase_key.value = key_html(
+            [(PHASE_COLOURS.get("" if ph == "unassigned" else ph, PHASE_COLOURS[""]), "&#9679;", ph)
+             for ph in present]
+            + [(ROLE["reference"], "- -", "phase boundary"), (ROLE["current"], "&#9474;", "current frame")]
+        )
         self._draw_boundaries(lat)
 
     def _draw_boundaries(self, lat) -> None:
@@ -331,7 +345,7 @@ class PeaksPanel(PanelBase):
             self._apply()
         I = self.model.rows(i)[0]
         self._set_line(self.curve, self.q, I, positive=True)
-        self.figure.title = f"{self.title}: {self.frame_label(i)}"
+        self.figure.title = pretty_label(f"{self.title}: {self.frame_label(i)}")
         v = float(self.scan_values[i])
         with self.map_current.hold_sync():
             self.map_current.x = np.array([v, v])
@@ -345,10 +359,17 @@ class PeaksPanel(PanelBase):
             self.trend_current.y = np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2)
         pos = self._pos[i]
         hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
-        # markers on the log axis: finite positions with a positive intensity only
+        pphase = np.asarray(res["peak_phase"].values[i]) if "peak_phase" in res else np.full(pos.shape, "")
+        # markers on the log axis: finite positions with a positive intensity only,
+        # coloured by phase; labels of close peaks (coexisting phases) stacked upwards
         px, py, kept = finite_points(pos, curve_at(self.q, I, pos), positive=True)
-        self._set_points(self.markers, px, py)
-        self._set_points(self.labels, px, py, text=[str(h) for h in hkl[kept]])
+        colours = phase_colours(pphase[kept])
+        span = float(self.q.max() - self.q.min()) or 1.0
+        level = label_levels(px, min_gap=0.035 * span)
+        ly = py * (1.8 ** level) if px.size else py
+        self._set_points(self.markers, px, py, colors=colours or [ROLE["fit"]])
+        self._set_points(self.labels, px, ly, text=[str(h) for h in hkl[kept]],
+                         colors=colours or [ROLE["reference"]])
         self.table.value = self._table_html(i)
         self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
         status = str(res["status"].values[i])
@@ -365,11 +386,7 @@ class PeaksPanel(PanelBase):
             lat, sig = float(res["lattice"].values[i, s]), float(res["lattice_sigma"].values[i, s])
             score = float(res["score"].values[i, s])
             what = "d" if ph == "lamellar" else "a"
-            lat_t = (
-                "n/a"
-                if not np.isfinite(lat)
-                else f"{lat:.4g}" + (f" &plusmn; {sig:.2g}" if np.isfinite(sig) else "")
-            )
+            lat_t = html.escape(format_value(lat, sig))
             rows.append(
                 f"<tr><td>{e(ph)}</td><td>{what} = {lat_t} nm</td><td>{score:.2f}</td></tr>"
                 if np.isfinite(score)

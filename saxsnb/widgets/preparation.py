@@ -95,6 +95,9 @@ class PreparationPanel(PanelBase):
         """``ds.saxs.compare_frames(test=..., pairwise=True)`` (cached on the model)."""
         return self.model.result("compare_frames", test=self.test, pairwise=True)
 
+    def _background_dataset(self):
+        return self.background
+
     def _code_lines(self, target: str) -> list[str]:
         return [f"{target} = ds.saxs.subtract(background, scale={self._shown_scale!r})"]
 
