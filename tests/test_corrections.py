@@ -163,7 +163,8 @@ def test_subtract_properties(arrays_, scale):
     assert np.all(sig <= (S + scale * BS) * (1 + 1e-12))
 
 
-@pytest.mark.parametrize("bad", ["abc", "1.5", None, [1, 2], {"a": 1}, True, -1.0, float("nan"), float("inf")])
+@pytest.mark.parametrize("bad", ["abc", "1.5", None, [1, 2], {"a": 1}, True, -1.0,
+                                 float("nan"), float("inf")])
 def test_subtract_refuses_a_scale_that_is_not_a_number(bad):
     # issue 12 item 9: a non-numeric or negative scale= is an error from the family
     ds = saxsnb.demo.example_series("spheres")
