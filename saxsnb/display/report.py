@@ -120,7 +120,7 @@ def frame_lines(ds, index: int) -> list[str]:
     >>> q = np.linspace(0.02, 1.0, 100)
     >>> res = saxsnb.from_arrays(q, np.exp(-(2 * q) ** 2 / 3), np.full(100, 0.01)).saxs.guinier()
     >>> frame_lines(res, 0)[:2]
-    ['status: ok', 'rg = 2.000 +- 0.010 nm']
+    ['status: ok', 'rg = 2.000 +- 0.017 nm']
     """
     lines = []
     if "status" in ds.data_vars:
