@@ -237,14 +237,7 @@ def _stats_block(items, fr, weight, full):
         v_one = np.sum(g1 * g1 / den, axis=1) / c
         gr = (g2 - 2 * rg2[:, None] * g1) / (2 * tot)[:, None]
         v_rg2 = np.sum(gr * gr / den, axis=1) / c
-        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
-        rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
-    out.update(
-        i0=4 * np.pi * h * tot,
-        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
-        rg=rg,
-        rg_sigma=rg_sigma,
-    )
+    out.update(_moment_outputs(h, tot, rg2, v_one, v_rg2, noise))
     return out
 
 
@@ -311,14 +304,7 @@ def _evaluate_block(sh, fr, rows, weight, full, nonnegative):
             v_one = np.einsum("fij->f", cov)
             gr = (sh.m2[None, :] - 2 * rg2[:, None]) / (2 * tot)[:, None]
             v_rg2 = np.einsum("fi,fij,fj->f", gr, cov, gr)
-        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
-        rg_sigma = np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg)
-    out.update(
-        i0=4 * np.pi * h * tot,
-        i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
-        rg=rg,
-        rg_sigma=rg_sigma,
-    )
+    out.update(_moment_outputs(h, tot, rg2, v_one, v_rg2, noise))
     out.update(
         p_inner=p_in,
         p_var=var * noise[:, None],
@@ -369,3 +355,15 @@ def _nonnegative(sh, Gs, c, b, lam, p0, max_iter=30):
     omega = sh.Lc @ sh.Lc.T
     n_eff = free.sum(axis=1) - lam * np.einsum("fij,ji->f", Hinv, omega)
     return p, Hinv / c[:, None, None], n_eff
+
+
+def _moment_outputs(h, tot, rg2, v_one, v_rg2, noise) -> dict:
+    """I0 and Rg from the zeroth and second moments of p(r), with their sigmas."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rg = np.sqrt(np.where(rg2 > 0, rg2, np.nan))
+        return dict(
+            i0=4 * np.pi * h * tot,
+            i0_sigma=4 * np.pi * h * np.sqrt(np.maximum(v_one * noise, 0)),
+            rg=rg,
+            rg_sigma=np.sqrt(np.maximum(v_rg2 * noise, 0)) / (2 * rg),
+        )
