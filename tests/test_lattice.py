@@ -315,3 +315,30 @@ def test_weak_coexisting_phase_found_when_none_of_its_peaks_is_among_the_stronge
     assert set(got) == {"Pn3m", "hexagonal"}
     assert got["hexagonal"] == pytest.approx(5.3, rel=1e-6)
     assert res["score"][0].tolist()[1] < 0.1  # hexagonal: a small share of the peak strength
+
+
+@pytest.mark.parametrize("prior", [False, True])
+def test_subset_cubic_wins_in_coexistence(prior):
+    # Im3m (s = 2, 4, 6, 8: ITA Vol. A, I centring) beside Pn3m whose 111 lies 0.15 % from
+    # where Pm3n (a superset of Im3m) predicts its 210 (s = 5). Pm3n + Pn3m explains the
+    # same peaks but predicts 210 under another phase's peak and 320 (s = 13) absent;
+    # Im3m + Pn3m predicts neither, so it wins; Pm3n stays as the close alternative.
+    a_p = 10.0 * np.linspace(0.98, 1.02, 6)
+    a_i = 1.2928 * a_p
+    pos = np.concatenate([np.stack([_one([2, 3, 4, 6, 8, 9, 10], a=x)[0] for x in a_p]),
+                          np.stack([_one([2, 4, 6, 8], a=x)[0] for x in a_i])], 1)
+    r = index_peaks(pos, use_scan_prior=prior)
+    labels = ["+".join(sorted(p for p in row if p)) for row in r["phase"]]
+    assert labels == ["Im3m+Pn3m"] * 6
+    lat = np.where(r["phase"] == "Im3m", r["lattice"], np.nan)
+    np.testing.assert_allclose(np.nanmax(lat, 1), a_i, rtol=1e-9)
+    assert all("Pm3n" in alt for alt in r["alternative"])
+    assert all("close alternative" in c for c in r["caveat"])
+
+
+def test_subset_cubic_single_phase():
+    # Im3m within Pn3m and within Pm3n (ITA Vol. A lists): peaks at s = 2, 4, 6, 8, 10, 12
+    # only are Im3m, whichever larger set a candidate started from
+    r = index_peaks(_one([2, 4, 6, 8, 10, 12]), use_scan_prior=False)
+    assert r["phase"][0, 0] == "Im3m"
+    np.testing.assert_allclose(r["lattice"][0, 0], 10.0, rtol=1e-9)

@@ -24,6 +24,7 @@ from ._lattice_search import (
     _blocks,
     _hypotheses,
     _key,
+    _relabel_subsets,
     _states,
     _viterbi,
 )
@@ -296,6 +297,23 @@ def index_peaks(
         again = np.nonzero((unexplained.sum(-1) >= 1) & (n_obs > 2))[0]
         for rows_ in _blocks(again, n_obs, P, nph, block):
             explain(rows_, P, unexplained[rows_])
+    # a cubic phase whose indexed reflections are all allowed by a cubic phase with fewer
+    # reflections (Im3m within Pn3m or Pm3n, ...) is also read as that phase, which
+    # predicts fewer absent reflections: added as a state of its own (the original stays,
+    # for the scan prior and as the alternative), the Kv cheapest states kept
+    new_phase, new_cost = _relabel_subsets(st_phase, st_L, st_slot, st_s, st_cost, q, qlo, phases, tolerance)
+    changed = (new_phase != st_phase).any(-1)
+    if changed.any():
+        f_, k_ = np.nonzero(changed)
+        np.minimum.at(best_key, (f_, _key(new_phase[f_, k_], nph)), new_cost[f_, k_])
+        both_cost = np.concatenate([st_cost, np.where(changed, new_cost, np.inf)], 1)
+        top = np.argsort(both_cost, axis=1, kind="stable")[:, :Kv]
+        st_cost = np.take_along_axis(both_cost, top, 1)
+        src = np.where(top >= Kv, top - Kv, top)
+        phase2 = np.concatenate([st_phase, new_phase], 1)
+        st_phase = np.take_along_axis(phase2, top[..., None], 1)
+        st_L, st_sL, st_slot, st_s = (np.take_along_axis(a, src[..., None], 1)
+                                      for a in (st_L, st_sL, st_slot, st_s))
     # choose a state per frame
     choice = np.zeros(F, dtype=np.int64)  # states are sorted: 0 = frame's best
     informative = (n_obs >= 2) & np.isfinite(st_cost[:, 0]) & (st_phase[:, 0, 0] >= 0)

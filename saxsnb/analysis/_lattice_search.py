@@ -300,3 +300,75 @@ def _key(phase_pair, n):
     a = np.minimum(phase_pair[..., 0], phase_pair[..., 1])
     b = np.maximum(phase_pair[..., 0], phase_pair[..., 1])
     return (a + 1) * (n + 1) + (b + 1)
+
+
+_NOT_CUBIC = ("lamellar", "hexagonal")
+
+
+def _miss_as(phase_name, own, s, x_lo, x_hi):
+    """Miss cost of the peaks ``own`` (indexed ``s``) read as ``phase_name`` over the
+    range x_lo..x_hi of (q L)^2, and whether that phase allows all of them."""
+    from ._latticematch import _miss_tables, _table
+
+    ok = _table(phase_name)[1]
+    cum, by_s = _miss_tables(phase_name)
+    top = cum.size - 1
+    si = np.where(own, np.minimum(s, ok.size - 1), 0)
+    allowed = np.where(own, ok[si], True).all(-1)  # ok[-1] is False: beyond the table
+    hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
+    lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
+    in_range = np.where(hi > lo, cum[hi] - cum[lo], 0.0)
+    return np.maximum(in_range - np.where(own, by_s[si], 0.0).sum(-1), 0.0), allowed
+
+
+def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol):
+    """Give each cubic phase of each state the cubic phase that allows all its indexed
+    reflections at the same lattice and predicts the fewest absent ones (issue 15).
+
+    The reflections of some cubic phases are a subset of another's at the same cell
+    (Im3m within Pn3m and within Pm3n, Ia3d within Im3m, Fd3m within Fm3m). A state
+    built on the larger set pays for every predicted reflection no peak shows; the
+    smaller set predicts fewer, so when all the peaks the state gives that phase are
+    allowed by the smaller set, the smaller set is the better explanation of the same
+    peaks (same lattice, same misfit, lower miss cost). The candidate search may not
+    hold that state itself (it keeps a few lattices per phase, ranked as single phases),
+    so it is built here. Reflections of the phase under a peak of the other phase of a
+    pair count as missing (``HIDDEN_FRACTION`` is 1).
+
+    phase (F, K, 2), L (F, K, 2), slot / s (F, K, P), cost (F, K); q (F, P) sorted, NaN
+    padded; q_lo (F,). Returns new ``phase`` and ``cost`` (copies); unchanged where no
+    subset phase is cheaper.
+    """
+    cubic = [k for k, ph in enumerate(phases) if ph not in _NOT_CUBIC]
+    phase, cost = phase.copy(), cost.copy()
+    if len(cubic) < 2:
+        return phase, cost
+    q0 = np.nan_to_num(q, nan=0.0)[:, None, :]
+    for j in range(2):
+        own = (slot == j) & (s > 0)
+        Lj = L[..., j]
+        with np.errstate(invalid="ignore"):
+            q_hi = np.where(own, q0, 0.0).max(-1) * (1 + tol)
+            x_hi = np.nan_to_num((q_hi * Lj) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
+            x_lo = np.nan_to_num((np.asarray(q_lo, dtype=float)[:, None] * Lj) ** 2, nan=0.0, posinf=0.0)
+
+        cur = phase[..., j]
+        is_cubic = np.isin(cur, cubic)
+        if not is_cubic.any():
+            continue
+        miss = {k: _miss_as(phases[k], own, s, x_lo, x_hi) for k in cubic}
+        cur_miss = np.zeros(cur.shape)
+        for k in cubic:
+            cur_miss = np.where(cur == k, miss[k][0], cur_miss)
+        other = phase[..., 1 - j]
+        best_delta = np.zeros(cur.shape)
+        best_k = cur.copy()
+        for k in cubic:
+            m_k, allowed = miss[k]
+            d = m_k - cur_miss
+            better = is_cubic & (cur != k) & (other != k) & allowed & (d < best_delta - 1e-9)
+            best_delta = np.where(better, d, best_delta)
+            best_k = np.where(better, k, best_k)
+        phase[..., j] = best_k
+        cost = cost + best_delta
+    return phase, cost
