@@ -342,3 +342,26 @@ def test_subset_cubic_single_phase():
     r = index_peaks(_one([2, 4, 6, 8, 10, 12]), use_scan_prior=False)
     assert r["phase"][0, 0] == "Im3m"
     np.testing.assert_allclose(r["lattice"][0, 0], 10.0, rtol=1e-9)
+
+
+@pytest.mark.parametrize("lamellar", [False, True])
+@pytest.mark.parametrize("low, expected", [(30.0, 1.0), (6.0, 0.5), (3.0, 0.25)])
+def test_absent_reflection_costs_less_where_the_noise_is_high(lamellar, low, expected):
+    # Pn3m at a = 10 nm with its 111 (s = 3, cost 1.0 as the second reflection) absent;
+    # the other peaks exact (no misfit). The rule of _latticematch.SNR_FULL (12) and
+    # SNR_FLOOR (0.25): the absent 111 lies between 110 and 200, so it costs
+    # 1.0 * clip(min(snr_110, snr_200) / 12, 0.25, 1) whatever the snr of the other peaks
+    # (30). With a coexisting lamellar phase (d = 6.9 nm, 001 and 002 more than 2 % from
+    # any Pn3m reflection) the Pn3m part is recounted the same way, plus PHASE_COST (1).
+    s = [2, 4, 6, 8, 9, 10, 11]
+    q = _one(s)[0]
+    snr = np.array([low, low, 30, 30, 30, 30, 30])
+    if lamellar:
+        q = np.concatenate([q, 2 * np.pi * np.arange(1, 3) / 6.9])
+        snr = np.concatenate([snr, [30.0, 30.0]])
+    r = index_peaks(q[None], snr=snr[None], use_scan_prior=False)
+    assert "Pn3m" in r["phase"][0]
+    assert ("lamellar" in r["phase"][0]) == lamellar
+    np.testing.assert_allclose(r["cost"][0], expected + (1.0 if lamellar else 0.0), atol=1e-6)
+    plain = index_peaks(q[None], use_scan_prior=False)  # without snr: full cost
+    np.testing.assert_allclose(plain["cost"][0], 1.0 + (1.0 if lamellar else 0.0), atol=1e-6)

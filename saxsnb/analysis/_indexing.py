@@ -140,7 +140,8 @@ def index_phases(
     params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
                   use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight))
     res = index_peaks(pos, take(position_sigma), take(prominence), q_min=qm, fwhm=take(fwhm), q_step=q_step,
-                      resolution=resolution, max_relative_width=float(max_relative_width), **params)
+                      resolution=resolution, max_relative_width=float(max_relative_width),
+                      snr=take(prominence), **params)
     res["n_broad"] = broad.sum(axis=-1).astype(np.int64)
     status = res["status"].astype(STATUS_DTYPE)
     if peak_status is not None:

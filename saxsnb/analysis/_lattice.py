@@ -84,6 +84,7 @@ def index_peaks(
     q_step=None,
     resolution=None,
     max_relative_width: float | None = 0.1,
+    snr=None,
 ):
     """Explain the peaks of every frame by one phase or a pair of coexisting phases.
 
@@ -116,6 +117,12 @@ def index_peaks(
         The q grid step and the instrument resolution FWHM, for the spike test.
     max_relative_width : float or None
         FWHM / position above which a peak is not a reflection (None: no such test).
+    snr : array like position, optional
+        Signal-to-noise ratio of each peak (the prominence of
+        :func:`~saxsnb.analysis._peaks.find_peaks`, in noise units). With it an absent
+        reflection costs less where the phase's neighbouring peaks barely stand above
+        the noise (:data:`~saxsnb.analysis._latticematch.SNR_FULL`); without it every
+        absent reflection costs its full :data:`MISS_COST`.
 
     Returns
     -------
@@ -190,7 +197,7 @@ def index_peaks(
     if P == 0:  # no peak column at all
         q = np.full((F, 1), np.nan)
         P = 1
-        position_sigma = strength = None
+        position_sigma = strength = snr = None
     # evidence first: peaks that are not Bragg reflections are not indexed (issue 15)
     keep, why, _ = bragg_evidence(
         q,
@@ -217,6 +224,10 @@ def index_peaks(
     if position_sigma is not None:
         position_sigma = np.broadcast_to(np.asarray(position_sigma, float), (F, P))
         position_sigma = np.take_along_axis(position_sigma, order, 1)
+    if snr is not None:
+        snr = np.take_along_axis(np.broadcast_to(np.asarray(snr, float), (F, P)), order, 1)
+        # unknown ratio (a shoulder has no prominence): full weight, as without snr
+        snr = np.where(np.isfinite(snr), np.maximum(snr, 0.0), np.inf)
     if strength is not None:
         strength = np.take_along_axis(np.broadcast_to(np.asarray(strength, float), (F, P)), order, 1)
     present = np.isfinite(q)
@@ -251,7 +262,8 @@ def index_peaks(
         sl = frames
         pb = max(int(n_obs[sl].max()), 1)  # peaks are sorted, NaN last: drop empty columns
         H = _hypotheses(q[sl, :pb], w[sl, :pb], st[sl, :pb], qlo[sl], phases, max_phases, tolerance,
-                        n_anchor, None if focus is None else focus[:, :pb], scratch)
+                        n_anchor, None if focus is None else focus[:, :pb], scratch,
+                        snr=None if snr is None else snr[sl, :pb])
         cost = np.where((n_obs[sl] >= 2)[:, None], H["cost"], np.inf)
         cost[:, 0] = H["cost"][:, 0]  # the empty explanation always exists
         rho[sl, :pb] = H["rho"]
@@ -301,7 +313,8 @@ def index_peaks(
     # reflections (Im3m within Pn3m or Pm3n, ...) is also read as that phase, which
     # predicts fewer absent reflections: added as a state of its own (the original stays,
     # for the scan prior and as the alternative), the Kv cheapest states kept
-    new_phase, new_cost = _relabel_subsets(st_phase, st_L, st_slot, st_s, st_cost, q, qlo, phases, tolerance)
+    new_phase, new_cost = _relabel_subsets(st_phase, st_L, st_slot, st_s, st_cost, q, qlo, phases, tolerance,
+                                           snr=snr)
     changed = (new_phase != st_phase).any(-1)
     if changed.any():
         f_, k_ = np.nonzero(changed)

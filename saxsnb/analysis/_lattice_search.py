@@ -11,6 +11,7 @@ import numpy as np
 from ._latticematch import (
     _ANCHOR_REFLECTIONS,
     _KEEP,
+    _gap_miss,
     _phase_set,
     _Scratch,
     _singles,
@@ -76,12 +77,14 @@ def _hypothesis_table(nph: int, max_phases: int):
     }
 
 
-def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None, ws=None):
+def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_PEAKS, focus=None, ws=None,
+                snr=None):
     """Costs of all one- and two-phase explanations of each frame.
 
     ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
     explain these peaks (e.g. the ones a first pass left unexplained); their costs are
     then recomputed over all peaks. ``ws``: a :class:`_Scratch` shared by the blocks.
+    ``snr`` (B, P) optional: absent reflections weighted by the noise (:func:`_gap_miss`).
     Returns ``cost`` (B, H) in the order of :func:`_hypothesis_table`, ``rho`` (B, P),
     and what :func:`_states` needs to build the explanations chosen.
     """
@@ -102,7 +105,7 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     wq = w * q0
     finite = bool(np.isfinite(w).all() and np.isfinite(wq).all())
     ws = _Scratch() if ws is None else ws
-    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol, ws)
+    cat = _singles(_phase_set(tuple(phases)), q, w, q0, wq, finite, rank_unexpl, qa, q_lo, tol, ws, snr=snr)
     if focus is not None:  # true costs: every unexplained peak counts
         extra = _sum_peaks(np.where((cat["s"] == 0) & ~focus[:, None, :], unexpl[:, None, :], 0.0))
         cat["cost"] = cat["cost"] + extra
@@ -147,8 +150,12 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
                     x_lo = np.nan_to_num((qlo_r[:, None] * L) ** 2, nan=0.0, posinf=0.0)
                 hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
                 lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
-                in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
-                miss = np.maximum(in_range - _sum_peaks(np.where(own, mc, 0.0)), 0.0)
+                if snr is not None:  # noise-weighted, gap by gap between the phase's own peaks
+                    miss = _gap_miss(cat["s"][rows][:, idx], own, snr[rows][:, None, :], lo, tabs["cum"],
+                                     np.broadcast_to(off, lo.shape))
+                else:
+                    in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
+                    miss = np.maximum(in_range - _sum_peaks(np.where(own, mc, 0.0)), 0.0)
                 # a reflection under the other phase's peak is hidden, not absent: it costs
                 # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable)
                 hidden = other_m & ~own & (qr[:, None, :] <= q_hi[..., None])
@@ -305,9 +312,10 @@ def _key(phase_pair, n):
 _NOT_CUBIC = ("lamellar", "hexagonal")
 
 
-def _miss_as(phase_name, own, s, x_lo, x_hi):
+def _miss_as(phase_name, own, s, x_lo, x_hi, snr=None):
     """Miss cost of the peaks ``own`` (indexed ``s``) read as ``phase_name`` over the
-    range x_lo..x_hi of (q L)^2, and whether that phase allows all of them."""
+    range x_lo..x_hi of (q L)^2 (noise-weighted with ``snr``, :func:`_gap_miss`), and
+    whether that phase allows all of them."""
     from ._latticematch import _miss_tables, _table
 
     ok = _table(phase_name)[1]
@@ -317,11 +325,13 @@ def _miss_as(phase_name, own, s, x_lo, x_hi):
     allowed = np.where(own, ok[si], True).all(-1)  # ok[-1] is False: beyond the table
     hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
     lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
+    if snr is not None:
+        return _gap_miss(si, own, snr, lo, cum, np.zeros(lo.shape, dtype=np.intp)), allowed
     in_range = np.where(hi > lo, cum[hi] - cum[lo], 0.0)
     return np.maximum(in_range - np.where(own, by_s[si], 0.0).sum(-1), 0.0), allowed
 
 
-def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol):
+def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
     """Give each cubic phase of each state the cubic phase that allows all its indexed
     reflections at the same lattice and predicts the fewest absent ones (issue 15).
 
@@ -336,7 +346,8 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol):
     pair count as missing (``HIDDEN_FRACTION`` is 1).
 
     phase (F, K, 2), L (F, K, 2), slot / s (F, K, P), cost (F, K); q (F, P) sorted, NaN
-    padded; q_lo (F,). Returns new ``phase`` and ``cost`` (copies); unchanged where no
+    padded; q_lo (F,); ``snr`` (F, P) optional (noise-weighted misses). Returns new
+    ``phase`` and ``cost`` (copies); unchanged where no
     subset phase is cheaper.
     """
     cubic = [k for k, ph in enumerate(phases) if ph not in _NOT_CUBIC]
@@ -356,7 +367,8 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol):
         is_cubic = np.isin(cur, cubic)
         if not is_cubic.any():
             continue
-        miss = {k: _miss_as(phases[k], own, s, x_lo, x_hi) for k in cubic}
+        p = None if snr is None else snr[:, None, :]
+        miss = {k: _miss_as(phases[k], own, s, x_lo, x_hi, p) for k in cubic}
         cur_miss = np.zeros(cur.shape)
         for k in cubic:
             cur_miss = np.where(cur == k, miss[k][0], cur_miss)

@@ -19,6 +19,16 @@ from ._reflections import allowed_reflections
 #: Cost of an unobserved allowed reflection inside the observed range, by its rank in
 #: the phase's sequence (first reflection first); later ones cost the last value.
 MISS_COST = (1.5, 1.0, 0.6, 0.4, 0.3)
+#: Noise weighting of absent reflections (with a per-peak signal-to-noise ratio, e.g. the
+#: prominence of find_peaks in noise units): an absent reflection between two indexed
+#: peaks of the phase costs its MISS_COST times clip(snr / SNR_FULL, SNR_FLOOR, 1), snr
+#: the smaller ratio of the two (of the first indexed peak below the first one). Where
+#: the phase's own peaks barely stand above the noise, a reflection a few times weaker
+#: is lost in it, so its absence is weak evidence; where they stand SNR_FULL noise units
+#: high, a missing reflection is a real absence. Our choice (issue 15), checked on the
+#: mesophase ramps of tests/validation.
+SNR_FULL = 12.0
+SNR_FLOOR = 0.25
 _N_REF = {"lamellar": 12, "hexagonal": 20}
 _N_REF_CUBIC = 30
 _ANCHOR_REFLECTIONS = 3
@@ -113,6 +123,34 @@ def _phase_set(phases: tuple):
         min_match=np.array(parts["min_match"], dtype=np.int64),
     )
     return out
+
+
+def _gap_miss(s, own, snr, lo, cum, off):
+    """Noise-weighted cost of the absent reflections of candidates (see :data:`SNR_FULL`).
+
+    s (..., P) int, the allowed s given to each peak (sorted by q; 0 = none), ``own``
+    the peaks the phase keeps (bool, like s), ``snr`` (..., P) broadcastable, or None
+    for unweighted costs; ``lo`` (...) int: reflections with s > lo count; ``cum`` the
+    flat cumulative cost table of :func:`_phase_set` and ``off`` (...) each candidate's
+    offset in it. Counts the allowed reflections between consecutive own peaks (and
+    from ``lo`` to the first), each gap weighted by the smaller snr of its two ends.
+    """
+    s_own = np.where(own, s, 0)
+    prev = np.maximum.accumulate(s_own, axis=-1)
+    prev = np.concatenate([np.zeros(prev.shape[:-1] + (1,), dtype=prev.dtype), prev[..., :-1]], -1)
+    prev = np.maximum(prev, lo[..., None])
+    o = off[..., None]
+    gap = cum[np.maximum(s_own - 1, 0) + o] - cum[prev + o]
+    gap = np.where(own & (gap > 0), gap, 0.0)
+    if snr is None:
+        return _sum_peaks(gap)
+    p = np.broadcast_to(snr, s.shape)
+    P = s.shape[-1]
+    last = np.maximum.accumulate(np.where(own, np.arange(P), -1), axis=-1)
+    last = np.concatenate([np.full(last.shape[:-1] + (1,), -1), last[..., :-1]], -1)
+    p_prev = np.where(last >= 0, np.take_along_axis(p, np.maximum(last, 0), -1), np.inf)
+    wgt = np.clip(np.minimum(p, p_prev) / SNR_FULL, SNR_FLOOR, 1.0)
+    return _sum_peaks(gap * np.where(np.isfinite(wgt), wgt, 1.0))
 
 
 def _sum_peaks(a):
@@ -252,11 +290,13 @@ def _refine_candidates(s, root, ok, w, q0, wq, ws, sigma=True, finite=True):
     return L, sL
 
 
-def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
+def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
     """Best ``_KEEP`` distinct lattices of every phase for each frame.
 
     q, w, q0, wq, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,); ``ws`` a
-    :class:`_Scratch`. Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by
+    :class:`_Scratch`; ``snr`` (B, P) optional: the kept candidates' absent reflections
+    are then weighted by the noise (:func:`_gap_miss`; the ranking that keeps them is
+    unweighted). Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by
     phase.
     """
     B, P = q.shape
@@ -319,13 +359,21 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws):
         return np.take_along_axis(a, J[:, None, :], 2).transpose(0, 2, 1)  # (B, M, P)
 
     s_kept = take(s).astype(np.int64)
+    cost_kept = np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP)
+    miss_kept = take(miss)
+    if snr is not None:
+        lo_k = take(lo)
+        off_k = take(np.broadcast_to(off, lo.shape))
+        miss_w = _gap_miss(s_kept, s_kept > 0, snr[:, None, :], lo_k, cum_cost, off_k)
+        cost_kept = np.where(np.isfinite(cost_kept), cost_kept - miss_kept + miss_w, cost_kept)
+        miss_kept = miss_w
     return {
         "L": take(L),
         "sL": take(sL),
         "s": s_kept,
         "err": np.where(s_kept > 0, take(err), np.nan),
         "mc": take(mc),
-        "miss": take(miss),
+        "miss": miss_kept,
         "fit": take(fitc),
-        "cost": np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP),
+        "cost": cost_kept,
     }
