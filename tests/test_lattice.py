@@ -365,3 +365,21 @@ def test_absent_reflection_costs_less_where_the_noise_is_high(lamellar, low, exp
     np.testing.assert_allclose(r["cost"][0], expected + (1.0 if lamellar else 0.0), atol=1e-6)
     plain = index_peaks(q[None], use_scan_prior=False)  # without snr: full cost
     np.testing.assert_allclose(plain["cost"][0], 1.0 + (1.0 if lamellar else 0.0), atol=1e-6)
+
+
+def test_close_explanations_get_status_ambiguous_phase():
+    # the frame of a Pn3m ramp without its 111 reads Im3m on its own; the scan prior
+    # keeps Pn3m, a dearer explanation than Im3m: the result says so (status, caveat,
+    # alternative); the frames with 111 are plain Pn3m (no other explanation within
+    # AMBIGUOUS_MARGIN; s lists: ITA Vol. A reflection conditions)
+    from saxsnb.analysis._status import INDEXED, STATUS
+
+    a = 10.0 - 0.01 * np.arange(7)
+    pos = np.stack([_one([2, 3, 4, 6, 8], a=x)[0] for x in a])
+    pos[3, 1] = np.nan
+    r = index_peaks(pos)
+    assert r["phase"][3, 0] == "Pn3m" and r["margin"][3] < 0
+    assert r["status"][3] == "ambiguous_phase"
+    assert "ambiguous_phase" in STATUS and "ambiguous_phase" in INDEXED
+    assert "Im3m" in r["alternative"][3] and "close alternative: Im3m" in r["caveat"][3]
+    assert set(r["status"][[0, 1, 2, 4, 5, 6]]) == {"ok"}

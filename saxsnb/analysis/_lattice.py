@@ -20,6 +20,7 @@ from ._bragg import bragg_evidence, describe_rejections
 from ._lattice_search import (
     _ANCHOR_PEAKS,
     _VITERBI_STATES,
+    AMBIGUOUS_MARGIN,
     CLOSE_COST,
     _blocks,
     _hypotheses,
@@ -133,7 +134,8 @@ def index_peaks(
     per (frame, peak): ``hkl`` (str, "" unassigned), ``peak_phase`` (str);
     per frame: ``alternative`` (str, up to three close other explanations, closest
     first, ", "-separated, pairs written "A+B"; "" when none), ``status`` ("ok",
-    "unexplained_peaks", "no_phase_found", "not_enough_peaks_to_index",
+    "unexplained_peaks", "ambiguous_phase" (the closest other explanation within
+    ``AMBIGUOUS_MARGIN`` of the chosen one, or cheaper), "no_phase_found", "not_enough_peaks_to_index",
     "no_peaks", "no_bragg_peaks"), ``cost``, ``margin`` (cost of the closest other
     explanation minus the chosen one; NaN when none), ``n_unexplained``, ``caveat``
     (str), ``n_rejected`` (peaks set aside as not Bragg) and ``rejected`` (str, their
@@ -394,9 +396,12 @@ def index_peaks(
         alt[i] = ", ".join(key_names[int(k)] for k in ks)
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
+    with np.errstate(invalid="ignore"):
+        ambiguous = found & (margin < AMBIGUOUS_MARGIN)  # NaN (no other explanation): False
     status = np.select(
-        [(n_obs == 0) & (n_rejected > 0), n_obs == 0, n_obs == 1, ~found, n_unexpl > 0],
-        ["no_bragg_peaks", "no_peaks", "not_enough_peaks_to_index", "no_phase_found", "unexplained_peaks"],
+        [(n_obs == 0) & (n_rejected > 0), n_obs == 0, n_obs == 1, ~found, n_unexpl > 0, ambiguous],
+        ["no_bragg_peaks", "no_peaks", "not_enough_peaks_to_index", "no_phase_found", "unexplained_peaks",
+         "ambiguous_phase"],
         "ok",
     ).astype(STATUS_DTYPE)
     caveat = np.full(F, "", dtype=object)

@@ -21,12 +21,16 @@ from ._latticematch import (
     MISS_COST as MISS_COST,  # re-exported: documented here
 )
 
-__all__ = ["PHASE_COST", "CLOSE_COST"]
+__all__ = ["PHASE_COST", "CLOSE_COST", "AMBIGUOUS_MARGIN"]
 
 #: Cost of a second coexisting phase (fewest phases preferred).
 PHASE_COST = 1.0
 #: A different explanation within this cost of the chosen one is reported as close.
 CLOSE_COST = 1.2
+#: A frame whose chosen explanation is cheaper than the closest other one by less than
+#: this (or dearer: chosen by the scan prior) gets status "ambiguous_phase": less than
+#: half an absent low-order reflection tells the two apart.
+AMBIGUOUS_MARGIN = 0.5
 #: Share of the miss cost paid by a reflection of one phase of a pair that lies under a
 #: peak given to the other phase (hidden, not absent).
 HIDDEN_FRACTION = 1.0

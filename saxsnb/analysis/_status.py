@@ -220,3 +220,11 @@ def parameter_of(code: str, default: str = "q_range") -> str:
     """
     st = STATUS.get(str(code))
     return st.parameter if st is not None and st.parameter else default
+
+# --- appended by the indexing work (issue 15): two explanations of a frame's peaks close
+STATUS["ambiguous_phase"] = Status(
+    "another explanation of the peaks is about as good",
+    "phases",
+    "ambiguous phase: another explanation of the peaks is about as good (see 'alternative')",
+)
+INDEXED = INDEXED + ("ambiguous_phase",)
