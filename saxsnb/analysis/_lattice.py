@@ -36,6 +36,7 @@ from ._latticematch import (
     _refine,
     _Scratch,
     _table,
+    miss_weight,
 )
 from ._phasemap import BONNET_RATIOS, phase_map
 from ._reflections import PHASES
@@ -228,8 +229,9 @@ def index_peaks(
         position_sigma = np.take_along_axis(position_sigma, order, 1)
     if snr is not None:
         snr = np.take_along_axis(np.broadcast_to(np.asarray(snr, float), (F, P)), order, 1)
-        # unknown ratio (a shoulder has no prominence): full weight, as without snr
-        snr = np.where(np.isfinite(snr), np.maximum(snr, 0.0), np.inf)
+        # from here on the weight of an absent reflection below each peak (unknown ratio,
+        # e.g. a shoulder without prominence: full weight, as without snr)
+        snr = miss_weight(snr)
     if strength is not None:
         strength = np.take_along_axis(np.broadcast_to(np.asarray(strength, float), (F, P)), order, 1)
     present = np.isfinite(q)

@@ -88,7 +88,8 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
     ``focus`` (B, P) bool, optional: the candidates kept per phase are those that best
     explain these peaks (e.g. the ones a first pass left unexplained); their costs are
     then recomputed over all peaks. ``ws``: a :class:`_Scratch` shared by the blocks.
-    ``snr`` (B, P) optional: absent reflections weighted by the noise (:func:`_gap_miss`).
+    ``snr`` (B, P) optional, the :func:`~saxsnb.analysis._latticematch.miss_weight` of
+    each peak: absent reflections weighted by the noise (:func:`_gap_miss`).
     Returns ``cost`` (B, H) in the order of :func:`_hypothesis_table`, ``rho`` (B, P),
     and what :func:`_states` needs to build the explanations chosen.
     """
@@ -149,21 +150,28 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
                 off = tabs["c_off"][ph_id[idx]][None, :]
                 top = tabs["c_top"][ph_id[idx]][None, :]
                 with np.errstate(invalid="ignore"):
-                    q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
-                    x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
                     x_lo = np.nan_to_num((qlo_r[:, None] * L) ** 2, nan=0.0, posinf=0.0)
-                hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
                 lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
                 if snr is not None:  # noise-weighted, gap by gap between the phase's own peaks
                     miss = _gap_miss(cat["s"][rows][:, idx], own, snr[rows][:, None, :], lo, tabs["cum"],
                                      np.broadcast_to(off, lo.shape))
+                    q_hi = None
                 else:
+                    with np.errstate(invalid="ignore"):
+                        q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
+                        x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
+                    hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
                     in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
                     miss = np.maximum(in_range - _sum_peaks(np.where(own, mc, 0.0)), 0.0)
                 # a reflection under the other phase's peak is hidden, not absent: it costs
-                # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable)
-                hidden = other_m & ~own & (qr[:, None, :] <= q_hi[..., None])
-                miss = np.maximum(miss - (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc, 0.0)), 0.0)
+                # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable);
+                # at 1 (the default) nothing is taken off
+                if HIDDEN_FRACTION != 1.0:  # pragma: no cover - a tuning switch
+                    if q_hi is None:
+                        q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
+                    hidden = other_m & ~own & (qr[:, None, :] <= q_hi[..., None])
+                    off_cost = (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc, 0.0))
+                    miss = np.maximum(miss - off_cost, 0.0)
                 e = np.nan_to_num(cat["err"][rows][:, idx], nan=0.0) / tol
                 fit = 0.25 * _sum_peaks(np.where(own, e * e, 0.0))
                 return miss + fit
@@ -350,7 +358,8 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
     pair count as missing (``HIDDEN_FRACTION`` is 1).
 
     phase (F, K, 2), L (F, K, 2), slot / s (F, K, P), cost (F, K); q (F, P) sorted, NaN
-    padded; q_lo (F,); ``snr`` (F, P) optional (noise-weighted misses). Returns new
+    padded; q_lo (F,); ``snr`` (F, P) optional, the miss weight of each peak
+    (noise-weighted misses, :func:`~saxsnb.analysis._latticematch.miss_weight`). Returns new
     ``phase`` and ``cost`` (copies); unchanged where no
     subset phase is cheaper.
     """

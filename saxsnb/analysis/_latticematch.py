@@ -20,11 +20,12 @@ from ._reflections import allowed_reflections
 #: the phase's sequence (first reflection first); later ones cost the last value.
 MISS_COST = (1.5, 1.0, 0.6, 0.4, 0.3)
 #: Noise weighting of absent reflections (with a per-peak signal-to-noise ratio, e.g. the
-#: prominence of find_peaks in noise units): an absent reflection between two indexed
-#: peaks of the phase costs its MISS_COST times clip(snr / SNR_FULL, SNR_FLOOR, 1), snr
-#: the smaller ratio of the two (of the first indexed peak below the first one). Where
-#: the phase's own peaks barely stand above the noise, a reflection a few times weaker
-#: is lost in it, so its absence is weak evidence; where they stand SNR_FULL noise units
+#: prominence of find_peaks in noise units): an absent reflection costs its MISS_COST
+#: times clip(snr / SNR_FULL, SNR_FLOOR, 1), snr that of the phase's next indexed peak
+#: above it (the local level of the phase's reflections against the noise; reflections
+#: weaken with q, so the upper neighbour is the weaker one as a rule). Where the
+#: phase's own peaks barely stand above the noise, a reflection a few times weaker is
+#: lost in it, so its absence is weak evidence; where they stand SNR_FULL noise units
 #: high, a missing reflection is a real absence. Our choice (issue 15), checked on the
 #: mesophase ramps of tests/validation.
 SNR_FULL = 12.0
@@ -125,32 +126,47 @@ def _phase_set(phases: tuple):
     return out
 
 
-def _gap_miss(s, own, snr, lo, cum, off):
+def miss_weight(snr):
+    """Weight of an absent reflection from the signal-to-noise ratio of the indexed peak
+    just above it: clip(snr / SNR_FULL, SNR_FLOOR, 1); unknown (NaN, inf) -> 1.
+
+    >>> miss_weight(np.array([3.0, 6.0, 30.0, np.nan])).tolist()
+    [0.25, 0.5, 1.0, 1.0]
+    """
+    snr = np.asarray(snr, dtype=float)
+    with np.errstate(invalid="ignore"):
+        w = np.clip(snr / SNR_FULL, SNR_FLOOR, 1.0)
+    return np.where(np.isfinite(snr), w, 1.0)
+
+
+def _gap_miss(s, own, weight, lo, cum, off):
     """Noise-weighted cost of the absent reflections of candidates (see :data:`SNR_FULL`).
 
     s (..., P) int, the allowed s given to each peak (sorted by q; 0 = none), ``own``
-    the peaks the phase keeps (bool, like s), ``snr`` (..., P) broadcastable, or None
-    for unweighted costs; ``lo`` (...) int: reflections with s > lo count; ``cum`` the
-    flat cumulative cost table of :func:`_phase_set` and ``off`` (...) each candidate's
-    offset in it. Counts the allowed reflections between consecutive own peaks (and
-    from ``lo`` to the first), each gap weighted by the smaller snr of its two ends.
+    the peaks the phase keeps (bool, like s), ``weight`` (..., P) broadcastable (from
+    :func:`miss_weight`), or None for unweighted costs; ``lo`` (...) int: reflections
+    with s > lo count; ``cum`` the flat cumulative cost table of :func:`_phase_set` and
+    ``off`` (...) each candidate's offset in it. Counts the allowed reflections between
+    consecutive own peaks (and from ``lo`` to the first), each gap weighted by the
+    weight of the own peak that closes it.
     """
     s_own = np.where(own, s, 0)
     prev = np.maximum.accumulate(s_own, axis=-1)
-    prev = np.concatenate([np.zeros(prev.shape[:-1] + (1,), dtype=prev.dtype), prev[..., :-1]], -1)
-    prev = np.maximum(prev, lo[..., None])
+    below = np.empty_like(prev)
+    below[..., 0] = lo
+    np.maximum(prev[..., :-1], lo[..., None], out=below[..., 1:])
     o = off[..., None]
-    gap = cum[np.maximum(s_own - 1, 0) + o] - cum[prev + o]
-    gap = np.where(own & (gap > 0), gap, 0.0)
-    if snr is None:
-        return _sum_peaks(gap)
-    p = np.broadcast_to(snr, s.shape)
-    P = s.shape[-1]
-    last = np.maximum.accumulate(np.where(own, np.arange(P), -1), axis=-1)
-    last = np.concatenate([np.full(last.shape[:-1] + (1,), -1), last[..., :-1]], -1)
-    p_prev = np.where(last >= 0, np.take_along_axis(p, np.maximum(last, 0), -1), np.inf)
-    wgt = np.clip(np.minimum(p, p_prev) / SNR_FULL, SNR_FLOOR, 1.0)
-    return _sum_peaks(gap * np.where(np.isfinite(wgt), wgt, 1.0))
+    upper = np.subtract(s_own, 1, out=prev)
+    np.maximum(upper, 0, out=upper)
+    upper += o
+    below += o
+    gap = cum.take(upper)
+    gap -= cum.take(below)
+    np.maximum(gap, 0.0, out=gap)
+    gap *= own  # 0 where not own (there upper <= below anyway)
+    if weight is not None:
+        gap *= weight
+    return _sum_peaks(gap)
 
 
 def _sum_peaks(a):
@@ -294,10 +310,10 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
     """Best ``_KEEP`` distinct lattices of every phase for each frame.
 
     q, w, q0, wq, unexpl (B, P); qa (B, A) the anchor peaks; q_lo (B,); ``ws`` a
-    :class:`_Scratch`; ``snr`` (B, P) optional: the kept candidates' absent reflections
-    are then weighted by the noise (:func:`_gap_miss`; the ranking that keeps them is
-    unweighted). Returns dict of arrays (B, n_phases * _KEEP[, P]), phase by
-    phase.
+    :class:`_Scratch`; ``snr`` (B, P) optional, the :func:`miss_weight` of each peak:
+    the kept candidates' absent reflections are then weighted by the noise
+    (:func:`_gap_miss`; the ranking that keeps them is unweighted). Returns dict of
+    arrays (B, n_phases * _KEEP[, P]), phase by phase.
     """
     B, P = q.shape
     nph, na = tabs["first"].shape
