@@ -128,75 +128,92 @@ def _hypotheses(q, w, strength, q_lo, phases, max_phases, tol, n_anchor=_ANCHOR_
         sub = present.sum(-1) - n_best >= 1
         rows = np.nonzero(sub)[0]
         if rows.size:
-            m = cat["s"][rows] > 0
-            ma, mb = m[:, a], m[:, b]
-            # each peak goes to the phase of the two that fits it better, so a peak is
-            # explained when either matches it
-            explained = ma | mb
-            only_a = (ma & ~mb).sum(-1)
-            only_b = (mb & ~ma).sum(-1)
-            cs = cat["cost"][rows]
-            to_a, to_b = _share(ma, mb, cat["mc"][rows][:, a], cat["mc"][rows][:, b],
-                                cat["err"][rows][:, a], cat["err"][rows][:, b])
-            tabs = _phase_set(tuple(phases))
-            ph_id = np.repeat(np.arange(len(phases)), _KEEP)
-            qr, qlo_r = np.nan_to_num(q[rows], nan=0.0), q_lo[rows]
-
-            def recount(idx, own, other_m):
-                """Missing reflections and misfit of one phase of each pair, recomputed from
-                the peaks the pair gives it (a peak is not counted for both phases)."""
-                L = cat["L"][rows][:, idx]
-                mc = cat["mc"][rows][:, idx]
-                off = tabs["c_off"][ph_id[idx]][None, :]
-                top = tabs["c_top"][ph_id[idx]][None, :]
-                with np.errstate(invalid="ignore"):
-                    x_lo = np.nan_to_num((qlo_r[:, None] * L) ** 2, nan=0.0, posinf=0.0)
-                lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
-                if snr is not None:  # noise-weighted, gap by gap between the phase's own peaks
-                    miss = _gap_miss(cat["s"][rows][:, idx], own, snr[rows][:, None, :], lo, tabs["cum"],
-                                     np.broadcast_to(off, lo.shape))
-                    q_hi = None
-                else:
-                    with np.errstate(invalid="ignore"):
-                        q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
-                        x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
-                    hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
-                    in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
-                    miss = np.maximum(in_range - _sum_peaks(np.where(own, mc, 0.0)), 0.0)
-                # a reflection under the other phase's peak is hidden, not absent: it costs
-                # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable);
-                # at 1 (the default) nothing is taken off
-                if HIDDEN_FRACTION != 1.0:  # pragma: no cover - a tuning switch
-                    if q_hi is None:
-                        q_hi = (qr[:, None, :] * own).max(-1) * (1 + tol)
-                    hidden = other_m & ~own & (qr[:, None, :] <= q_hi[..., None])
-                    off_cost = (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc, 0.0))
-                    miss = np.maximum(miss - off_cost, 0.0)
-                e = np.nan_to_num(cat["err"][rows][:, idx], nan=0.0) / tol
-                fit = 0.25 * _sum_peaks(np.where(own, e * e, 0.0))
-                return miss + fit
-
-            pc = (
-                _sum_peaks(np.where(explained, 0.0, unexpl[rows][:, None, :]))
-                + recount(a, to_a, ma)
-                + recount(b, to_b, mb)
-                + PHASE_COST
-            )
-            # each phase indexes two peaks or more, at least one of them its own; a peak
-            # both phases predict (a lamellar 002 on a cubic reflection) counts for both
-            n_a, n_b = ma.sum(-1), mb.sum(-1)
-            ok = (
-                (n_a >= 2)
-                & (n_b >= 2)
-                & (only_a >= 1)
-                & (only_b >= 1)
-                & (only_a + only_b >= 3)
-                & np.isfinite(cs[:, a])
-                & np.isfinite(cs[:, b])
-            )
-            pair_cost[rows] = np.where(ok, pc, np.inf)
+            pair_cost[rows] = _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr)
         cost.append(pair_cost)
     return {"cost": np.concatenate(cost, 1), "rho": rho, "cat": cat, "sub": sub, "M": M, "tab": tab}
+
+
+def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
+    """Costs (len(rows), len(a)) of the pairs of kept candidates ``a[j]``, ``b[j]`` in the
+    frames ``rows`` of a block (see :func:`_hypotheses`); inf where a pair is not allowed.
+
+    Which pairs are allowed follows from peak counts alone (a batched product of the
+    match masks gives the peaks two candidates share), so the peak-by-peak recount runs
+    only on the allowed ones, flattened to (n_allowed, P).
+    """
+    m = cat["s"][rows] > 0  # (R, M, P)
+    mf = m.astype(np.float32)
+    shared = np.matmul(mf, mf.transpose(0, 2, 1))[:, a, b]  # exact small integers
+    n_m = m.sum(-1)
+    n_a, n_b = n_m[:, a], n_m[:, b]
+    only_a, only_b = n_a - shared, n_b - shared
+    cs = cat["cost"][rows]
+    # each phase indexes two peaks or more, at least one of them its own; a peak both
+    # phases predict (a lamellar 002 on a cubic reflection) counts for both
+    ok = (
+        (n_a >= 2)
+        & (n_b >= 2)
+        & (only_a >= 1)
+        & (only_b >= 1)
+        & (only_a + only_b >= 3)
+        & np.isfinite(cs[:, a])
+        & np.isfinite(cs[:, b])
+    )
+    out = np.full(ok.shape, np.inf)
+    ri, pi = np.nonzero(ok)
+    if ri.size == 0:
+        return out
+    rr = rows[ri]
+    ca, cb = a[pi], b[pi]
+    ma, mb = m[ri, ca], m[ri, cb]  # (n, P)
+    # each peak goes to the phase of the two that fits it better, so a peak is explained
+    # when either matches it
+    explained = ma | mb
+    mc, err = cat["mc"], cat["err"]
+    to_a, to_b = _share(ma, mb, mc[rr, ca], mc[rr, cb], err[rr, ca], err[rr, cb])
+    tabs = _phase_set(tuple(phases))
+    ph_id = np.repeat(np.arange(len(phases)), _KEEP)
+    qr, qlo_r = np.nan_to_num(q[rr], nan=0.0), q_lo[rr]
+    w_r = None if snr is None else snr[rr]
+
+    def recount(idx, own, other_m):
+        """Missing reflections and misfit of one phase of each pair, recomputed from the
+        peaks the pair gives it (a peak is not counted for both phases)."""
+        L = cat["L"][rr, idx]
+        mc_i = mc[rr, idx]
+        off = tabs["c_off"][ph_id[idx]]
+        top = tabs["c_top"][ph_id[idx]]
+        with np.errstate(invalid="ignore"):
+            x_lo = np.nan_to_num((qlo_r * L) ** 2, nan=0.0, posinf=0.0)
+        lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
+        q_hi = None
+        if w_r is not None:  # noise-weighted, gap by gap between the phase's own peaks
+            miss = _gap_miss(cat["s"][rr, idx], own, w_r, lo, tabs["cum"], off)
+        else:
+            with np.errstate(invalid="ignore"):
+                q_hi = (qr * own).max(-1) * (1 + tol)
+                x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
+            hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
+            in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
+            miss = np.maximum(in_range - _sum_peaks(np.where(own, mc_i, 0.0)), 0.0)
+        # a reflection under the other phase's peak is hidden, not absent: it costs
+        # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable); at 1
+        # (the default) nothing is taken off
+        if HIDDEN_FRACTION != 1.0:  # pragma: no cover - a tuning switch
+            if q_hi is None:
+                q_hi = (qr * own).max(-1) * (1 + tol)
+            hidden = other_m & ~own & (qr <= q_hi[..., None])
+            miss = np.maximum(miss - (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc_i, 0.0)), 0.0)
+        e = np.nan_to_num(err[rr, idx], nan=0.0) / tol
+        return miss + 0.25 * _sum_peaks(np.where(own, e * e, 0.0))
+
+    out[ri, pi] = (
+        _sum_peaks(np.where(explained, 0.0, unexpl[rr]))
+        + recount(ca, to_a, ma)
+        + recount(cb, to_b, mb)
+        + PHASE_COST
+    )
+    return out
 
 
 def _share(ma, mb, mca, mcb, ea, eb):
