@@ -83,3 +83,24 @@ def test_lattice_sigma_calibrated(phase):
     a, s = r["lattice"][ok, 0], r["lattice_sigma"][ok, 0]
     assert 0.75 <= np.std(a, ddof=1) / np.median(s) <= 1.25
     assert abs(np.mean(a) / lat[0, 0] - 1.0) < 3 * np.std(a) / lat[0, 0] / np.sqrt(ok.sum()) + 1e-5
+
+
+@pytest.mark.parametrize("seed", [1, 3, 21])
+def test_coexistence_subset_cubic_seeds(seed):
+    # Pn3m + Im3m at 600 counts: seed 1 once gave Pn3m + Pm3n on 7 of 16 frames (the
+    # Pn3m 111 lies 0.15 % from the Pm3n 210 of the Im3m cell); target >= 98 % (issue 15)
+    a = runs.ramp_accuracy(("Pn3m", "Im3m"), 600, 16, seed=seed)
+    assert a["right"].mean() >= 0.98, a["labels"]
+
+
+@pytest.mark.parametrize("counts", [600, 150])
+def test_user_route_ramps(counts):
+    # index_phases (noise-weighted absent reflections): the same targets on the frames
+    # where every phase has enough reflections above noise (runs.identifiable)
+    right = n = 0
+    ramps = [("Ia3d",), ("Pm3n",), ("Fd3m", "hexagonal"), ("Pn3m", "Im3m"), ("hexagonal", "Ia3d")]
+    for k, ph in enumerate(ramps):
+        a = runs.ramp_accuracy_user(ph, counts, 8, seed=40 + k)
+        right += (a["right"] & a["identifiable"]).sum()
+        n += a["identifiable"].sum()
+    assert n >= 10 and right / n >= (0.98 if counts >= 600 else 0.90)
