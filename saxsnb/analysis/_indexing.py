@@ -108,8 +108,12 @@ def index_phases(
     dict of arrays in the input frame order, named and shaped as in
     :data:`PHASE_OUTPUTS`: per (frame, slot) ``phase``, ``lattice``,
     ``lattice_sigma``, ``score``; per (frame, peak) ``hkl``, ``peak_phase``, ``track``;
-    per frame ``alternative``, ``status``, ``caveat``, ``cost``, ``margin``,
-    ``n_unexplained``, ``n_broad``.
+    per frame ``alternative``, ``status`` (as :func:`~saxsnb.analysis._lattice.index_peaks`,
+    e.g. "ambiguous_phase" when another explanation is about as good, plus "no_data" and
+    "override"), ``caveat``, ``cost``, ``margin``, ``n_unexplained``, ``n_broad``. The
+    prominence is also taken as each peak's signal-to-noise ratio, so an absent
+    reflection where the phase's peaks barely stand above the noise costs less
+    (``snr`` of index_peaks).
 
     Examples
     --------

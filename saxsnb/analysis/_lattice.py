@@ -160,13 +160,23 @@ def index_peaks(
     *Cost* of an explanation (lower is better): each unexplained peak costs
     ``1 + strength / max strength``; each allowed reflection that should appear
     between the lowest observed q and the highest assigned peak but is not observed
-    costs :data:`MISS_COST` by rank (missing low orders weigh most); a second phase
+    costs :data:`MISS_COST` by rank (missing low orders weigh most), times a noise
+    weight when ``snr`` is given (the signal-to-noise ratio of the phase's next indexed
+    peak above it, :data:`~saxsnb.analysis._latticematch.SNR_FULL`); in a pair each
+    phase's absent reflections are recounted on the peaks the pair gives it (a peak is
+    not counted for both; a reflection under the other phase's peak counts as
+    absent, ``HIDDEN_FRACTION``); a second phase
     costs :data:`PHASE_COST` and must explain at least two peaks of its own (a cubic
     phase at least three peaks in all, :data:`~saxsnb.analysis._latticematch.MIN_MATCHED`); the
     misfit adds ``0.25 sum (err / tolerance)^2``. So the explanation with the fewest
     phases that accounts for all strong peaks without gaps in its low orders wins.
+    A cubic phase whose indexed reflections are all allowed by a cubic phase with
+    fewer reflections at the same cell (Im3m within Pn3m and Pm3n, Ia3d within Im3m,
+    Fd3m within Fm3m) is also read as that phase, which predicts fewer absent ones.
     Explanations of other phases within :data:`CLOSE_COST` are reported in
-    ``alternative`` (e.g. Im3m vs Pn3m when sqrt(3) is absent).
+    ``alternative`` (e.g. Im3m vs Pn3m when sqrt(3) is absent) and the caveat; within
+    ``AMBIGUOUS_MARGIN`` (or cheaper, when the scan prior chose) the status is
+    "ambiguous_phase".
 
     *Scan prior.* With ``use_scan_prior`` the lowest-cost states of each frame
     (frames with fewer than two peaks are skipped) are linked by a Viterbi pass
