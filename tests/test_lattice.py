@@ -383,3 +383,69 @@ def test_close_explanations_get_status_ambiguous_phase():
     assert "ambiguous_phase" in STATUS and "ambiguous_phase" in INDEXED
     assert "Im3m" in r["alternative"][3] and "close alternative: Im3m" in r["caveat"][3]
     assert set(r["status"][[0, 1, 2, 4, 5, 6]]) == {"ok"}
+
+
+def test_pair_costs_match_a_reflection_by_reflection_count():
+    # the vectorised pair costs (allowed pairs from peak counts, gap sums) against a
+    # plain loop over frames and pairs that lists every allowed reflection (the
+    # reflection conditions of _reflections, ITA Vol. A) and applies the documented rule:
+    # unexplained peaks, each phase's absent reflections between q_min and its highest
+    # own peak at MISS_COST by rank times the miss weight of its next own peak above,
+    # the misfit 0.25 (err / tol)^2 and PHASE_COST
+    from saxsnb.analysis._lattice_search import PHASE_COST, _hypotheses
+    from saxsnb.analysis._latticematch import _KEEP, MISS_COST, miss_weight
+    from saxsnb.analysis._reflections import PHASES, allowed_reflections
+
+    rng = np.random.default_rng(3)
+    rows = []
+    for k in range(12):
+        a1, a2 = 10.0 * (1 + 0.01 * k), 12.9 * (1 + 0.01 * k)
+        q = np.concatenate([q_positions("Pn3m", a1, 6), q_positions("Im3m", a2, 4)])
+        rows.append(np.sort(q * (1 + 3e-4 * rng.standard_normal(q.size))))
+    q = np.array(rows)
+    snr = rng.uniform(2.0, 30.0, q.shape)
+    w = 1.0 / (1e-4 * q) ** 2
+    strength = rng.uniform(1.0, 10.0, q.shape)
+    q_lo = np.full(q.shape[0], 0.3)
+    tol = 0.01
+    H = _hypotheses(q, w, strength, q_lo, PHASES, 2, tol, ws=None, snr=miss_weight(snr))
+    cat, tab = H["cat"], H["tab"]
+    M = tab["M"]
+    unexpl = 1.0 + strength / strength.max(-1, keepdims=True)
+    ph_of = np.repeat(np.arange(len(PHASES)), _KEEP)
+
+    def part(r, c, own):
+        ph = PHASES[ph_of[c]]
+        L = cat["L"][r, c]
+        refl = [s for s, _ in allowed_reflections(ph, 30)]
+        cost_of = {s: MISS_COST[min(j, len(MISS_COST) - 1)] for j, s in enumerate(refl)}
+        s_own = cat["s"][r, c][own]
+        w_own = miss_weight(snr[r])[own]
+        first = int(np.ceil((q_lo[r] * L) ** 2))
+        miss = sum(cost_of[s] * w_own[np.searchsorted(s_own, s)]
+                   for s in refl if first <= s < s_own.max() and s not in s_own)
+        e = cat["err"][r, c][own] / tol
+        return miss + 0.25 * np.sum(e * e)
+
+    checked = 0
+    for r in range(q.shape[0]):
+        if not H["sub"][r]:
+            continue
+        for j, (ca, cb) in enumerate(zip(tab["a"], tab["b"])):
+            got = H["cost"][r, 1 + M + j]
+            ma, mb = cat["s"][r, ca] > 0, cat["s"][r, cb] > 0
+            only_a, only_b = int((ma & ~mb).sum()), int((mb & ~ma).sum())
+            allowed = (ma.sum() >= 2 and mb.sum() >= 2 and only_a >= 1 and only_b >= 1
+                       and only_a + only_b >= 3
+                       and np.isfinite(cat["cost"][r, ca]) and np.isfinite(cat["cost"][r, cb]))
+            if not allowed:
+                assert got == np.inf
+                continue
+            mca, mcb = cat["mc"][r, ca], cat["mc"][r, cb]
+            ea, eb = cat["err"][r, ca], cat["err"][r, cb]
+            to_a = ma & (~mb | (mca > mcb) | ((mca == mcb) & ~(eb < ea)))
+            to_b = mb & ~to_a
+            want = (unexpl[r][~(ma | mb)].sum() + part(r, ca, to_a) + part(r, cb, to_b) + PHASE_COST)
+            np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-12)
+            checked += 1
+    assert checked >= 50, checked
