@@ -10,7 +10,7 @@ Silver behenate is a lamellar powder with d001 = 5.8380 nm (Huang, Toraya, Blant
    the ring at the vertex of a least-squares parabola through the top half of the peak.
    Points whose window touches a masked or off-detector pixel, whose peak sits on the
    window's edge or rises less than ``min_snr`` Poisson sigmas above the window's floor
-   are dropped.
+   are dropped, and so is a ring seen at fewer than a quarter of its azimuths.
 2. :func:`fit_geometry`: least squares (``scipy.optimize.least_squares``) of the centre,
    distance and tilt on the residuals ``2theta(point) - 2theta_n`` of every point. The tilt
    is fitted as the vector ``tau (cos rho, sin rho)``, which has no singularity at zero
@@ -59,7 +59,7 @@ def _geometry_from(p, g: DetectorGeometry) -> DetectorGeometry:
 
 def find_ring_points(image, geometry: DetectorGeometry, *, d_spacing: float = SILVER_BEHENATE_D, mask=None,
                      orders=None, n_azimuth: int = 180, window: float = 0.4, step: float = 0.25,
-                     min_snr: float = 5.0) -> dict:
+                     min_snr: float = 5.0, min_fraction: float = 0.25) -> dict:
     """Sub-pixel points on the calibrant rings (module doc, step 1).
 
     Parameters
@@ -73,6 +73,8 @@ def find_ring_points(image, geometry: DetectorGeometry, *, d_spacing: float = SI
     n_azimuth : azimuths per ring; window : half-width of the search window as a fraction
         of the distance to the neighbouring ring; step : sampling step along the line, px.
     min_snr : minimum peak height above the window floor in Poisson sigmas.
+    min_fraction : a ring is kept only when at least this fraction of the azimuths at which
+        it lies on the detector (and at least 5) give a point.
 
     Returns
     -------
@@ -154,6 +156,8 @@ def find_ring_points(image, geometry: DetectorGeometry, *, d_spacing: float = SI
         with np.errstate(divide="ignore", invalid="ignore"):
             shift = t[imax] - b / (2 * a)
         usable &= (a < 0) & (np.abs(shift - t[imax]) <= 2 * step + 1e-12)
+        if usable.sum() < max(5, min_fraction * ok.sum()):
+            continue   # too few azimuths see this ring: noise, not a ring
         rows_out.append((r + uy * shift)[usable])
         cols_out.append((c + ux * shift)[usable])
         ord_out.append(np.full(int(usable.sum()), n))
