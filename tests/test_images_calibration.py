@@ -20,7 +20,8 @@ def test_silver_behenate_d_spacing():
 def test_calibration_recovers_known_geometry(seed, tilt, rot):
     true = calibrant_geometry().replace(tilt_deg=tilt, tilt_rotation_deg=rot)
     img = calibrant_image(true, seed=seed)               # Poisson noise, peak ~2000 counts
-    start = true.replace(beam_center_x_px=true.beam_center_x_px - 5.0, beam_center_y_px=true.beam_center_y_px + 4.0,
+    start = true.replace(beam_center_x_px=true.beam_center_x_px - 5.0,
+                         beam_center_y_px=true.beam_center_y_px + 4.0,
                          distance_mm=true.distance_mm * 1.03, tilt_deg=0.0, tilt_rotation_deg=0.0)
     res = calibrate(img, start)
     v, s = res["values"], res["sigma"]
