@@ -110,8 +110,9 @@ def hermans_orientation(chi, intensity, sigma=None, *, director_deg=0.0, baselin
             if baseline != "min":
                 raise SaxsInputError(f"must be None, 'min' or an array, got {baseline!r}",
                                      parameter="baseline")
-            with np.errstate(all="ignore"):
-                b = np.nanmin(np.where(np.isfinite(I), I, np.nan), axis=1, keepdims=True)
+            fin = np.isfinite(I)
+            b = np.where(fin.any(axis=1, keepdims=True),
+                         np.min(np.where(fin, I, np.inf), axis=1, keepdims=True), 0.0)
         else:
             b = np.asarray(baseline, float)
             b = b[:, None] if b.ndim == 1 else b
@@ -176,8 +177,9 @@ def azimuthal_peak_width(chi, intensity, sigma=None, *, symmetry: int = 2, cente
     Returns
     -------
     dict of per-frame arrays: ``fwhm_deg``, ``fwhm_sigma``, ``center_deg``, ``center_sigma``,
-    ``amplitude``, ``baseline``, ``chi2_reduced``, ``status`` ("ok", "no_data", "no_peaks",
-    "not_converged").
+    ``amplitude``, ``baseline``, ``chi2_reduced``, ``status`` ("ok", "no_data", "not_converged",
+    "no_peaks": amplitude below 3 sigma, FWHM below one bin or above the repeat period; numbers
+    kept).
 
     >>> chi = np.arange(-179.0, 180, 2.0)
     >>> I = 5 + 100 * np.exp(-0.5 * (((chi - 20 + 90) % 180 - 90) / 10.0) ** 2)
@@ -194,9 +196,9 @@ def azimuthal_peak_width(chi, intensity, sigma=None, *, symmetry: int = 2, cente
     wgt = np.where(good, 1.0 / S if S is not None else 1.0, 0.0)
     I0 = np.where(good, I, 0.0)
     n_good = good.sum(axis=1)
-    with np.errstate(all="ignore"):
-        lo = np.nanmin(np.where(good, I, np.nan), axis=1)
-        hi = np.nanmax(np.where(good, I, np.nan), axis=1)
+    any_good = good.any(axis=1)
+    lo = np.where(any_good, np.min(np.where(good, I, np.inf), axis=1), np.nan)
+    hi = np.where(any_good, np.max(np.where(good, I, -np.inf), axis=1), np.nan)
     if center_deg is None:
         c = np.radians(chi) * int(symmetry)
         c0 = np.degrees(np.arctan2(I0 @ np.sin(c), I0 @ np.cos(c))) / int(symmetry)
@@ -244,8 +246,11 @@ def azimuthal_peak_width(chi, intensity, sigma=None, *, symmetry: int = 2, cente
     sd = np.sqrt(np.clip(np.diagonal(cov, axis1=1, axis2=2), 0, None))
     k = 2 * np.sqrt(2 * np.log(2))
     status = np.where(converged, "ok", "not_converged").astype(object)
-    status[p[:, 1] <= 0] = "no_peaks"
-    status[(p[:, 1] > 0) & (p[:, 1] < 2 * sd[:, 1])] = "no_peaks"
+    fw = k * p[:, 3]
+    # not a resolved peak: negative or below 3 sigma, narrower than a bin, or wider than the
+    # repeat period (then the "peak" is a slope of the baseline)
+    weak = ~(p[:, 1] > 3 * sd[:, 1]) | ~(fw >= width) | ~(fw <= period)
+    status[weak] = "no_peaks"
     status[n_good < 5] = "no_data"
     bad = status == "no_data"
     p[bad] = np.nan
