@@ -87,9 +87,9 @@ def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: floa
     (:meth:`DetectorGeometry.to_attrs`) and ``truth`` (JSON: ``n``, ``hermans``,
     ``director_deg``, ``q0``).
 
-    >>> ds = fibre_series(3, noise=False)
+    >>> ds = fibre_series(3, noise=False)     # n = 0, 2.5, 5: f = 2n / (2n + 3)
     >>> ds.counts.dims, [round(f, 4) for f in __import__("json").loads(ds.attrs["truth"])["hermans"]]
-    (('frame', 'y', 'x'), [0.0, 0.5714, 0.7692])
+    (('frame', 'y', 'x'), [0.0, 0.625, 0.7692])
     """
     import json
 
@@ -110,7 +110,7 @@ def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: floa
     counts = np.random.default_rng(seed).poisson(model).astype(np.uint32) if noise else model
     truth = {"n": n.tolist(), "hermans": (2 * n / (2 * n + 3)).tolist(), "director_deg": 90.0, "q0": q0,
              "peak_width_q": s, "scenario": "fibre F-3 stretching (fictional)"}
-    ds = image_series(counts, geometry=g, scan={"strain": (strain, {"units": "1", "long_name": "strain"})})
+    ds = image_series(counts, geometry=g, scan={"strain": (strain, "1")})
     ds.attrs["sample"] = "fibre F-3 (fictional)"
     ds.attrs["truth"] = json.dumps(truth)
     return ds
