@@ -111,7 +111,7 @@ def write_tiff(path, image, *, metadata=None) -> Path:
     path = Path(path)
     desc = json.dumps({"saxsnb": to_json_safe(dict(metadata or {}))}, sort_keys=True)
     with atomic_path(path) as tmp:
-        tifffile.imwrite(tmp, np.asarray(image), description=desc, metadata=None)
+        tifffile.imwrite(tmp, np.asarray(image), description=desc, metadata=None, photometric="minisblack")
     return path
 
 
@@ -121,10 +121,12 @@ def _tiff_info(path: Path):
     try:
         with tifffile.TiffFile(path) as tf:
             series = tf.series[0]
-            shape, dtype = series.shape, series.dtype
+            shape, dtype, axes = series.shape, series.dtype, series.axes
             desc = tf.pages[0].description if len(tf.pages) else ""
     except Exception as exc:   # tifffile raises many types on corrupt files
         raise SaxsFileError(f"not a readable TIFF image ({type(exc).__name__}: {exc})", path=path) from exc
+    if "S" in axes:
+        raise SaxsFileError(f"a colour TIFF (axes {axes}), not detector counts", path=path)
     meta = {}
     if desc:
         try:
