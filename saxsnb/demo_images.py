@@ -70,8 +70,8 @@ def calibrant_image(geometry: DetectorGeometry | None = None, *, d_spacing: floa
 
 
 def fibre_geometry() -> DetectorGeometry:
-    """Geometry of the fibre series: 160 x 160 pixels of 0.172 mm, 1500 mm, 0.1 nm, no tilt."""
-    return DetectorGeometry(beam_center_x_px=79.5, beam_center_y_px=81.0, distance_mm=1500.0,
+    """Geometry of the fibre series: 160 x 160 pixels of 0.172 mm, 800 mm, 0.1 nm, no tilt."""
+    return DetectorGeometry(beam_center_x_px=79.5, beam_center_y_px=81.0, distance_mm=800.0,
                             pixel_size_x_mm=0.172, pixel_size_y_mm=0.172, wavelength_nm=0.1, shape=(160, 160))
 
 
