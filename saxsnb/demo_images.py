@@ -6,9 +6,10 @@
     rings ``I(q) = sum_n A n^-1.5 exp(-(q - 2 pi n / d)^2 / (2 s^2))`` over a background
     ``B (1 + (q / 0.5)^-2)``, Poisson counts.
 ``fibre_series``
-    Fibre F-3 (fictional) stretched from 0 to 200 % strain in 21 steps: one reflection at
-    d = 8 nm whose azimuthal spread narrows as the chains align along the stretching
-    direction (the director, chi = 90 degrees, i.e. along the image rows).
+    Fibre F-3 (fictional) stretched from 0 to 200 % strain in 21 steps, measured on the
+    calibrant's set-up: one reflection at d = 3 nm whose azimuthal spread narrows as the
+    chains align along the stretching direction (the director, chi = 90 degrees, i.e. along
+    the image rows).
     ``I(q, chi) = B(q) + A exp(-(q - q0)^2 / (2 s^2)) |cos(chi - 90)|^(2 n)`` with
     ``n = 5 * strain / 2``; its Hermans parameter is ``f = 2n / (2n + 3)`` relative to the
     director (Hermans & Platzek 1939; the closed form for a cos^(2n) distribution, with the
@@ -32,7 +33,8 @@ import xarray as xr
 from .analysis._calibration import SILVER_BEHENATE_D
 from .analysis._geometry import DetectorGeometry
 
-__all__ = ["calibrant_geometry", "calibrant_image", "fibre_geometry", "fibre_series", "write_image_demo"]
+__all__ = ["calibrant_geometry", "nominal_geometry", "calibrant_image", "fibre_geometry", "fibre_series",
+           "write_image_demo"]
 
 
 def calibrant_geometry() -> DetectorGeometry:
@@ -70,12 +72,19 @@ def calibrant_image(geometry: DetectorGeometry | None = None, *, d_spacing: floa
 
 
 def fibre_geometry() -> DetectorGeometry:
-    """Geometry of the fibre series: 160 x 160 pixels of 0.172 mm, 800 mm, 0.1 nm, no tilt."""
-    return DetectorGeometry(beam_center_x_px=79.5, beam_center_y_px=81.0, distance_mm=800.0,
-                            pixel_size_x_mm=0.172, pixel_size_y_mm=0.172, wavelength_nm=0.1, shape=(160, 160))
+    """Geometry of the fibre series: the same set-up as the calibrant (:func:`calibrant_geometry`)."""
+    return calibrant_geometry()
 
 
-def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: float = 8.0,
+def nominal_geometry() -> DetectorGeometry:
+    """The set-up as the (fictional) instrument log gives it before calibration: centre a few
+    pixels off, distance 2 % long, no tilt. Stored in the demo files' metadata."""
+    g = calibrant_geometry()
+    return g.replace(beam_center_x_px=205.0, beam_center_y_px=196.0, distance_mm=204.0, tilt_deg=0.0,
+                     tilt_rotation_deg=0.0)
+
+
+def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: float = 3.0,
                  peak_counts: float = 400.0, background: float = 30.0, seed: int = 0,
                  noise: bool = True) -> xr.Dataset:
     """The fibre-stretching image series (module doc) as an image Dataset (frame, y, x).
@@ -99,13 +108,13 @@ def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: floa
     strain = np.linspace(0.0, max_strain, int(n_frames))
     n = 5.0 * strain / max_strain
     q0 = 2 * np.pi / d_spacing
-    s = 0.02
+    s = 0.03
     model = np.zeros((strain.size,) + g.shape)
     omega = g.solid_angle() * g.polarization_factor()
     for q, chi in _subpixel_q_chi(g):
         c2 = np.cos(np.radians(chi - 90.0)) ** 2
         radial = np.exp(-0.5 * ((q - q0) / s) ** 2)
-        bg = background * (1 + (np.maximum(q, 1e-3) / 0.3) ** -2)
+        bg = background * (1 + (np.maximum(q, 1e-3) / 1.0) ** -2)
         model += 0.25 * (bg[None] + peak_counts * radial[None] * c2[None] ** n[:, None, None]) * omega
     counts = np.random.default_rng(seed).poisson(model).astype(np.uint32) if noise else model
     truth = {"n": n.tolist(), "hermans": (2 * n / (2 * n + 3)).tolist(), "director_deg": 90.0, "q0": q0,
@@ -118,7 +127,8 @@ def fibre_series(n_frames: int = 21, *, max_strain: float = 2.0, d_spacing: floa
 
 def write_image_demo(folder, *, seed: int = 0) -> dict:
     """Write the calibrant image (``calibrant.tif``) and the fibre series
-    (``fibre/frame_###.tif``, strain in each file's description) into ``folder``.
+    (``fibre/frame_###.tif``, strain in each file's description) into ``folder``; the files
+    carry the uncalibrated :func:`nominal_geometry`, as an instrument would write it.
 
     Returns ``{"calibrant": path, "fibre": folder}``.
     """
@@ -128,11 +138,10 @@ def write_image_demo(folder, *, seed: int = 0) -> dict:
 
     folder = Path(folder)
     (folder / "fibre").mkdir(parents=True, exist_ok=True)
-    g = calibrant_geometry()
     cal = folder / "calibrant.tif"
-    write_tiff(cal, calibrant_image(seed=seed), metadata=g.to_attrs())
+    write_tiff(cal, calibrant_image(seed=seed), metadata=nominal_geometry().to_attrs())
     ds = fibre_series(seed=seed)
     for i in range(ds.sizes["frame"]):
         write_tiff(folder / "fibre" / f"frame_{i:03d}.tif", ds.counts.values[i],
-                   metadata={"strain": float(ds.strain.values[i]), **fibre_geometry().to_attrs()})
+                   metadata={"strain": float(ds.strain.values[i]), **nominal_geometry().to_attrs()})
     return {"calibrant": cal, "fibre": folder / "fibre"}

@@ -32,13 +32,13 @@ def test_integrate_equals_analysis_and_is_a_series(fibre):
     assert "strain" in curves.coords and curves.q.attrs["units"] == "1/nm"
     last = json.loads(curves.attrs["history"][-1])
     assert last["operation"] == "integrate" and last["parameters"]["masked_pixels"] > 0
-    assert curves.attrs["wavelength_nm"] == pytest.approx(0.1)
+    assert curves.attrs["wavelength_nm"] == pytest.approx(0.15406)
     # batch equals loop
     one = fibre.isel(frame=[5]).saxs.integrate(mask=mask, n_bins=60)
     np.testing.assert_allclose(one.intensity.values[0], curves.intensity.values[5], rtol=1e-12)
-    # the curve series goes on to the curve analyses: a peak at q0 = 2 pi / 8 nm
-    q0 = 2 * np.pi / 8.0
-    sel = (curves.q.values > 0.5) & (curves.q.values < 1.0)
+    # the curve series goes on to the curve analyses: a peak at q0 = 2 pi / 3 nm
+    q0 = 2 * np.pi / 3.0
+    sel = (curves.q.values > 1.5) & (curves.q.values < 2.7)
     peak_q = curves.q.values[sel][np.argmax(curves.intensity.values[-1][sel])]
     assert abs(peak_q - q0) < 0.03
 
@@ -56,8 +56,8 @@ def test_dask_equals_in_memory(fibre):
 def test_orientation_follows_the_closed_form(fibre):
     truth = json.loads(fibre.attrs["truth"])
     q0 = truth["q0"]
-    band = (q0 - 0.04, q0 + 0.04)
-    bg = [(q0 - 0.12, q0 - 0.08), (q0 + 0.08, q0 + 0.12)]
+    band = (q0 - 0.06, q0 + 0.06)
+    bg = [(q0 - 0.18, q0 - 0.12), (q0 + 0.12, q0 + 0.18)]
     out = fibre.saxs.orientation(band, background_bands=bg, director_deg=90.0, n_chi=90)
     f_true = np.array(truth["hermans"])
     # demo: I ~ |cos(chi - 90)|^(2n) over a smooth isotropic background; f = 2n/(2n+3)
