@@ -46,7 +46,18 @@ class ImageMethods:
         return ds["counts"]
 
     def geometry(self) -> DetectorGeometry:
-        """The detector geometry stored in the image series' attrs."""
+        """The detector geometry stored in the image series' attrs.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> ims.saxs.geometry().distance_mm
+        100.0
+        """
         ds = self._ds
         if not any(str(k).startswith("geometry_") for k in ds.attrs):
             raise SaxsInputError(
@@ -111,7 +122,19 @@ class ImageMethods:
     # ------------------------------------------------------------ methods
     def integration_matrix(self, geometry=None, mask=None, **options) -> IntegrationMatrix:
         """The pixels -> bins matrix for this series (reuse it with ``matrix=``); options as
-        :func:`saxsnb.analysis.integration_matrix`."""
+        :func:`saxsnb.analysis.integration_matrix`.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> m = ims.saxs.integration_matrix(n_bins=10)
+        >>> np.allclose(ims.saxs.integrate(matrix=m).intensity, ims.saxs.integrate(n_bins=10).intensity)
+        True
+        """
         return self._matrix(geometry, mask, None, **options)[0]
 
     def integrate(
@@ -135,6 +158,16 @@ class ImageMethods:
         unmasked pixel reaches are dropped; a bin that lost pixels in one frame (non-finite
         values) keeps the frame's own normalisation. Options as
         :func:`saxsnb.analysis.integration_matrix`.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> ims.saxs.integrate(n_bins=10).intensity.dims
+        ('frame', 'q')
         """
         opts = dict(
             n_bins=n_bins,
@@ -201,7 +234,18 @@ class ImageMethods:
         polarization: bool = True,
         matrix: IntegrationMatrix | None = None,
     ) -> xr.Dataset:
-        """Every frame to (q, chi) bins: ``intensity``, ``sigma`` on (frame, q, chi)."""
+        """Every frame to (q, chi) bins: ``intensity``, ``sigma`` on (frame, q, chi).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> dict(ims.saxs.cake(n_bins=6, n_chi=8).intensity.sizes)
+        {'frame': 2, 'q': 6, 'chi': 8}
+        """
         opts = dict(
             n_bins=n_bins,
             n_chi=n_chi,
@@ -253,6 +297,17 @@ class ImageMethods:
         ``background_bands``: q bands (e.g. just below and above the reflection) whose mean
         I(chi) is subtracted chi bin by chi bin (the isotropic and radially smooth
         scattering under the reflection); sigma includes theirs.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> prof = ims.saxs.azimuthal_profile((0.5, 1.0), n_chi=12, solid_angle=False, polarization=False)
+        >>> prof.intensity.dims, bool(np.allclose(prof.intensity, prof.intensity[0, 0]))
+        (('frame', 'chi'), True)
         """
         bands = [tuple(q_band)] + [tuple(b) for b in (background_bands or [])]
         for b in bands:
@@ -318,6 +373,17 @@ class ImageMethods:
         Hermans' f and the 2D order parameter relative to ``director_deg`` ("auto": the
         intensity maximum), and the FWHM of the azimuthal peaks
         (:func:`saxsnb.analysis.hermans_orientation`, :func:`~saxsnb.analysis.azimuthal_peak_width`).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from saxsnb.analysis import DetectorGeometry
+        >>> from saxsnb.io.images import image_series
+        >>> g = DetectorGeometry(15.5, 15.5, 100.0, 0.2, 0.2, 0.1, shape=(32, 32))
+        >>> ims = image_series(np.full((2, 32, 32), 5.0), geometry=g)
+        >>> out = ims.saxs.orientation((0.5, 1.0), n_chi=12, director_deg=0.0)
+        >>> np.round(out.hermans.values, 6).tolist(), out.status.values.tolist()   # isotropic
+        ([0.0, 0.0], ['ok', 'ok'])
         """
         prof = self.azimuthal_profile(q_band, geometry, mask, n_chi=n_chi, background_bands=background_bands)
         chi = prof["chi"].values

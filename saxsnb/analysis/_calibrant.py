@@ -43,7 +43,11 @@ _FIT_NAMES = ("beam_center_x_px", "beam_center_y_px", "distance_mm", "tilt_x_deg
 
 
 def calibrant_orders(q_min: float, q_max: float, *, d_spacing: float = SILVER_BEHENATE_D) -> np.ndarray:
-    """Orders n >= 1 whose ring ``q_n = 2 pi n / d`` lies in [q_min, q_max] (1/nm)."""
+    """Orders n >= 1 whose ring ``q_n = 2 pi n / d`` lies in [q_min, q_max] (1/nm).
+
+    >>> calibrant_orders(2.0, 4.0).tolist()
+    [2, 3]
+    """
     if not d_spacing > 0:
         raise SaxsInputError(f"must be > 0, got {d_spacing}", parameter="d_spacing")
     n = np.arange(1, int(q_max * d_spacing / (2 * np.pi)) + 1)
@@ -79,6 +83,13 @@ def find_ring_points(image, geometry: DetectorGeometry, *, d_spacing: float = SI
     Returns
     -------
     dict of 1D arrays ``rows``, ``cols`` (pixel coordinates), ``order``, ``chi`` (degrees).
+
+    Examples
+    --------
+    >>> from saxsnb.demo_images import calibrant_geometry, calibrant_image
+    >>> pts = find_ring_points(calibrant_image(seed=1), calibrant_geometry(), n_azimuth=36)
+    >>> sorted(set(pts["order"].tolist()))[:3]
+    [1, 2, 3]
     """
     img = np.asarray(image, float)
     if img.ndim != 2:
@@ -181,6 +192,15 @@ def fit_geometry(points: dict, geometry: DetectorGeometry, *, d_spacing: float =
     ``covariance`` (5 x 5 over centre x, y, distance, tilt vector x, y), ``residual``
     (per point, degrees of 2 theta), ``rings`` (per order: ``order``, ``q``, ``points``,
     ``rms_deg``, ``rms_px``), ``rms_deg`` and ``status``.
+
+    Examples
+    --------
+    >>> from saxsnb.demo_images import calibrant_geometry, calibrant_image
+    >>> true = calibrant_geometry()
+    >>> pts = find_ring_points(calibrant_image(seed=1), true)
+    >>> res = fit_geometry(pts, true.replace(distance_mm=203.0, tilt_deg=0.0))
+    >>> abs(res["values"]["distance_mm"] - 200.0) < 0.02
+    True
     """
     rows, cols, order = (np.asarray(points[k], float) for k in ("rows", "cols", "order"))
     n_par = 5 if fit_tilt else 3
@@ -257,8 +277,15 @@ def calibrate(image, geometry: DetectorGeometry, *, d_spacing: float = SILVER_BE
 
     Returns
     -------
-    the dict of :func:`fit_geometry` plus ``points`` (the ring points of the last round)
+    the dict of :func:`fit_geometry` plus ``ring_points`` (the points of the last round)
     and ``d_spacing``.
+
+    Examples
+    --------
+    >>> from saxsnb.demo_images import calibrant_geometry, calibrant_image, nominal_geometry
+    >>> res = calibrate(calibrant_image(seed=1), nominal_geometry())
+    >>> round(res["values"]["beam_center_x_px"], 1), calibrant_geometry().beam_center_x_px
+    (208.3, 208.3)
     """
     g = geometry
     result = None

@@ -99,6 +99,12 @@ class DetectorGeometry:
     shape : (rows, columns) of the images, optional; when given the beam centre must
         lie on the detector.
     polarization : polarisation fraction along lab x in [-1, 1] (0 = unpolarised).
+
+    Examples
+    --------
+    >>> g = DetectorGeometry(100, 100, 2000, 0.1, 0.1, 0.1, tilt_deg=2, shape=(200, 200))
+    >>> g.q_map().shape, round(float(g.solid_angle()[100, 100]), 6)   # cos(tilt) at the beam
+    ((200, 200), 0.999391)
     """
 
     beam_center_x_px: float

@@ -141,7 +141,11 @@ def polygon_mask(shape, vertices) -> np.ndarray:
 
 
 def combine_masks(*masks) -> np.ndarray:
-    """Logical or of masks of one shape (``None`` entries are skipped)."""
+    """Logical or of masks of one shape (``None`` entries are skipped).
+
+    >>> combine_masks(np.eye(2, dtype=bool), None, np.fliplr(np.eye(2, dtype=bool))).all()
+    np.True_
+    """
     ms = [np.asarray(m, bool) for m in masks if m is not None]
     if not ms:
         raise SaxsInputError("no mask given", parameter="masks")

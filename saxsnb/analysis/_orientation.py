@@ -95,6 +95,13 @@ def hermans_orientation(chi, intensity, sigma=None, *, director_deg=0.0, baselin
     -------
     dict of per-frame arrays: ``hermans`` (f) and ``hermans_sigma``, ``cos2`` (<cos^2 phi>),
     ``order_2d`` and ``order_2d_sigma``, ``director_deg``, ``status`` ("ok", "no_data").
+
+    Examples
+    --------
+    >>> chi = np.arange(-175.0, 180, 10.0)
+    >>> out = hermans_orientation(chi, np.ones((1, chi.size)), np.full((1, chi.size), 0.1))
+    >>> round(float(out["hermans"][0]), 12), out["status"].tolist()   # isotropic
+    (0.0, ['ok'])
     """
     chi, I, S, width = _check(chi, intensity, sigma)
     n_f = I.shape[0]
