@@ -373,6 +373,9 @@ class ImageMethods:
         Hermans' f and the 2D order parameter relative to ``director_deg`` ("auto": the
         intensity maximum), and the FWHM of the azimuthal peaks
         (:func:`saxsnb.analysis.hermans_orientation`, :func:`~saxsnb.analysis.azimuthal_peak_width`).
+        The parameters describe everything in the band: isotropic scattering under the
+        reflection (background, amorphous part) pulls f towards 0. Remove it with
+        ``background_bands`` (or ``baseline="min"``) to get the orientation of the reflection.
 
         Examples
         --------

@@ -19,6 +19,10 @@ Hermans' orientation parameter (Hermans & Platzek 1939, Kolloid-Z. 88, 68)
     that maximises it, ``0.5 atan2(<sin 2chi>, <cos 2chi>)``.
 Uncertainties
     propagated linearly from ``sigma`` (bins independent).
+Caveat
+    f and S_2D describe the whole profile given: an isotropic part (background under the
+    reflection) pulls both towards 0; subtract it first (``baseline=``, or background q
+    bands in ``ds.saxs.orientation``).
 
 Examples
 --------
