@@ -17,7 +17,8 @@ from .series import from_arrays, validate  # noqa: E402
 
 def __getattr__(name):
     # Readers and the dashboard are imported on first use, so `import saxsnb` stays light.
-    if name in ("read_series", "open_series", "save_series", "write_text_series", "read_cansas_xml"):
+    if name in ("read_series", "open_series", "save_series", "write_text_series", "read_cansas_xml",
+                "read_images"):
         from . import io
 
         return getattr(io, name)
@@ -59,4 +60,5 @@ __all__ = [
     "SaxsInputError",
     "SaxsFileError",
     "SaxsFitError",
+    "read_images",
 ]

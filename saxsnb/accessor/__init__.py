@@ -26,6 +26,7 @@ import xarray as xr
 
 from ._core import AccessorBase, OutputSpec, provenance, result_attrs
 from .distance import DistanceMethods
+from .images import ImageMethods
 from .linear import LinearMethods
 from .phases import PhaseMethods
 from .preparation import PreparationMethods
@@ -38,7 +39,7 @@ __all__ = ["SaxsAccessor", "OutputSpec", "AccessorBase", "provenance", "result_a
 
 @xr.register_dataset_accessor("saxs")
 class SaxsAccessor(SeriesMethods, LinearMethods, DistanceMethods, PhaseMethods, PreparationMethods,
-                   TableMethods, RecipeMethods):
+                   TableMethods, RecipeMethods, ImageMethods):
     """SAXS series methods, as ``ds.saxs.<method>``.
 
     Examples

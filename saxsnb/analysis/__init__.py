@@ -24,6 +24,7 @@ table :data:`LINEAR_PLOTS`), Kratky (:func:`kratky`, :func:`kratky_summary`), pe
 """
 
 from ._averaging import average_frames, group_labels, rebin
+from ._calibrant import calibrant_orders, calibrate, find_ring_points, fit_geometry
 from ._calibration import SILVER_BEHENATE_D, calibrate_q, calibration_factor, water_cross_section
 from ._corrections import fit_scale, match_frames, normalization_factor, scale_intensity, subtract_background
 from ._distance import (
@@ -33,8 +34,10 @@ from ._distance import (
     sphere_distance_distribution,
     transform_matrix,
 )
+from ._geometry import DetectorGeometry, rotation_matrix
 from ._guinier import guinier, guinier_search, rod_length
 from ._indexing import PHASE_OUTPUTS, index_phases
+from ._integrate import IntegrationMatrix, bin_edges, integration_matrix
 from ._invariant import guinier_integrals, invariant
 from ._kratky import SHAPE_CLASSES, kratky, kratky_summary
 from ._lattice import index_peaks, lattice_from_metric
@@ -47,7 +50,9 @@ from ._linear import (
     linearize,
     weighted_linear_fit,
 )
+from ._masks import circle_mask, combine_masks, gap_mask, mask_fraction, polygon_mask, threshold_mask
 from ._merging import extrapolate_concentration, merge_ranges, per_concentration
+from ._orientation import azimuthal_peak_width, estimate_director, hermans_orientation
 from ._peakfit import PROFILES, fit_peaks, guess_peaks, peak_profile
 from ._peaks import detect_peaks, estimate_baseline, find_peaks
 from ._phasemap import BONNET_RATIOS, phase_map
@@ -142,4 +147,23 @@ __all__ = [
     "STATUS",
     "STATUS_DTYPE",
     "Status",
+    # images: geometry, integration, masks, calibration, orientation
+    "DetectorGeometry",
+    "rotation_matrix",
+    "IntegrationMatrix",
+    "integration_matrix",
+    "bin_edges",
+    "threshold_mask",
+    "gap_mask",
+    "circle_mask",
+    "polygon_mask",
+    "combine_masks",
+    "mask_fraction",
+    "calibrant_orders",
+    "find_ring_points",
+    "fit_geometry",
+    "calibrate",
+    "hermans_orientation",
+    "azimuthal_peak_width",
+    "estimate_director",
 ]

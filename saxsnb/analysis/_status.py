@@ -183,6 +183,11 @@ STATUS: dict[str, Status] = {
         "reference frame of the comparison (not tested against itself)",
     ),
     "override": Status("the phase was set by hand", "overrides", "override (phase set by hand)"),
+    "not_converged": Status(
+        "the least-squares iterations stopped before converging: numbers kept",
+        "intensity",
+        "the fit did not converge: treat its numbers with caution",
+    ),
 }
 
 #: Statuses of phase indexing for a frame that has a phase assignment.

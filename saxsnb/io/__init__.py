@@ -10,7 +10,9 @@ atomically (a temporary file in the same folder, then a rename).
 """
 
 from .cansas_xml import read_cansas_xml
+from .images import image_series, read_images, write_tiff
 from .store import open_series, save_series
 from .text import read_series, write_text_series
 
 __all__ = ["read_series", "open_series", "save_series", "write_text_series", "read_cansas_xml"]
+__all__ += ["read_images", "image_series", "write_tiff"]

@@ -1,0 +1,50 @@
+"""The image panel (saxsnb.widgets.image), driven from Python."""
+
+import numpy as np
+import pytest
+import traitlets
+
+from saxsnb.analysis import DetectorGeometry, circle_mask
+from saxsnb.io.images import image_series
+from saxsnb.widgets.image import ImagePanel
+
+G = DetectorGeometry(40.0, 30.0, 500.0, 0.172, 0.172, 0.1, tilt_deg=2.0, shape=(60, 80))
+
+
+@pytest.fixture
+def panel():
+    rng = np.random.default_rng(1234)
+    ims = image_series(rng.poisson(20.0, size=(3, 60, 80)).astype(np.uint32), geometry=G)
+    return ImagePanel(ims, mask=circle_mask(G.shape, (40, 30), 4), rings_q=[0.5, 1.0])
+
+
+def test_frame_log_and_mask(panel):
+    img = panel.images.counts.values
+    c = np.asarray(panel.heatmap.color)
+    assert np.isnan(c[30, 40])                            # masked beam stop left blank
+    np.testing.assert_allclose(c[0, 0], np.log10(img[0, 0, 0]))
+    panel.frame = 2
+    np.testing.assert_allclose(np.asarray(panel.heatmap.color)[0, 0], np.log10(img[2, 0, 0]))
+    panel.log_scale = False
+    panel.show_mask = False
+    assert np.asarray(panel.heatmap.color)[30, 40] == img[2, 30, 40]
+    panel.frame = 7
+    assert "frame 7" in panel.status and panel.status_line.value
+
+
+def test_rings_centre_and_cursor(panel):
+    assert len(panel.ring_lines.x) == 2
+    rows, cols = np.asarray(panel.ring_lines.y[1]), np.asarray(panel.ring_lines.x[1])
+    np.testing.assert_allclose(G.q_chi(rows, cols)[0], 1.0, rtol=1e-10)
+    assert list(panel.centre.x) == [40.0]
+    cur = panel.point_at(50.0, 30.0)
+    q, chi = G.q_chi([30.0], [50.0])
+    assert cur["q"] == pytest.approx(float(q[0])) and cur["chi"] == pytest.approx(float(chi[0]))
+    assert "1/nm" in panel.readout.value
+    panel._on_hover(panel.heatmap, {"data": {"row": 0, "column": 1}})
+    assert panel.cursor["x"] == 1.0 and panel.cursor["y"] == 0.0
+    # frame can be linked to another panel's frame (common traitlets link)
+    other = ImagePanel(panel.images)
+    traitlets.link((panel, "frame"), (other, "frame"))
+    panel.frame = 1
+    assert other.frame == 1
