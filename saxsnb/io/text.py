@@ -37,14 +37,15 @@ from ..errors import SaxsFileError, SaxsInputError
 from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
 from ._assemble import Curve, build_series
 from ._atomic import atomic_folder
-from ._textparse import parse_bodies, split_file
+from ._bodies import parse_bodies
+from ._textparse import split_file
 
 __all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS", "MIN_Q_POINTS"]
 
 #: File extensions picked from a folder (when any such file exists).
 DATA_EXTENSIONS = (".dat", ".txt", ".csv", ".chi", ".xy")
-_BATCH = 128
-_THREADS = min(4, os.cpu_count() or 1) or 1
+_BATCH = 256
+_THREADS = min(2, os.cpu_count() or 1) or 1
 _PROGRESS_MIN = 500
 #: Fewest rows of data a curve may have: fewer q points are refused (no fit or
 #: comparison means anything on them; often a file cut short or a summary table).
