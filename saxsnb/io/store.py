@@ -33,7 +33,36 @@ def _kind(path) -> str:
     )
 
 
-def save_series(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
+def _writing_bar(ds: xr.Dataset, progress: bool | None):
+    """A dask callback showing the write of a dask-backed series as a tqdm bar (tasks
+    done of all), or a no-op context."""
+    import contextlib
+    import sys
+
+    if not ds.chunks:
+        return contextlib.nullcontext()
+    if progress is None:
+        progress = sys.stderr.isatty() and max(len(c) for c in ds.chunks.values()) >= 20
+    if not progress:
+        return contextlib.nullcontext()
+    from dask.callbacks import Callback
+    from tqdm.auto import tqdm
+
+    class _Bar(Callback):
+        def _start_state(self, dsk, state):
+            self._bar = tqdm(total=sum(len(state[k]) for k in ("ready", "waiting", "running")) or None,
+                             desc="writing", unit="task")
+
+        def _posttask(self, key, result, dsk, state, worker_id):
+            self._bar.update(1)
+
+        def _finish(self, dsk, state, errored):
+            self._bar.close()
+
+    return _Bar()
+
+
+def save_series(ds: xr.Dataset, path, *, overwrite: bool = True, progress: bool | None = None) -> None:
     """Save a series, choosing the format by extension; the write is atomic.
 
     Parameters
@@ -46,6 +75,9 @@ def save_series(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
         Zarr store (a folder), chunked along frame and compressed.
     overwrite : bool
         If False, an existing file is an error.
+    progress : bool, optional
+        Show a progress bar while a dask-backed series is computed and written (by
+        default in an interactive terminal, for 20 chunks or more).
 
     Notes
     -----
@@ -69,18 +101,19 @@ def save_series(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
     """
     kind = _kind(path)
     validate(ds)
-    if kind == "zarr":
-        from .zarrstore import write_zarr
+    with _writing_bar(ds, progress):
+        if kind == "zarr":
+            from .zarrstore import write_zarr
 
-        write_zarr(ds, path, overwrite=overwrite)
-    elif kind == "netcdf":
-        from .netcdf import write_netcdf
+            write_zarr(ds, path, overwrite=overwrite)
+        elif kind == "netcdf":
+            from .netcdf import write_netcdf
 
-        write_netcdf(ds, path, overwrite=overwrite)
-    else:
-        from .nxcansas import write_nxcansas
+            write_netcdf(ds, path, overwrite=overwrite)
+        else:
+            from .nxcansas import write_nxcansas
 
-        write_nxcansas(ds, path, overwrite=overwrite)
+            write_nxcansas(ds, path, overwrite=overwrite)
 
 
 def open_series(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:

@@ -214,7 +214,13 @@ def read_series(
         file's range become NaN and are masked), ``"log"`` onto a log-spaced grid over
         the common range with as many points as the longest file. Recorded in history.
     chunks : int or dict, optional
-        Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames).
+        Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames),
+        built lazily from blocks of that many files: every file is read once to check
+        it and take its metadata (all errors are raised then, naming file and line),
+        and a block's files are read again when the block is computed, so the text of
+        all files is never held at once; ``read_series(folder, chunks=500).saxs.save(
+        "series.zarr")`` converts a folder of any size to a store, block by block.
+        (With ``regrid`` the series is read whole, then chunked.)
     progress : bool, optional
         Show a progress bar; by default only for many files in an interactive terminal.
     time_from : str, optional
@@ -272,6 +278,18 @@ def read_series(
     if time_from is not None and not isinstance(time_from, str):
         raise SaxsInputError("time_from must be the name of a timestamp in the files", parameter="time_from")
     files = find_files(source)
+    frames = _lazy_frames(chunks, regrid)
+    if frames is not None:
+        from . import text as _self
+        from ._lazy import lazy_series
+
+        options = {"scan": scan, "pattern": pattern, "q_unit": q_unit, "time_from": time_from}
+        ds = lazy_series(_self, files, frames, progress=progress, **options)
+        ds = _record_read(
+            ds, source, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid, time_from=time_from
+        )
+        rest = {k: v for k, v in chunks.items() if k != "frame"} if isinstance(chunks, Mapping) else {}
+        return ds.chunk(rest) if rest else ds
     curves = _curves(files, progress)
     if time_from is not None:
         _times(curves, time_from)
@@ -288,6 +306,19 @@ def read_series(
     if chunks is not None:
         ds = ds.chunk({"frame": int(chunks)} if isinstance(chunks, int) else dict(chunks))
     return ds
+
+
+def _lazy_frames(chunks, regrid) -> int | None:
+    """Frames per block of a lazy read, or None for an eager read (then chunked)."""
+    if chunks is None or regrid is not None:
+        return None
+    if isinstance(chunks, Mapping):
+        n = chunks.get("frame")
+        return None if n is None or n == -1 or isinstance(n, (tuple, str)) else int(n)
+    if isinstance(chunks, bool) or not isinstance(chunks, (int, np.integer)):
+        raise SaxsInputError("chunks must be a number of frames or a dict such as {'frame': 500}",
+                             parameter="chunks")
+    return int(chunks)
 
 
 def _timestamp(text: str) -> datetime | None:
