@@ -379,7 +379,8 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     # count before the data) is not the first row of data
     e2 = data.find(b"\n", end + 1)
     same = e2 > 0 and data[end + 1 : e2].translate(_DIGITS) == data[start:end].translate(_DIGITS)
-    counts = [] if same else _next_counts(data, end + 1, 2)  # a row laid out like the first: fine
+    # a row laid out like the first, or two plain rows of as many tokens: fine
+    counts = [] if same or _next_two_alike(data, end + 1, len(tokens)) else _next_counts(data, end + 1, 2)
     if len(counts) == 2 and counts[0] == counts[1] != len(tokens):
         raise SaxsFileError(
             f"this line holds {len(tokens)} numbers but the rows after it hold {counts[0]}: a summary "
@@ -410,6 +411,21 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     if t0 is not None:
         _trailer(raw, data, t0)
     return raw
+
+
+def _next_two_alike(data: bytes, pos: int, n_tokens: int) -> bool:
+    """Whether the next two lines after ``pos`` are plain (no ',', ';' or '#', not blank)
+    and hold ``n_tokens`` blank-separated tokens each: then :func:`_next_counts` cannot
+    find another count of numbers (a shortcut for rows of varying width)."""
+    for _ in range(2):
+        e = data.find(b"\n", pos)
+        line = data[pos : len(data) if e < 0 else e]
+        if b"," in line or b";" in line or b"#" in line or len(line.split()) != n_tokens:
+            return False
+        if e < 0:
+            return True
+        pos = e + 1
+    return True
 
 
 def _next_counts(data: bytes, pos: int, n: int) -> list[int]:

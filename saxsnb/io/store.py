@@ -98,6 +98,12 @@ def save_series(ds: xr.Dataset, path, *, overwrite: bool = True, progress: bool 
     >>> p = os.path.join(tempfile.mkdtemp(), "s.nc")
     >>> save_series(ds, p)
     >>> xr.testing.assert_identical(open_series(p), ds)
+    >>> z = os.path.join(tempfile.mkdtemp(), "s.zarr")
+    >>> save_series(ds.chunk({"frame": 1}), z)
+    >>> lazy = open_series(z, chunks={})
+    >>> lazy.intensity.chunks
+    ((1,), (2,))
+    >>> xr.testing.assert_identical(lazy.compute(), ds)
     """
     kind = _kind(path)
     validate(ds)
