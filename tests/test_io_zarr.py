@@ -146,3 +146,21 @@ def test_missing_store_and_not_a_series(tmp_path):
         open_series(tmp_path / "other.zarr")
     with pytest.raises(SaxsInputError, match="extension"):
         open_series(tmp_path / "s.zip")
+
+
+def test_a_failed_zarr_write_keeps_the_old_store(tmp_path, rng):
+    ds = rich_series(rng, n=6)
+    path = tmp_path / "s.zarr"
+    save_series(ds, path)
+    lazy = ds.chunk({"frame": 2})
+
+    def fail_third(block, block_info=None):  # the write stops half way
+        if block_info[0]["chunk-location"][0] == 2:
+            raise RuntimeError("disk gone")
+        return block
+
+    lazy["intensity"] = lazy.intensity.copy(data=lazy.intensity.data.map_blocks(fail_third, dtype=float))
+    with pytest.raises(RuntimeError, match="disk gone"):
+        save_series(lazy, path)
+    xr.testing.assert_identical(open_series(path), ds)
+    assert sorted(os.listdir(tmp_path)) == ["s.zarr"]

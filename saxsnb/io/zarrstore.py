@@ -102,8 +102,20 @@ def write_zarr(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
     with atomic_folder(target, overwrite=True) as tmp:
         try:
             enc.to_zarr(os.fspath(tmp), mode="w", encoding=encoding, consolidated=False)
+            _sync_tree(os.fspath(tmp))
         except (OSError, ValueError, TypeError) as exc:
             raise SaxsFileError(f"cannot write the Zarr store: {exc}", path=target) from exc
+
+
+def _sync_tree(root: str) -> None:
+    """Flush every chunk file and folder of the new store to disk before it replaces
+    the old one (the rename is atomic; this makes it durable too)."""
+    from ._atomic import _fsync_dir, _fsync_file
+
+    for folder, _, names in os.walk(root, topdown=False):
+        for name in names:
+            _fsync_file(os.path.join(folder, name))
+        _fsync_dir(folder)
 
 
 def read_zarr(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
