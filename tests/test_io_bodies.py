@@ -114,3 +114,25 @@ def test_blank_and_comment_lines_among_rows_keep_their_line_numbers(tmp_path, rn
     with pytest.raises(SaxsFileError, match="duplicate") as info:
         read_series(tmp_path / "a.dat")
     assert info.value.line == 1 + 5 + 2 + (10 - 5) + 1  # header, 5 rows, blank, comment, rows 5..10
+
+
+@pytest.mark.parametrize("fast", [True, False])
+@pytest.mark.parametrize("fmt", ["%r", "%.17g", "%.25e", "%.40f"])
+def test_random_doubles_of_every_magnitude_are_read_bit_exactly(tmp_path, monkeypatch, fmt, fast):
+    # random bit patterns (every exponent), subnormals and long decimal expansions;
+    # reference: Python's float (correctly rounded) of each printed token
+    rng = np.random.default_rng(11)
+    x = np.concatenate(
+        [np.frombuffer(rng.bytes(8 * 3000), dtype=np.float64), rng.uniform(size=500) * 1e-310]
+    )
+    x = x[np.isfinite(x)]
+    tokens = [repr(float(v)) if fmt == "%r" else fmt % v for v in x]
+    q = np.arange(1, x.size + 1) / 1000.0
+    rows = [f"{float(qi)!r} {t} 1" for qi, t in zip(q, tokens)]
+    (tmp_path / "a.dat").write_text(H + "\n".join(rows) + "\n")
+    (tmp_path / "b.dat").write_text(H + "\n".join(rows) + "\n")
+    if not fast:  # numpy.loadtxt, file by file
+        monkeypatch.setattr(bodies, "fast_parser", lambda: None)
+    ds = read_series(tmp_path)
+    ref = np.array([float(t) for t in tokens])
+    assert np.array_equal(ds.intensity.values[1].view(np.uint64), ref.view(np.uint64))
