@@ -118,3 +118,17 @@ def test_regrid_reads_whole_then_chunks(tmp_path):
         eager = read_series(folder, regrid="first")
         lazy = read_series(folder, regrid="first", chunks=4)
     xr.testing.assert_identical(lazy.compute(), eager)
+
+
+def test_unsorted_rows_are_sorted_as_in_the_eager_read(tmp_path):
+    folder = _folder(tmp_path, nan_in=-1)
+    for name in ("f0.dat", "f6.dat"):  # the first file too: its grid is the reference
+        p = folder / name
+        lines = p.read_text().split("\n")
+        lines[5], lines[6] = lines[6], lines[5]
+        p.write_text("\n".join(lines))
+    with pytest.warns(SaxsWarning, match="sorted"):
+        eager = read_series(folder)
+    with pytest.warns(SaxsWarning, match="sorted"):
+        lazy = read_series(folder, chunks=4)
+    xr.testing.assert_identical(lazy.compute(), eager)

@@ -65,8 +65,13 @@ def _light_batch(read_batch, paths: list[str], q0: np.ndarray) -> list[_Light]:
         q = c.q if fine else np.sort(c.q)  # the eager read sorts first (with a warning)
         same = q.shape == q0.shape and bool(np.isclose(q, q0, rtol=1e-9, atol=0.0).all())
         n_bad = int(_bad_points(c).sum())
-        light = dataclasses.replace(
-            c, q=None if fine else c.q, intensity=None, sigma=None, dq=None, lines=None if fine else c.lines
+        light = dataclasses.replace(  # a q column to check later keeps its q and line numbers
+            c,
+            q=None if fine else c.q,
+            intensity=None if fine else np.zeros(c.q.size),
+            sigma=None,
+            dq=None,
+            lines=None if fine else c.lines,
         )
         out.append(_Light(light, c.q.size, ncols, fine, same, n_bad))
     return out
@@ -121,7 +126,7 @@ def lazy_series(text, files: list[str], frames: int, *, scan, pattern, q_unit, t
     if frames < 1:
         raise SaxsInputError("chunks must be a positive number of frames", parameter="chunks")
     first = text._read_batch(files[:1])[0]
-    q0 = first.q
+    q0 = first.q if _q_fine(first.q) else np.sort(first.q)  # the eager read sorts it (or refuses it)
     lights = _first_pass(text, files, q0, progress)
     curves = [x.curve for x in lights]
     if time_from is not None:
