@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import io
 import re
-import warnings
 
 import numpy as np
 
@@ -115,12 +114,12 @@ def _alone(raw: RawFile) -> tuple[np.ndarray, np.ndarray]:
     body = bytes(raw.body)
     if _CONTROL.search(body) or b"_" in body or (not raw.comma and b"," in body):
         raise _line_errors(raw)
+    text = body.translate(_TO_SPACE)
+    if not text.strip():  # (numpy would warn; warnings filters are not thread-safe to change)
+        raise _line_errors(raw)
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error")  # an empty input warns: an error here
-            text = io.BytesIO(body.translate(_TO_SPACE))
-            data = np.loadtxt(text, dtype=np.float64, ndmin=2, comments=None, encoding="latin-1")
-    except (ValueError, UserWarning):
+        data = np.loadtxt(io.BytesIO(text), dtype=np.float64, ndmin=2, comments=None, encoding="latin-1")
+    except ValueError:
         raise _line_errors(raw) from None
     if data.shape[0] == 0 or data.shape[1] != raw.ncols:
         raise _line_errors(raw)

@@ -94,11 +94,22 @@ def _first_pass(text, files: list[str], q0: np.ndarray, progress) -> list[_Light
     return lights
 
 
+def _sorted(c: Curve) -> Curve:
+    order = np.argsort(c.q, kind="stable")
+
+    def take(a):
+        return None if a is None else a[order]
+
+    return dataclasses.replace(
+        c, q=c.q[order], intensity=c.intensity[order], sigma=take(c.sigma), dq=take(c.dq), lines=take(c.lines)
+    )
+
+
 def _load_block(read_batch, paths: tuple[str, ...], q_fine: tuple[bool, ...], n_q: int, with_dq: bool):
     """Intensity, sigma, dq (or None) and mask of a block of files (the second pass)."""
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", SaxsWarning)  # warned in the first pass already
-        curves = [c if fine else _check_q(c) for c, fine in zip(read_batch(list(paths)), q_fine)]
+    # rows out of q order: sorted as _check_q sorts them (it warned in the first pass;
+    # no warnings filters here: they are global state, not safe in dask's threads)
+    curves = [c if fine else _sorted(c) for c, fine in zip(read_batch(list(paths)), q_fine)]
     n = len(curves)
     I = np.stack([c.intensity for c in curves])
     S = np.full((n, n_q), np.nan)
