@@ -10,10 +10,10 @@ that is wrong (:func:`._textparse._line_errors`). Both parsers are stricter than
 Python's ``float`` where they differ (``1_0``, non-ASCII digits): such a token fails
 and is then named.
 
-Measured on 2,000 files x 1,000 rows x 3 columns (benchmarks/bench_read.py): the
-joined polars read is about 25 ns per number on two cores, ``numpy.loadtxt`` about
-150 ns; the hand-written vectorised parser this module replaced was 70 ns per number
-on a fixed layout and 300 ns on a varying one.
+Measured on 2,000 files x 1,000 rows x 3 columns (benchmarks/bench_read.py, an idle
+2-core machine): the joined polars read takes about 30 ns per number on two cores,
+``numpy.loadtxt`` 130-170 ns; the hand-written vectorised parser this module replaced
+took about 65 ns per number on a fixed layout and about 250 ns on a varying one.
 """
 
 from __future__ import annotations
