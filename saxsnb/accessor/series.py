@@ -107,7 +107,10 @@ class SeriesMethods(AccessorBase):
         return add_history(out, "to_q_unit", source_unit=current, target_unit=target)
 
     def save(self, path, **options) -> None:
-        """Write the series to NetCDF (.nc) or NXcanSAS HDF5 (.h5, .nxs), atomically.
+        """Write the series to NetCDF (.nc), NXcanSAS HDF5 (.h5, .nxs) or a Zarr store
+        (.zarr), atomically (see :func:`saxsnb.save_series`). A dask-backed series is
+        written chunk by chunk (Zarr and NetCDF chunked along frame like it), never
+        computed whole.
 
         Examples
         --------

@@ -2,7 +2,8 @@
 
 - :func:`read_series`: a folder, glob or list of text-column files -> one series.
 - :func:`write_text_series`: one text file per frame, with units and scan values.
-- :func:`save_series` / :func:`open_series`: NetCDF (.nc) and NXcanSAS (.h5, .nxs).
+- :func:`save_series` / :func:`open_series`: NetCDF (.nc), NXcanSAS (.h5, .nxs) and Zarr
+  stores (.zarr, chunked along frame, read lazily).
 - :func:`read_cansas_xml`: canSAS 1D XML files, parsed without entity expansion.
 
 All readers return the Dataset layout of :mod:`saxsnb.series`; all writers write

@@ -297,6 +297,41 @@ def _check_attr(c: Curve, key: str, value: Any) -> None:
         raise SaxsFileError("attr.sigma_estimated must be 0 or 1", **where)
 
 
+def series_metadata(curves: Sequence[Curve], scan: str | None, pattern: str | None, attrs: dict):
+    """Per-frame coordinates, attrs, history and frame order (by ``scan``, else None)
+    of a series of curves: the part of :func:`build_series` that needs no arrays."""
+    coords, const_attrs = _coordinates(curves, pattern)
+    names = [c.name for c in curves]
+    order = None
+    if scan is not None:
+        if scan not in coords:
+            available = sorted(coords) or ["(none: the headers and file names gave no values)"]
+            raise SaxsInputError(
+                f"unknown scan coordinate {scan!r}; available: {', '.join(available)}", parameter="scan"
+            )
+        values = coords[scan][0]
+        missing = (
+            np.flatnonzero(values == "") if values.dtype.kind in "US" else np.flatnonzero(np.isnan(values))
+        )
+        if missing.size:
+            c = curves[int(missing[0])]
+            raise SaxsFileError(f"has no value for the scan coordinate {scan!r}", path=c.path or c.name)
+        order = np.argsort(values, kind="stable")
+    extra_attrs: dict[str, Any] = {}
+    for c in curves:
+        for k, v in c.attrs.items():
+            _check_attr(c, k, v)
+            extra_attrs.setdefault(k, v)
+    attrs = {**extra_attrs, **const_attrs, **attrs}
+    if order is not None:
+        coords = {k: (v[order], u) for k, (v, u) in coords.items()}
+        names = [names[i] for i in order]
+        attrs["scan"] = scan
+    attrs["source_files"] = names
+    history = list(attrs.pop("history", []) or [])
+    return coords, attrs, history, order
+
+
 def build_series(
     curves: Sequence[Curve],
     *,
@@ -416,37 +451,10 @@ def build_series(
             S[no_sigma] = estimate_sigma(I[no_sigma])
         attrs["sigma_estimated"] = 1
 
-    coords, const_attrs = _coordinates(curves, pattern)
-    names = [c.name for c in curves]
-    order = None
-    if scan is not None:
-        if scan not in coords:
-            available = sorted(coords) or ["(none: the headers and file names gave no values)"]
-            raise SaxsInputError(
-                f"unknown scan coordinate {scan!r}; available: {', '.join(available)}", parameter="scan"
-            )
-        values = coords[scan][0]
-        missing = (
-            np.flatnonzero(values == "") if values.dtype.kind in "US" else np.flatnonzero(np.isnan(values))
-        )
-        if missing.size:
-            c = curves[int(missing[0])]
-            raise SaxsFileError(f"has no value for the scan coordinate {scan!r}", path=c.path or c.name)
-        order = np.argsort(values, kind="stable")
-    extra_attrs: dict[str, Any] = {}
-    for c in curves:
-        for k, v in c.attrs.items():
-            _check_attr(c, k, v)
-            extra_attrs.setdefault(k, v)
-    attrs = {**extra_attrs, **const_attrs, **attrs}
+    coords, attrs, history, order = series_metadata(curves, scan, pattern, attrs)
     if order is not None:
         I, S, mask = I[order], S[order], mask[order]
         D = None if D is None else D[order]
-        coords = {k: (v[order], u) for k, (v, u) in coords.items()}
-        names = [names[i] for i in order]
-        attrs["scan"] = scan
-    attrs["source_files"] = names
-    history = list(attrs.pop("history", []) or [])
     ds = from_arrays(
         grid,
         I,

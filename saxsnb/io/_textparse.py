@@ -1,10 +1,10 @@
-"""Parsing of text-column files: header/body split, header metadata, fast numeric body.
+"""Parsing of text-column files: header/body split, header metadata, numeric body.
 
-The numeric bodies of many files are parsed together (see :mod:`._numparse`): files
-whose rows all share one byte layout (the usual output of a program) are read as a
-character matrix without locating tokens; the others go through the token parser.
-Any file that does not parse cleanly is re-read line by line, only to name the line
-that is wrong.
+The numeric bodies are parsed by maintained parsers (see :mod:`._bodies`): the bodies
+of many files laid out alike (one separator byte, the same empty fields on every line,
+the usual output of a program) are joined and read by polars' multi-threaded CSV
+reader in one call; any other body by ``numpy.loadtxt``. Any file that does not parse
+cleanly is re-read line by line, only to name the line that is wrong.
 """
 
 from __future__ import annotations
@@ -18,9 +18,8 @@ from typing import Any
 import numpy as np
 
 from ..errors import SaxsFileError
-from ._numparse import _parse_group, parse_tokens, tokenize
 
-__all__ = ["RawFile", "split_file", "parse_bodies"]
+__all__ = ["RawFile", "split_file"]
 
 _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
@@ -29,8 +28,6 @@ _TOKSPLIT = re.compile(rb"[\s,;]+")
 _COMMENT = re.compile(rb"(?<![^\s,;])#[^\n]*")
 # bytes that are neither text nor the usual white space (tab, newline, carriage return)
 _CONTROL = re.compile(rb"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
-_CONTROL_TABLE = np.zeros(256, dtype=bool)
-_CONTROL_TABLE[[*range(0, 9), 11, 12, *range(14, 32), 127]] = True
 # a token that starts like a number and holds nothing but what numbers are made of
 _NUMBERLIKE = re.compile(rb"^[-+]?(?:\d|\.\d)[\w.+\-#]*$")
 _DIGIT_COMMA_DIGIT = re.compile(rb"\d,\d")
@@ -382,7 +379,8 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     # count before the data) is not the first row of data
     e2 = data.find(b"\n", end + 1)
     same = e2 > 0 and data[end + 1 : e2].translate(_DIGITS) == data[start:end].translate(_DIGITS)
-    counts = [] if same else _next_counts(data, end + 1, 2)  # a row laid out like the first: fine
+    # a row laid out like the first, or two plain rows of as many tokens: fine
+    counts = [] if same or _next_two_alike(data, end + 1, len(tokens)) else _next_counts(data, end + 1, 2)
     if len(counts) == 2 and counts[0] == counts[1] != len(tokens):
         raise SaxsFileError(
             f"this line holds {len(tokens)} numbers but the rows after it hold {counts[0]}: a summary "
@@ -413,6 +411,21 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     if t0 is not None:
         _trailer(raw, data, t0)
     return raw
+
+
+def _next_two_alike(data: bytes, pos: int, n_tokens: int) -> bool:
+    """Whether the next two lines after ``pos`` are plain (no ',', ';' or '#', not blank)
+    and hold ``n_tokens`` blank-separated tokens each: then :func:`_next_counts` cannot
+    find another count of numbers (a shortcut for rows of varying width)."""
+    for _ in range(2):
+        e = data.find(b"\n", pos)
+        line = data[pos : len(data) if e < 0 else e]
+        if b"," in line or b";" in line or b"#" in line or len(line.split()) != n_tokens:
+            return False
+        if e < 0:
+            return True
+        pos = e + 1
+    return True
 
 
 def _next_counts(data: bytes, pos: int, n: int) -> list[int]:
@@ -545,201 +558,3 @@ def _blank_gap(raw: RawFile, rows: np.ndarray) -> SaxsFileError | None:
                 line=int(rows[-1]),
             )
     return None
-
-
-def _newlines_after(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
-    """Number of newlines between each token and the next (or the end of ``a``)."""
-    nxt = np.empty_like(starts)
-    nxt[:-1] = starts[1:]
-    nxt[-1:] = a.size
-    gap = nxt - ends
-    # the usual separator is one byte: a newline or not
-    nlgap = (a[np.minimum(ends, a.size - 1)] == 10).view(np.int8).astype(np.int64)
-    nlgap[gap <= 0] = 0
-    long = np.flatnonzero(gap > 1)
-    if long.size:
-        nl = np.flatnonzero(a == 10)
-        nlgap[long] = np.searchsorted(nl, nxt[long]) - np.searchsorted(nl, ends[long])
-    return nlgap
-
-
-def _fixed_layout(raws: list[RawFile]) -> dict[bytes, list[int]]:
-    """Group files whose body is a whole number of lines as long as their first line, by
-    the byte layout of that line."""
-    groups: dict[bytes, list[int]] = {}
-    digits = bytes.maketrans(b"0123456789", b"0000000000")
-    for i, r in enumerate(raws):
-        body = r.body
-        first = bytes(body[:256])
-        L = first.find(b"\n") + 1
-        # the other lines are checked with the group's bytes (a mismatch sends the
-        # group to the token parser)
-        if L <= 1 or len(body) % L or body[-1] != 10:
-            continue
-        key = first[:L].translate(digits)
-        groups.setdefault(key, []).append(i)
-    return groups
-
-
-def _parse_merged(a: np.ndarray, t: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray | None:
-    """Rows of ``ntok`` equal, evenly spaced unsigned tokens (``"%.8e %.8e %.8e"``): view
-    the matrix as one token per row and parse all columns in one pass."""
-    ntok, L = starts.size, t.size
-    if ntok < 2 or L % ntok:
-        return None
-    step, s0, w = L // ntok, int(starts[0]), int(ends[0] - starts[0])
-    if (
-        not bool(np.all(ends - starts == w))
-        or not np.array_equal(starts, s0 + step * np.arange(ntok))
-        or s0 + w > step
-        or t[s0] in (43, 45)
-    ):
-        return None
-    lo = _template_bounds(t)[0].reshape(ntok, step)[:, s0 : s0 + w]
-    if not bool((lo == lo[0]).all()):  # the tokens differ in layout
-        return None
-    if not _matches_template(a, t):
-        return None
-    res = _parse_group(a.reshape(-1, step)[:, s0 : s0 + w], checked=True, src=(a, s0))
-    if res is None or not bool(res[1].all()):
-        return None
-    return res[0].reshape(-1, ntok)
-
-
-def _template_bounds(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Per byte of the template row: lowest allowed byte, width of the allowed range and
-    a bit to set first (exponent signs: '+' - 43 = 0 and '-' - 43 = 2, but ',' - 43 = 1)."""
-    digit = (t >= 48) & (t <= 57)
-    esign = np.zeros(t.size, dtype=bool)
-    esign[1:] = ((t[1:] == 43) | (t[1:] == 45)) & ((t[:-1] | 0x20) == 101)
-    lo = np.where(digit, 48, np.where(esign, 43, t)).astype(np.uint8)
-    span = np.where(digit, 9, np.where(esign, 2, 0)).astype(np.uint8)
-    orm = np.where(esign, 2, 0).astype(np.uint8)
-    return lo, span, orm
-
-
-def _matches_template(a: np.ndarray, t: np.ndarray) -> bool:
-    """Whether every row of the byte matrix ``a`` is laid out like ``t``: a digit where
-    ``t`` has a digit, '+' or '-' where ``t`` has an exponent sign, the same byte
-    elsewhere. One pass over the bytes, in cache-sized blocks of rows."""
-    lo, span, orm = _template_bounds(t)
-    esign = orm > 0
-    L = t.size
-    k = max(1, 4096 // L)  # rows per line of the blocks: long inner loops
-    full = a.shape[0] // k
-    blocks = a[: full * k].reshape(full, k * L)
-    lo_k, span_k, orm_k = np.tile(lo, k), np.tile(span, k), np.tile(orm, k)
-    use_or = bool(esign.any())
-    step = max(1, (1 << 18) // (k * L))  # 256 KiB of bytes at a time
-    scratch = np.empty((min(step, max(full, 1)), k * L), dtype=np.uint8)
-    for b in range(0, full, step):
-        part = blocks[b : b + step]
-        tmp = scratch[: part.shape[0]]
-        np.subtract(part, lo_k, out=tmp)
-        if use_or:
-            np.bitwise_or(tmp, orm_k, out=tmp)
-        if not bool(np.less_equal(tmp, span_k, out=tmp.view(bool)).all()):
-            return False
-    rest = a[full * k :]
-    return not rest.size or bool(((((rest - lo) | orm)) <= span).all())
-
-
-def _parse_fixed(template: bytes, bodies: list[bytes]) -> np.ndarray | None:
-    """Parse bodies made of rows laid out exactly like ``template``; None if not."""
-    L = len(template)
-    a = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(-1, L)
-    t = np.frombuffer(template, dtype=np.uint8)
-    starts, ends = tokenize(t)
-    merged = _parse_merged(a, t, starts, ends)
-    if merged is not None:
-        return merged
-    # every non-digit column must match the template, except signs and exponent letters
-    cols = []
-    out = []
-    for s, e in zip(starts, ends):
-        neg = None
-        if t[s] in (43, 45):  # leading sign in the template
-            col = a[:, s]
-            if not bool(((col == 43) | (col == 45)).all()):
-                return None
-            neg = col == 45
-            cols.append(s)
-            s += 1
-        elif s > 0 and t[s - 1] == 32:
-            col = a[:, s - 1]
-            if bool(((col == 45) | (col == 43)).any()):
-                if not bool(((col == 45) | (col == 43) | (col == 32)).all()):
-                    return None
-                neg = col == 45
-                cols.append(s - 1)
-        res = _parse_group(a[:, s:e])
-        if res is None:
-            return None
-        v, ok = res
-        if not bool(ok.all()):
-            return None
-        out.append(v if neg is None else np.where(neg, -v, v))
-        cols.extend(range(s, e))
-    other = np.setdiff1d(np.arange(L), np.array(cols, dtype=np.int64))
-    if other.size and not bool((a[:, other] == t[other]).all()):
-        return None
-    return np.stack(out, axis=1)
-
-
-def _columns(data: np.ndarray) -> np.ndarray:
-    """The same (rows, columns) values laid out column by column, so that each column
-    of a file is contiguous (stacking the files' columns into a series is then a copy)."""
-    return np.ascontiguousarray(data.T).T
-
-
-def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
-    """Numbers of each file body as ``(data (n_rows, n_cols), line_numbers)``."""
-    results: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(raws)
-    for key, idx in _fixed_layout(raws).items():
-        if len(tokenize(np.frombuffer(key, np.uint8))[0]) != raws[idx[0]].ncols:
-            continue
-        data = _parse_fixed(bytes(raws[idx[0]].body[: len(key)]), [raws[i].body for i in idx])
-        if data is None:
-            continue
-        data = _columns(data)
-        pos = 0
-        for i in idx:
-            n = len(raws[i].body) // len(key)
-            results[i] = (data[pos : pos + n], raws[i].first_line + np.arange(n))
-            pos += n
-    rest = [i for i, r in enumerate(results) if r is None]
-    if rest:
-        offsets = np.cumsum([0] + [len(raws[i].body) for i in rest])
-        buf = b"".join(raws[i].body for i in rest)
-        a = np.frombuffer(buf, dtype=np.uint8)
-        # control bytes (< 32 but not tab, newline or carriage return) would pass as separators
-        control = np.count_nonzero(a < 32) != np.count_nonzero(a == 10) and bool(_CONTROL_TABLE[a].any())
-        starts, ends = tokenize(a)
-        vals, bad = parse_tokens(buf, a, starts, ends)
-        nlgap = _newlines_after(a, starts, ends)
-        line = np.cumsum(nlgap) - nlgap  # newlines from the first token to each token
-        file_tok = np.searchsorted(starts, offsets)
-        for k, i in enumerate(rest):
-            raw = raws[i]
-            t0, t1 = file_tok[k], file_tok[k + 1]
-            nc = raw.ncols
-            n = t1 - t0
-            ctrl = control and bool(_CONTROL_TABLE[a[offsets[k] : offsets[k + 1]]].any())
-            if n == 0 or n % nc or ctrl or bad[t0:t1].any():
-                raise _line_errors(raw)
-            gaps = nlgap[t0:t1].reshape(-1, nc)
-            # every row on one line: no newline inside a row, at least one after it
-            if (nc > 1 and bool(gaps[:, :-1].any())) or not bool(gaps[:-1, -1].all()):
-                raise _line_errors(raw)
-            lead = buf.count(b"\n", int(offsets[k]), int(starts[t0]))
-            rows = raw.first_line + lead + (line[t0:t1:nc] - line[t0])
-            if not raw.comma and buf.find(b",", int(offsets[k]), int(offsets[k + 1])) >= 0:
-                raise _line_errors(raw)
-            if rows.size > 1 and rows[-1] - rows[-2] > 1:
-                err = _blank_gap(raw, rows)
-                if err is not None:
-                    raise err
-            if raw.cut_check >= 0:
-                _refuse_truncated(raw.path, raw.source, raw.cut_check)
-            results[i] = (_columns(vals[t0:t1].reshape(-1, nc)), rows)
-    return results  # type: ignore[return-value]

@@ -54,9 +54,18 @@ def _encoded(ds: xr.Dataset) -> xr.Dataset:
         attrs = encode_attrs(ds[name].attrs)
         if ATTR in attrs:
             raise SaxsFileError(f"variable {name!r} has an attr {ATTR!r}, which saxsnb reserves")
-        attrs[ATTR] = digest(ds[name].values)
+        attrs[ATTR] = digest(ds[name].data)  # a dask array: block by block
         out[name].attrs = attrs
         out[name].encoding = {}
+    if ds.chunks and ds.chunks.get("frame"):
+        # a dask-backed series is written chunked along frame, chunk by chunk
+        n = max(1, int(max(ds.chunks["frame"])))
+        for name in list(out.variables):
+            var = out[name]
+            if "frame" in var.dims and var.dtype.kind not in "OUS":
+                var.encoding = {
+                    "chunksizes": tuple(min(n, s) if d == "frame" else s for d, s in zip(var.dims, var.shape))
+                }
     out.attrs[_ATTRS_SUM] = text_digest(_attrs_record(out))
     return out
 
@@ -139,7 +148,8 @@ def _read(spath: str, chunks) -> xr.Dataset:
                     path=spath,
                 )
             if expected is not None:
-                verify(ds[name].values, expected, path=spath, where=f"variable {name!r}")
+                # lazily opened: verified block by block, never loaded whole
+                verify(ds[name].data, expected, path=spath, where=f"variable {name!r}")
         coords = ds.attrs.pop(_COORDS, None)
         if coords is not None:
             names = json.loads(coords)

@@ -37,14 +37,15 @@ from ..errors import SaxsFileError, SaxsInputError
 from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
 from ._assemble import Curve, build_series
 from ._atomic import atomic_folder
-from ._textparse import parse_bodies, split_file
+from ._bodies import parse_bodies
+from ._textparse import split_file
 
 __all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS", "MIN_Q_POINTS"]
 
 #: File extensions picked from a folder (when any such file exists).
 DATA_EXTENSIONS = (".dat", ".txt", ".csv", ".chi", ".xy")
-_BATCH = 128
-_THREADS = min(4, os.cpu_count() or 1) or 1
+_BATCH = 256
+_THREADS = min(2, os.cpu_count() or 1) or 1
 _PROGRESS_MIN = 500
 #: Fewest rows of data a curve may have: fewer q points are refused (no fit or
 #: comparison means anything on them; often a file cut short or a summary table).
@@ -213,7 +214,13 @@ def read_series(
         file's range become NaN and are masked), ``"log"`` onto a log-spaced grid over
         the common range with as many points as the longest file. Recorded in history.
     chunks : int or dict, optional
-        Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames).
+        Return a dask-backed Dataset, e.g. ``{"frame": 500}`` (an int means frames),
+        built lazily from blocks of that many files: every file is read once to check
+        it and take its metadata (all errors are raised then, naming file and line),
+        and a block's files are read again when the block is computed, so the text of
+        all files is never held at once; ``read_series(folder, chunks=500).saxs.save(
+        "series.zarr")`` converts a folder of any size to a store, block by block.
+        (With ``regrid`` the series is read whole, then chunked.)
     progress : bool, optional
         Show a progress bar; by default only for many files in an interactive terminal.
     time_from : str, optional
@@ -271,6 +278,18 @@ def read_series(
     if time_from is not None and not isinstance(time_from, str):
         raise SaxsInputError("time_from must be the name of a timestamp in the files", parameter="time_from")
     files = find_files(source)
+    frames = _lazy_frames(chunks, regrid)
+    if frames is not None:
+        from . import text as _self
+        from ._lazy import lazy_series
+
+        options = {"scan": scan, "pattern": pattern, "q_unit": q_unit, "time_from": time_from}
+        ds = lazy_series(_self, files, frames, progress=progress, **options)
+        ds = _record_read(
+            ds, source, scan=scan, pattern=pattern, q_unit=q_unit, regrid=regrid, time_from=time_from
+        )
+        rest = {k: v for k, v in chunks.items() if k != "frame"} if isinstance(chunks, Mapping) else {}
+        return ds.chunk(rest) if rest else ds
     curves = _curves(files, progress)
     if time_from is not None:
         _times(curves, time_from)
@@ -287,6 +306,19 @@ def read_series(
     if chunks is not None:
         ds = ds.chunk({"frame": int(chunks)} if isinstance(chunks, int) else dict(chunks))
     return ds
+
+
+def _lazy_frames(chunks, regrid) -> int | None:
+    """Frames per block of a lazy read, or None for an eager read (then chunked)."""
+    if chunks is None or regrid is not None:
+        return None
+    if isinstance(chunks, Mapping):
+        n = chunks.get("frame")
+        return None if n is None or n == -1 or isinstance(n, (tuple, str)) else int(n)
+    if isinstance(chunks, bool) or not isinstance(chunks, (int, np.integer)):
+        raise SaxsInputError("chunks must be a number of frames or a dict such as {'frame': 500}",
+                             parameter="chunks")
+    return int(chunks)
 
 
 def _timestamp(text: str) -> datetime | None:
