@@ -21,6 +21,10 @@ def __getattr__(name):
         from . import io
 
         return getattr(io, name)
+    if name == "cluster":
+        from ._cluster import cluster
+
+        return cluster
     if name == "explore":
         from .widgets import explore
 
@@ -52,6 +56,7 @@ __all__ = [
     "write_text_series",
     "read_cansas_xml",
     "explore",
+    "cluster",
     "demo",
     "analysis",
     "InputError",

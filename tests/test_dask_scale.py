@@ -205,3 +205,21 @@ def test_errors_raise_names_the_frame_on_dask(spheres):
     bad["intensity"][5] = np.nan
     with pytest.raises(SaxsFitError, match="frame 5"):
         bad.chunk({"frame": 4}).saxs.guinier((0.05, 0.3), errors="raise")
+
+
+# ------------------------------------------------------------------ the cluster helper
+@pytest.mark.slow
+def test_cluster_workers_keep_the_default_malloc_policy_and_agree(spheres):
+    pytest.importorskip("distributed")
+    import os
+
+    def env():
+        return os.environ.get("MALLOC_TRIM_THRESHOLD_")
+
+    ref = spheres.saxs.guinier()
+    client = saxsnb.cluster(1, memory_limit="1GB")
+    try:
+        assert client.submit(env, pure=False).result() is None  # glibc's own policy (mallopt(3))
+        assert_same(ref, spheres.chunk({"frame": 5}).saxs.guinier().compute(), "guinier on a cluster")
+    finally:
+        client.close()
