@@ -115,6 +115,7 @@ METHODS = {
     # the reference and background are small in-memory series (one frame)
     "absolute_scale": lambda ds: ds.saxs.absolute_scale(_ONE, kind="curve", known=np.ones(ds.sizes["q"])),
     "subtract": lambda ds: ds.saxs.subtract(_ONE, scale=0.5),
+    "subtract_auto": lambda ds: ds.saxs.subtract(_ONE, scale="auto"),
     "to_q_unit": lambda ds: ds.saxs.to_q_unit("1/A"),
     "rescale_q": lambda ds: ds.saxs.rescale_q(1.01),
 }
@@ -135,6 +136,17 @@ def test_method_lazy_and_equal_in_memory(spheres, name, chunk):
         out = res.compute()
     assert c.n == 1
     assert_same(ref, out, name)
+
+
+def test_subtract_auto_error_names_the_series_frame_on_dask(spheres):
+    from saxsnb.errors import SaxsInputError
+
+    bad = spheres.copy(deep=True)
+    bad["intensity"][6] = np.nan
+    lazy = bad.chunk({"frame": 4}).saxs.subtract(_ONE, scale="auto")  # lazy: raised when computed
+    with pytest.raises(SaxsInputError, match="frame 6 ") as err:
+        lazy.compute()
+    assert err.value.frame == 6  # not 2, its position in the chunk
 
 
 def test_chunked_along_q_too(spheres):
