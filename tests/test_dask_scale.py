@@ -94,6 +94,16 @@ def test_tracking_order_and_overrides_on_dask(ramp):
     assert str(ref.status.values[3]) == "override"
 
 
+def test_bad_override_raises_at_the_call_on_dask(ramp):
+    from saxsnb.errors import SaxsInputError
+
+    lazy = ramp.chunk({"frame": 16})
+    with pytest.raises(SaxsInputError, match="override frame 99"):
+        lazy.saxs.index_phases(overrides={99: {"phase": "Pn3m"}})
+    with pytest.raises(SaxsInputError, match="phase name"):
+        lazy.saxs.index_phases(overrides={1: {"phase": "cubic"}})
+
+
 # --------------------------------------------------------------- every other method
 _ONE = saxsnb.demo.make_series("flow-growth", seed=4)[1].isel(frame=[0])
 

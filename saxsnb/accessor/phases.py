@@ -176,6 +176,8 @@ class PhaseMethods(AccessorBase):
             return _index(pos, sig, fwhm, prom, peak_status=status, order=order, **kw)
 
         F, P = pk["position"].shape
+        if overrides and pk["position"].chunks is not None:
+            _check_overrides(overrides, F)  # now, not when the lazy result is computed
         slots = 1 if int(max_phases) == 1 else 2
         shapes = {"slot": slots, "peak": P}
         outputs = {k: ((F, *(shapes[d] for d in dims)), _PHASE_DTYPES.get(k, float))
@@ -284,6 +286,21 @@ class PhaseMethods(AccessorBase):
         return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step,
                                 caveats=json.loads(pm.attrs.get("caveats", "{}")))
 
+
+
+def _check_overrides(overrides, n_frames: int) -> None:
+    """The checks of the indexing's overrides (frame in range, known phase), made up front."""
+    from ..analysis._reflections import PHASES
+
+    for frame, choice in overrides.items():
+        f = int(frame)
+        if not 0 <= f < n_frames:
+            raise SaxsInputError(f"override frame {f} outside 0..{n_frames - 1}", parameter="overrides",
+                                 frame=f)
+        phase = str(dict(choice).get("phase", ""))
+        if phase not in PHASES:
+            raise SaxsInputError(f"an override needs a phase name out of {list(PHASES)}, got {phase!r}",
+                                 parameter="overrides", frame=f)
 
 
 def _caveat_summary(idx) -> dict:
