@@ -134,7 +134,8 @@ def test_blocks_equal_whole_and_temporaries_stay_below_the_input(rng, monkeypatc
     q = np.linspace(0.02, 4.0, n)
     rg = np.linspace(1.5, 3.0, F)
     I = np.exp(-np.outer(rg, q) ** 2 / 3) * (1 + 0.01 * rng.standard_normal((F, n)))
-    whole = kratky_summary(q, I, rg=rg, i0=np.ones(F))  # 3e5 points: more than one block
+    monkeypatch.setattr(mod, "BLOCK_POINTS", F * n)  # one block
+    whole = kratky_summary(q, I, rg=rg, i0=np.ones(F))
     monkeypatch.setattr(mod, "BLOCK_POINTS", 10 * n)  # blocks of 10 frames
     tracemalloc.start()
     blocked = kratky_summary(q, I, rg=rg, i0=np.ones(F))
