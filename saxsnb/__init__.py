@@ -22,6 +22,10 @@ def __getattr__(name):
         from . import io
 
         return getattr(io, name)
+    if name == "cluster":
+        from ._cluster import cluster
+
+        return cluster
     if name == "explore":
         from .widgets import explore
 
@@ -53,6 +57,7 @@ __all__ = [
     "write_text_series",
     "read_cansas_xml",
     "explore",
+    "cluster",
     "demo",
     "analysis",
     "InputError",

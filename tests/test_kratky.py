@@ -122,3 +122,25 @@ def test_no_peak_reported_for_noisy_gaussian_chains():
                 assert frac <= want, (noise, frac)
             else:
                 assert frac >= want, (noise, frac)
+
+
+def test_blocks_equal_whole_and_temporaries_stay_below_the_input(rng, monkeypatch):
+    # issue 13: the summary works on blocks of frames; the result must not depend on them
+    import tracemalloc
+
+    import saxsnb.analysis._kratky as mod
+
+    F, n = 300, 1000
+    q = np.linspace(0.02, 4.0, n)
+    rg = np.linspace(1.5, 3.0, F)
+    I = np.exp(-np.outer(rg, q) ** 2 / 3) * (1 + 0.01 * rng.standard_normal((F, n)))
+    monkeypatch.setattr(mod, "BLOCK_POINTS", F * n)  # one block
+    whole = kratky_summary(q, I, rg=rg, i0=np.ones(F))
+    monkeypatch.setattr(mod, "BLOCK_POINTS", 10 * n)  # blocks of 10 frames
+    tracemalloc.start()
+    blocked = kratky_summary(q, I, rg=rg, i0=np.ones(F))
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    for k in whole:
+        np.testing.assert_array_equal(blocked[k], whole[k], err_msg=k)
+    assert peak < 0.5 * I.nbytes  # ~14 working arrays of 10 frames, not of 300

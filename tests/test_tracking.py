@@ -81,3 +81,22 @@ def test_track_invariants(pos, sig):
             gate = max(5 * np.hypot(sig, sig), 0.5 * 0.02)
             assert abs(pos[t, j] - pos[t - 1, i]) <= gate + 1e-12
             assert track[t, j] == track[t - 1, i]
+
+
+def test_blocks_of_frame_pairs_equal_one_block(rng, monkeypatch):
+    # issue 13: links are matched in blocks of frame pairs (bounded memory on 1e5 frames);
+    # a link depends on its two frames only, so the blocks must not change any track
+    import saxsnb.analysis._tracking as mod
+
+    F, P = 400, 6
+    base = np.sort(rng.uniform(0.5, 3.0, P))
+    pos = base + 0.002 * rng.standard_normal((F, P)).cumsum(0) * 0.1
+    pos[rng.random((F, P)) < 0.05] = np.nan  # missing peaks split tracks
+    sig, wid = np.full(pos.shape, 0.002), np.full(pos.shape, 0.02)
+    labels = np.where(np.arange(F)[:, None] < 200, "a", "b") + np.zeros((F, P), dtype="<U1")
+    one = link_peaks(pos, sig, wid, labels=labels)
+    monkeypatch.setattr(mod, "BLOCK_PAIRS", 7 * P * P)  # blocks of 7 pairs
+    blocked = link_peaks(pos, sig, wid, labels=labels)
+    np.testing.assert_array_equal(blocked[0], one[0])
+    np.testing.assert_array_equal(blocked[1], one[1])
+    assert one[0].max() > P  # splits happened: the check is not trivial

@@ -29,7 +29,25 @@ from ..analysis._status import STATUS_DTYPE, parameter_of
 from ..errors import SaxsFitError, SaxsInputError
 from ..series import add_history, main_scan, scan_coords
 
-__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs"]
+__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask"]
+
+
+def is_dask(data) -> bool:
+    """True for a dask array (or a DataArray backed by one)."""
+    data = getattr(data, "data", data) if isinstance(data, xr.DataArray) else data
+    return hasattr(data, "dask") and hasattr(data, "chunks") and not isinstance(data, np.ndarray)
+
+
+def order_along(values, n_frames: int) -> np.ndarray:
+    """Stable frame order along ``values`` (NaN last); frame order when None or not numeric.
+
+    >>> order_along(np.array([2.0, np.nan, 1.0]), 3).tolist()
+    [2, 0, 1]
+    """
+    if values is None or np.asarray(values).dtype.kind not in "fiu":
+        return np.arange(n_frames)
+    v = np.asarray(values)
+    return np.argsort(np.where(np.isfinite(v), v, np.inf), kind="stable")
 
 
 class OutputSpec:
@@ -210,14 +228,16 @@ class AccessorBase:
         The values are read from the series itself: results share its frame axis, and
         a result variable may carry the scan coordinate's name.
         """
+        v = self._scan_source(ds, name)
+        return order_along(None if v is None else np.asarray(v), ds.sizes["frame"])
+
+    def _scan_source(self, ds: xr.Dataset, name: str | None = None):
+        """The values (numpy or dask, not computed) that :meth:`_scan_order` sorts by, or None."""
         src = self._ds if self._ds.sizes["frame"] == ds.sizes["frame"] else ds
         name = self._scan_name(name)
         if name not in src.coords:
-            return np.arange(ds.sizes["frame"])
-        v = src[name].values
-        if v.dtype.kind not in "fiu":
-            return np.arange(ds.sizes["frame"])
-        return np.argsort(np.where(np.isfinite(v), v, np.inf), kind="stable")
+            return None
+        return src[name].variable.data
 
     def _frame_coords(self, out: xr.Dataset) -> xr.Dataset:
         """Attach the series' frame and scan coordinates to a result on ``frame``."""
@@ -241,6 +261,60 @@ class AccessorBase:
         else:
             out = self._frame_coords(out)
         out.attrs = result_attrs(self._ds, operation, parameters, after)
+        return out
+
+    # ------------------------------------------- one step over the whole frame axis
+    @staticmethod
+    def _across_frames(func: Callable[..., Mapping[str, np.ndarray]], arrays, outputs: Mapping[str, tuple],
+                       frame_chunks=None, **kwargs) -> dict:
+        """``func(*arrays, **kwargs)``, a step that needs every frame at once (linking
+        peaks, the scan prior of indexing), on per-frame summaries.
+
+        In memory: called directly. When any of ``arrays`` is dask-backed: one dask task
+        on a worker (its inputs, e.g. a (frame, peak) table, are gathered there, never in
+        the client), and every output a lazy dask array cut into ``frame_chunks``.
+        ``outputs``: ``name -> (shape, dtype)`` of each returned array, frame first (the
+        dtype of a string output is metadata only: the computed array keeps its width).
+        Returns ``name -> array`` (numpy or dask).
+        """
+        data = [a.data if isinstance(a, xr.DataArray) else a for a in arrays]
+        if not any(is_dask(d) for d in data):
+            return dict(func(*[None if d is None else np.asarray(d) for d in data], **kwargs))
+        import dask.array as da
+
+        # one generalised ufunc whose core dims include "frame": dask gives the task every
+        # frame (rechunked to one block), and the outputs share one task (no duplicate
+        # computation, unlike a delayed call on the arrays, whose graphs are optimised apart)
+        given = [i for i, d in enumerate(data) if d is not None]
+        names = list(outputs)
+        letters = iter("abcdeghijklmnopqrstuvwxyz")
+        sizes: dict[int, str] = {}
+
+        def dims(shape):
+            return "(" + ",".join("f" if i == 0 else sizes.setdefault(n, next(letters))
+                                  for i, n in enumerate(shape)) + ")"
+
+        sig_in = ",".join(dims(np.shape(data[i])) for i in given)
+        sig_out = ",".join(dims(outputs[n][0]) for n in names)
+        output_sizes = {v: k for k, v in sizes.items()}
+
+        def run(*given_data):
+            full = [None] * len(data)
+            for i, d in zip(given, given_data):
+                full[i] = d
+            res = func(*full, **kwargs)
+            out = tuple(np.asarray(res[n]) for n in names)
+            return out if len(out) > 1 else out[0]
+
+        res = da.apply_gufunc(run, f"{sig_in}->{sig_out}",
+                              *[data[i] for i in given], output_dtypes=[outputs[n][1] for n in names],
+                              output_sizes=output_sizes, allow_rechunk=True, vectorize=False)
+        res = res if len(names) > 1 else (res,)
+        out = {}
+        for name, arr in zip(names, res):
+            if frame_chunks is not None:
+                arr = arr.rechunk({0: frame_chunks})
+            out[name] = arr
         return out
 
     # -------------------------------------------------- mapping over frames

@@ -7,10 +7,20 @@ import json
 import numpy as np
 import xarray as xr
 
+from ..analysis._status import STATUS_DTYPE
 from ..errors import SaxsInputError
-from ._core import AccessorBase, OutputSpec
+from ._core import AccessorBase, OutputSpec, order_along
 
 __all__ = ["PhaseMethods"]
+
+#: dtypes of the non-float outputs of index_phases (string widths are metadata only on
+#: a lazy result: the computed arrays keep their own width)
+_PHASE_DTYPES = {
+    "phase": np.dtype("<U12"), "hkl": np.dtype("<U8"), "peak_phase": np.dtype("<U12"),
+    "track": np.dtype(np.int64), "alternative": np.dtype(str), "status": np.dtype(STATUS_DTYPE),
+    "caveat": np.dtype(str), "n_unexplained": np.dtype(np.int64), "n_broad": np.dtype(np.int64),
+    "n_rejected": np.dtype(np.int64), "rejected": np.dtype(str),
+}
 
 
 class PhaseMethods(AccessorBase):
@@ -47,10 +57,11 @@ class PhaseMethods(AccessorBase):
 
         Notes
         -----
-        Finding and fitting run per frame chunk through ``_map_frames`` (lazy on a
-        dask series). Tracking needs the whole frame axis: the (small) peak table is
-        computed first, then linked in memory; with ``track=False`` the result stays
-        lazy.
+        Finding and fitting run per frame chunk (``xarray.apply_ufunc``; on a dask
+        series, on the workers). Tracking needs the whole frame axis: it runs on the
+        (frame, peak) table only, as one task (on a dask series a lazy task on a worker,
+        so the client never holds the curves nor the table). The result stays lazy on
+        a dask series; ``persist()`` it when several steps read it.
 
         Examples
         --------
@@ -83,10 +94,14 @@ class PhaseMethods(AccessorBase):
         out.attrs.update(q_min=float(max(lo, q.min())), q_max=float(min(hi, q.max())), profile=profile)
         if not track:
             return out
-        out = out.compute()
         out.attrs["order_by"] = self._scan_name(order_by)
-        trk = track_peaks(*(out[v].values for v in ("position", "position_sigma", "fwhm")),
-                          order=self._scan_order(out, order_by))
+        pos = out["position"]
+        n = pos.shape[0]
+        trk = self._across_frames(
+            lambda p, s, w, x: {"track": track_peaks(p, s, w, order=order_along(x, n))},
+            [*(out[v] for v in ("position", "position_sigma", "fwhm")), self._scan_source(out, order_by)],
+            {"track": (pos.shape, np.int64)}, frame_chunks=pos.chunks[0] if pos.chunks else None,
+        )["track"]
         return out.assign(track=(("frame", "peak"), trk, {"units": "1", "long_name": "track number"}))
 
     def index_phases(
@@ -148,22 +163,34 @@ class PhaseMethods(AccessorBase):
         pk = self.find_peaks() if peaks is None else peaks
         if "position" not in pk.data_vars or "peak" not in pk.dims:
             raise SaxsInputError("peaks must be the Dataset of ds.saxs.find_peaks()", parameter="peaks")
-        pk = pk.compute()
         order_by = order_by or pk.attrs.get("order_by")
         params = dict(phases=tuple(phases), max_phases=int(max_phases), tolerance=float(tolerance),
                       use_scan_prior=bool(use_scan_prior), prior_weight=float(prior_weight),
                       max_relative_width=float(max_relative_width))
-        get = lambda v: pk[v].values if v in pk.data_vars else None  # noqa: E731
-        res = _index(get("position"), get("position_sigma"), get("fwhm"), get("prominence"),
-                     peak_status=get("status"), order=self._scan_order(pk, order_by),
-                     q_min=pk.attrs.get("q_min"), q_step=self._q_step(), overrides=overrides, **params)
+        names = ("position", "position_sigma", "fwhm", "prominence", "status")
+        arrays = [pk[v] if v in pk.data_vars else None for v in names] + [self._scan_source(pk, order_by)]
+        options = dict(q_min=pk.attrs.get("q_min"), q_step=self._q_step(), overrides=overrides, **params)
+
+        def run(pos, sig, fwhm, prom, status, scan, **kw):
+            order = order_along(scan, pos.shape[0])
+            return _index(pos, sig, fwhm, prom, peak_status=status, order=order, **kw)
+
+        F, P = pk["position"].shape
+        if overrides and pk["position"].chunks is not None:
+            _check_overrides(overrides, F)  # now, not when the lazy result is computed
+        slots = 1 if int(max_phases) == 1 else 2
+        shapes = {"slot": slots, "peak": P}
+        outputs = {k: ((F, *(shapes[d] for d in dims)), _PHASE_DTYPES.get(k, float))
+                   for k, (dims, _) in PHASE_OUTPUTS.items()}
+        chunks = pk["position"].chunks
+        res = self._across_frames(run, arrays, outputs, frame_chunks=chunks[0] if chunks else None, **options)
         if overrides:
             params["overrides"] = {str(int(k)): dict(v) for k, v in sorted(overrides.items())}
         data = {k: (("frame", *PHASE_OUTPUTS[k][0]), v,
                     {"units": PHASE_OUTPUTS[k][1]} if PHASE_OUTPUTS[k][1] else {})
                 for k, v in res.items()}
         data["position"] = pk["position"].reset_coords(drop=True)
-        out = self._result(data, "index_phases", params, coords={"slot": np.arange(res["phase"].shape[1])},
+        out = self._result(data, "index_phases", params, coords={"slot": np.arange(slots)},
                            like=pk, after=pk)
         out["lattice"].attrs["long_name"] = "d-spacing (lamellar) or cell edge a"
         out.attrs["scan"] = self._scan_name()
@@ -259,6 +286,21 @@ class PhaseMethods(AccessorBase):
         return phase_map_report(res, scan=scan, units=pm.attrs.get("scan_units", ""), step=step,
                                 caveats=json.loads(pm.attrs.get("caveats", "{}")))
 
+
+
+def _check_overrides(overrides, n_frames: int) -> None:
+    """The checks of the indexing's overrides (frame in range, known phase), made up front."""
+    from ..analysis._reflections import PHASES
+
+    for frame, choice in overrides.items():
+        f = int(frame)
+        if not 0 <= f < n_frames:
+            raise SaxsInputError(f"override frame {f} outside 0..{n_frames - 1}", parameter="overrides",
+                                 frame=f)
+        phase = str(dict(choice).get("phase", ""))
+        if phase not in PHASES:
+            raise SaxsInputError(f"an override needs a phase name out of {list(PHASES)}, got {phase!r}",
+                                 parameter="overrides", frame=f)
 
 
 def _caveat_summary(idx) -> dict:

@@ -322,12 +322,31 @@ class SeriesMethods(AccessorBase):
                 qv = ds["q"].values
                 scale_q_range = (float(qv.min() + 0.75 * (qv.max() - qv.min())), float(qv.max()))
             Im, Sm = self.masked()
-            fit = fit_scale(ds["q"].values, (Im / norm).values, (Sm / norm).values,
-                            bI if dims == ("frame", "q") else bI[0], bS if dims == ("frame", "q") else bS[0],
-                            q_range=scale_q_range)
-            k = xr.DataArray(fit["scale"], dims="frame")
-            extra["background_scale"] = ("frame", fit["scale"], {"units": "1"})
-            extra["background_scale_sigma"] = ("frame", fit["scale_sigma"], {"units": "1"})
+            if Im.chunks is not None:
+                Im, Sm = Im.chunk({"q": -1}), Sm.chunk({"q": -1})
+            qv, rng_ = ds["q"].values, scale_q_range
+            frames = xr.DataArray(np.arange(n), dims="frame")
+
+            def _fit(I_, S_, B_, BS_, pos_):
+                try:
+                    r = fit_scale(qv, I_, S_, B_, BS_, q_range=rng_)
+                except SaxsInputError as exc:  # frame numbers of the whole series, not of a chunk
+                    if exc.frame is None:
+                        raise
+                    f = int(np.asarray(pos_)[exc.frame])
+                    raise SaxsInputError(str(exc.args[0]).replace(f"frame {exc.frame} ", f"frame {f} ", 1),
+                                         parameter=exc.parameter, frame=f) from None
+                return r["scale"], r["scale_sigma"]
+
+            # per frame (a dask series: per chunk on the workers, lazy)
+            k, k_sigma = xr.apply_ufunc(
+                _fit, (Im / norm).reset_coords(drop=True), (Sm / norm).reset_coords(drop=True), bIa, bSa,
+                frames, input_core_dims=[["q"]] * 4 + [[]], output_core_dims=[[], []],
+                dask="parallelized", output_dtypes=[float, float],
+            )
+            k, k_sigma = k.drop_vars("frame", errors="ignore"), k_sigma.drop_vars("frame", errors="ignore")
+            extra["background_scale"] = k.assign_attrs(units="1")
+            extra["background_scale_sigma"] = k_sigma.assign_attrs(units="1")
             scale_arg = k
         elif isinstance(scale, str):
             raise SaxsInputError(f"scale must be a number or 'auto', got {scale!r}", parameter="scale")

@@ -143,6 +143,28 @@ def kratky_summary(
     F, n = I.shape
     rg_ = np.broadcast_to(np.asarray(rg, dtype=float), (F,))
     i0_ = np.broadcast_to(np.asarray(i0, dtype=float), (F,))
+    options = dict(peak_window=peak_window, half_width=half_width, bands=bands, bell_level=bell_level,
+                   rise_trend=rise_trend, fall_trend=fall_trend, peak_z=peak_z)
+    # blocks of frames (not frames): the working arrays of one block stay a few MB, so
+    # the temporaries are a fraction of a dask chunk instead of ~14 times the input
+    step = max(1, BLOCK_POINTS // max(n, 1))
+    if F <= step:
+        return _summary_rows(q, I, rg_, i0_, **options)
+    parts = [_summary_rows(q, I[a:a + step], rg_[a:a + step], i0_[a:a + step], **options)
+             for a in range(0, F, step)]
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+
+
+#: Points (frames x q) of the block :func:`kratky_summary` works on at once (about
+#: 14 float64 working arrays of this size: 2**15 points -> ~4 MB; smaller blocks
+#: measured no slower at 1,000 q).
+BLOCK_POINTS = 2**15
+
+
+def _summary_rows(q, I, rg_, i0_, *, peak_window, half_width, bands, bell_level, rise_trend, fall_trend,
+                  peak_z) -> dict:
+    """:func:`kratky_summary` on one block of frames (inputs checked and broadcast)."""
+    F, n = I.shape
     K = kratky(q, I, rg=rg_, i0=i0_)
     x = q[None, :] * rg_[:, None]
     finite = np.isfinite(K) & np.isfinite(x)

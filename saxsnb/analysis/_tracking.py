@@ -91,38 +91,20 @@ def link_peaks(
     wid = np.where(np.isfinite(wid), wid, 0.0)
     prev = np.full((F, P), -1, dtype=np.int64)
     if F > 1 and P > 0:
-        qa, qb = q[:-1, :, None], q[1:, None, :]
-        gate = np.maximum(
-            n_sigma * np.hypot(sig[:-1, :, None], sig[1:, None, :]),
-            width_fraction * np.maximum(wid[:-1, :, None], wid[1:, None, :]),
-        )
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cost = np.abs(qb - qa) / gate
-        allowed = ok[:-1, :, None] & ok[1:, None, :] & (cost <= 1.0) & (gate > 0)
+        code = None
         if labels is not None:
             lab = np.asarray(labels)
             if lab.shape != q.shape:
                 raise SaxsInputError("labels must have the shape of position", parameter="labels")
             code = np.unique(lab.ravel(), return_inverse=True)[1].reshape(lab.shape)  # ints compare fast
-            allowed &= code[:-1, :, None] == code[1:, None, :]
-        cost = np.where(allowed, cost, np.inf)
-        free_a = np.ones((F - 1, P), dtype=bool)
-        free_b = np.ones((F - 1, P), dtype=bool)
-        link = np.full((F - 1, P), -1, dtype=np.int64)  # for peak j of frame t+1: peak of frame t
-        ar = np.arange(P)
-        for _ in range(max(int(max_rounds), 1)):
-            c = np.where(free_a[:, :, None] & free_b[:, None, :], cost, np.inf)
-            best_b = np.argmin(c, axis=2)  # for each a, its cheapest b
-            best_a = np.argmin(c, axis=1)  # for each b, its cheapest a
-            fin = np.isfinite(np.take_along_axis(c, best_a[:, None, :], 1)[:, 0, :])
-            mutual = fin & (np.take_along_axis(best_b, best_a, 1) == ar[None, :])
-            if not mutual.any():
-                break
-            link = np.where(mutual, best_a, link)
-            t_idx, b_idx = np.nonzero(mutual)
-            free_b[t_idx, b_idx] = False
-            free_a[t_idx, best_a[t_idx, b_idx]] = False
-        prev[1:] = link
+        # frame pairs in blocks (a link depends on its two frames only): the (pairs, P, P)
+        # cost arrays of one block stay a few MB however long the series
+        step = max(1, BLOCK_PAIRS // (P * P))
+        for a in range(0, F - 1, step):
+            b = min(a + step, F - 1) + 1  # frames a .. b-1, pairs a .. b-2
+            prev[a + 1:b] = _link_pairs(q[a:b], ok[a:b], sig[a:b], wid[a:b],
+                                        None if code is None else code[a:b],
+                                        n_sigma, width_fraction, max_rounds)
     # pointer jumping: root of every chain
     flat = np.arange(F * P).reshape(F, P)
     parent = flat.copy()
@@ -140,6 +122,44 @@ def link_peaks(
     number[order] = np.arange(order.size)
     track = np.where(ok, number[roots.ravel()].reshape(F, P), -1)
     return track, prev
+
+
+#: Frame pairs x peaks^2 of the block :func:`link_peaks` matches at once (about ten
+#: arrays of this many elements: 2**18 -> ~20 MB).
+BLOCK_PAIRS = 2**18
+
+
+def _link_pairs(q, ok, sig, wid, code, n_sigma, width_fraction, max_rounds):
+    """For frames 1.. of the block: the linked peak of the previous frame (-1 none)."""
+    F, P = q.shape
+    qa, qb = q[:-1, :, None], q[1:, None, :]
+    gate = np.maximum(
+        n_sigma * np.hypot(sig[:-1, :, None], sig[1:, None, :]),
+        width_fraction * np.maximum(wid[:-1, :, None], wid[1:, None, :]),
+    )
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cost = np.abs(qb - qa) / gate
+    allowed = ok[:-1, :, None] & ok[1:, None, :] & (cost <= 1.0) & (gate > 0)
+    if code is not None:
+        allowed &= code[:-1, :, None] == code[1:, None, :]
+    cost = np.where(allowed, cost, np.inf)
+    free_a = np.ones((F - 1, P), dtype=bool)
+    free_b = np.ones((F - 1, P), dtype=bool)
+    link = np.full((F - 1, P), -1, dtype=np.int64)  # for peak j of frame t+1: peak of frame t
+    ar = np.arange(P)
+    for _ in range(max(int(max_rounds), 1)):
+        c = np.where(free_a[:, :, None] & free_b[:, None, :], cost, np.inf)
+        best_b = np.argmin(c, axis=2)  # for each a, its cheapest b
+        best_a = np.argmin(c, axis=1)  # for each b, its cheapest a
+        fin = np.isfinite(np.take_along_axis(c, best_a[:, None, :], 1)[:, 0, :])
+        mutual = fin & (np.take_along_axis(best_b, best_a, 1) == ar[None, :])
+        if not mutual.any():
+            break
+        link = np.where(mutual, best_a, link)
+        t_idx, b_idx = np.nonzero(mutual)
+        free_b[t_idx, b_idx] = False
+        free_a[t_idx, best_a[t_idx, b_idx]] = False
+    return link
 
 
 def track_peaks(position, position_sigma=None, fwhm=None, *, order=None, labels=None, **options):
