@@ -104,8 +104,11 @@ def test_q_range_excludes_peaks_outside(rng):
     res = find_peaks(Q, I, S, q_range=(1.0, 2.0))
     assert res["n_peaks"].tolist() == [2, 2]
     assert np.all((res["position"][:, :2] > 1.0) & (res["position"][:, :2] < 2.0))
+    # issue 15: a q range without enough points is a status per frame, an error only on request
+    assert find_peaks(Q, I, S, q_range=(6.0, 7.0))["status"].tolist() == ["range_outside_data"] * 2
+    assert find_peaks(Q, I, S, q_range=(1.0, 1.02))["status"].tolist() == ["too_few_points"] * 2
     with pytest.raises(SaxsInputError, match="q_range"):
-        find_peaks(Q, I, S, q_range=(6.0, 7.0))
+        find_peaks(Q, I, S, q_range=(6.0, 7.0), errors="raise")
     with pytest.raises(SaxsInputError, match="profile"):
         find_peaks(Q, I, S, profile="triangle")
 
