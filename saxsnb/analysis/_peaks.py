@@ -5,9 +5,9 @@ the baseline is a morphological filter applied along q for all frames together,
 detection (local maxima by prominence, shoulders from the second derivative) uses
 array operations (no per-frame ``scipy.signal.find_peaks`` loop), and all peaks of
 all frames are fitted together by one vectorised Levenberg-Marquardt iteration on a
-padded ``(n_peaks_total, window)`` array; overlapping peaks are then refined by two
-backfitting rounds. Large series are processed in blocks of frames (a loop over
-blocks, not frames).
+padded ``(n_peaks_total, window)`` array, each peak stopping when converged;
+overlapping peaks are then refined by two backfitting rounds. Large series are
+processed in blocks of frames (a loop over blocks, not frames).
 """
 
 from __future__ import annotations
