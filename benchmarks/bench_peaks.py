@@ -105,7 +105,7 @@ def ours_analysis(q, I, S, profile):
     from saxsnb.analysis import find_peaks
 
     t0, c0 = time.perf_counter(), time.process_time()
-    res = find_peaks(q, I, S, profile=profile)
+    res = find_peaks(q, I, S, profile=profile, iterations=True)
     return res, time.perf_counter() - t0, time.process_time() - c0
 
 

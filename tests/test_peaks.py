@@ -268,7 +268,7 @@ def test_iterations_per_peak_are_reported_and_few():
     for profile, most in (("gaussian", 8), ("pseudo_voigt", 14)):
         it = fit_peaks(*inputs, profile=profile)["n_iterations"]
         assert np.nanmedian(it) <= most and np.nanmax(it) < 50
-    r = find_peaks(inputs[0], *_series(np.random.default_rng(3), 2)[1:])
+    r = find_peaks(inputs[0], *_series(np.random.default_rng(3), 2)[1:], iterations=True)
     assert np.all(r["n_iterations"][np.isfinite(r["position"])] >= 1)
 
 

@@ -356,6 +356,7 @@ def find_peaks(
     block: int = 512,
     track: bool = True,
     order=None,
+    iterations: bool = False,
 ):
     """Find, fit and track the Bragg peaks of every frame.
 
@@ -384,13 +385,16 @@ def find_peaks(
         Link the peaks of consecutive frames into tracks
         (:func:`~saxsnb.analysis._tracking.track_peaks`), in the frame order ``order``
         (an index array, e.g. ``np.argsort(temperature)``; default as given).
+    iterations : bool
+        Also return ``n_iterations``, the Levenberg-Marquardt iterations of each peak
+        (all passes: Gaussian first pass, pseudo-Voigt, backfitting).
 
     Returns
     -------
     dict of arrays: per (frame, peak) ``position``, ``position_sigma``, ``fwhm``,
     ``fwhm_sigma``, ``height``, ``height_sigma``, ``area``, ``area_sigma``,
-    ``prominence`` (in noise units), ``eta``, ``chi2_reduced``, ``n_iterations``
-    (Levenberg-Marquardt iterations of the peak, all passes), sorted by position and
+    ``prominence`` (in noise units), ``eta``, ``chi2_reduced`` (and ``n_iterations``
+    when asked), sorted by position and
     NaN padded to ``max_peaks``; per frame ``n_peaks`` (int) and ``status``
     ("ok", "no_peaks", "no_data" (also for a curve of fewer than 12 q points),
     "too_few_points" (``q_range`` leaves fewer than 12 points), "range_outside_data"
@@ -418,7 +422,7 @@ def find_peaks(
         res = find_peaks(q, intensity, sigma, q_range=q_range, min_prominence=min_prominence,
                          profile=profile, max_peaks=max_peaks, baseline_width=baseline_width,
                          min_separation=min_separation, shoulders=shoulders, backfit=backfit,
-                         errors=errors, block=block, track=False)
+                         errors=errors, block=block, track=False, iterations=iterations)
         res["track"] = track_peaks(res["position"], res["position_sigma"], res["fwhm"], order=order)
         return res
     I_all = np.atleast_2d(np.asarray(intensity, dtype=float))
@@ -426,7 +430,7 @@ def find_peaks(
         S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
         opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
                     baseline_width=baseline_width, min_separation=min_separation, shoulders=shoulders,
-                    backfit=backfit, errors=errors, block=0, track=False)
+                    backfit=backfit, errors=errors, block=0, track=False, iterations=iterations)
         parts = []
         for b0 in range(0, I_all.shape[0], block):
             sl = slice(b0, b0 + block)
@@ -457,7 +461,10 @@ def find_peaks(
         if errors == "raise":
             raise SaxsInputError(f"{what}; need at least 12", parameter="q_range")
         code = "no_data" if q_range is None else "range_outside_data" if n_sel == 0 else "too_few_points"
-        return _empty_result(I.shape[0], int(max_peaks), code)
+        out = _empty_result(I.shape[0], int(max_peaks), code)
+        if not iterations:
+            del out["n_iterations"]
+        return out
     # the searched part of the curves, C-ordered: selecting columns by a mask gives a
     # Fortran-ordered copy, on which every operation along q is several times slower
     if sel.all():
@@ -536,4 +543,6 @@ def find_peaks(
     status = np.where(enough & nonpos, "negative_intensity", status).astype(_STATUS)
     fit["n_peaks"] = n_peaks
     fit["status"] = status
+    if not iterations:
+        del fit["n_iterations"]
     return fit
