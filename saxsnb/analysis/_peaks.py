@@ -5,9 +5,9 @@ the baseline is a morphological filter applied along q for all frames together,
 detection (local maxima by prominence, shoulders from the second derivative) uses
 array operations (no per-frame ``scipy.signal.find_peaks`` loop), and all peaks of
 all frames are fitted together by one vectorised Levenberg-Marquardt iteration on a
-padded ``(n_peaks_total, window)`` array; overlapping peaks are then refined by two
-backfitting rounds. Large series are processed in blocks of frames (a loop over
-blocks, not frames).
+padded ``(n_peaks_total, window)`` array, each peak stopping when converged;
+overlapping peaks are then refined by two backfitting rounds. Large series are
+processed in blocks of frames (a loop over blocks, not frames).
 """
 
 from __future__ import annotations
@@ -327,6 +327,18 @@ def detect_peaks(
 
 
 # ------------------------------------------------------------------------ all in one
+_PEAK_KEYS = ("position", "position_sigma", "fwhm", "fwhm_sigma", "height", "height_sigma", "area",
+              "area_sigma", "prominence", "eta", "chi2_reduced", "n_iterations")
+
+
+def _empty_result(n_frames: int, max_peaks: int, status: str) -> dict:
+    """The result of :func:`find_peaks` for frames that cannot be searched: no peaks."""
+    out = {k: np.full((n_frames, max_peaks), np.nan) for k in _PEAK_KEYS}
+    out["n_peaks"] = np.zeros(n_frames, dtype=np.int64)
+    out["status"] = np.full(n_frames, status, dtype=_STATUS)
+    return out
+
+
 def find_peaks(
     q,
     intensity,
@@ -344,6 +356,7 @@ def find_peaks(
     block: int = 512,
     track: bool = True,
     order=None,
+    iterations: bool = False,
 ):
     """Find, fit and track the Bragg peaks of every frame.
 
@@ -372,15 +385,22 @@ def find_peaks(
         Link the peaks of consecutive frames into tracks
         (:func:`~saxsnb.analysis._tracking.track_peaks`), in the frame order ``order``
         (an index array, e.g. ``np.argsort(temperature)``; default as given).
+    iterations : bool
+        Also return ``n_iterations``, the Levenberg-Marquardt iterations of each peak
+        (all passes: Gaussian first pass, pseudo-Voigt, backfitting).
 
     Returns
     -------
     dict of arrays: per (frame, peak) ``position``, ``position_sigma``, ``fwhm``,
     ``fwhm_sigma``, ``height``, ``height_sigma``, ``area``, ``area_sigma``,
-    ``prominence`` (in noise units), ``eta``, ``chi2_reduced``, sorted by position and
+    ``prominence`` (in noise units), ``eta``, ``chi2_reduced`` (and ``n_iterations``
+    when asked), sorted by position and
     NaN padded to ``max_peaks``; per frame ``n_peaks`` (int) and ``status``
-    ("ok", "no_peaks", "no_data", or "negative_intensity" when most points are at or
-    below zero: peaks kept, heights suspect).
+    ("ok", "no_peaks", "no_data" (also for a curve of fewer than 12 q points),
+    "too_few_points" (``q_range`` leaves fewer than 12 points), "range_outside_data"
+    (none), or
+    "negative_intensity" when most points are at or below zero: peaks kept, heights
+    suspect). With ``errors="raise"`` the last three raise instead.
 
     Notes
     -----
@@ -402,7 +422,7 @@ def find_peaks(
         res = find_peaks(q, intensity, sigma, q_range=q_range, min_prominence=min_prominence,
                          profile=profile, max_peaks=max_peaks, baseline_width=baseline_width,
                          min_separation=min_separation, shoulders=shoulders, backfit=backfit,
-                         errors=errors, block=block, track=False)
+                         errors=errors, block=block, track=False, iterations=iterations)
         res["track"] = track_peaks(res["position"], res["position_sigma"], res["fwhm"], order=order)
         return res
     I_all = np.atleast_2d(np.asarray(intensity, dtype=float))
@@ -410,7 +430,7 @@ def find_peaks(
         S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
         opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
                     baseline_width=baseline_width, min_separation=min_separation, shoulders=shoulders,
-                    backfit=backfit, errors=errors, block=0, track=False)
+                    backfit=backfit, errors=errors, block=0, track=False, iterations=iterations)
         parts = []
         for b0 in range(0, I_all.shape[0], block):
             sl = slice(b0, b0 + block)
@@ -434,18 +454,17 @@ def find_peaks(
         if not lo < hi:
             raise SaxsInputError(f"q_range {q_range} is empty", parameter="q_range")
         sel &= (q >= lo) & (q <= hi)
-    if np.isfinite(q).sum() < 12 and errors == "ignore":  # a short curve: statuses, no error
-        F = I.shape[0]
-        keys = ("position", "position_sigma", "fwhm", "fwhm_sigma", "height", "height_sigma", "area",
-                "area_sigma", "prominence", "eta", "redchi")
-        out = {k: np.full((F, int(max_peaks)), np.nan) for k in keys}
-        out["n_peaks"] = np.zeros(F, dtype=np.int64)
-        out["status"] = np.full(F, "no_data", dtype=_STATUS)
+    n_sel = int(sel.sum())
+    if n_sel < 12:  # a short curve, or a q range leaving too few points
+        what = (f"q_range {q_range} leaves {n_sel} points" if q_range is not None
+                else f"the curve has {n_sel} finite q points")
+        if errors == "raise":
+            raise SaxsInputError(f"{what}; need at least 12", parameter="q_range")
+        code = "no_data" if q_range is None else "range_outside_data" if n_sel == 0 else "too_few_points"
+        out = _empty_result(I.shape[0], int(max_peaks), code)
+        if not iterations:
+            del out["n_iterations"]
         return out
-    if sel.sum() < 12:
-        raise SaxsInputError(
-            f"q_range {q_range} leaves {int(sel.sum())} points; need at least 12", parameter="q_range"
-        )
     # the searched part of the curves, C-ordered: selecting columns by a mask gives a
     # Fortran-ordered copy, on which every operation along q is several times slower
     if sel.all():
@@ -500,6 +519,7 @@ def find_peaks(
                 qs, resid, noise, idx2, fit["fwhm"] / dq, profile=profile, start=fit, others=total
             )
             upd = close & np.isfinite(fit2["position"])
+            fit2["n_iterations"] = fit2["n_iterations"] + fit["n_iterations"]
             fit = {k: np.where(upd, fit2[k], v) for k, v in fit.items()}
     with np.errstate(invalid="ignore", divide="ignore"):
         nzp = np.take_along_axis(np.broadcast_to(noise, Is.shape), np.maximum(index, 0), axis=-1)
@@ -523,4 +543,6 @@ def find_peaks(
     status = np.where(enough & nonpos, "negative_intensity", status).astype(_STATUS)
     fit["n_peaks"] = n_peaks
     fit["status"] = status
+    if not iterations:
+        del fit["n_iterations"]
     return fit
