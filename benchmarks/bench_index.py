@@ -16,6 +16,7 @@ Usage::
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 
@@ -69,7 +70,7 @@ def make_table(n_frames: int, seed: int = 7):
 
 def main(argv=None):
     argv = sys.argv[1:] if argv is None else argv
-    n = int(argv[0]) if argv else 10_000
+    n = int(argv[0]) if argv else int(os.environ.get("SAXSNB_BENCH_FRAMES", 10_000))
     repeats = int(argv[1]) if len(argv) > 1 else 3
     pos, sig, fwhm, prom, truth = make_table(n)
     t0 = time.perf_counter()

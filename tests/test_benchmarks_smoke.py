@@ -21,6 +21,8 @@ BENCH = Path(__file__).resolve().parents[1] / "benchmarks"
         ("bench_peaks.py", {"SAXSNB_BENCH_FRAMES": "20", "SAXSNB_BENCH_BASELINE_FRAMES": "4"}),
         ("bench_distance.py", {"SAXSNB_BENCH_FRAMES": "12"}),
         ("bench_preparation.py", {"SAXSNB_BENCH_FRAMES": "30"}),
+        ("bench_porod.py", {"SAXSNB_BENCH_FRAMES": "40", "SAXSNB_BENCH_BASELINE_FRAMES": "5"}),
+        ("bench_index.py", {"SAXSNB_BENCH_FRAMES": "200"}),
     ],
 )
 def test_benchmark_runs_small(script, env):
