@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+import html
+
 import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..display import finite_points, value_range
+from ..display import finite_points, format_value, value_range
 from . import _bq as bq
 from .base import DatasetTrait, PanelBase, checked_range, control_row, make_figure
 from .palette import OKABE_ITO, ROLE
@@ -15,13 +17,6 @@ __all__ = ["DistancePanel"]
 
 #: Log-evidence units shown below the best Dmax candidate in the evidence plot.
 EVIDENCE_SPAN = 60.0
-
-
-def _fmt(v, unit: str = "") -> str:
-    v = float(v)
-    if not np.isfinite(v):
-        return "n/a"
-    return f"{v:.4g}" + (f" {unit}" if unit else "")
 
 
 class DistancePanel(PanelBase):
@@ -415,13 +410,15 @@ class DistancePanel(PanelBase):
         if np.isfinite(chan) and chan < 5:
             note = (" <i>(few Shannon channels: Dmax and the shape of p(r) are poorly determined; "
                     "Rg and I0 are the robust numbers)</i>")
+        fmt = format_value
+        fixed_d = "" if self.dmax is None else " (fixed)"
+        fixed_w = "" if self.weight is None else " (fixed)"
         return (
-            f"Rg = {_fmt(g('rg'))} +- {_fmt(g('rg_sigma'), 'nm')} (Guinier {_fmt(grg, 'nm')}); "
-            f"I0 = {_fmt(g('i0'))} +- {_fmt(g('i0_sigma'))}; Dmax = {_fmt(g('dmax'))} +- "
-            f"{_fmt(g('dmax_sigma'), 'nm')}{'' if self.dmax is None else ' (fixed)'}; weight "
-            f"{_fmt(g('weight'))}{'' if self.weight is None else ' (fixed)'}; chi2_red "
-            f"{_fmt(g('chi2_reduced'))}; Shannon channels {_fmt(chan)}; status <b>{g('status')}</b>{note}"
-        )
+            f"Rg = {fmt(g('rg'), g('rg_sigma'), 'nm')} (Guinier {fmt(grg, unit='nm')}); "
+            f"I0 = {fmt(g('i0'), g('i0_sigma'))}; Dmax = {fmt(g('dmax'), g('dmax_sigma'), 'nm')}{fixed_d}; "
+            f"weight {fmt(g('weight'))}{fixed_w}; chi2_red {fmt(g('chi2_reduced'))}; "
+            f"Shannon channels {fmt(chan)}; status <b>{html.escape(str(g('status')))}</b>{note}"
+        ).replace(" ± ", " &plusmn; ")
 
     def _code_lines(self, target: str) -> list[str]:
         if self._choice is None:

@@ -479,13 +479,14 @@ class LinearFitPanel(PanelBase):
             name, sep, value = line.partition(" = ")
             if name == "qrg_max":
                 continue  # shown coloured below
-            text = html.escape(value).replace(" +- ", " &plusmn; ")
+            text = html.escape(pretty_unit(value)).replace(" +- ", " &plusmn; ")  # units as nm⁻¹
             rows.append(f"{labels.get(name, html.escape(name))} = {text}" if sep else html.escape(line))
         rng = "automatic" if self.q_range is None else "fixed"
         v = lambda k: vals.get(k, np.nan)  # noqa: E731
         n_points = int(v("n_points")) if np.isfinite(v("n_points")) else 0
+        q_unit = html.escape(pretty_unit(self.q_units))
         rows.append(
-            f"q range ({rng}) = {_number(v('q_min'))} .. {_number(v('q_max'), html.escape(self.q_units))}, "
+            f"q range ({rng}) = {_number(v('q_min'))} .. {_number(v('q_max'), q_unit)}, "
             f"{n_points} points"
         )
         if self.plot.limit is not None:
