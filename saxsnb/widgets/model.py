@@ -30,10 +30,14 @@ model as its first argument.
 
 from __future__ import annotations
 
+import asyncio
 import inspect
 import keyword
+import threading
+import time
 from collections import OrderedDict
 from collections.abc import Mapping
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -42,10 +46,15 @@ import xarray as xr
 
 from ..accessor import SaxsAccessor
 from ..display import positive_range
+from ..display.overview import overview_block, overview_combine, overview_edges, sample_frames
 from ..errors import SaxsInputError
 from ..series import main_scan, validate
 
-__all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS"]
+__all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS", "is_lazy"]
+
+#: Frames whose rows a lazy series keeps in memory after fetching them (the current
+#: frame, the overlays, a few frames stepped through).
+ROW_CACHE = 16
 
 #: Accessor methods whose whole-series results the model caches.
 ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
@@ -80,6 +89,21 @@ def _freeze(value) -> Any:
         return value.item()
     hash(value)  # anything else must be hashable (str, numbers, None, bool)
     return value
+
+
+def is_lazy(da) -> bool:
+    """Whether a DataArray (or array) is backed by a dask array."""
+    data = getattr(da, "data", da)
+    return hasattr(data, "dask") and hasattr(data, "chunks")
+
+
+def _running_loop():
+    """The event loop running in this thread (a notebook kernel's), or None."""
+    try:
+        loop = asyncio.get_event_loop()
+    except RuntimeError:
+        return None
+    return loop if loop.is_running() else None
 
 
 def as_model(source) -> SeriesModel:
@@ -118,15 +142,34 @@ class SeriesModel(traitlets.HasTraits):
 
     #: The current frame (position along ``frame``), shared by the panels.
     frame = traitlets.Int(0)
+    #: What is being computed in the background ("" when nothing), with its progress.
+    busy = traitlets.Unicode("")
 
     def __init__(self, ds: xr.Dataset, *, frame: int = 0, max_results: int = 12, **kwargs):
         self.ds = validate(ds)
         self.n_frames = int(ds.sizes["frame"])
-        # the series' own arrays (views; a dask series is loaded here, once)
-        self._intensity = self._read_only(ds["intensity"].values)
-        self._sigma = self._read_only(ds["sigma"].values)
-        self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
+        #: Whether the series is dask-backed: then nothing as large as the series is
+        #: ever loaded (rows are fetched on demand, overviews come from per-chunk
+        #: reductions) and whole-series results are computed in the background.
+        self.lazy = is_lazy(ds["intensity"])
+        if self.lazy:
+            data = ds["intensity"].data
+            self._intensity = data.rechunk({1: -1}) if len(data.chunks[1]) > 1 else data
+            chunks = self._intensity.chunks
+            self._sigma = ds["sigma"].data.rechunk(chunks) if is_lazy(ds["sigma"]) else ds["sigma"].values
+            if "mask" in ds.data_vars:
+                m = ds["mask"]
+                self._mask = m.data.rechunk(chunks) if is_lazy(m) else self._read_only(m.values)
+            else:
+                self._mask = None
+        else:
+            # the series' own arrays (views)
+            self._intensity = self._read_only(ds["intensity"].values)
+            self._sigma = self._read_only(ds["sigma"].values)
+            self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
+        self._row_cache: OrderedDict = OrderedDict()
         self._positive_range: tuple[float, float] | None = None
+        self._overview: dict = {}
         self.q = self._read_only(np.asarray(ds["q"].values, dtype=float))
         self.q_units = str(ds["q"].attrs.get("units", "1/nm"))
         self.intensity_units = str(ds["intensity"].attrs.get("units", "arb"))
@@ -146,6 +189,18 @@ class SeriesModel(traitlets.HasTraits):
         self.background_name_given = False
         self.max_results = int(max_results)
         self._results: OrderedDict = OrderedDict()
+        #: Compute whole-series results in the background (:meth:`when_ready`) instead
+        #: of at once; :func:`saxsnb.explore` turns it on for big or lazy series.
+        self.deferred = False
+        self._lock = threading.RLock()
+        self._jobs: dict[tuple, Future] = {}
+        self._job_names: dict[tuple, str] = {}
+        self._job_start: dict[tuple, float] = {}
+        self._executor: ThreadPoolExecutor | None = None
+        self._worker: threading.Thread | None = None
+        self._pending: list = []
+        self._loop = None
+        self._tasks = [0, 0]  # dask tasks started, finished (background progress)
         super().__init__(**kwargs)
         if frame:
             self.frame = int(frame)
@@ -172,28 +227,104 @@ class SeriesModel(traitlets.HasTraits):
         positions), masked points NaN, as ``ds.saxs.masked()`` gives them.
 
         Without a mask these are read-only views of the series' arrays; with one they
-        are new arrays of the frames asked for only.
+        are new arrays of the frames asked for only. On a lazy series only these
+        frames are computed (single frames are kept in a small cache, :data:`ROW_CACHE`).
         """
+        if self.lazy:
+            return self._lazy_rows(frames)
         I, S = self._intensity[frames], self._sigma[frames]
         if self._mask is not None:
-            m = self._mask[frames]
-            I = np.where(m, np.array(np.nan, dtype=np.result_type(I.dtype, np.float16)), I)
-            S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
+            I, S = self._apply_mask(I, S, self._mask[frames])
+        return I, S
+
+    @staticmethod
+    def _apply_mask(I, S, m):
+        I = np.where(m, np.array(np.nan, dtype=np.result_type(I.dtype, np.float16)), I)
+        S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
+        return I, S
+
+    def _lazy_rows(self, frames):
+        import dask
+
+        single = isinstance(frames, (int, np.integer))
+        if single:
+            i = int(frames)
+            with self._lock:
+                hit = self._row_cache.get(i)
+                if hit is not None:
+                    self._row_cache.move_to_end(i)
+                    return hit
+        parts = [self._intensity[frames], self._sigma[frames]]
+        if self._mask is not None:
+            parts.append(self._mask[frames])
+        got = dask.compute(*parts)
+        I, S = np.asarray(got[0]), np.asarray(got[1])
+        if self._mask is not None:
+            I, S = self._apply_mask(I, S, np.asarray(got[2]))
+        for a in (I, S):
+            a.flags.writeable = False
+        if single:
+            with self._lock:
+                self._row_cache[i] = (I, S)
+                while len(self._row_cache) > ROW_CACHE:
+                    self._row_cache.popitem(last=False)
         return I, S
 
     def masked(self) -> tuple[np.ndarray, np.ndarray]:
         """Masked intensity and sigma of every frame, (n_frames, n_q).
 
         A new pair of arrays as large as the series when it has a mask: use it for a
-        one-off summary (an overview map) and do not keep it.
+        one-off summary and do not keep it. Refused on a lazy series (it would load
+        the whole series): use :meth:`overview` and :meth:`rows` there.
         """
+        if self.lazy:
+            raise SaxsInputError(
+                "the series is dask-backed: its whole (frame, q) arrays are not loaded by the panels; "
+                "use model.rows(frames) or model.overview()", parameter="ds")
         return self.rows(slice(None))
 
+    def overview(self, max_rows: int = 400, max_cols: int = 400) -> dict:
+        """``display.overview_map`` of the masked intensity (block means of log10 I),
+        computed once per size, block by block: on a lazy series one small reduction
+        per chunk of frames (``dask.compute``: on the active distributed client, if
+        any), so the series is never loaded whole. ``"sampled"`` holds the positive
+        values of at most 256 evenly spaced frames (for :meth:`positive_range`)."""
+        key = (int(max_rows), int(max_cols))
+        if key in self._overview:
+            return self._overview[key]
+        n, n_q = self.n_frames, self.q.size
+        rows, cols = overview_edges(n, n_q, max_rows=max_rows, max_cols=max_cols)
+        sample = sample_frames(n)
+        if self.lazy:
+            import dask
+
+            starts = np.concatenate([[0], np.cumsum(self._intensity.chunks[0])[:-1]])
+            blocks_i = self._intensity.to_delayed().ravel()
+            if self._mask is None:
+                blocks_m = [None] * len(blocks_i)
+            elif is_lazy(self._mask):
+                blocks_m = self._mask.to_delayed().ravel()
+            else:
+                stops = np.append(starts[1:], n)
+                blocks_m = [self._mask[a:b] for a, b in zip(starts, stops)]
+            reduce = dask.delayed(overview_block, pure=True)
+            parts = dask.compute(*[reduce(bi, int(a), rows, cols, bm, sample)
+                                   for bi, bm, a in zip(blocks_i, blocks_m, starts)])
+        else:
+            step = 2048
+            parts = [overview_block(self._intensity[a:a + step], a, rows, cols,
+                                    None if self._mask is None else self._mask[a:a + step], sample)
+                     for a in range(0, n, step)]
+        out = overview_combine(self.q, n, rows, cols, parts)
+        self._overview[key] = out
+        return out
+
     def positive_range(self) -> tuple[float, float]:
-        """``display.positive_range`` of the masked intensity of the whole series (the
-        fixed y range of log plots), computed once."""
+        """``display.positive_range`` of the masked intensity (the fixed y range of log
+        plots), computed once, from at most 256 evenly spaced frames (every frame of a
+        shorter series), gathered in the pass of :meth:`overview`."""
         if self._positive_range is None:
-            self._positive_range = positive_range(self.masked()[0])
+            self._positive_range = positive_range(self.overview()["sampled"])
         return self._positive_range
 
     @traitlets.validate("frame")
@@ -291,21 +422,189 @@ class SeriesModel(traitlets.HasTraits):
         parameters (an exception is raised again, not cached).
         """
         key = self.key(analysis, **params)
-        if key in self._results:
-            self._results.move_to_end(key)
-            return self._results[key][0]
+        with self._lock:
+            if key in self._results:
+                self._results.move_to_end(key)
+                return self._results[key][0]
+            job = self._jobs.get(key)
+        if job is not None and threading.current_thread() is not self._worker:
+            return job.result()  # computing in the background: wait for it (errors raised)
         args = self._resolve(analysis, self._arguments(analysis, params))
         out = getattr(self.ds.saxs, analysis)(**args).compute()
         # Datasets passed as inputs are kept with the entry: their id is in the key
         kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
-        self._results[key] = (out, kept)
-        # the automatic results (default arguments) stay: other results and every frame
-        # step build on them; the others go least recently used first
-        spare = [k for k in self._results if k != self.key(k[0])]
-        while len(self._results) > max(self.max_results, 1) and spare:
-            del self._results[spare.pop(0)]
+        with self._lock:
+            self._results[key] = (out, kept)
+            # the automatic results (default arguments) stay: other results and every frame
+            # step build on them; the others go least recently used first
+            spare = [k for k in self._results if k != self.key(k[0])]
+            while len(self._results) > max(self.max_results, 1) and spare:
+                del self._results[spare.pop(0)]
         return out
+
+    # ----------------------------------------------------------- background
+    def peek(self, analysis: str, /, **params):
+        """The cached ``result(analysis, **params)``, or None when it is not computed yet
+        (nothing is started)."""
+        key = self.key(analysis, **params)
+        with self._lock:
+            hit = self._results.get(key)
+        return None if hit is None else hit[0]
+
+    def when_ready(self, analysis: str, callback, /, **params) -> bool:
+        """Call ``callback(result, error)`` with ``result(analysis, **params)``.
+
+        At once when the result is cached, or when the model is not :attr:`deferred`
+        (computed here; ``error`` is the exception when it failed, else None). A
+        deferred model computes it in a background thread instead (once, however many
+        panels ask; a dask series on the active distributed client, if any) and calls
+        ``callback`` on the notebook's event loop when it is done (without one, at
+        :meth:`deliver`: the next frame step or :meth:`wait`); :attr:`busy` says what
+        is running meanwhile.
+
+        Returns
+        -------
+        True when ``callback`` was called before returning.
+        """
+        key = self.key(analysis, **params)
+        with self._lock:
+            hit = self._results.get(key)
+        if hit is not None:
+            callback(hit[0], None)
+            return True
+        if not self.deferred:
+            try:
+                res = self.result(analysis, **params)
+            except Exception as exc:  # handed to the panel, which reports it
+                callback(None, exc)
+            else:
+                callback(res, None)
+            return True
+        job = self._submit(key, analysis, params)
+        job.add_done_callback(lambda f: self._post(lambda: self._finish(f, callback)))
+        return False
+
+    def _submit(self, key, analysis: str, params: dict) -> Future:
+        with self._lock:
+            job = self._jobs.get(key)
+            if job is not None:
+                return job
+            if self._executor is None:
+                self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="saxsnb-panels")
+                self._loop = _running_loop()
+            self._job_names[key] = analysis
+            job = self._executor.submit(self._run_job, key, analysis, params)
+            self._jobs[key] = job
+        self._show_busy()
+        return job
+
+    def _run_job(self, key, analysis: str, params: dict):
+        self._worker = threading.current_thread()
+        self._job_start[key] = time.perf_counter()
+        with _TaskCounter(self._tasks):
+            try:
+                return self.result(analysis, **params)
+            finally:
+                with self._lock:
+                    self._jobs.pop(key, None)
+                self._post(self._show_busy)
+
+    def _finish(self, job: Future, callback) -> None:
+        exc = job.exception()
+        callback(None if exc is not None else job.result(), exc)
+
+    def _post(self, fn) -> None:
+        """Run ``fn`` on the notebook's event loop (thread-safe), else at :meth:`deliver`."""
+        loop = self._loop
+        if loop is not None and loop.is_running():
+            loop.call_soon_threadsafe(fn)
+        else:
+            with self._lock:
+                self._pending.append(fn)
+
+    def deliver(self) -> int:
+        """Run the callbacks of finished background work waiting for this thread
+        (without an event loop; see :meth:`when_ready`). Returns how many ran."""
+        done = 0
+        while True:
+            with self._lock:
+                if not self._pending:
+                    return done
+                fn = self._pending.pop(0)
+            fn()
+            done += 1
+
+    def wait(self, timeout: float | None = None) -> None:
+        """Block until the background work (and the work its results start) is done
+        and drawn. ``timeout`` (s) bounds the wait (TimeoutError past it)."""
+        end = None if timeout is None else time.perf_counter() + timeout
+        while True:
+            with self._lock:
+                jobs = list(self._jobs.values())
+            for job in jobs:
+                left = None if end is None else max(0.0, end - time.perf_counter())
+                try:
+                    job.result(timeout=left)
+                except TimeoutError:
+                    raise
+                except Exception:  # reported by the panels' callbacks
+                    pass
+            if self._loop is not None and self._loop.is_running():
+                return  # the loop runs the callbacks
+            if not self.deliver():
+                with self._lock:
+                    if not self._jobs and not self._pending:
+                        return
+
+    def _show_busy(self) -> None:
+        with self._lock:
+            names = [self._job_names.get(k, "?") for k in self._jobs]
+        if not names:
+            text = ""
+        else:
+            started, finished = self._tasks
+            part = f", {100 * finished / started:.0f} % of the dask tasks started" if started else ""
+            text = f"computing in the background: {', '.join(dict.fromkeys(names))}{part}"
+        if text != self.busy:
+            self.busy = text
+
+    @traitlets.observe("frame")
+    def _deliver_on_step(self, change) -> None:
+        if self._pending and (self._loop is None or not self._loop.is_running()):
+            self.deliver()
 
     def cached(self, analysis: str, /, **params) -> bool:
         """Whether ``result(analysis, **params)`` is in the cache."""
         return self.key(analysis, **params) in self._results
+
+
+class _TaskCounter:
+    """Counts the dask tasks started and finished while a background job runs (the
+    local schedulers' callbacks; on a distributed client none fire)."""
+
+    def __init__(self, counts: list):
+        self.counts = counts
+        self.cb = None
+
+    def __enter__(self):
+        try:
+            from dask.callbacks import Callback
+        except ImportError:
+            return self
+        counts = self.counts
+
+        class _Count(Callback):
+            def _start(self, dsk):
+                counts[0] += len(dsk)
+
+            def _posttask(self, key, result, dsk, state, id):
+                counts[1] += 1
+
+        self.cb = _Count()
+        self.cb.__enter__()
+        return self
+
+    def __exit__(self, *exc):
+        if self.cb is not None:
+            self.cb.__exit__(*exc)
+        return False

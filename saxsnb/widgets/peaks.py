@@ -219,6 +219,15 @@ class PeaksPanel(PanelBase):
         self._analyse()
         return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.phase_key, self.map_note]
 
+    def _analysis_arrived(self, res, exc) -> None:
+        if exc is not None and self.model.peek("index_phases", **self._index_params()) is None:
+            self.report(exc, "peak search / indexing")
+            self.table.value = ""
+            return
+        self._analyse()  # from the cache now
+        self._apply()
+        self._update()
+
     def _index_params(self, overrides=None) -> dict:
         """Arguments of ``model.result("index_phases", ...)``: the peaks by their options."""
         params = {"peaks": dict(self.find_options), **self.index_options}
@@ -227,6 +236,14 @@ class PeaksPanel(PanelBase):
         return params
 
     def _analyse(self) -> None:
+        pm = {"index": self._index_params()}
+        if self.model.deferred and self.model.peek("phase_map", **pm) is None:
+            # every frame's peaks, indexing and phase map in the background: the curve is
+            # drawn now, the rest when they arrive
+            self.table.value = ("<small>&#8987; finding, fitting and indexing the peaks of every frame "
+                                "in the background&hellip;</small>")
+            self.model.when_ready("phase_map", self._analysis_arrived, **pm)
+            return
         try:
             self.peaks = self.model.result("find_peaks", **self.find_options)
             self.index = self.model.result("index_phases", **self._index_params())
