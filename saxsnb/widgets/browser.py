@@ -214,7 +214,7 @@ class SeriesBrowser(PanelBase):
         with self.marker.hold_sync():
             self.marker.y = np.array([float(y), float(y)])
         self.label.value = f"<b>{html.escape(self.frame_label(i))}</b> of {self.n_frames} frames"
-        self._set_result(self.ds.isel(frame=[i]))
+        self._set_result(self.model.part([i]))
         self.status = ""
 
     def _code_lines(self, target: str) -> list[str]:

@@ -281,7 +281,7 @@ class KratkyPanel(PanelBase):
         key = (self.normalize, start)
         if self._block is None or self._block[0] != key:
             frames = slice(start, min(start + BLOCK, self.n_frames))
-            part = self.ds.isel(frame=frames)
+            part = self.model.part(frames)  # in memory (on a lazy series only these frames)
             if self.normalize != "rg":
                 da = part.saxs.kratky(normalize=None)
             else:
@@ -335,14 +335,15 @@ class KratkyPanel(PanelBase):
     def _set_ranges(self) -> None:
         """Fixed axis ranges per form, the same for every frame (curves compare while
         stepping; hidden reference lines do not stretch the plain plot). The transform
-        of at most 256 evenly spaced frames (all of a shorter series) is computed for
-        this once per form and not kept."""
+        of at most 256 evenly spaced frames (all of a shorter series; 16 of a lazy
+        series) is computed for this once per form and not kept."""
         key = self.normalize or "plain"
         if self._range_key == key:
             return
-        # from at most 256 evenly spaced frames (every frame of a shorter series)
-        sample = sample_frames(self.n_frames)
-        part = self.ds.isel(frame=sample)
+        # from at most 256 evenly spaced frames (every frame of a shorter series; 16 of
+        # a lazy one, whose chunks would each be read for it)
+        sample = sample_frames(self.n_frames, 16 if self.model.lazy else 256)
+        part = self.model.part(list(sample))
         g = self._guinier() if self.normalize == "rg" else None
         given = {} if g is None else {"guinier": g.isel(frame=sample)}
         da = part.saxs.kratky(normalize=self.normalize, **given)

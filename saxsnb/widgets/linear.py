@@ -315,7 +315,7 @@ class LinearFitPanel(PanelBase):
         background): ``ds.isel(frame=[i]).saxs.<fit>``, equal to that frame of the
         series fit."""
         analysis, params = self._analysis(q_range)
-        return getattr(self.ds.isel(frame=[i]).saxs, analysis)(**params).compute()
+        return getattr(self.model.part([i]).saxs, analysis)(**params).compute()
 
     def table_result(self):
         """The fit of every frame with the current range (the dashboard's table)."""

@@ -106,6 +106,19 @@ def _running_loop():
     return loop if loop.is_running() else None
 
 
+def _row_scheduler():
+    """Scheduler of the small computations of a step (a frame's rows): in this thread
+    (no thread-pool round trip), unless a distributed client is active (its workers
+    may hold the data)."""
+    try:
+        from distributed import default_client
+
+        default_client()
+    except (ImportError, ValueError):
+        return "sync"
+    return None
+
+
 def as_model(source) -> SeriesModel:
     """``source`` if it is a :class:`SeriesModel`, else a new model of the series."""
     return source if isinstance(source, SeriesModel) else SeriesModel(source)
@@ -168,6 +181,7 @@ class SeriesModel(traitlets.HasTraits):
             self._sigma = self._read_only(ds["sigma"].values)
             self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
         self._row_cache: OrderedDict = OrderedDict()
+        self._part_cache: OrderedDict = OrderedDict()
         self._positive_range: tuple[float, float] | None = None
         self._overview: dict = {}
         self.q = self._read_only(np.asarray(ds["q"].values, dtype=float))
@@ -243,7 +257,9 @@ class SeriesModel(traitlets.HasTraits):
         S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
         return I, S
 
-    def _lazy_rows(self, frames):
+    def _raw(self, frames) -> dict:
+        """The (frame, q) data variables of ``frames`` as numpy arrays, one
+        ``dask.compute`` for all (single frames cached, :data:`ROW_CACHE`)."""
         import dask
 
         single = isinstance(frames, (int, np.integer))
@@ -254,21 +270,53 @@ class SeriesModel(traitlets.HasTraits):
                 if hit is not None:
                     self._row_cache.move_to_end(i)
                     return hit
-        parts = [self._intensity[frames], self._sigma[frames]]
-        if self._mask is not None:
-            parts.append(self._mask[frames])
-        got = dask.compute(*parts)
-        I, S = np.asarray(got[0]), np.asarray(got[1])
-        if self._mask is not None:
-            I, S = self._apply_mask(I, S, np.asarray(got[2]))
-        for a in (I, S):
+        names = [k for k, v in self.ds.data_vars.items() if v.dims == ("frame", "q")]
+        got = dask.compute(*[self.ds[k].data[frames] for k in names], scheduler=_row_scheduler())
+        out = {}
+        for k, a in zip(names, got):
+            a = np.asarray(a)
             a.flags.writeable = False
+            out[k] = a
         if single:
             with self._lock:
-                self._row_cache[i] = (I, S)
+                self._row_cache[i] = out
                 while len(self._row_cache) > ROW_CACHE:
                     self._row_cache.popitem(last=False)
+        return out
+
+    def _lazy_rows(self, frames):
+        raw = self._raw(frames)
+        I, S = raw["intensity"], raw["sigma"]
+        if "mask" in raw:
+            I, S = self._apply_mask(I, S, raw["mask"])
         return I, S
+
+    def part(self, frames) -> xr.Dataset:
+        """``ds.isel(frame=frames)`` (a list of positions or a slice), in memory: on a lazy
+        series only these frames are computed (the rows a step fetched are reused). A
+        one-frame part is cached (the panels of one step share it)."""
+        one = isinstance(frames, list) and len(frames) == 1
+        if one:
+            with self._lock:
+                hit = self._part_cache.get(int(frames[0]))
+                if hit is not None:
+                    return hit
+        if self.lazy:
+            big = [k for k, v in self.ds.data_vars.items() if v.dims == ("frame", "q")]
+            out = self.ds.drop_vars(big).isel(frame=frames).compute(scheduler=_row_scheduler())
+            raw = self._raw(int(frames[0])) if one else self._raw(frames)
+            for k in big:
+                out[k] = (("frame", "q"), raw[k][None] if one else raw[k], self.ds[k].attrs)
+                out[k].encoding = dict(self.ds[k].encoding)
+            out = out[list(self.ds.data_vars)]
+        else:
+            out = self.ds.isel(frame=frames)
+        if one:
+            with self._lock:
+                self._part_cache[int(frames[0])] = out
+                while len(self._part_cache) > 4:
+                    self._part_cache.popitem(last=False)
+        return out
 
     def masked(self) -> tuple[np.ndarray, np.ndarray]:
         """Masked intensity and sigma of every frame, (n_frames, n_q).
