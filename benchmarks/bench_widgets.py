@@ -74,9 +74,11 @@ def main(argv=None) -> dict:
     ap.add_argument("--frames", type=int, default=None)
     ap.add_argument("--steps", type=int, default=20)
     ap.add_argument("--lazy", action="store_true", help="a dask-chunked series on disk (default 10^5 frames)")
+    ap.add_argument("--wait-timeout", type=float, default=1200.0,
+                    help="longest wait (s) for the background work of the lazy benchmark")
     args = ap.parse_args(argv)
     if args.lazy:
-        return lazy_main(args.frames or 100_000, args.steps)
+        return lazy_main(args.frames or 100_000, args.steps, args.wait_timeout)
     args.frames = args.frames or int(os.environ.get("SAXSNB_BENCH_FRAMES", 2000))
 
     comm.create_comm = _create  # every widget built from here on records its messages
@@ -98,7 +100,7 @@ def main(argv=None) -> dict:
     series_bytes = ds["intensity"].nbytes + ds["sigma"].nbytes
     gc.collect()
     tracemalloc.start()
-    dash = saxsnb.explore(ds, panels=DEFAULT_PANELS)  # every default panel, whatever the data
+    dash = saxsnb.explore(ds, panels=DEFAULT_PANELS, wait=True)  # every default panel and result
     gc.collect()
     kept, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
@@ -180,7 +182,8 @@ def main(argv=None) -> dict:
         f"({1e3 * full_mb / max(step_kb, 1e-9):.0f}x a step)"
     )
     verdict = "ok" if step_ms <= 30 and step_kb <= 100 else "OVER TARGET"
-    print(f"targets <= 30 ms and <= 100 kB per step: {verdict}")
+    print(f"targets <= 30 ms and <= 100 kB per step: {verdict} (load average {os.getloadavg()[0]:.1f} "
+          f"on {os.cpu_count()} cores: judge the times by the baseline ratio)")
     return {"step_ms": step_ms, "step_kb": step_kb, "brush_ms": brush_ms, "open_s": t_open,
             "memory_ratio": mem_ratio}
 
@@ -260,7 +263,7 @@ def _guard_whole(shape):
     return lambda: setattr(dac, "finalize", original)
 
 
-def lazy_main(n: int, steps: int) -> dict:
+def lazy_main(n: int, steps: int, wait_s: float = 1200.0) -> dict:
     """The lazy benchmark (see the module docstring)."""
     import dask.array as da
     import xarray as xr
@@ -276,13 +279,19 @@ def lazy_main(n: int, steps: int) -> dict:
     block = 5000
     t0 = time.perf_counter()
     try:
+        # 2,000 distinct curves along the ramp, each frame one of them with fresh noise
+        # (making every one of 10^5 frames from the closed forms would take minutes)
+        n_base = min(n, 2000)
+        base, bg = make_series("phase-ramp", temperature=np.linspace(20.0, 90.0, n_base))
+        template = base.saxs.subtract(bg)
+        bI, bS = template["intensity"].values, template["sigma"].values
+        rng = np.random.default_rng(5)
         with open(paths["intensity"], "wb") as fi, open(paths["sigma"], "wb") as fs:
             for a in range(0, n, block):
-                ds_b, bg_b = make_series("phase-ramp", seed=a, temperature=temperature[a:a + block])
-                ds_b = ds_b.saxs.subtract(bg_b)
-                np.ascontiguousarray(ds_b["intensity"].values, dtype=float).tofile(fi)
-                np.ascontiguousarray(ds_b["sigma"].values, dtype=float).tofile(fs)
-                template = ds_b
+                rows = (np.arange(a, min(a + block, n)) * n_base) // n
+                S = bS[rows]
+                (bI[rows] + S * rng.standard_normal(S.shape)).tofile(fi)
+                S.tofile(fs)
         n_q = template.sizes["q"]
         data = {v: da.from_array(RowFile(p, (n, n_q)), chunks=(1000, n_q), name=f"bench-{v}", lock=False)
                 for v, p in paths.items()}
@@ -310,16 +319,21 @@ def lazy_main(n: int, steps: int) -> dict:
             print(f"frame step while the background work runs: median {during_ms:.1f} ms, {during_kb:.1f} kB")
             with _Peak() as mem2:
                 t0 = time.perf_counter()
-                dash.wait()
+                try:
+                    dash.wait(timeout=wait_s)
+                    done = "done"
+                except TimeoutError:
+                    done = "NOT done"
                 t_bg = time.perf_counter() - t0
-            print(f"background work (whole-series fits, peaks, shape summary) done {t_open + t_bg:.0f} s "
+            print(f"background work (whole-series fits, peaks, shape summary) {done} {t_open + t_bg:.0f} s "
                   f"after explore() was called; peak resident memory meanwhile {mem2.peak / 1e9:.2f} GB")
             step_ms, step_kb = _steps(dash, n // 2, steps)
         finally:
             restore()
         verdict = "ok" if step_ms <= 30 and step_kb <= 100 else "OVER TARGET"
         print(f"frame step: median {step_ms:.1f} ms, {step_kb:.1f} kB "
-              f"(targets <= 30 ms, <= 100 kB: {verdict})")
+              f"(targets <= 30 ms, <= 100 kB: {verdict}); load average {os.getloadavg()[0]:.1f} "
+              f"on {os.cpu_count()} cores")
         return {"open_s": t_open, "open_peak_gb": mem.peak / 1e9, "step_ms": step_ms, "step_kb": step_kb,
                 "during_ms": during_ms, "background_s": t_bg}
     finally:

@@ -295,8 +295,9 @@ class LinearFitPanel(PanelBase):
 
     def _series_now(self, q_range):
         """The series fit if it is ready; on a deferred model it is started in the
-        background (the panel redraws when it arrives) and None is returned."""
-        if not self.model.deferred:
+        background (the panel redraws when it arrives) and None is returned. A fixed
+        range on an in-memory series is fitted at once (one vectorised fit)."""
+        if not self.model.deferred or (q_range is not None and not self.model.lazy):
             return self.series_result(q_range)
         analysis, params = self._analysis(q_range)
         res = self.model.peek(analysis, **params)
@@ -431,8 +432,9 @@ class LinearFitPanel(PanelBase):
             self._set_result(one if series is None else series.isel(frame=[i]))
             if not frame_only and self.trend_fixed.visible:
                 self.trend_fixed.visible = False
-        vals = {name: float(v.values[k]) for name, v in one.data_vars.items() if v.dtype.kind in "fiu"}
-        fstatus = str(one["status"].values[k]) if "status" in one else "ok"
+        var = one.variables
+        vals = {name: float(var[name].values[k]) for name in one.data_vars if var[name].dtype.kind in "fiu"}
+        fstatus = str(var["status"].values[k]) if "status" in one.data_vars else "ok"
         self._draw(i, vals)
         self.result_text.value = self._result_html(one, k, vals)
         self.status = "" if fstatus == "ok" else f"{self.frame_label(i)}: {fstatus}"

@@ -33,11 +33,12 @@ from __future__ import annotations
 import asyncio
 import inspect
 import keyword
+import queue
 import threading
 import time
 from collections import OrderedDict
 from collections.abc import Mapping
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import Future
 from typing import Any
 
 import numpy as np
@@ -210,7 +211,7 @@ class SeriesModel(traitlets.HasTraits):
         self._jobs: dict[tuple, Future] = {}
         self._job_names: dict[tuple, str] = {}
         self._job_start: dict[tuple, float] = {}
-        self._executor: ThreadPoolExecutor | None = None
+        self._queue: queue.SimpleQueue | None = None
         self._worker: threading.Thread | None = None
         self._pending: list = []
         self._loop = None
@@ -478,7 +479,12 @@ class SeriesModel(traitlets.HasTraits):
         if job is not None and threading.current_thread() is not self._worker:
             return job.result()  # computing in the background: wait for it (errors raised)
         args = self._resolve(analysis, self._arguments(analysis, params))
-        out = getattr(self.ds.saxs, analysis)(**args).compute()
+        kw = {}
+        if self.lazy and threading.current_thread() is self._worker and _row_scheduler() == "sync":
+            # the background thread computes its chunks one after the other itself (no
+            # distributed client): the other core stays free for the notebook
+            kw = {"scheduler": "sync"}
+        out = getattr(self.ds.saxs, analysis)(**args).compute(**kw)
         # Datasets passed as inputs are kept with the entry: their id is in the key
         kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
         with self._lock:
@@ -537,17 +543,43 @@ class SeriesModel(traitlets.HasTraits):
             job = self._jobs.get(key)
             if job is not None:
                 return job
-            if self._executor is None:
-                self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="saxsnb-panels")
+            if self._queue is None:
+                # one daemon thread (a kernel or interpreter that exits does not wait for it)
+                self._queue = queue.SimpleQueue()
                 self._loop = _running_loop()
+                self._worker = threading.Thread(target=self._serve, args=(self._queue,), daemon=True,
+                                                name="saxsnb-panels")
+                self._worker.start()
             self._job_names[key] = analysis
-            job = self._executor.submit(self._run_job, key, analysis, params)
+            job = Future()
             self._jobs[key] = job
+            self._queue.put((job, key, analysis, params))
         self._show_busy()
         return job
 
+    def _serve(self, jobs: queue.SimpleQueue) -> None:
+        """The background thread: run the queued jobs one after the other; it ends
+        after 2 s without work (the next job starts a new one)."""
+        while True:
+            try:
+                job, key, analysis, params = jobs.get(timeout=2.0)
+            except queue.Empty:
+                with self._lock:  # idle: the thread ends (it holds the model while it runs)
+                    if jobs.empty():
+                        self._queue = None
+                        self._worker = None
+                        return
+                continue
+            if not job.set_running_or_notify_cancel():
+                continue
+            try:
+                out = self._run_job(key, analysis, params)
+            except BaseException as exc:  # handed to the callbacks
+                job.set_exception(exc)
+            else:
+                job.set_result(out)
+
     def _run_job(self, key, analysis: str, params: dict):
-        self._worker = threading.current_thread()
         self._job_start[key] = time.perf_counter()
         with _TaskCounter(self._tasks):
             try:

@@ -32,7 +32,7 @@ def test_distance_panel_renders_and_dmax_changes_p(servers, probe, tmp_path):
     page.goto(f"{server.url}/?token={server.token}", timeout=120_000)
     # I(q) fit, residual zero line, p(r) band and line, evidence curve: drawn paths
     probe.wait_for_lines(4)
-    pfig = figure(page, "body", "p(r) +- sigma")
+    pfig = figure(page, "body", "p(r) ± σ")
     expect(pfig).to_be_visible()
     expect(pfig.locator("g.curve path.line").last).to_have_attribute("d", re.compile(r"^M[-\d.e]+,"))
     probe.screenshot("distance-auto")
