@@ -59,9 +59,10 @@ from ._background import BackgroundResults, _row_scheduler
 
 __all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS", "is_lazy"]
 
-#: Frames whose rows a lazy series keeps in memory after fetching them (the current
-#: frame, the overlays, a few frames stepped through).
-ROW_CACHE = 16
+#: Frames of a lazy series fetched together (a step computes once per block) ...
+ROW_BLOCK = 32
+#: ... and blocks kept in memory (the current frame's, a few stepped through).
+ROW_CACHE = 4
 
 #: Accessor methods whose whole-series results the model caches.
 ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
@@ -165,6 +166,7 @@ class SeriesModel(BackgroundResults):
             self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
         self._row_cache: OrderedDict = OrderedDict()
         self._part_cache: OrderedDict = OrderedDict()
+        self._small: xr.Dataset | None = None
         self._positive_range: tuple[float, float] | None = None
         self._overview: dict = {}
         self.q = self._read_only(np.asarray(ds["q"].values, dtype=float))
@@ -240,31 +242,49 @@ class SeriesModel(BackgroundResults):
         S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
         return I, S
 
+    def _big(self) -> list[str]:
+        return [k for k in self.ds.data_vars if self.ds.variables[k].dims == ("frame", "q")]
+
     def _raw(self, frames) -> dict:
-        """The (frame, q) data variables of ``frames`` as numpy arrays, one
-        ``dask.compute`` for all (single frames cached, :data:`ROW_CACHE`)."""
+        """The (frame, q) data variables of ``frames`` (an index or a slice) as numpy
+        arrays. Frames are fetched :data:`ROW_BLOCK` at a time (one ``dask.compute``
+        for all variables) and the last :data:`ROW_CACHE` blocks kept, so stepping
+        through the series computes once per block."""
+        if isinstance(frames, (int, np.integer)):
+            i = int(frames)
+            start, block = self._raw_block(i // ROW_BLOCK)
+            return {k: v[i - start] for k, v in block.items()}
+        if isinstance(frames, slice):
+            a, b, step = frames.indices(self.n_frames)
+            if step == 1 and b > a and a // ROW_BLOCK == (b - 1) // ROW_BLOCK:
+                start, block = self._raw_block(a // ROW_BLOCK)
+                return {k: v[a - start:b - start] for k, v in block.items()}
+        return self._fetch(frames)
+
+    def _raw_block(self, n: int):
+        with self._lock:
+            hit = self._row_cache.get(n)
+            if hit is not None:
+                self._row_cache.move_to_end(n)
+                return hit
+        start = n * ROW_BLOCK
+        got = (start, self._fetch(slice(start, min(start + ROW_BLOCK, self.n_frames))))
+        with self._lock:
+            self._row_cache[n] = got
+            while len(self._row_cache) > ROW_CACHE:
+                self._row_cache.popitem(last=False)
+        return got
+
+    def _fetch(self, frames) -> dict:
         import dask
 
-        single = isinstance(frames, (int, np.integer))
-        if single:
-            i = int(frames)
-            with self._lock:
-                hit = self._row_cache.get(i)
-                if hit is not None:
-                    self._row_cache.move_to_end(i)
-                    return hit
-        names = [k for k, v in self.ds.data_vars.items() if v.dims == ("frame", "q")]
+        names = self._big()
         got = dask.compute(*[self.ds[k].data[frames] for k in names], scheduler=_row_scheduler())
         out = {}
         for k, a in zip(names, got):
             a = np.asarray(a)
             a.flags.writeable = False
             out[k] = a
-        if single:
-            with self._lock:
-                self._row_cache[i] = out
-                while len(self._row_cache) > ROW_CACHE:
-                    self._row_cache.popitem(last=False)
         return out
 
     def _lazy_rows(self, frames):
@@ -285,11 +305,18 @@ class SeriesModel(BackgroundResults):
                 if hit is not None:
                     return hit
         if self.lazy:
-            big = [k for k, v in self.ds.data_vars.items() if v.dims == ("frame", "q")]
-            out = self.ds.drop_vars(big).isel(frame=frames).compute(scheduler=_row_scheduler())
-            raw = self._raw(int(frames[0])) if one else self._raw(frames)
+            big = self._big()
+            if self._small is None:  # every variable but the (frame, q) ones, in memory once
+                self._small = self.ds.drop_vars(big).compute(scheduler=_row_scheduler())
+            small = self._small.isel(frame=frames)
+            if one:
+                raw = {k: v[None] for k, v in self._raw(int(frames[0])).items()}
+            elif isinstance(frames, slice):
+                raw = self._raw(frames)
+            else:
+                raw = self._fetch(frames)
+            out = small.assign({k: (("frame", "q"), raw[k], self.ds[k].attrs) for k in big})
             for k in big:
-                out[k] = (("frame", "q"), raw[k][None] if one else raw[k], self.ds[k].attrs)
                 out[k].encoding = dict(self.ds[k].encoding)
             out = out[list(self.ds.data_vars)]
         else:
