@@ -179,3 +179,25 @@ def test_all_nan_frame_shows_status(series):
     assert not p.p_line.visible
     p.frame = 1  # the next frame draws again
     assert p.status == "" and p.p_line.visible
+
+
+def test_trends_have_error_bars_and_a_key(series):
+    """Issue 11: error bars on trends where sigma is known, a key under the plots,
+    numbers in print form (display.format_value, nm⁻¹ not 1/nm)."""
+    import html
+
+    p = DistancePanel(series)
+    res = p.series
+    assert "Guinier Rg" in p.trend_key.value and "current frame" in p.trend_key.value
+    for bars, var in ((p.rg_bars, "rg"), (p.dmax_bars, "dmax"), (p.i0_bars, "i0")):
+        v = np.asarray(res[var].values, dtype=float)
+        sig = np.asarray(res[f"{var}_sigma"].values, dtype=float)
+        ok = np.isfinite(v)
+        if not np.isfinite(sig[ok]).any():
+            continue
+        assert bars.visible
+        y = np.asarray(bars.y, dtype=float)
+        # each bar spans value - sigma .. value + sigma (common practice)
+        np.testing.assert_allclose(y[1::3] - y[0::3], 2 * sig[ok], rtol=1e-9)
+    text = html.unescape(p.result_text.value)
+    assert "1/nm" not in text and " ± " in text and "+-" not in text

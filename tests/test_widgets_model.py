@@ -13,7 +13,7 @@ import xarray as xr
 import saxsnb
 import saxsnb.accessor.linear
 import saxsnb.accessor.phases
-from saxsnb.display import format_value
+from saxsnb.display import format_value, pretty_unit
 from saxsnb.display.report import frame_lines
 from saxsnb.errors import SaxsInputError
 from saxsnb.widgets import KratkyPanel, LinearFitPanel, SeriesBrowser, SeriesModel
@@ -193,7 +193,8 @@ def test_linear_panel_text_says_what_the_report_says(particles):
         name, _, value = line.partition(" = ")
         assert line in report
         if name != "qrg_max":  # shown with its validity colour instead
-            assert value in shown, (line, shown)
+            assert pretty_unit(value) in shown, (line, shown)  # units in print form (nm⁻¹, cm⁻¹)
+    assert "1/nm" not in shown and "1/cm" not in shown
     assert "Rg</b> = " in p.result_text.value and "q_max Rg = " in shown
     rg, sigma = float(p.result.rg[0]), float(p.result.rg_sigma[0])
     assert f"{format_value(rg, sigma, pm=' +- ')} nm" in shown  # the one number formatter

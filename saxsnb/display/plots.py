@@ -12,6 +12,8 @@ import numpy as np
 
 from ..analysis._linear import linear_plot
 from ..errors import SaxsInputError
+from .overview import block_edges as _block_edges
+from .overview import overview_map
 
 __all__ = [
     "similarity_map",
@@ -230,77 +232,6 @@ def curve_at(q, intensity, positions):
         np.where(np.isfinite(p), p, 0.0), np.asarray(q, dtype=float), np.asarray(intensity, dtype=float)
     )
     return np.where(np.isfinite(p), out, np.nan)
-
-
-def overview_map(q, intensity, *, max_rows: int = 400, max_cols: int = 400) -> dict:
-    """Downsample a series to a small map of log10 intensity over (frame, q).
-
-
-    Parameters
-    ----------
-    q : array (n_q,), 1/nm
-    intensity : array (n_frames, n_q)
-        Non-positive and non-finite points are left out of the block means.
-    max_rows, max_cols : int
-        Largest number of rows (frame blocks) and columns (q blocks) of the map.
-
-
-    Returns
-    -------
-    dict with ``log10_intensity`` (n_rows, n_cols), the mean of log10 I over each
-    block (NaN where a block holds no positive point); ``q`` (n_cols,), the
-    geometric mean q of each column block (1/nm); ``frame_start``, ``frame_stop``
-    (n_rows,), the frames ``[start, stop)`` that each row averages; ``row_step``
-    and ``col_step``, the block sizes (1 when nothing was merged).
-
-
-    Examples
-    --------
-    >>> m = overview_map(np.array([1.0, 2.0, 4.0, 8.0]), np.full((6, 4), 10.0), max_rows=3, max_cols=2)
-    >>> m["log10_intensity"].tolist(), m["frame_start"].tolist(), m["row_step"], m["col_step"]
-    ([[1.0, 1.0], [1.0, 1.0], [1.0, 1.0]], [0, 2, 4], 2, 2)
-    >>> np.round(m["q"], 3).tolist()
-    [1.414, 5.657]
-    """
-    q = np.asarray(q, dtype=float)
-    I = np.asarray(intensity, dtype=float)
-    if I.ndim != 2 or I.shape[1] != q.size:
-        raise SaxsInputError(
-            f"intensity has shape {I.shape}; expected (n_frames, {q.size})", parameter="intensity"
-        )
-    n_f, n_q = I.shape
-    rows = _block_edges(n_f, max_rows)
-    cols = _block_edges(n_q, max_cols)
-    ok = np.isfinite(I) & (I > 0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        logI = np.where(ok, np.log10(np.where(ok, I, 1.0)), 0.0)
-    total = np.add.reduceat(np.add.reduceat(logI, rows, axis=0), cols, axis=1)
-    count = np.add.reduceat(np.add.reduceat(ok.astype(float), rows, axis=0), cols, axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mean = np.where(count > 0, total / np.where(count > 0, count, 1.0), np.nan)
-        qpos = q > 0
-        lq = np.where(qpos, np.log(np.where(qpos, q, 1.0)), 0.0)
-        qsum = np.add.reduceat(lq, cols)
-        qcount = np.add.reduceat(qpos.astype(float), cols)
-        qmean = np.where(
-            qcount > 0,
-            np.exp(qsum / np.where(qcount > 0, qcount, 1.0)),
-            np.add.reduceat(q, cols) / np.diff(np.append(cols, n_q)),
-        )
-    return {
-        "log10_intensity": mean,
-        "q": qmean,
-        "frame_start": rows,
-        "frame_stop": np.append(rows[1:], n_f),
-        "row_step": int(rows[1] - rows[0]) if rows.size > 1 else 1,
-        "col_step": int(cols[1] - cols[0]) if cols.size > 1 else 1,
-    }
-
-
-def _block_edges(n: int, max_blocks: int) -> np.ndarray:
-    """Start indices of at most ``max_blocks`` contiguous blocks covering ``range(n)``."""
-    k = max(1, int(np.ceil(n / max(1, int(max_blocks)))))
-    return np.arange(0, n, k)
 
 
 def errorbar_segments(q, intensity, sigma, *, floor: float | None = None):

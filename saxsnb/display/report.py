@@ -51,8 +51,9 @@ def _main_vars(ds) -> list[str]:
     op = str(ds.attrs.get("operation", ""))
     names = _MAIN.get(op)
     if names is None:
-        names = [k for k, v in ds.data_vars.items()
-                 if v.dims == ("frame",) and v.dtype.kind == "f" and not k.endswith("_sigma")]
+        var = ds.variables
+        names = [k for k in ds.data_vars
+                 if var[k].dims == ("frame",) and var[k].dtype.kind == "f" and not k.endswith("_sigma")]
     return [n for n in names if n in ds.data_vars]
 
 
@@ -123,15 +124,16 @@ def frame_lines(ds, index: int) -> list[str]:
     ['status: ok', 'rg = 2.000 +- 0.017 nm']
     """
     lines = []
+    var = ds.variables  # Variables, not DataArrays: this runs at every frame step of a panel
     if "status" in ds.data_vars:
-        code = str(np.asarray(ds["status"].values)[index])
+        code = str(np.asarray(var["status"].values)[index])
         lines.append(f"status: {code}" if code == "ok" else f"status: {code} ({status_message(code)})")
     for name in _main_vars(ds):
-        da = ds[name]
-        if da.dims != ("frame",):
+        v = var[name]
+        if v.dims != ("frame",):
             continue
-        sig = ds[f"{name}_sigma"].values[index] if f"{name}_sigma" in ds.data_vars else None
-        lines.append(f"{name} = {_fmt(float(da.values[index]), da.attrs.get('units', ''), sig)}")
+        sig = var[f"{name}_sigma"].values[index] if f"{name}_sigma" in ds.data_vars else None
+        lines.append(f"{name} = {_fmt(float(v.values[index]), v.attrs.get('units', ''), sig)}")
     return lines
 
 

@@ -22,6 +22,16 @@ intensity and sigma once, the whole-series results cached by (analysis, paramete
 and the current frame. ``explore()`` builds one; a panel made alone makes its own;
 every panel takes a Dataset or a model as its first argument.
 
+Big and lazy series: ``explore()`` on a series larger than
+``dashboard.DEFER_SIZE`` points, or dask-backed, returns at once with the current
+frame drawn and computes the whole-series results (automatic fits of every frame,
+peak search and indexing, shape summary) in a background thread (a dask series on
+the active distributed client, if any), updating the trends when they arrive; the
+line above the panels shows what is running (``dashboard.wait()`` blocks until it is
+done; ``explore(..., wait=True)`` computes everything first). On a dask series the
+panels hold only what they show: the frames drawn (fetched on demand), an overview
+map of block means of log10 I reduced chunk by chunk, and per-frame results.
+
 Every panel (:class:`PanelBase`) has the traits ``frame`` (int), ``result`` (read-only
 xarray.Dataset for the current choices), ``status`` (str, "" when no error; also shown
 in ``panel.status_line``), ``last_error`` (the exception behind it, or None) and

@@ -208,6 +208,16 @@ def _recipe_lines(ds, name: str) -> list[str] | None:
     return [line for line in code.splitlines() if line.strip() and line != "import saxsnb"]
 
 
+def _cached_recipe(model: SeriesModel, ds, name: str) -> list[str] | None:
+    """:func:`_recipe_lines`, kept per model (the recipe of a series never changes; it is
+    asked for at every frame step, as ``code`` follows ``result``)."""
+    cache = model.__dict__.setdefault("_recipe_cache", {})
+    key = (id(ds), name)
+    if key not in cache:
+        cache[key] = (ds, _recipe_lines(ds, name))  # the Dataset is kept: its id stays its own
+    return cache[key][1]
+
+
 def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, name: str | None = None,
                 background_name: str | None = None) -> str:
     """The code of one or more panels: the recipe of the series (and of the background
@@ -222,7 +232,7 @@ def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, na
     uses_bg = "background" in _names_in(body)
     out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
     series = checked_name(name) or model.name or "ds"
-    rec = _recipe_lines(model.ds, series)
+    rec = _cached_recipe(model, model.ds, series)
     if rec is None:
         series = checked_name(name) or (model.name if model.name_given else None) or "ds"
         out.append(f"# {series}: the series was made in memory (no history of files to rebuild it "
@@ -236,7 +246,7 @@ def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, na
         bg_name = f"{series}_background"
     if uses_bg:
         bg = model.background if background is None else background
-        brec = None if bg is None else _recipe_lines(bg, bg_name)
+        brec = None if bg is None else _cached_recipe(model, bg, bg_name)
         if brec is None:
             if not (background_name or model.background_name_given):
                 bg_name = "background" if series != "background" else "ds_background"
@@ -244,7 +254,7 @@ def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, na
                        "define it before this code")
         elif set(brec) <= set(rec or ()):
             pass  # already read by the series' own recipe under this name
-        elif bg_name != "background" and set(_recipe_lines(bg, "background")) <= set(rec or ()):
+        elif bg_name != "background" and set(_cached_recipe(model, bg, "background") or ()) <= set(rec or ()):
             out.append(f"{bg_name} = background")  # the background the series' recipe read
         else:
             out += brec

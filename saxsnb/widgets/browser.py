@@ -7,7 +7,7 @@ import html
 import ipywidgets as widgets
 import numpy as np
 
-from ..display import colour_bar_ticks, fill_missing, overview_map
+from ..display import colour_bar_ticks, fill_missing
 from . import _bq as bq
 from .base import PanelBase, control_row, make_figure
 from .palette import MAP_SCHEME, ROLE
@@ -78,7 +78,7 @@ class SeriesBrowser(PanelBase):
         widgets.link((self.slider, "value"), (self, "frame"))
         self.label = widgets.HTML("")
 
-        omap = overview_map(self.q, self.model.masked()[0], max_rows=self._max_rows, max_cols=self._max_cols)
+        omap = self.model.overview(self._max_rows, self._max_cols)  # block by block (chunks when lazy)
         self.overview = omap
         centre = (omap["frame_start"] + omap["frame_stop"] - 1) // 2
         y = self.scan_values[centre] if self._monotonic() else centre.astype(float)
@@ -214,7 +214,7 @@ class SeriesBrowser(PanelBase):
         with self.marker.hold_sync():
             self.marker.y = np.array([float(y), float(y)])
         self.label.value = f"<b>{html.escape(self.frame_label(i))}</b> of {self.n_frames} frames"
-        self._set_result(self.ds.isel(frame=[i]))
+        self._set_result(self.model.part([i]))
         self.status = ""
 
     def _code_lines(self, target: str) -> list[str]:

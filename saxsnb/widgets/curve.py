@@ -233,7 +233,7 @@ class CurvePanel(PanelBase):
 
     def _on_overlay(self, change=None) -> None:
         self._draw_overlays()
-        self._set_result(self.ds.isel(frame=self.shown_frames()))
+        self._set_result(self.model.part(self.shown_frames()))
 
     def _draw_overlays(self) -> None:
         frames = self.overlay_frames()
@@ -290,7 +290,7 @@ class CurvePanel(PanelBase):
         if self.background is not None and self.show_background and self.background.sizes["frame"] > 1:
             self._draw_background()
         self._draw_key()
-        self._set_result(self.ds.isel(frame=self.shown_frames()))
+        self._set_result(self.model.part(self.shown_frames()))
         self.status = self._background_note
 
     def _code_lines(self, target: str) -> list[str]:

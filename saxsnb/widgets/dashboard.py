@@ -33,6 +33,9 @@ BRAGG_PANELS = ("browser", "curve", "peaks")
 SAMPLED_FRAMES = 5
 #: Panels added when a background is given.
 BACKGROUND_PANELS = ("preparation",)
+#: Series larger than this (frames x q points) get their whole-series results in the
+#: background (``explore(..., wait=None)``); a dask-backed series always does.
+DEFER_SIZE = 2_000_000
 
 
 class PanelSet(dict):
@@ -102,6 +105,11 @@ class Dashboard(widgets.VBox):
         targets = [model] if model is not None else list(self.panels.values())
         self._links = [traitlets.link((t, "frame"), (self, "frame")) for t in targets]
         self.status_line = widgets.HTML("")
+        #: What the panels compute in the background, with its progress ("" when idle).
+        self.progress_line = widgets.HTML("")
+        if model is not None:
+            model.observe(self._show_busy, "busy")
+            self._show_busy()
         for p in self.panels.values():
             p.observe(self._collect_status, "status")
         self._collect_status()  # statuses set while the panels were built
@@ -121,12 +129,26 @@ class Dashboard(widgets.VBox):
         self.download = widgets.HTML("")
         self.children = [
             self.reason_line,
+            self.progress_line,
             *self._arrange(),
             control_row([self.export_button, self.table_button]),
             self.download,
             self.code_area,
             self.status_line,
         ]
+
+    def _show_busy(self, change=None) -> None:
+        text = self.model.busy if self.model is not None else ""
+        self.progress_line.value = (
+            f'<small class="saxsnb-busy">&#8987; {html.escape(text)}; the panels update when '
+            "the results arrive</small>" if text else ""
+        )
+
+    def wait(self, timeout: float | None = None) -> Dashboard:
+        """Block until the whole-series results computed in the background are in and
+        drawn (``SeriesModel.wait``); returns the dashboard."""
+        self._model().wait(timeout)
+        return self
 
     def _arrange(self) -> list[widgets.Widget]:
         ps = list(self.panels.values())
@@ -313,6 +335,7 @@ def explore(
     frame: int = 0,
     name: str | None = None,
     background_name: str | None = None,
+    wait: bool | None = None,
 ) -> Dashboard:
     """Open the linked panels of a series in a notebook.
 
@@ -335,6 +358,14 @@ def explore(
     name, background_name : str, optional
         Variable names of the series and background in exported code (default:
         the caller's own variables holding them, found by identity, else ``ds``).
+    wait : bool, optional
+        True: compute the whole-series results (automatic fits over every frame, the
+        peak search and indexing, the shape summary) before returning. False: return
+        at once with the current frame drawn, compute them in a background thread
+        (on the active dask distributed client for a dask series) and update the
+        trends when they arrive, the progress shown above the panels
+        (``dashboard.wait()`` blocks until then). Default: False for a dask-backed
+        series or one larger than :data:`DEFER_SIZE` points, else True.
 
     Returns
     -------
@@ -350,7 +381,10 @@ def explore(
     The panels share one :class:`~saxsnb.widgets.model.SeriesModel`
     (``dashboard.model``): the masked arrays exist once, and each whole-series
     analysis (the automatic Guinier fit, the peak search and indexing) runs once
-    whichever panels use it.
+    whichever panels use it. On a dask-backed series the panels hold only what they
+    show: the frames drawn (fetched on demand), an overview map of block means of
+    log10 I reduced chunk by chunk, and the per-frame results; the whole (frame, q)
+    arrays are never loaded.
     """
     from ..errors import SaxsInputError
 
@@ -369,6 +403,9 @@ def explore(
     # the preparation panel (frame x frame similarity map) is shown when asked for by name:
     # explore(ds, bg, panels=(*DEFAULT_PANELS, "preparation"))
     model = SeriesModel(ds)
+    if wait is None:
+        wait = not (model.lazy or model.n_frames * model.q.size > DEFER_SIZE)
+    model.deferred = not wait
     model.name = checked_name(name) or caller_variable(ds)
     model.name_given = name is not None
     model.background = background

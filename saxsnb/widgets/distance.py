@@ -2,26 +2,21 @@
 
 from __future__ import annotations
 
+import html
+
 import ipywidgets as widgets
 import numpy as np
 import traitlets
 
-from ..display import finite_points, value_range
+from ..display import errorbar_segments, finite_points, format_value, value_range
 from . import _bq as bq
-from .base import DatasetTrait, PanelBase, checked_range, control_row, make_figure
+from .base import DatasetTrait, PanelBase, checked_range, control_row, key_html, make_figure
 from .palette import OKABE_ITO, ROLE
 
 __all__ = ["DistancePanel"]
 
 #: Log-evidence units shown below the best Dmax candidate in the evidence plot.
 EVIDENCE_SPAN = 60.0
-
-
-def _fmt(v, unit: str = "") -> str:
-    v = float(v)
-    if not np.isfinite(v):
-        return "n/a"
-    return f"{v:.4g}" + (f" {unit}" if unit else "")
 
 
 class DistancePanel(PanelBase):
@@ -125,7 +120,8 @@ class DistancePanel(PanelBase):
         self.p_zero = bq.Lines(x=np.zeros(2), y=np.zeros(2), scales={"x": rs, "y": ps},
                                colors=[ROLE["reference"]], line_style="dashed", stroke_width=1.0)
         pfig = make_figure([self.p_zero, self.band, self.p_line], rs, ps, x_label="r (nm)",
-                           y_label=f"p(r) ({self.intensity_units}/nm)", title="p(r) +- sigma", height="260px")
+                           y_label=f"p(r) ({self.intensity_units}/nm)", title="p(r) \u00b1 \u03c3",
+                           height="260px")
         self._rs, self._ps = rs, ps
         es, ss = bq.LinearScale(), bq.LinearScale()
         self.score = bq.Lines(x=np.zeros(2), y=np.zeros(2), scales={"x": es, "y": ss}, colors=[ROLE["trend"]],
@@ -144,22 +140,27 @@ class DistancePanel(PanelBase):
                                                  size=12)
         self.trend_current = bq.Lines(x=np.zeros(2), y=np.array([0.0, 1.0]), scales=tsc,
                                       colors=[ROLE["current"]], stroke_width=1.5)
-        tfig = make_figure([self.trend_rg, self.trend_guinier, self.trend_current], tx, ty,
+        # +-sigma bars of the trend points (the transform's standard errors)
+        self.rg_bars = self._bars(tsc, ROLE["trend"])
+        tfig = make_figure([self.rg_bars, self.trend_rg, self.trend_guinier, self.trend_current], tx, ty,
                            x_label=self.scan_label, y_label="Rg (nm)",
-                           title="Rg: p(r) (green) and Guinier (blue squares); click a point",
+                           title="Rg from p(r) and from Guinier (click a point)",
                            height="220px", x_limits=self.scan_limits)
         dx, dy = bq.LinearScale(), bq.LinearScale()
         self.trend_dmax = bq.clickable_points({"x": dx, "y": dy}, ROLE["trend"], "Dmax")
         self.dmax_current = bq.Lines(x=np.zeros(2), y=np.array([0.0, 1.0]), scales={"x": dx, "y": dy},
                                      colors=[ROLE["current"]], stroke_width=1.5)
-        dfig = make_figure([self.trend_dmax, self.dmax_current], dx, dy, x_label=self.scan_label,
+        self.dmax_bars = self._bars({"x": dx, "y": dy}, ROLE["trend"])
+        dfig = make_figure([self.dmax_bars, self.trend_dmax, self.dmax_current], dx, dy,
+                           x_label=self.scan_label,
                            y_label="Dmax (nm)", title="Dmax over the series", height="200px",
                            x_limits=self.scan_limits)
         ix, iy = bq.LinearScale(), bq.LinearScale()
         self.trend_i0 = bq.clickable_points({"x": ix, "y": iy}, OKABE_ITO["reddish_purple"], "I0 from p(r)")
         self.i0_current = bq.Lines(x=np.zeros(2), y=np.array([0.0, 1.0]), scales={"x": ix, "y": iy},
                                    colors=[ROLE["current"]], stroke_width=1.5)
-        ifig = make_figure([self.trend_i0, self.i0_current], ix, iy, x_label=self.scan_label,
+        self.i0_bars = self._bars({"x": ix, "y": iy}, OKABE_ITO["reddish_purple"])
+        ifig = make_figure([self.i0_bars, self.trend_i0, self.i0_current], ix, iy, x_label=self.scan_label,
                            y_label=f"I0 ({self.intensity_units})", title="I0 from p(r) over the series",
                            height="200px", x_limits=self.scan_limits)
         for m in (self.trend_rg, self.trend_guinier, self.trend_dmax, self.trend_i0):
@@ -191,11 +192,24 @@ class DistancePanel(PanelBase):
         self.selector.observe(self._on_selected, "selected")
         self.result_text = widgets.HTML("")
         self.trend_note = widgets.HTML("")
+        #: The key of the trend plots (under them: a legend box inside would hide points).
+        self.trend_key = widgets.HTML(key_html([
+            (ROLE["trend"], "&#9679;", "Rg, Dmax from p(r) (\u00b1\u03c3)"),
+            (OKABE_ITO["blue"], "&#9632;", "Guinier Rg"),
+            (OKABE_ITO["reddish_purple"], "&#9679;", "I0 from p(r) (\u00b1\u03c3)"),
+            (ROLE["current"], "&#9474;", "current frame"),
+        ]))
         self._guinier_rg = self._guinier()
         self._series_for(None)
         controls = [control_row([self.dmax_text, self.dmax_auto, self.weight_slider, self.weight_auto]),
                     control_row([self.range_button, self.apply_button])]
-        return [*controls, fig, rfig, self.result_text, pfig, efig, self.trend_note, tfig, dfig, ifig]
+        return [*controls, fig, rfig, self.result_text, pfig, efig, self.trend_note, tfig, dfig, ifig,
+                self.trend_key]
+
+    @staticmethod
+    def _bars(scales, colour):
+        return bq.Lines(x=np.zeros(2), y=np.zeros(2), scales=scales, colors=[colour], stroke_width=1.0,
+                        visible=False)
 
     def _guinier(self) -> np.ndarray:
         try:
@@ -222,10 +236,18 @@ class DistancePanel(PanelBase):
             return
         self.set_trait("series", res)
         self._series_params = params
-        self._draw_points(self.trend_rg, res["rg"].values)
+        trends = ((self.trend_rg, self.rg_bars, "rg"), (self.trend_dmax, self.dmax_bars, "dmax"),
+                  (self.trend_i0, self.i0_bars, "i0"))
+        for mark, bars, var in trends:
+            self._draw_points(mark, res[var].values)
+            sig = f"{var}_sigma"
+            x, y, kept = finite_points(self.scan_values, res[var].values)
+            s_ = np.asarray(res[sig].values, dtype=float)[kept] if sig in res else np.zeros(0)
+            if x.size and np.isfinite(s_).any():
+                self._set_line(bars, *errorbar_segments(x, y, s_))
+            elif bars.visible:
+                bars.visible = False
         self._draw_points(self.trend_guinier, self._guinier_rg)
-        self._draw_points(self.trend_dmax, res["dmax"].values)
-        self._draw_points(self.trend_i0, res["i0"].values)
         bad = [f"{k}: {v}" for k, v in zip(*np.unique(res["status"].values, return_counts=True)) if k != "ok"]
         what = "with the panel's choices" if params else "automatic Dmax and weight"
         self.trend_note.value = (f"<small>series ({what}): frames not 'ok': "
@@ -415,13 +437,15 @@ class DistancePanel(PanelBase):
         if np.isfinite(chan) and chan < 5:
             note = (" <i>(few Shannon channels: Dmax and the shape of p(r) are poorly determined; "
                     "Rg and I0 are the robust numbers)</i>")
+        fmt = format_value
+        fixed_d = "" if self.dmax is None else " (fixed)"
+        fixed_w = "" if self.weight is None else " (fixed)"
         return (
-            f"Rg = {_fmt(g('rg'))} +- {_fmt(g('rg_sigma'), 'nm')} (Guinier {_fmt(grg, 'nm')}); "
-            f"I0 = {_fmt(g('i0'))} +- {_fmt(g('i0_sigma'))}; Dmax = {_fmt(g('dmax'))} +- "
-            f"{_fmt(g('dmax_sigma'), 'nm')}{'' if self.dmax is None else ' (fixed)'}; weight "
-            f"{_fmt(g('weight'))}{'' if self.weight is None else ' (fixed)'}; chi2_red "
-            f"{_fmt(g('chi2_reduced'))}; Shannon channels {_fmt(chan)}; status <b>{g('status')}</b>{note}"
-        )
+            f"Rg = {fmt(g('rg'), g('rg_sigma'), 'nm')} (Guinier {fmt(grg, unit='nm')}); "
+            f"I0 = {fmt(g('i0'), g('i0_sigma'))}; Dmax = {fmt(g('dmax'), g('dmax_sigma'), 'nm')}{fixed_d}; "
+            f"weight {fmt(g('weight'))}{fixed_w}; chi2_red {fmt(g('chi2_reduced'))}; "
+            f"Shannon channels {fmt(chan)}; status <b>{html.escape(str(g('status')))}</b>{note}"
+        ).replace(" ± ", " &plusmn; ")
 
     def _code_lines(self, target: str) -> list[str]:
         if self._choice is None:

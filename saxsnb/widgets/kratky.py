@@ -19,6 +19,7 @@ from ..display import (
     scaled_sigma,
     value_range,
 )
+from ..display.overview import sample_frames
 from . import _bq as bq
 from .base import DatasetTrait, PanelBase, key_html, make_figure, set_ticks
 from .palette import OKABE_ITO, ROLE
@@ -92,10 +93,17 @@ class KratkyPanel(PanelBase):
 
     # ------------------------------------------------------------------ build
     def _build(self):
-        try:
-            self.set_trait("summary", self.model.result("kratky_summary"))
-        except Exception as exc:  # shown in the status line
-            self.report(exc, "Kratky summary of the series")
+        self._built = False
+        #: "auto" form waiting for the summary computed in the background
+        self._auto_pending = False
+        later = self.model.deferred and self.model.peek("kratky_summary") is None
+        if not later:
+            try:
+                self.set_trait("summary", self.model.result("kratky_summary"))
+            except Exception as exc:  # shown in the status line
+                self.report(exc, "Kratky summary of the series")
+        elif self._init_normalize == "auto":
+            self._auto_pending, self._init_normalize = True, None  # plain until the summary is in
         if self._init_normalize == "auto":
             rg = None if self.summary is None else np.asarray(self.summary["rg"].values, dtype=float)
             self._init_normalize = "rg" if rg is not None and np.isfinite(rg).any() else None
@@ -198,12 +206,39 @@ class KratkyPanel(PanelBase):
         )
         self.toggle.observe(self._on_toggle, "value")
         self.summary_text = widgets.HTML("")
-        if self.summary is not None:
-            for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
-                x, y, frames = finite_points(self.scan_values, self.summary[var].values)
-                if self._set_points(mark, x, y):
-                    self._point_frames[id(mark)] = frames
+        self._key_entries = key
+        self._draw_summary()
+        if later:
+            self.trend_key.value = key_html([*key, (ROLE["reference"], "&#8987;",
+                                                    "shape summary being computed in the background")])
+            self.model.when_ready("kratky_summary", self._summary_arrived)
+        self._built = True
         return [self.toggle, fig, self.summary_text, tfig, self.trend_key]
+
+    def _draw_summary(self) -> None:
+        if self.summary is None:
+            return
+        for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
+            x, y, frames = finite_points(self.scan_values, self.summary[var].values)
+            if self._set_points(mark, x, y):
+                self._point_frames[id(mark)] = frames
+
+    def _summary_arrived(self, res, exc) -> None:
+        """The shape summary computed in the background: draw its trend and, for the
+        "auto" form, switch to the dimensionless plot when some frame has an Rg."""
+        self.trend_key.value = key_html(self._key_entries)
+        if exc is not None:
+            self.report(exc, "Kratky summary of the series")
+            return
+        self.set_trait("summary", res)
+        self._draw_summary()
+        if self._auto_pending:
+            self._auto_pending = False
+            if np.isfinite(np.asarray(res["rg"].values, dtype=float)).any():
+                self.normalize = "rg"  # redraws
+                return
+        if self._built:
+            self._update()
 
     def table_result(self):
         """``kratky_summary()`` of the whole series (the dashboard's table)."""
@@ -218,7 +253,10 @@ class KratkyPanel(PanelBase):
 
     # ----------------------------------------------------------------- update
     def _guinier(self):
-        """The model's automatic Guinier fit of every frame (None when it failed)."""
+        """The model's automatic Guinier fit of every frame (None when it failed, or
+        while a deferred model computes it in the background)."""
+        if self.model.deferred:
+            return self.model.peek("guinier")
         try:
             return self.model.result("guinier")
         except Exception as exc:  # shown in the status line
@@ -243,7 +281,7 @@ class KratkyPanel(PanelBase):
         key = (self.normalize, start)
         if self._block is None or self._block[0] != key:
             frames = slice(start, min(start + BLOCK, self.n_frames))
-            part = self.ds.isel(frame=frames)
+            part = self.model.part(frames)  # in memory (on a lazy series only these frames)
             if self.normalize != "rg":
                 da = part.saxs.kratky(normalize=None)
             else:
@@ -296,12 +334,20 @@ class KratkyPanel(PanelBase):
 
     def _set_ranges(self) -> None:
         """Fixed axis ranges per form, the same for every frame (curves compare while
-        stepping; hidden reference lines do not stretch the plain plot). The whole
-        series' transform is computed for this once per form and not kept."""
+        stepping; hidden reference lines do not stretch the plain plot). The transform
+        of at most 256 evenly spaced frames (all of a shorter series; 16 of a lazy
+        series) is computed for this once per form and not kept."""
         key = self.normalize or "plain"
         if self._range_key == key:
             return
-        values = np.asarray(self.model.compute("kratky", normalize=self.normalize).values, dtype=float)
+        # from at most 256 evenly spaced frames (every frame of a shorter series; 16 of
+        # a lazy one, whose chunks would each be read for it)
+        sample = sample_frames(self.n_frames, 16 if self.model.lazy else 256)
+        part = self.model.part(list(sample))
+        g = self._guinier() if self.normalize == "rg" else None
+        given = {} if g is None else {"guinier": g.isel(frame=sample)}
+        da = part.saxs.kratky(normalize=self.normalize, **given)
+        values = np.asarray(da.values, dtype=float)
         if key == "rg":
             rg = self._rg_values()
             top = float(self.q.max() * np.nanmax(rg)) if np.isfinite(rg).any() else 12.0

@@ -243,11 +243,7 @@ class LinearFitPanel(PanelBase):
             x_limits=self.scan_limits,
         )
         self.figures = [fig, rfig, tfig]
-        self.trend_key = widgets.HTML(key_html([
-            (ROLE["trend"], "&#9679;", f"automatic range (\u00b1\u03c3{self.size_label})"),
-            (OKABE_ITO["orange"], "&#9632;", "range applied to all frames"),
-            (ROLE["current"], "&#9670;", "current frame"),
-        ]))
+        self.trend_key = widgets.HTML(self._key())
 
         self.auto_button = widgets.Button(
             description="Automatic range",
@@ -281,6 +277,12 @@ class LinearFitPanel(PanelBase):
             return f"{self.intensity_units} nm^-4"
         return "nm"
 
+    def _analysis(self, q_range) -> tuple[str, dict]:
+        key = None if q_range is None else (float(q_range[0]), float(q_range[1]))
+        if self.method == "porod":
+            return "porod", {"q_range": key}
+        return "guinier", {"q_range": key, "shape": self.shape}
+
     def series_result(self, q_range=None):
         """The fit of every frame with ``q_range`` (None: automatic), from the model's
         cache (``model.result``: computed once, also for a dask series).
@@ -288,10 +290,33 @@ class LinearFitPanel(PanelBase):
         A frame's fit equals that frame of the series fit (batch equals loop), so a
         frame step only indexes it; a new range fits the whole series once.
         """
-        key = None if q_range is None else (float(q_range[0]), float(q_range[1]))
-        if self.method == "porod":
-            return self.model.result("porod", q_range=key)
-        return self.model.result("guinier", q_range=key, shape=self.shape)
+        analysis, params = self._analysis(q_range)
+        return self.model.result(analysis, **params)
+
+    def _series_now(self, q_range):
+        """The series fit if it is ready; on a deferred model it is started in the
+        background (the panel redraws when it arrives) and None is returned. A fixed
+        range on an in-memory series is fitted at once (one vectorised fit)."""
+        if not self.model.deferred or (q_range is not None and not self.model.lazy):
+            return self.series_result(q_range)
+        analysis, params = self._analysis(q_range)
+        res = self.model.peek(analysis, **params)
+        if res is None:
+            self.model.when_ready(analysis, lambda r, e: self._series_arrived(q_range, r, e), **params)
+        return res
+
+    def _series_arrived(self, q_range, res, exc) -> None:
+        if q_range is None:
+            self._auto_arrived(res, exc)
+        if q_range == self.q_range:
+            self._update()
+
+    def _frame_fit(self, i: int, q_range):
+        """The fit of frame ``i`` alone (while the series fit is computed in the
+        background): ``ds.isel(frame=[i]).saxs.<fit>``, equal to that frame of the
+        series fit."""
+        analysis, params = self._analysis(q_range)
+        return getattr(self.model.part([i]).saxs, analysis)(**params).compute()
 
     def table_result(self):
         """The fit of every frame with the current range (the dashboard's table)."""
@@ -301,11 +326,28 @@ class LinearFitPanel(PanelBase):
             return self._auto_series
 
     def _compute_trend(self) -> None:
-        try:
-            self._auto_series = self.series_result(None)
-        except Exception as exc:  # shown in the status line
+        analysis, params = self._analysis(None)
+        if not self.model.when_ready(analysis, self._auto_arrived, **params):
+            self.trend_key.value = self._key(pending=True)
+
+    def _key(self, pending: bool = False) -> str:
+        entries = [
+            (ROLE["trend"], "&#9679;", f"automatic range (\u00b1\u03c3{self.size_label})"),
+            (OKABE_ITO["orange"], "&#9632;", "range applied to all frames"),
+            (ROLE["current"], "&#9670;", "current frame"),
+        ]
+        if pending:
+            entries.append((ROLE["reference"], "&#8987;", "every frame is being fitted in the background"))
+        return key_html(entries)
+
+    def _auto_arrived(self, res, exc) -> None:
+        if exc is not None:
             self.report(exc, "automatic fit of the series")
             return
+        if res is self._auto_series:
+            return
+        self._auto_series = res
+        self.trend_key.value = self._key()
         values = self._auto_series[self.size_var].values
         self._draw_points(self.trend, values)
         sig = f"{self.size_var}_sigma"
@@ -373,23 +415,28 @@ class LinearFitPanel(PanelBase):
     def _update(self, frame_only: bool = False) -> None:
         i = self.frame
         try:
-            series = self.series_result(self.q_range)
+            series = self._series_now(self.q_range)
+            if series is None:  # the series fit is being computed: this frame alone
+                one, k = self._frame_fit(i, self.q_range), 0
+            else:
+                one, k = series, i
         except Exception as exc:
             self.report(exc, "fit")
             return
         self._result_choice = (self.q_range, self.apply_to_all, i)
         if self.apply_to_all:
-            if not frame_only or self.result is not series:
+            if series is not None and (not frame_only or self.result is not series):
                 self._set_result(series)
                 self._draw_fixed_trend(series)
         else:
-            self._set_result(series.isel(frame=[i]))
+            self._set_result(one if series is None else series.isel(frame=[i]))
             if not frame_only and self.trend_fixed.visible:
                 self.trend_fixed.visible = False
-        vals = {k: float(v.values[i]) for k, v in series.data_vars.items() if v.dtype.kind in "fiu"}
-        fstatus = str(series["status"].values[i]) if "status" in series else "ok"
+        var = one.variables
+        vals = {name: float(var[name].values[k]) for name in one.data_vars if var[name].dtype.kind in "fiu"}
+        fstatus = str(var["status"].values[k]) if "status" in one.data_vars else "ok"
         self._draw(i, vals)
-        self.result_text.value = self._result_html(series, i, vals)
+        self.result_text.value = self._result_html(one, k, vals)
         self.status = "" if fstatus == "ok" else f"{self.frame_label(i)}: {fstatus}"
 
     def _draw_fixed_trend(self, res_all) -> None:
@@ -479,13 +526,14 @@ class LinearFitPanel(PanelBase):
             name, sep, value = line.partition(" = ")
             if name == "qrg_max":
                 continue  # shown coloured below
-            text = html.escape(value).replace(" +- ", " &plusmn; ")
+            text = html.escape(pretty_unit(value)).replace(" +- ", " &plusmn; ")  # units as nm⁻¹
             rows.append(f"{labels.get(name, html.escape(name))} = {text}" if sep else html.escape(line))
         rng = "automatic" if self.q_range is None else "fixed"
         v = lambda k: vals.get(k, np.nan)  # noqa: E731
         n_points = int(v("n_points")) if np.isfinite(v("n_points")) else 0
+        q_unit = html.escape(pretty_unit(self.q_units))
         rows.append(
-            f"q range ({rng}) = {_number(v('q_min'))} .. {_number(v('q_max'), html.escape(self.q_units))}, "
+            f"q range ({rng}) = {_number(v('q_min'))} .. {_number(v('q_max'), q_unit)}, "
             f"{n_points} points"
         )
         if self.plot.limit is not None:

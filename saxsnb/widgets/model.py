@@ -3,8 +3,8 @@
 A :class:`SeriesModel` holds what every panel of a series needs, computed once:
 
 - the validated Dataset (``ds``, never modified), its intensity, sigma and mask as
-  numpy arrays once (read-only views of the series' own arrays, loaded once for a
-  dask series), ``q``, the scan name, values and units. Panels read the masked
+  numpy arrays once (read-only views of the series' own arrays; the dask arrays of a
+  lazy series, never loaded whole), ``q``, the scan name, values and units. Panels read the masked
   intensity and sigma (masked points NaN) through :meth:`SeriesModel.rows` (a frame
   or a few) and :meth:`SeriesModel.masked` (all frames, for a one-off summary): the
   mask is applied on reading, so no masked copy of the series is ever kept (a
@@ -23,6 +23,13 @@ automatic Guinier fit behind ``kratky_summary`` and the dimensionless ``kratky``
 ``model.result("find_peaks", **peaks)`` when ``peaks`` is a dict of options. So
 :func:`saxsnb.explore` fits each whole series once whatever the panels ask.
 
+A deferred model (``model.deferred = True``: :func:`saxsnb.explore` on a big or lazy
+series) computes whole-series results in one background thread instead
+(:meth:`SeriesModel.when_ready`, :meth:`SeriesModel.wait`, the ``busy`` trait). A
+dask-backed series is never loaded whole: :meth:`SeriesModel.rows` and
+:meth:`SeriesModel.part` compute the frames asked for only, :meth:`SeriesModel.overview`
+reduces chunk by chunk, and :meth:`SeriesModel.masked` refuses.
+
 :func:`saxsnb.explore` builds one model and gives it to every panel; a panel made
 alone (``LinearFitPanel(ds)``) makes its own. Every panel accepts a Dataset or a
 model as its first argument.
@@ -32,8 +39,11 @@ from __future__ import annotations
 
 import inspect
 import keyword
+import queue
+import threading
 from collections import OrderedDict
 from collections.abc import Mapping
+from concurrent.futures import Future
 from typing import Any
 
 import numpy as np
@@ -42,10 +52,17 @@ import xarray as xr
 
 from ..accessor import SaxsAccessor
 from ..display import positive_range
+from ..display.overview import overview_block, overview_combine, overview_edges, sample_frames
 from ..errors import SaxsInputError
 from ..series import main_scan, validate
+from ._background import BackgroundResults, _row_scheduler
 
-__all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS"]
+__all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS", "is_lazy"]
+
+#: Frames of a lazy series fetched together (a step computes once per block) ...
+ROW_BLOCK = 32
+#: ... and blocks kept in memory (the current frame's, a few stepped through).
+ROW_CACHE = 4
 
 #: Accessor methods whose whole-series results the model caches.
 ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
@@ -82,12 +99,18 @@ def _freeze(value) -> Any:
     return value
 
 
+def is_lazy(da) -> bool:
+    """Whether a DataArray (or array) is backed by a dask array."""
+    data = getattr(da, "data", da)
+    return hasattr(data, "dask") and hasattr(data, "chunks")
+
+
 def as_model(source) -> SeriesModel:
     """``source`` if it is a :class:`SeriesModel`, else a new model of the series."""
     return source if isinstance(source, SeriesModel) else SeriesModel(source)
 
 
-class SeriesModel(traitlets.HasTraits):
+class SeriesModel(BackgroundResults):
     """One series shared by linked panels (see the module docstring).
 
     Parameters
@@ -122,11 +145,30 @@ class SeriesModel(traitlets.HasTraits):
     def __init__(self, ds: xr.Dataset, *, frame: int = 0, max_results: int = 12, **kwargs):
         self.ds = validate(ds)
         self.n_frames = int(ds.sizes["frame"])
-        # the series' own arrays (views; a dask series is loaded here, once)
-        self._intensity = self._read_only(ds["intensity"].values)
-        self._sigma = self._read_only(ds["sigma"].values)
-        self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
+        #: Whether the series is dask-backed: then nothing as large as the series is
+        #: ever loaded (rows are fetched on demand, overviews come from per-chunk
+        #: reductions) and whole-series results are computed in the background.
+        self.lazy = is_lazy(ds["intensity"])
+        if self.lazy:
+            data = ds["intensity"].data
+            self._intensity = data.rechunk({1: -1}) if len(data.chunks[1]) > 1 else data
+            chunks = self._intensity.chunks
+            self._sigma = ds["sigma"].data.rechunk(chunks) if is_lazy(ds["sigma"]) else ds["sigma"].values
+            if "mask" in ds.data_vars:
+                m = ds["mask"]
+                self._mask = m.data.rechunk(chunks) if is_lazy(m) else self._read_only(m.values)
+            else:
+                self._mask = None
+        else:
+            # the series' own arrays (views)
+            self._intensity = self._read_only(ds["intensity"].values)
+            self._sigma = self._read_only(ds["sigma"].values)
+            self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
+        self._row_cache: OrderedDict = OrderedDict()
+        self._part_cache: OrderedDict = OrderedDict()
+        self._small: xr.Dataset | None = None
         self._positive_range: tuple[float, float] | None = None
+        self._overview: dict = {}
         self.q = self._read_only(np.asarray(ds["q"].values, dtype=float))
         self.q_units = str(ds["q"].attrs.get("units", "1/nm"))
         self.intensity_units = str(ds["intensity"].attrs.get("units", "arb"))
@@ -146,6 +188,18 @@ class SeriesModel(traitlets.HasTraits):
         self.background_name_given = False
         self.max_results = int(max_results)
         self._results: OrderedDict = OrderedDict()
+        #: Compute whole-series results in the background (:meth:`when_ready`) instead
+        #: of at once; :func:`saxsnb.explore` turns it on for big or lazy series.
+        self.deferred = False
+        self._lock = threading.RLock()
+        self._jobs: dict[tuple, Future] = {}
+        self._job_names: dict[tuple, str] = {}
+        self._job_start: dict[tuple, float] = {}
+        self._queue: queue.SimpleQueue | None = None
+        self._worker: threading.Thread | None = None
+        self._pending: list = []
+        self._loop = None
+        self._tasks = [0, 0]  # dask tasks started, finished (background progress)
         super().__init__(**kwargs)
         if frame:
             self.frame = int(frame)
@@ -172,28 +226,163 @@ class SeriesModel(traitlets.HasTraits):
         positions), masked points NaN, as ``ds.saxs.masked()`` gives them.
 
         Without a mask these are read-only views of the series' arrays; with one they
-        are new arrays of the frames asked for only.
+        are new arrays of the frames asked for only. On a lazy series only these
+        frames are computed (single frames are kept in a small cache, :data:`ROW_CACHE`).
         """
+        if self.lazy:
+            return self._lazy_rows(frames)
         I, S = self._intensity[frames], self._sigma[frames]
         if self._mask is not None:
-            m = self._mask[frames]
-            I = np.where(m, np.array(np.nan, dtype=np.result_type(I.dtype, np.float16)), I)
-            S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
+            I, S = self._apply_mask(I, S, self._mask[frames])
         return I, S
+
+    @staticmethod
+    def _apply_mask(I, S, m):
+        I = np.where(m, np.array(np.nan, dtype=np.result_type(I.dtype, np.float16)), I)
+        S = np.where(m, np.array(np.nan, dtype=np.result_type(S.dtype, np.float16)), S)
+        return I, S
+
+    def _big(self) -> list[str]:
+        return [k for k in self.ds.data_vars if self.ds.variables[k].dims == ("frame", "q")]
+
+    def _raw(self, frames) -> dict:
+        """The (frame, q) data variables of ``frames`` (an index or a slice) as numpy
+        arrays. Frames are fetched :data:`ROW_BLOCK` at a time (one ``dask.compute``
+        for all variables) and the last :data:`ROW_CACHE` blocks kept, so stepping
+        through the series computes once per block."""
+        if isinstance(frames, (int, np.integer)):
+            i = int(frames)
+            start, block = self._raw_block(i // ROW_BLOCK)
+            return {k: v[i - start] for k, v in block.items()}
+        if isinstance(frames, slice):
+            a, b, step = frames.indices(self.n_frames)
+            if step == 1 and b > a and a // ROW_BLOCK == (b - 1) // ROW_BLOCK:
+                start, block = self._raw_block(a // ROW_BLOCK)
+                return {k: v[a - start:b - start] for k, v in block.items()}
+        return self._fetch(frames)
+
+    def _raw_block(self, n: int):
+        with self._lock:
+            hit = self._row_cache.get(n)
+            if hit is not None:
+                self._row_cache.move_to_end(n)
+                return hit
+        start = n * ROW_BLOCK
+        got = (start, self._fetch(slice(start, min(start + ROW_BLOCK, self.n_frames))))
+        with self._lock:
+            self._row_cache[n] = got
+            while len(self._row_cache) > ROW_CACHE:
+                self._row_cache.popitem(last=False)
+        return got
+
+    def _fetch(self, frames) -> dict:
+        import dask
+
+        names = self._big()
+        got = dask.compute(*[self.ds[k].data[frames] for k in names], scheduler=_row_scheduler())
+        out = {}
+        for k, a in zip(names, got):
+            a = np.asarray(a)
+            a.flags.writeable = False
+            out[k] = a
+        return out
+
+    def _lazy_rows(self, frames):
+        raw = self._raw(frames)
+        I, S = raw["intensity"], raw["sigma"]
+        if "mask" in raw:
+            I, S = self._apply_mask(I, S, raw["mask"])
+        return I, S
+
+    def part(self, frames) -> xr.Dataset:
+        """``ds.isel(frame=frames)`` (a list of positions or a slice), in memory: on a lazy
+        series only these frames are computed (the rows a step fetched are reused). A
+        one-frame part is cached (the panels of one step share it)."""
+        one = isinstance(frames, list) and len(frames) == 1
+        if one:
+            with self._lock:
+                hit = self._part_cache.get(int(frames[0]))
+                if hit is not None:
+                    return hit
+        if self.lazy:
+            big = self._big()
+            if self._small is None:  # every variable but the (frame, q) ones, in memory once
+                self._small = self.ds.drop_vars(big).compute(scheduler=_row_scheduler())
+            small = self._small.isel(frame=frames)
+            if one:
+                raw = {k: v[None] for k, v in self._raw(int(frames[0])).items()}
+            elif isinstance(frames, slice):
+                raw = self._raw(frames)
+            else:
+                raw = self._fetch(frames)
+            out = small.assign({k: (("frame", "q"), raw[k], self.ds[k].attrs) for k in big})
+            for k in big:
+                out[k].encoding = dict(self.ds[k].encoding)
+            out = out[list(self.ds.data_vars)]
+        else:
+            out = self.ds.isel(frame=frames)
+        if one:
+            with self._lock:
+                self._part_cache[int(frames[0])] = out
+                while len(self._part_cache) > 4:
+                    self._part_cache.popitem(last=False)
+        return out
 
     def masked(self) -> tuple[np.ndarray, np.ndarray]:
         """Masked intensity and sigma of every frame, (n_frames, n_q).
 
         A new pair of arrays as large as the series when it has a mask: use it for a
-        one-off summary (an overview map) and do not keep it.
+        one-off summary and do not keep it. Refused on a lazy series (it would load
+        the whole series): use :meth:`overview` and :meth:`rows` there.
         """
+        if self.lazy:
+            raise SaxsInputError(
+                "the series is dask-backed: its whole (frame, q) arrays are not loaded by the panels; "
+                "use model.rows(frames) or model.overview()", parameter="ds")
         return self.rows(slice(None))
 
+    def overview(self, max_rows: int = 400, max_cols: int = 400) -> dict:
+        """``display.overview_map`` of the masked intensity (block means of log10 I),
+        computed once per size, block by block: on a lazy series one small reduction
+        per chunk of frames (``dask.compute``: on the active distributed client, if
+        any), so the series is never loaded whole. ``"sampled"`` holds the positive
+        values of at most 256 evenly spaced frames (for :meth:`positive_range`)."""
+        key = (int(max_rows), int(max_cols))
+        if key in self._overview:
+            return self._overview[key]
+        n, n_q = self.n_frames, self.q.size
+        rows, cols = overview_edges(n, n_q, max_rows=max_rows, max_cols=max_cols)
+        sample = sample_frames(n)
+        if self.lazy:
+            import dask
+
+            starts = np.concatenate([[0], np.cumsum(self._intensity.chunks[0])[:-1]])
+            blocks_i = self._intensity.to_delayed().ravel()
+            if self._mask is None:
+                blocks_m = [None] * len(blocks_i)
+            elif is_lazy(self._mask):
+                blocks_m = self._mask.to_delayed().ravel()
+            else:
+                stops = np.append(starts[1:], n)
+                blocks_m = [self._mask[a:b] for a, b in zip(starts, stops)]
+            reduce = dask.delayed(overview_block, pure=True)
+            parts = dask.compute(*[reduce(bi, int(a), rows, cols, bm, sample)
+                                   for bi, bm, a in zip(blocks_i, blocks_m, starts)])
+        else:
+            step = 2048
+            parts = [overview_block(self._intensity[a:a + step], a, rows, cols,
+                                    None if self._mask is None else self._mask[a:a + step], sample)
+                     for a in range(0, n, step)]
+        out = overview_combine(self.q, n, rows, cols, parts)
+        self._overview[key] = out
+        return out
+
     def positive_range(self) -> tuple[float, float]:
-        """``display.positive_range`` of the masked intensity of the whole series (the
-        fixed y range of log plots), computed once."""
+        """``display.positive_range`` of the masked intensity (the fixed y range of log
+        plots), computed once, from at most 256 evenly spaced frames (every frame of a
+        shorter series), gathered in the pass of :meth:`overview`."""
         if self._positive_range is None:
-            self._positive_range = positive_range(self.masked()[0])
+            self._positive_range = positive_range(self.overview()["sampled"])
         return self._positive_range
 
     @traitlets.validate("frame")
@@ -291,19 +480,29 @@ class SeriesModel(traitlets.HasTraits):
         parameters (an exception is raised again, not cached).
         """
         key = self.key(analysis, **params)
-        if key in self._results:
-            self._results.move_to_end(key)
-            return self._results[key][0]
+        with self._lock:
+            if key in self._results:
+                self._results.move_to_end(key)
+                return self._results[key][0]
+            job = self._jobs.get(key)
+        if job is not None and threading.current_thread() is not self._worker:
+            return job.result()  # computing in the background: wait for it (errors raised)
         args = self._resolve(analysis, self._arguments(analysis, params))
-        out = getattr(self.ds.saxs, analysis)(**args).compute()
+        kw = {}
+        if self.lazy and threading.current_thread() is self._worker and _row_scheduler() == "sync":
+            # the background thread computes its chunks one after the other itself (no
+            # distributed client): the other core stays free for the notebook
+            kw = {"scheduler": "sync"}
+        out = getattr(self.ds.saxs, analysis)(**args).compute(**kw)
         # Datasets passed as inputs are kept with the entry: their id is in the key
         kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
-        self._results[key] = (out, kept)
-        # the automatic results (default arguments) stay: other results and every frame
-        # step build on them; the others go least recently used first
-        spare = [k for k in self._results if k != self.key(k[0])]
-        while len(self._results) > max(self.max_results, 1) and spare:
-            del self._results[spare.pop(0)]
+        with self._lock:
+            self._results[key] = (out, kept)
+            # the automatic results (default arguments) stay: other results and every frame
+            # step build on them; the others go least recently used first
+            spare = [k for k in self._results if k != self.key(k[0])]
+            while len(self._results) > max(self.max_results, 1) and spare:
+                del self._results[spare.pop(0)]
         return out
 
     def cached(self, analysis: str, /, **params) -> bool:

@@ -219,6 +219,15 @@ class PeaksPanel(PanelBase):
         self._analyse()
         return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.phase_key, self.map_note]
 
+    def _analysis_arrived(self, res, exc) -> None:
+        if exc is not None and self.model.peek("index_phases", **self._index_params()) is None:
+            self.report(exc, "peak search / indexing")
+            self.table.value = ""
+            return
+        self._analyse()  # from the cache now
+        self._apply()
+        self._update()
+
     def _index_params(self, overrides=None) -> dict:
         """Arguments of ``model.result("index_phases", ...)``: the peaks by their options."""
         params = {"peaks": dict(self.find_options), **self.index_options}
@@ -227,6 +236,14 @@ class PeaksPanel(PanelBase):
         return params
 
     def _analyse(self) -> None:
+        pm = {"index": self._index_params()}
+        if self.model.deferred and self.model.peek("phase_map", **pm) is None:
+            # every frame's peaks, indexing and phase map in the background: the curve is
+            # drawn now, the rest when they arrive
+            self.table.value = ("<small>&#8987; finding, fitting and indexing the peaks of every frame "
+                                "in the background&hellip;</small>")
+            self.model.when_ready("phase_map", self._analysis_arrived, **pm)
+            return
         try:
             self.peaks = self.model.result("find_peaks", **self.find_options)
             self.index = self.model.result("index_phases", **self._index_params())
@@ -352,14 +369,17 @@ class PeaksPanel(PanelBase):
         res = self.result
         if res is None:
             return
+        V = res.variables  # Variables, not DataArrays (this runs at every step)
         with self.trend_current.hold_sync():
-            lat = np.asarray(res["lattice"].values, dtype=float)
-            fin = lat[np.isfinite(lat)]
+            if getattr(self, "_lat_range", (None,))[0] is not res:  # once per result
+                lat = np.asarray(V["lattice"].values, dtype=float)
+                fin = lat[np.isfinite(lat)]
+                self._lat_range = (res, np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2))
             self.trend_current.x = np.array([v, v])
-            self.trend_current.y = np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2)
+            self.trend_current.y = self._lat_range[1]
         pos = self._pos[i]
-        hkl = np.asarray(res["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
-        pphase = np.asarray(res["peak_phase"].values[i]) if "peak_phase" in res else np.full(pos.shape, "")
+        hkl = np.asarray(V["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
+        pphase = np.asarray(V["peak_phase"].values[i]) if "peak_phase" in res else np.full(pos.shape, "")
         # markers on the log axis: finite positions with a positive intensity only,
         # coloured by phase; labels of close peaks (coexisting phases) stacked upwards
         px, py, kept = finite_points(pos, curve_at(self.q, I, pos), positive=True)
@@ -372,19 +392,20 @@ class PeaksPanel(PanelBase):
                          colors=colours or [ROLE["reference"]])
         self.table.value = self._table_html(i)
         self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
-        status = str(res["status"].values[i])
+        status = str(V["status"].values[i])
         self.status = "" if status in ("ok", "override") else f"{self.frame_label(i)}: {status}"
 
     def _table_html(self, i: int) -> str:
         res = self.result
+        V = res.variables
         e = html.escape
         rows = []
         for s in range(res.sizes["slot"]):
-            ph = str(res["phase"].values[i, s])
+            ph = str(V["phase"].values[i, s])
             if not ph:
                 continue
-            lat, sig = float(res["lattice"].values[i, s]), float(res["lattice_sigma"].values[i, s])
-            score = float(res["score"].values[i, s])
+            lat, sig = float(V["lattice"].values[i, s]), float(V["lattice_sigma"].values[i, s])
+            score = float(V["score"].values[i, s])
             what = "d" if ph == "lamellar" else "a"
             lat_t = html.escape(format_value(lat, sig))
             rows.append(
@@ -392,7 +413,7 @@ class PeaksPanel(PanelBase):
                 if np.isfinite(score)
                 else f"<tr><td>{e(ph)}</td><td>{what} = {lat_t} nm</td><td>n/a</td></tr>"
             )
-        get = lambda k: str(res[k].values[i]) if k in res else ""  # noqa: E731
+        get = lambda k: str(V[k].values[i]) if k in res else ""  # noqa: E731
         status = get("status")
         # a frame without a phase says why in plain words (the code stays in result.status)
         why = "no phase assigned" if status in ("", *INDEXED) else status_message(status)
@@ -404,7 +425,7 @@ class PeaksPanel(PanelBase):
             if get(k):
                 extra.append(f"{label}: {e(get(k))}")
         n_pk = int(np.isfinite(self._pos[i]).sum())
-        n_broad = int(res["n_broad"].values[i]) if "n_broad" in res else 0
+        n_broad = int(V["n_broad"].values[i]) if "n_broad" in res else 0
         extra.append(
             f"{n_pk} peak(s) found" + (f", {n_broad} of them broad (not Bragg peaks)" if n_broad else "")
         )

@@ -16,8 +16,8 @@ NOTEBOOK = Path(__file__).resolve().parents[2] / "notebooks" / "app-flow-growth.
 
 # "Rg = 2.032 ± 0.00049 nm" in the Guinier panel's result text.
 RG_TEXT = re.compile(r"Rg = ([-\d.e+]+) ± ([-\d.e+]+) nm")
-# "q range (fixed) = 0.1234 .. 0.5678 1/nm, 23 points" in the same text.
-RANGE_TEXT = re.compile(r"q range \((?:fixed|automatic)\) = ([-\d.e+]+) \.\. ([-\d.e+]+) 1/nm, (\d+) points")
+# "q range (fixed) = 0.1234 .. 0.5678 nm⁻¹, 23 points" in the same text.
+RANGE_TEXT = re.compile(r"q range \((?:fixed|automatic)\) = ([-\d.e+]+) \.\. ([-\d.e+]+) nm⁻¹, (\d+) points")
 
 
 def series_of_the_page():
@@ -38,7 +38,7 @@ def check_rg_against_accessor(text: str, frame: int) -> dict:
     import numpy as np
 
     m = RANGE_TEXT.search(text)
-    assert m, f"no 'q range (...) = a .. b 1/nm, n points' in the Guinier result text: {text[:300]!r}"
+    assert m, f"no 'q range (...) = a .. b nm⁻¹, n points' in the Guinier result text: {text[:300]!r}"
     lo, hi, n_shown = float(m.group(1)), float(m.group(2)), int(m.group(3))
     ds = series_of_the_page()
     q = ds["q"].values
@@ -118,7 +118,7 @@ def run_flow(probe, root: str, shots: str) -> dict:
     expect(result).to_have_count(1)
     rg0, s0, text0 = rg_value(result)
     seen["rg_frame0"] = (rg0, s0)
-    assert "1/nm" in text0 and "q range (automatic)" in text0, text0
+    assert "nm⁻¹" in text0 and "1/nm" not in text0 and "q range (automatic)" in text0, text0
 
     # ---- step the frame with the keyboard
     frame_label = page.locator("label.widget-label", has_text=re.compile(r"^frame$"))

@@ -32,13 +32,15 @@ def test_distance_panel_renders_and_dmax_changes_p(servers, probe, tmp_path):
     page.goto(f"{server.url}/?token={server.token}", timeout=120_000)
     # I(q) fit, residual zero line, p(r) band and line, evidence curve: drawn paths
     probe.wait_for_lines(4)
-    pfig = figure(page, "body", "p(r) +- sigma")
+    pfig = figure(page, "body", "p(r) ± σ")
     expect(pfig).to_be_visible()
     expect(pfig.locator("g.curve path.line").last).to_have_attribute("d", re.compile(r"^M[-\d.e]+,"))
     probe.screenshot("distance-auto")
     # fixed Dmax: untick "auto Dmax" (fixes the automatic value, about 2R = 4 nm) ...
     page.get_by_label("auto Dmax").uncheck()
-    fixed = page.locator(".widget-html", has_text=re.compile(r"Dmax = [\d.]+ \+- .*\(fixed\)")).first
+    # "Dmax = 4.1 ± 0.2 nm (fixed)" (display.format_value; no sigma when it is 0)
+    fixed_text = re.compile(r"Dmax = [\d.]+(?: ± [\d.e+-]+)? nm \(fixed\)")
+    fixed = page.locator(".widget-html", has_text=fixed_text).first
     expect(fixed).to_be_visible(timeout=30_000)
     box = page.locator(".widget-text", has=page.locator("label", has_text="Dmax (nm)")).locator("input")
     expect(box).to_be_enabled()
@@ -47,7 +49,8 @@ def test_distance_panel_renders_and_dmax_changes_p(servers, probe, tmp_path):
     box.fill("8")
     box.press("Enter")
     wait_signature_changes(probe, pfig, sig1, "Dmax 8 nm typed into the control")
-    shown = page.locator(".widget-html", has_text=re.compile(r"Dmax = 8 \+- .*\(fixed\)")).first
+    eight = re.compile(r"Dmax = 8(?:\.0*)?(?: ± [\d.e+-]+)? nm \(fixed\)")
+    shown = page.locator(".widget-html", has_text=eight).first
     expect(shown).to_be_visible()
     probe.screenshot("distance-fixed")
     # the q range as a brush on the I(q) plot: drag across the middle of the curve
