@@ -28,6 +28,20 @@ _DECAY_MARGIN = 0.3
 
 _OUTLIER_Z = 4.0
 
+#: low-q upturn test (compact): the relative curvature kappa = c / b^2 of ln I vs q^2
+#: (c the quadratic coefficient, b the line slope of a window from the first usable
+#: point) that no single population of particles exceeds below q Rg ~ 2. For a sum of
+#: Guinier terms kappa is half the squared relative spread of the intensity-weighted
+#: Rg^2 (the second cumulant of ln I in q^2); measured on closed forms and quadratures
+#: (tests/validation/test_upturn.py): sphere -0.07, vesicle -0.1, Schulz spheres z = 4
+#: 0.09 (z = 1: 0.16), prolate ellipsoid 3x3x9 0.12-0.22, Debye-Bueche 0.25, Gaussian
+#: chain 0.25-0.41, cylinders R = 2 nm, L = 30-60 nm 0.2-1.2 (the highest, at q Rg = 2,
+#: beyond the searched windows); a mixture with 1 % by weight of 10x larger spheres,
+#: or a power-law background fading into the particle's curve, reaches 5-30.
+_UPTURN_KAPPA = 1.5
+#: significance of the upturn: (c - kappa_max b^2) above this many sigma_c
+_UPTURN_Z = 4.0
+
 
 def _check_shape(shape):
     if shape not in SHAPES:
@@ -215,7 +229,9 @@ def _search_chunk(
     q_last_all = q[last_use[rows[:, None], np.maximum(stops - 1, 0)]]
 
     def evaluate(r, s2):
-        """Acceptance and score of the windows (starts s2 (len(r), k) x all stops)."""
+        """Acceptance and score of the windows (starts s2 (len(r), k) x all stops); also
+        the low-q upturn statistic (module notes of saxsnb.analysis._guinier): the largest
+        significance, over the windows, of a relative curvature above _UPTURN_KAPPA."""
         e3 = stops[r][:, None, :]
         s3 = s2[:, :, None]
         st = mom.search_stats(s3, e3, rows=r)
@@ -242,13 +258,19 @@ def _search_chunk(
             # the quadratic term causes (c^2 estimated without its noise bias)
             mse = st["slope_var"] * var_scale + np.maximum(c2 - c_var, 0.0) * st["lever"] ** 2
             key = np.where(accept, -mse / (slope * slope), -np.inf).reshape(len(r), -1)
+            # sigma_c from the data's sigma alone (a quadratic misfits an upturn: scaling
+            # by its chi2 would hide the upturn it measures); scaled without sigma
+            up_var = c_var if Sc is None else st["c_var"]
+            up_z = np.where(geom, (st["c"] - _UPTURN_KAPPA * slope * slope) / np.sqrt(up_var), -np.inf)
+            up_z = np.max(np.where(np.isnan(up_z), -np.inf, up_z).reshape(len(r), -1), -1)
         best = np.argmax(key, axis=-1)
         ok_ = accept.reshape(len(r), -1)[np.arange(len(r)), best]
         bs, be = np.unravel_index(best, (s2.shape[1], E))
         avg = _window_average(accept, key, slope, st["slope_var"] * var_scale, st["intercept"],
                               st["intercept_var"] * var_scale, st["slope_intercept_cov"] * var_scale)
         avg["sigma_scale"] = np.sqrt(var_scale.reshape(len(r), -1)[np.arange(len(r)), best])
-        return ok_, s2[np.arange(len(r)), bs], stops[r, be], (geom, negative, inside, flat, st["c"]), avg
+        diag = (geom, negative, inside, flat, st["c"], up_z)
+        return ok_, s2[np.arange(len(r)), bs], stops[r, be], diag, avg
 
     # stage 1: windows from the first usable point (compact) or from all starts (rod,
     # sheet); stage 2, only for frames without an acceptable window: the later starts
@@ -264,9 +286,17 @@ def _search_chunk(
         stop[r2] = np.where(ok2, stop2, -1)
         for key_, v in avg2.items():
             avg[key_][r2] = v
-    geom, negative, inside, flat, c_curv = diag
+    geom, negative, inside, flat, c_curv, up_z = diag
 
     status = np.full(F, "ok", dtype=_STATUS_DTYPE)
+    # the low-q upturn (compact): the windows from the first usable point curve upwards
+    # more than any single population allows -> no Guinier result, whatever the later
+    # starts gave (aggregates, attraction, unsubtracted background or parasitic scattering)
+    upturn = (up_z > _UPTURN_Z) if shape == "compact" else np.zeros(F, dtype=bool)
+    ok &= ~upturn
+    start = np.where(ok, start, -1)
+    stop = np.where(ok, stop, -1)
+    approx = np.zeros(F, dtype=bool)
     fail = ~ok
     if fail.any():
         # why a frame failed, judged on the windows from the first start
@@ -279,9 +309,17 @@ def _search_chunk(
         has_block = blocking.any(axis=-1)
         first_block = np.argmax(blocking, axis=-1)
         block_kind = np.where(neg[rows, first_block], "negative_intensity", "zero_sigma")
-        status[fail & any_geom & ~rising & ~short_inside] = "qrg_limit_exceeded"
-        status[fail & any_geom & ~rising & short_inside] = "no_linear_region"
-        status[fail & rising] = "curvature_aggregation"
+        status[fail & any_geom & ~short_inside] = "qrg_limit_exceeded"
+        status[fail & any_geom & short_inside] = "no_linear_region"
+        # curving upwards, but no more than a single population can (chains, rods, broad
+        # size distributions): the shortest window within the limit, as an approximation
+        g_in = g0 & negative[:, 0, :] & inside[:, 0, :]
+        curved = fail & rising & ~upturn & g_in.any(axis=-1)
+        status[curved] = "curved_approximate"
+        approx = curved
+        start = np.where(curved, starts[:, 0], start)
+        stop = np.where(curved, stops[rows, np.argmax(g_in, axis=-1)], stop)
+        status[upturn] = "curvature_aggregation"
         status[fail & ~any_geom] = "too_few_points"
         few = fail & ~any_geom & has_block
         status[few] = block_kind[few]
@@ -295,18 +333,21 @@ def _search_chunk(
     s_ = np.maximum(start, 0)[:, None]
     e_ = np.maximum(stop, 0)[:, None]
     fit = {key: v[:, 0] for key, v in mom.fit(s_, e_, scale_covariance=Sc is None).items()}
-    # the reported line: the average over the acceptable windows (module notes)
+    # the reported line: the average over the acceptable windows (module notes); a
+    # "curved_approximate" frame keeps its one window's line
     for key_ in ("slope", "intercept"):
         fit[key_ + "_window"] = fit[key_]
-        fit[key_] = np.where(ok, avg[key_], np.nan)
+        fit[key_] = np.where(ok, avg[key_], np.where(approx, fit[key_], np.nan))
     for key_ in ("slope_sigma", "intercept_sigma"):
         fit[key_ + "_window"] = fit[key_]
-        fit[key_] = np.where(ok, np.sqrt(avg[key_[:-6] + "_var"]), np.nan)
-    fit["slope_intercept_cov"] = np.where(ok, avg["cov"], np.nan)
+        fit[key_] = np.where(ok, np.sqrt(avg[key_[:-6] + "_var"]), np.where(approx, fit[key_], np.nan))
+    cov_window = fit["slope_intercept_cov"]
+    fit["slope_intercept_cov"] = np.where(ok, avg["cov"], np.where(approx, cov_window, np.nan))
     fit["n_windows"] = np.where(ok, avg["n_windows"], 0)
-    fit["sigma_scale"] = np.where(ok, avg["sigma_scale"], np.nan)
-    fit["q_min"] = np.where(ok, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
-    fit["q_max"] = np.where(ok, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
+    fit["sigma_scale"] = np.where(ok, avg["sigma_scale"], np.where(approx, 1.0, np.nan))
+    kept = ok | approx
+    fit["q_min"] = np.where(kept, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
+    fit["q_max"] = np.where(kept, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
     return start, stop, status, fit
 
 

@@ -84,9 +84,11 @@ STATUS: dict[str, Status] = {
         "the intensity rises with q over this range: not a Guinier region",
     ),
     "curvature_aggregation": Status(
-        "the lowest-q windows curve upwards or rise",
+        "automatic Guinier: the lowest-q points turn upwards more steeply than any single population "
+        "of particles allows (relative curvature c / b^2 of ln I vs q^2 above 2 by > 4 sigma)",
         "q_range",
-        "the lowest-q points curve upwards (a sign of aggregation or attraction): no Guinier fit",
+        "the lowest-q points rise above the Guinier line more steeply than one kind of particle can: "
+        "aggregates, attraction, or background left in (subtract it first): no Guinier fit",
     ),
     "qrg_limit_exceeded": Status(
         "q_max R above the validity limit",
@@ -183,6 +185,13 @@ STATUS: dict[str, Status] = {
         "reference frame of the comparison (not tested against itself)",
     ),
     "override": Status("the phase was set by hand", "overrides", "override (phase set by hand)"),
+    "curved_approximate": Status(
+        "automatic Guinier: every window within the limit curves upwards, but no more than a single "
+        "population can (chains, rods, broad size distributions): the shortest window's line, numbers kept",
+        "q_range",
+        "curved: the range is too long for this shape; {size} from the shortest range is approximate "
+        "(likely an underestimate)",
+    ),
 }
 
 #: Statuses of phase indexing for a frame that has a phase assignment.
