@@ -192,6 +192,13 @@ STATUS: dict[str, Status] = {
         "curved: the range is too long for this shape; {size} from the shortest range is approximate "
         "(likely an underestimate)",
     ),
+    "outside_validity": Status(
+        "automatic rod/sheet range: no acceptable window between the low-q end of the law's validity "
+        "(finite length or lateral size bias below 1.5 % on size^2) and q_max R = limit",
+        "q_range",
+        "the rod or sheet law does not hold on this q range: the particle is too short (rod) or too "
+        "narrow (sheet) for its cross-section or thickness to be read here",
+    ),
 }
 
 #: Statuses of phase indexing for a frame that has a phase assignment.

@@ -171,3 +171,53 @@ def test_non_aggregating_samples_are_not_called_aggregated(name, u0, noise):
     # upward curvature (Debye chain -2 % at q Rg ~ 0.6, der), within 5 %
     approx = r["status"] == "curved_approximate"
     assert np.all(np.abs(r["rg"][approx] / rg - 1) < 0.05)
+
+
+# --------------------------------------------------------------------------- rod and sheet
+# Truth: orientation-averaged cylinders by Gauss-Legendre quadrature (Pedersen 1997);
+# cross-section Rc = R / sqrt(2), sheet Rt = T / sqrt(12) (Glatter & Kratky 1982).
+ROD_SHEET = {
+    "rod R3 L200": ("rod", 3.0, 200.0, "rc", 3.0 / np.sqrt(2.0)),
+    "rod R1 L200": ("rod", 1.0, 200.0, "rc", 1.0 / np.sqrt(2.0)),
+    "disc R100 T5": ("sheet", 100.0, 5.0, "rt", 5.0 / np.sqrt(12.0)),
+    "disc R50 T5": ("sheet", 50.0, 5.0, "rt", 5.0 / np.sqrt(12.0)),
+    # marginal: a rod too short for its cross-section law to 3 % (L / Rc = 47), a disc
+    # too narrow for its thickness law (R / T = 10): refused, or "ok" within sigma + bias
+    "rod R3 L100": ("rod", 3.0, 100.0, "rc", 3.0 / np.sqrt(2.0)),
+}
+_ROD_CURVES = {}
+
+
+def _rod_sheet_run(name, noise, n=20):
+    shape, R, L, key, truth = ROD_SHEET[name]
+    if name not in _ROD_CURVES:
+        q = np.geomspace(0.01, 2.0 if shape == "rod" else 1.2, 300)
+        _ROD_CURVES[name] = (q, t.cylinder(q, R, L, n_mu=500)[0])
+    q, I = _ROD_CURVES[name]
+    Iobs, S = t.noisy(I * 1000.0, noise, np.random.default_rng(31), n)
+    r = guinier(q, Iobs, S, shape=shape)
+    ok = r["status"] == "ok"
+    return r[key][ok], r[key + "_sigma"][ok], truth
+
+
+@pytest.mark.parametrize("name", sorted(ROD_SHEET))
+@pytest.mark.parametrize("noise", [0.001, 0.01])
+def test_rod_and_sheet_ok_results_are_never_far_off(name, noise):
+    v, s, truth = _rod_sheet_run(name, noise)
+    # issue 15 target: no "ok" result off by more than 3 sigma plus the documented bias
+    # (3 %: finite length / lateral size 1.5 % on size^2, cross-section curvature
+    # ln[2 J1(x)/x]^2 = -x^2/4 - x^4/192 (der) up to ~3 % at q Rc = 1)
+    assert np.all(np.abs(v - truth) <= 3 * s + 0.03 * truth)
+
+
+@pytest.mark.parametrize("name", ["rod R3 L200", "rod R1 L200", "disc R100 T5"])
+@pytest.mark.parametrize("noise", [0.001, 0.01])
+def test_rod_and_sheet_within_3_percent_where_valid(name, noise):
+    # where the laws hold (L / Rc >= 90, disc R / T = 20): the median within 3 % plus
+    # the noise (the median sigma; at 1 % noise at I(0) the points near q Rc = 1 carry
+    # 10-30 % noise). Measured: rod R3 L200 +0.8 %, rod R1 L200 -0.2 % (4 of 20 frames
+    # "ok" at 0.1 % noise, the others "no_linear_region": the cross-section law's own
+    # curvature is significant there), disc R100 T5 +1.1 %.
+    v, s, truth = _rod_sheet_run(name, noise)
+    assert v.size >= 3
+    assert abs(np.median(v) - truth) <= 0.03 * truth + np.median(s)
