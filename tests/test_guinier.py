@@ -356,3 +356,29 @@ def test_fixed_range_sigma_scaled_by_chi2_when_sigma_is_too_small():
     np.testing.assert_allclose(np.median(told["rg_sigma"]), np.median(right["rg_sigma"]), rtol=0.1)
     assert (right["sigma_scale"] == 1.0).mean() > 0.95
     np.testing.assert_allclose(told["rg"], right["rg"], rtol=1e-12)
+
+
+def test_fixed_range_fast_route_equals_general_route(rng):
+    # issue 14: the fixed-range fit takes a fast route for frames whose window holds only
+    # usable points; frames with masked (NaN), negative or zero-sigma points take the
+    # general route. Results equal a per-frame call (batch equals loop) and a plain
+    # weighted least squares (numpy.polyfit with w = 1/sigma of ln I, common practice).
+    q, I, s, _ = _noisy_schulz(rng, n=6)
+    I, s = I.copy(), s.copy()
+    I[1, 5] = np.nan  # masked point
+    I[2, 7] = -1.0  # negative intensity
+    s[3, 9] = 0.0  # zero sigma
+    rng_ = (q[3], q[40])
+    batch = guinier(q, I, s, q_range=rng_)
+    for f in range(6):
+        one = guinier(q, I[f], s[f], q_range=rng_)
+        for key in ("rg", "rg_sigma", "i0", "chi2_reduced", "q_min", "q_max", "n_points"):
+            np.testing.assert_allclose(batch[key][f], one[key][0], rtol=1e-12, equal_nan=True)
+        assert batch["status"][f] == one["status"][0]
+    assert batch["status"].tolist()[2:4] == ["negative_intensity", "zero_sigma"]
+    assert np.isfinite(batch["rg"][[0, 1, 4, 5]]).all()
+    for f in (0, 1, 4):
+        m = (q >= rng_[0]) & (q <= rng_[1]) & np.isfinite(I[f])
+        b, a = np.polyfit(q[m] ** 2, np.log(I[f, m]), 1, w=I[f, m] / s[f, m])
+        assert batch["rg"][f] == pytest.approx(np.sqrt(-3 * b), rel=1e-10)
+        assert batch["i0"][f] == pytest.approx(np.exp(a), rel=1e-10)
