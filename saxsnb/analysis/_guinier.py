@@ -25,8 +25,11 @@ candidate window at once through prefix sums (:class:`~saxsnb.analysis._linear.W
 
 1. candidate windows ``[start, stop)`` on the q grid: the windows start at the first
    usable point of the validity region, and only for frames where none of them is
-   acceptable at the next ``n_starts - 1`` usable points (default 3 starts in all, so
-   one or two bad first points can be skipped). For "compact" the region starts at the
+   acceptable at ``n_starts - 1`` later starts: for "compact" the next usable points
+   (default 3 starts in all, so one or two bad first points can be skipped), for
+   "rod"/"sheet" starts spread up to ``min_points`` before the decay bound below
+   (default 8 in all, so a region that begins higher than estimated is still found).
+   For "compact" the region starts at the
    first usable point; for "rod"/"sheet" at the low-q end of their validity region
    (q >> 1/L, q >> 1/D), found in two passes from the whole particle's Rg (``rg`` if
    given, else the automatic compact search on the same frames): first q Rg >= 3 (rod)
@@ -201,7 +204,7 @@ def guinier(
         if min_points < 3:
             raise SaxsInputError("min_points must be at least 3", parameter="min_points")
         opts = {
-            "n_starts": 3,
+            "n_starts": 3 if shape == "compact" else 8,
             "max_ends": 32,
             "curvature_z": 3.0,
             "max_drift": 0.05,

@@ -33,7 +33,7 @@ _OUTLIER_Z = 4.0
 #: point) that no single population of particles exceeds below q Rg ~ 2. For a sum of
 #: Guinier terms kappa is half the squared relative spread of the intensity-weighted
 #: Rg^2 (the second cumulant of ln I in q^2); measured on closed forms and quadratures
-#: (tests/validation/test_upturn.py): sphere -0.07, vesicle -0.1, Schulz spheres z = 4
+#: (tests/validation/test_shapes_validation.py): sphere -0.07, vesicle -0.1, Schulz spheres z = 4
 #: 0.09 (z = 1: 0.16), prolate ellipsoid 3x3x9 0.12-0.22, Debye-Bueche 0.25, Gaussian
 #: chain 0.25-0.41, cylinders R = 2 nm, L = 30-60 nm 0.2-1.2 (the highest, at q Rg = 2,
 #: beyond the searched windows); a mixture with 1 % by weight of 10x larger spheres,
@@ -224,7 +224,7 @@ def guinier_search(
         raise SaxsInputError("min_points must be at least 3", parameter="min_points")
     q, I, S, _ = as_frames(q, intensity, sigma)
     if n_starts is None:
-        n_starts = 3
+        n_starts = 3 if shape == "compact" else 8
     found, _ = _search_shape(
         q, I, S, kind, k, limit, min_points, int(n_starts), int(max_ends), curvature_z, max_drift, shape
     )
@@ -243,7 +243,7 @@ def _search(q, I, S, kind, k, limit, min_points, K, E, curvature_z, max_drift, s
     if q_low is None:
         col_lo = np.zeros(F, dtype=np.int64)
     else:
-        col_lo = np.searchsorted(q, np.where(np.isfinite(q_low), q_low, -np.inf)).astype(np.int64)
+        col_lo = np.searchsorted(q, np.where(np.isnan(q_low), -np.inf, q_low)).astype(np.int64)
     bound, _ = _decay_bound(I, S, kind, limit, k, col_lo, q)
     # Frames are processed in chunks (bounding the memory of the window arrays) of
     # similar column bound, so that few columns are read beyond any frame's bound.
@@ -343,7 +343,15 @@ def _search_chunk(
     # compact; rod, sheet: the low-q end of their validity region)
     before = np.where(col_lo > 0, cnt[rows, np.clip(col_lo - 1, 0, n_cut - 1)], 0)
     before = np.where(col_lo >= n_cut, n_usable, before)
-    kth = before[:, None] + np.arange(1, K + 1)[None, :]
+    if shape == "compact":
+        kth = before[:, None] + np.arange(1, K + 1)[None, :]
+    else:
+        # rod, sheet: the later starts spread up to min_points before the decay bound, so a
+        # frame whose validity region starts higher than estimated still finds its window
+        at_bound = cnt[rows, np.clip(bound - 1, 0, n_cut - 1)]
+        span = np.maximum(at_bound - before - min_points, 0)
+        steps = np.rint(np.linspace(0.0, 1.0, K)[None, :] * span[:, None]).astype(np.int64)
+        kth = before[:, None] + 1 + steps
     starts = _nth_true(cnt, kth, n_cut)
     # candidate stops (F, E): from min_points usable after the first start to the bound
     lo = _nth_true(cnt, before[:, None] + min_points, n_cut)[:, 0] + 1
