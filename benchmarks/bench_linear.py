@@ -67,6 +67,51 @@ def baseline(q, I, S, q_range=(0.05, 0.25)):
     return out
 
 
+def wls_fixed(q, I, S, q_range=(0.05, 0.25)):
+    """Strong baseline (issue 14): the closed-form weighted straight line of ln I vs q^2
+    on a fixed q range for all frames at once, in plain numpy (what a good user writes)."""
+    lo, hi = np.searchsorted(q, q_range[0]), np.searchsorted(q, q_range[1], side="right")
+    x = q[lo:hi] ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y = np.log(I[:, lo:hi])
+        w = (I[:, lo:hi] / S[:, lo:hi]) ** 2
+        Sw, Sx, Sy = w.sum(-1), w @ x, (w * y).sum(-1)
+        Sxx, Sxy = w @ (x * x), (w * y) @ x
+        d = Sw * Sxx - Sx * Sx
+        slope = (Sw * Sxy - Sx * Sy) / d
+        return np.sqrt(-3 * slope), np.sqrt(Sw / d)
+
+
+def stream(I, S):
+    """Strong baseline (issue 14): read intensity and sigma once (one pass each)."""
+    return I.sum(), S.sum()
+
+
+def guinier_ratios(q, I, S, repeats: int = 3):
+    """Issue 14 targets, measured in one run: automatic Guinier <= 4x the fixed-range
+    numpy WLS and <= 3x one stream of I and sigma; fixed-range Guinier <= 1.5x the WLS
+    on the same range, for ranges at low, middle and high q."""
+    from saxsnb.analysis import guinier
+
+    guinier(q, I[:50], S[:50])
+    t_wls = best_time(wls_fixed, q, I, S, repeats=repeats)[0]
+    t_stream = best_time(stream, I, S, repeats=repeats)[0]
+    t_auto = best_time(lambda: guinier(q, I, S), repeats=repeats)[0]
+    print(f"automatic Guinier: {t_auto:.3f} s = {t_auto / t_wls:.2f}x the numpy fixed-range WLS "
+          f"({t_wls:.3f} s; target <= 4x), {t_auto / t_stream:.2f}x one stream of I and sigma "
+          f"({t_stream:.3f} s; target <= 3x)")
+    n = q.size
+    worst = 0.0
+    for frac in (0.0, 0.45, 0.8):
+        a, b = q[int(frac * n)], q[int(frac * n) + n // 5 - 1]
+        t_w = best_time(wls_fixed, q, I, S, (a, b), repeats=repeats)[0]
+        t_g = best_time(lambda r=(a, b): guinier(q, I, S, q_range=r), repeats=repeats)[0]
+        worst = max(worst, t_g / t_w)
+        print(f"fixed-range Guinier on q {a:.2f}-{b:.2f}: {t_g:.3f} s = {t_g / t_w:.2f}x the WLS "
+              f"on the same range ({t_w:.3f} s; target <= 1.5x)")
+    return t_auto / t_wls, t_auto / t_stream, worst
+
+
 def best_time(func, *args, repeats: int = 5):
     """Best wall-clock time of ``repeats`` runs, all wall times, and the CPU time of
     this process in the best run (robust when other work shares the machine)."""
@@ -118,6 +163,7 @@ def main(argv=None) -> float:
               f"{len(all_dask)}), ratio {t_base / t_dask:.0f}x")
     except ImportError:
         print("dask not installed: no threaded measurement")
+    guinier_ratios(q, I, S)
     print(f"load average during the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
           "(other work on the machine slows both sides)")
     return ratio

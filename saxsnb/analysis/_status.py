@@ -84,9 +84,11 @@ STATUS: dict[str, Status] = {
         "the intensity rises with q over this range: not a Guinier region",
     ),
     "curvature_aggregation": Status(
-        "the lowest-q windows curve upwards or rise",
+        "automatic Guinier: the lowest-q points turn upwards more steeply than any single population "
+        "of particles allows (relative curvature c / b^2 of ln I vs q^2 above 2 by > 4 sigma)",
         "q_range",
-        "the lowest-q points curve upwards (a sign of aggregation or attraction): no Guinier fit",
+        "the lowest-q points rise above the Guinier line more steeply than one kind of particle can: "
+        "aggregates, attraction, or background left in (subtract it first): no Guinier fit",
     ),
     "qrg_limit_exceeded": Status(
         "q_max R above the validity limit",
@@ -187,6 +189,20 @@ STATUS: dict[str, Status] = {
         "the least-squares iterations stopped before converging: numbers kept",
         "intensity",
         "the fit did not converge: treat its numbers with caution",
+    ),
+    "curved_approximate": Status(
+        "automatic Guinier: every window within the limit curves upwards, but no more than a single "
+        "population can (chains, rods, broad size distributions): the shortest window's line, numbers kept",
+        "q_range",
+        "curved: the range is too long for this shape; {size} from the shortest range is approximate "
+        "(likely an underestimate)",
+    ),
+    "outside_validity": Status(
+        "automatic rod/sheet range: no acceptable window between the low-q end of the law's validity "
+        "(finite length or lateral size bias below 1.5 % on size^2) and q_max R = limit",
+        "q_range",
+        "the rod or sheet law does not hold on this q range: the particle is too short (rod) or too "
+        "narrow (sheet) for its cross-section or thickness to be read here",
     ),
 }
 

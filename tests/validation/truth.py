@@ -307,3 +307,24 @@ def counts_noise(I, counts, rng, max_I=None):
     lam = I * scale
     N = rng.poisson(lam).astype(float)
     return N, np.sqrt(np.maximum(N, 1.0))
+
+
+# --------------------------------------------------------------------------- mixtures, media
+
+
+def sphere_mixture(q, R_small, R_large, weight_fraction):
+    """Spheres of radius R_small with a weight fraction of spheres R_large (same density
+    and contrast): I ~ sum_i w_i V_i P_i, since the intensity per unit mass scales with the
+    particle volume (Guinier & Fournet 1955). Returns I / I(0) and the Rg of the small
+    spheres alone, sqrt(3/5) R_small."""
+    w = np.array([1.0 - weight_fraction, weight_fraction])
+    v = np.array([R_small, R_large]) ** 3
+    I = w[0] * v[0] * sphere(q, R_small)[0] + w[1] * v[1] * sphere(q, R_large)[0]
+    return I / (w * v).sum(), np.sqrt(0.6) * R_small
+
+
+def debye_bueche(q, xi):
+    """Two-phase random medium with an exponential correlation function (Debye & Bueche
+    1949, J. Appl. Phys. 20, 518): I ~ 1 / (1 + xi^2 q^2)^2; its Guinier Rg = sqrt(6) xi
+    (the q^2 coefficient of ln I is -2 xi^2 = -Rg^2 / 3, der)."""
+    return 1.0 / (1.0 + (xi * q) ** 2) ** 2, np.sqrt(6.0) * xi
