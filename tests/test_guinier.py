@@ -382,3 +382,21 @@ def test_fixed_range_fast_route_equals_general_route(rng):
         b, a = np.polyfit(q[m] ** 2, np.log(I[f, m]), 1, w=I[f, m] / s[f, m])
         assert batch["rg"][f] == pytest.approx(np.sqrt(-3 * b), rel=1e-10)
         assert batch["i0"][f] == pytest.approx(np.exp(a), rel=1e-10)
+
+
+def test_report_cautions_when_no_subtraction_is_recorded(tmp_path):
+    # issue 11: the README tour once fitted the raw flow data; the report of a Guinier
+    # result read from files with no subtraction in its history says so (common practice:
+    # Guinier analysis assumes a subtracted curve), and a subtracted one does not
+    import saxsnb
+    from saxsnb.demo.files import write_demo
+
+    write_demo(tmp_path, names=["flow-growth"])
+    raw = saxsnb.read_series(tmp_path / "flow-growth", scan="position")
+    assert "caution: no background subtraction" in raw.saxs.guinier().saxs.report()
+    sub = raw.saxs.subtract(saxsnb.read_series(tmp_path / "flow-growth" / "background", scan="position"))
+    assert "caution" not in sub.saxs.guinier().saxs.report()
+    # curves made in memory (from_arrays) carry no claim either way: no caution
+    q = np.linspace(0.02, 1.0, 100)
+    mem = saxsnb.from_arrays(q, np.exp(-(2 * q) ** 2 / 3), np.full(100, 0.01))
+    assert "caution" not in mem.saxs.guinier().saxs.report()

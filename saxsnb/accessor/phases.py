@@ -311,8 +311,13 @@ def _caveat_summary(idx) -> dict:
     none = np.full(labelled.shape, "")
     alt = np.asarray(idx["alternative"].values).astype(str) if "alternative" in idx else none
     cav = np.asarray(idx["caveat"].values).astype(str) if "caveat" in idx else none
-    close = {}
-    for a in alt[labelled & (alt != "")]:
+    close, by_label = {}, {}
+    labels = (np.array(["+".join(sorted(p for p in row if p)) for row in phase]) if phase.ndim > 1
+              else phase)
+    pick = labelled & (alt != "")
+    for a, lab in zip(alt[pick], labels[pick]):
         close[str(a)] = close.get(str(a), 0) + 1
+        inner = by_label.setdefault(str(lab), {})
+        inner[str(a)] = inner.get(str(a), 0) + 1
     few = int(sum(1 for c in cav[labelled] if "rests on few ratios" in c))
-    return {"n_frames": int(labelled.size), "close": close, "few_peaks": few}
+    return {"n_frames": int(labelled.size), "close": close, "close_by_label": by_label, "few_peaks": few}

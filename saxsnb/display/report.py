@@ -33,6 +33,12 @@ ASSUMPTIONS = {
     "phase_map": "transitions are located to half a scan step; phases from the indexing above.",
 }
 
+#: Analyses whose numbers assume the solvent/cell background has been subtracted.
+_NEED_SUBTRACTED = ("guinier", "invariant", "kratky_summary", "distance_distribution")
+NO_SUBTRACTION = ("no background subtraction recorded since the files were read: {op} assumes a "
+                  "subtracted curve; unless the files were subtracted before, run "
+                  "ds.saxs.subtract(background) first (a background left in biases Rg and I0 high)")
+
 _MAIN = {
     "guinier": ("rg", "rc", "rt", "radius", "length", "thickness", "i0", "qrg_max", "chi2_reduced"),
     "porod": ("porod_constant", "background", "exponent", "chi2_reduced"),
@@ -104,6 +110,9 @@ def report_summary(ds) -> dict[str, Any]:
         out["values"][name] = st
     if op in ASSUMPTIONS:
         out["assumptions"] = ASSUMPTIONS[op]
+    steps = [str(x) for x in out["steps"]]
+    if op in _NEED_SUBTRACTED and steps and steps[0].startswith("read") and "subtract" not in steps:
+        out["cautions"] = [NO_SUBTRACTION.format(op=op)]
     return to_json_safe(out)
 
 
@@ -173,6 +182,7 @@ def report_text(ds, *, frame: int | None = None) -> str:
             lines.append(f"  parameters: {json.dumps(s['parameters'], sort_keys=True)}")
         if s.get("assumptions"):
             lines.append(f"  assumes: {s['assumptions']}")
+        lines += [f"  caution: {c}" for c in s.get("cautions", [])]
     if "sample" in s:
         lines.append(f"  sample: {s['sample']}")
     if s["steps"]:

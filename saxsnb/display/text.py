@@ -198,8 +198,12 @@ def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step:
       lamellar: from the start to 20.5 degC (between 20 and 21)
       hexagonal: from 20.5 degC (between 20 and 21) to the end
     No coexistence window found.
-    >>> cav = {"n_frames": 2, "close": {"Fm3m": 1}, "few_peaks": 1}
-    >>> for line in phase_map_report(phase_map(ph, np.array([20.0, 21.0])), caveats=cav).splitlines()[-2:]:
+    >>> cav = {"n_frames": 2, "close": {"Fm3m": 1}, "close_by_label": {"hexagonal": {"Fm3m": 1}},
+    ...        "few_peaks": 1}
+    >>> rep = phase_map_report(phase_map(ph, np.array([20.0, 21.0])), caveats=cav).splitlines()
+    >>> print(rep[2])
+      hexagonal: from 20.5 (between 20 and 21) to the end [close alternative in 1 frame(s): 1x Fm3m]
+    >>> for line in rep[-2:]:
     ...     print(line)
     Caveat: close alternative explanations in 1 of 2 frames (Fm3m): the label there is not certain.
     Caveat: 1 of 2 frames are labelled from three peaks or fewer (the assignment rests on few ratios).
@@ -211,6 +215,18 @@ def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step:
             return None
         return f"{v:.4g}{u} (between {between[0]:.4g} and {between[1]:.4g})"
 
+    by_label = (caveats or {}).get("close_by_label", {})
+
+    def doubts(phases):
+        # the close alternatives of the frames given exactly this label, beside the label
+        key = "+".join(sorted(phases))
+        alts = by_label.get(key, {})
+        if not alts:
+            return ""
+        n_alt = sum(alts.values())
+        top = "; ".join(f"{c}x {a}" for a, c in sorted(alts.items(), key=lambda kv: -kv[1])[:3])
+        return f" [close alternative in {n_alt} frame(s): {top}]"
+
     lines = [f"Phase map along {scan}:"]
     for t in result["transitions"]:
         a = fmt(t["appears"], t["appears_between"])
@@ -219,12 +235,13 @@ def phase_map_report(result: dict, *, scan: str = "scan", units: str = "", step:
             f"  {t['phase']}: "
             + ("from the start" if a is None else f"from {a}")
             + (" to the end" if v is None else f" to {v}")
+            + doubts([t["phase"]])
         )
     if result["coexistence"]:
         for c in result["coexistence"]:
             s = "the start" if c["start"] is None else f"{c['start']:.4g}{u}"
             e = "the end" if c["end"] is None else f"{c['end']:.4g}{u}"
-            lines.append(f"  coexistence {' + '.join(c['phases'])}: {s} to {e}")
+            lines.append(f"  coexistence {' + '.join(c['phases'])}: {s} to {e}" + doubts(c["phases"]))
     else:
         lines.append("No coexistence window found.")
     for b in result["bonnet"]:
