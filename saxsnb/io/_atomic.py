@@ -202,6 +202,18 @@ def _exchange(a: Path, b: Path) -> bool:
     return res == 0
 
 
+def _remove_soon(tmp: Path, tries: int = 20) -> None:
+    """Remove a failed write's temporary folder. A parallel writer (dask's threads,
+    still finishing their chunks after the first one failed) may add files after the
+    first removal, so it is repeated for up to about two seconds; what is left then
+    is removed by the next write (``_clean_stale``)."""
+    for _ in range(tries):
+        shutil.rmtree(tmp, ignore_errors=True)
+        time.sleep(0.1)
+        if not tmp.exists():
+            return
+
+
 @contextlib.contextmanager
 def atomic_folder(folder, *, overwrite: bool = False) -> Iterator[Path]:
     """Yield a new temporary folder; on success it becomes ``folder`` as a whole.
@@ -263,5 +275,5 @@ def atomic_folder(folder, *, overwrite: bool = False) -> Iterator[Path]:
             raise SaxsFileError(f"cannot write the set: {exc.strerror or exc}", path=folder) from exc
         _fsync_dir(parent)
     except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
+        _remove_soon(tmp)
         raise

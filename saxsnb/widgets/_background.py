@@ -22,7 +22,18 @@ __all__ = ["BackgroundResults"]
 
 
 def _running_loop():
-    """The event loop running in this thread (a notebook kernel's), or None."""
+    """The event loop of the notebook kernel running this code, or None.
+
+    Only a kernel's loop counts: another library's loop left running in this thread (a
+    browser driver's, say) never runs our callbacks, and results must then be delivered
+    at the next step or by ``wait()``."""
+    try:
+        from IPython import get_ipython
+    except ImportError:
+        return None
+    shell = get_ipython()
+    if shell is None or getattr(shell, "kernel", None) is None:
+        return None
     try:
         loop = asyncio.get_event_loop()
     except RuntimeError:
