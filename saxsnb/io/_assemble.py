@@ -169,6 +169,18 @@ def _check_q(c: Curve) -> Curve:
     )
 
 
+def _intensity_unit(curves: Sequence[Curve]) -> str:
+    """The one intensity unit the curves state ("arb" when none does); a file that states
+    another one than the first is refused by name."""
+    iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
+    for c, u in iu[1:]:
+        if u != iu[0][1]:
+            raise SaxsFileError(
+                f"gives intensity in {u!r} but {iu[0][0].name} uses {iu[0][1]!r}", path=c.path or c.name
+            )
+    return iu[0][1] if iu else "arb"
+
+
 def _same_grid(qa: np.ndarray, qb: np.ndarray) -> bool:
     return qa.shape == qb.shape and bool(np.allclose(qa, qb, rtol=1e-9, atol=0.0))
 
@@ -368,13 +380,7 @@ def build_series(
         curves = [_check_q(c) for c in curves]
         Q = None
         exact = False
-    iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
-    for c, u in iu[1:]:
-        if u != iu[0][1]:
-            raise SaxsFileError(
-                f"gives intensity in {u!r} but {iu[0][0].name} uses {iu[0][1]!r}", path=c.path or c.name
-            )
-    intensity_unit = iu[0][1] if iu else "arb"
+    intensity_unit = _intensity_unit(curves)
 
     q0 = curves[0].q
     lengths = {c.q.size for c in curves}

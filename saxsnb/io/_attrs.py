@@ -15,8 +15,10 @@ from typing import Any
 import numpy as np
 
 from .._jsonsafe import from_json_safe, to_json_safe
+from ..errors import SaxsFileError
 
-__all__ = ["encode_attrs", "decode_attrs", "scalar_json", "MARKER"]
+__all__ = ["encode_attrs", "decode_attrs", "scalar_json", "MARKER", "COORDS", "dataset_attrs",
+           "restore_coords"]
 
 #: Prefix of an attribute value that holds JSON-encoded data.
 MARKER = "saxsnb-json:"
@@ -78,3 +80,28 @@ def decode_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
             value = from_json_safe(json.loads(value[len(MARKER) :]))
         out[str(key)] = value
     return out
+
+
+#: Attr holding the names of the non-index coordinates (stores keep coordinates as
+#: variables; the names come back as coordinates on open).
+COORDS = "saxsnb_coordinates"
+
+
+def dataset_attrs(ds) -> dict:
+    """The encoded attrs of ``ds`` for a store, with the names of its coordinates."""
+    if COORDS in ds.attrs:
+        raise SaxsFileError(f"the series has an attr {COORDS!r}, which saxsnb reserves")
+    out = encode_attrs(ds.attrs)
+    out[COORDS] = json.dumps([str(c) for c in ds.coords if c not in ds.dims], ensure_ascii=False)
+    return out
+
+
+def restore_coords(ds, path):
+    """``ds`` opened from a store, with its coordinates set again from :data:`COORDS`."""
+    coords = ds.attrs.pop(COORDS, None)
+    if coords is None:
+        return ds
+    names = json.loads(coords)
+    if not (isinstance(names, list) and all(isinstance(n, str) for n in names)):
+        raise SaxsFileError(f"malformed attr {COORDS!r}", path=path)
+    return ds.set_coords([n for n in names if n in ds.data_vars])

@@ -25,7 +25,7 @@ import xarray as xr
 
 from ..errors import SaxsFileError, SaxsInputError, SaxsWarning
 from ..series import _as_scan, estimate_sigma, from_arrays, q_unit_factor, validate
-from ._assemble import Curve, _check_q, _part, _resolve_q_unit, series_metadata
+from ._assemble import Curve, _check_q, _intensity_unit, _part, _resolve_q_unit, series_metadata
 
 __all__ = ["lazy_series"]
 
@@ -146,13 +146,7 @@ def lazy_series(text, files: list[str], frames: int, *, scan, pattern, q_unit, t
     for x in lights:  # the q checks of the eager read, in its order
         if not x.fine:
             _check_q(x.curve)
-    iu = [(c, c.intensity_unit) for c in curves if c.intensity_unit]
-    for c, u in iu[1:]:
-        if u != iu[0][1]:
-            raise SaxsFileError(
-                f"gives intensity in {u!r} but {iu[0][0].name} uses {iu[0][1]!r}", path=c.path or c.name
-            )
-    intensity_unit = iu[0][1] if iu else "arb"
+    intensity_unit = _intensity_unit(curves)
     bad = next((x for x in lights if not x.same), None)
     if bad is not None:
         c = bad.curve

@@ -9,7 +9,6 @@ reading, and the file's HDF5 links are checked before xarray reads it (see
 from __future__ import annotations
 
 import importlib.util
-import json
 import warnings
 from collections.abc import Mapping
 
@@ -17,7 +16,7 @@ import xarray as xr
 
 from ..errors import SaxsError, SaxsFileError
 from ._atomic import atomic_path
-from ._attrs import decode_attrs, encode_attrs
+from ._attrs import dataset_attrs, decode_attrs, encode_attrs, restore_coords
 from ._h5guard import Guard, run_bounded
 from ._integrity import ATTR, append_trailer, check_trailer, digest, text_digest, verify
 
@@ -33,7 +32,6 @@ def engine() -> str:
     return "h5netcdf" if importlib.util.find_spec("h5netcdf") else "scipy"
 
 
-_COORDS = "saxsnb_coordinates"  # names of the coordinates (NetCDF cannot mark names with blanks)
 _ATTRS_SUM = "saxsnb_attrs_sha256"  # checksum of every attr (global and of each variable)
 
 
@@ -46,10 +44,7 @@ def _attrs_record(ds: xr.Dataset) -> dict:
 
 def _encoded(ds: xr.Dataset) -> xr.Dataset:
     out = ds.copy(deep=False)
-    if _COORDS in ds.attrs:
-        raise SaxsFileError(f"the series has an attr {_COORDS!r}, which saxsnb reserves")
-    out.attrs = encode_attrs(ds.attrs)
-    out.attrs[_COORDS] = json.dumps([str(c) for c in ds.coords if c not in ds.dims], ensure_ascii=False)
+    out.attrs = dataset_attrs(ds)
     for name in list(out.variables):
         attrs = encode_attrs(ds[name].attrs)
         if ATTR in attrs:
@@ -150,12 +145,7 @@ def _read(spath: str, chunks) -> xr.Dataset:
             if expected is not None:
                 # lazily opened: verified block by block, never loaded whole
                 verify(ds[name].data, expected, path=spath, where=f"variable {name!r}")
-        coords = ds.attrs.pop(_COORDS, None)
-        if coords is not None:
-            names = json.loads(coords)
-            if not (isinstance(names, list) and all(isinstance(n, str) for n in names)):
-                raise SaxsFileError(f"malformed attr {_COORDS!r}", path=spath)
-            ds = ds.set_coords([n for n in names if n in ds.data_vars])
+        ds = restore_coords(ds, spath)
         ds.attrs = decode_attrs(ds.attrs)
         for name in ds.variables:
             ds[name].attrs = decode_attrs(ds[name].attrs)

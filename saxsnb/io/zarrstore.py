@@ -8,7 +8,6 @@ of a dask-backed series (made uniform where they are not), else about 8 MB each.
 
 from __future__ import annotations
 
-import json
 import os
 from collections.abc import Mapping
 
@@ -17,12 +16,11 @@ import xarray as xr
 
 from ..errors import SaxsError, SaxsFileError, SaxsInputError
 from ._atomic import atomic_folder
-from ._attrs import decode_attrs, encode_attrs
+from ._attrs import dataset_attrs, decode_attrs, encode_attrs, restore_coords
 
 __all__ = ["write_zarr", "read_zarr", "ZARR_EXTENSIONS", "frame_chunks"]
 
 ZARR_EXTENSIONS = (".zarr",)
-_COORDS = "saxsnb_coordinates"  # names of the non-index coordinates (xarray keeps them in one string)
 _CHUNK_BYTES = 8 << 20
 _DTYPE = "saxsnb_dtype"  # numpy dtype of a text variable (stored as variable-length strings)
 
@@ -49,12 +47,9 @@ def frame_chunks(ds: xr.Dataset) -> int:
 
 
 def _encoded(ds: xr.Dataset) -> tuple[xr.Dataset, dict]:
-    if _COORDS in ds.attrs:
-        raise SaxsFileError(f"the series has an attr {_COORDS!r}, which saxsnb reserves")
-    n = frame_chunks(ds)
     out = ds.copy(deep=False)
-    out.attrs = encode_attrs(ds.attrs)
-    out.attrs[_COORDS] = json.dumps([str(c) for c in ds.coords if c not in ds.dims], ensure_ascii=False)
+    out.attrs = dataset_attrs(ds)
+    n = frame_chunks(ds)
     encoding = {}
     for name in list(out.variables):
         var = out[name]
@@ -129,12 +124,7 @@ def read_zarr(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
                 ds = f.load()
         else:
             ds = xr.open_zarr(spath, chunks=chunks, decode_timedelta=False, consolidated=False)
-        coords = ds.attrs.pop(_COORDS, None)
-        if coords is not None:
-            names = json.loads(coords)
-            if not (isinstance(names, list) and all(isinstance(n, str) for n in names)):
-                raise SaxsFileError(f"malformed attr {_COORDS!r}", path=spath)
-            ds = ds.set_coords([n for n in names if n in ds.data_vars])
+        ds = restore_coords(ds, spath)
         ds.attrs = decode_attrs(ds.attrs)
         for name in list(ds.variables):
             attrs = dict(ds[name].attrs)

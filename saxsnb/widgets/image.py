@@ -59,13 +59,14 @@ class ImagePanel(widgets.VBox):
     def __init__(self, images, geometry: DetectorGeometry | None = None, mask=None, *, rings_q=(),
                  max_side: int = 256, **kwargs):
         super().__init__(**kwargs)
-        if "counts" not in images.data_vars or images["counts"].dims != ("frame", "y", "x"):
-            raise SaxsInputError("not an image series: needs 'counts' on (frame, y, x)", parameter="images")
+        shape = tuple(images.saxs._images().shape[1:])  # the accessor's check of an image series
         self.images = images
-        shape = tuple(images["counts"].shape[1:])
-        self.geometry = geometry if geometry is not None else (
-            DetectorGeometry.from_attrs(images.attrs) if any(
-                str(k).startswith("geometry_") for k in images.attrs) else None)
+        if geometry is None:
+            try:
+                geometry = images.saxs.geometry()
+            except SaxsInputError:  # no geometry stored: the image without q and chi
+                geometry = None
+        self.geometry = geometry
         m = np.zeros(shape, bool)
         if "mask" in images.data_vars:
             m |= np.asarray(images["mask"].values, bool)
