@@ -173,25 +173,24 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
     to_a, to_b = _share(ma, mb, mc[rr, ca], mc[rr, cb], err[rr, ca], err[rr, cb])
     tabs = _phase_set(tuple(phases))
     ph_id = np.repeat(np.arange(len(phases)), _KEEP)
-    qr, qlo_r = np.nan_to_num(q[rr], nan=0.0), q_lo[rr]
-    w_r = None if snr is None else snr[rr]
 
-    def recount(idx, own, other_m):
+    def recount(fr, idx, own, other_m):
         """Missing reflections and misfit of one phase of each pair, recomputed from the
-        peaks the pair gives it (a peak is not counted for both phases)."""
-        L = cat["L"][rr, idx]
-        mc_i = mc[rr, idx]
+        peaks the pair gives it (a peak is not counted for both phases); row by row, so a
+        row depends only on its frame ``fr``, candidate ``idx`` and peaks ``own``."""
+        L = cat["L"][fr, idx]
+        mc_i = mc[fr, idx]
         off = tabs["c_off"][ph_id[idx]]
         top = tabs["c_top"][ph_id[idx]]
         with np.errstate(invalid="ignore"):
-            x_lo = np.nan_to_num((qlo_r * L) ** 2, nan=0.0, posinf=0.0)
+            x_lo = np.nan_to_num((q_lo[fr] * L) ** 2, nan=0.0, posinf=0.0)
         lo = np.clip(np.ceil(x_lo) - 1, 0, top).astype(np.intp)
         q_hi = None
-        if w_r is not None:  # noise-weighted, gap by gap between the phase's own peaks
-            miss = _gap_miss(cat["s"][rr, idx], own, w_r, lo, tabs["cum"], off)
+        if snr is not None:  # noise-weighted, gap by gap between the phase's own peaks
+            miss = _gap_miss(cat["s"][fr, idx], own, snr[fr], lo, tabs["cum"], off)
         else:
             with np.errstate(invalid="ignore"):
-                q_hi = (qr * own).max(-1) * (1 + tol)
+                q_hi = (np.nan_to_num(q[fr], nan=0.0) * own).max(-1) * (1 + tol)
                 x_hi = np.nan_to_num((q_hi * L) ** 2, nan=0.0, posinf=0.0, neginf=0.0)
             hi = np.clip(np.floor(x_hi), 0, top).astype(np.intp)
             in_range = np.where(hi > lo, tabs["cum"][hi + off] - tabs["cum"][lo + off], 0.0)
@@ -200,19 +199,29 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
         # HIDDEN_FRACTION of a missing one (the coincidence itself is improbable); at 1
         # (the default) nothing is taken off
         if HIDDEN_FRACTION != 1.0:  # pragma: no cover - a tuning switch
+            qr = np.nan_to_num(q[fr], nan=0.0)
             if q_hi is None:
                 q_hi = (qr * own).max(-1) * (1 + tol)
             hidden = other_m & ~own & (qr <= q_hi[..., None])
             miss = np.maximum(miss - (1.0 - HIDDEN_FRACTION) * _sum_peaks(np.where(hidden, mc_i, 0.0)), 0.0)
-        e = np.nan_to_num(err[rr, idx], nan=0.0) / tol
+        e = np.nan_to_num(err[fr, idx], nan=0.0) / tol
         return miss + 0.25 * _sum_peaks(np.where(own, e * e, 0.0))
 
-    out[ri, pi] = (
-        _sum_peaks(np.where(explained, 0.0, unexpl[rr]))
-        + recount(ca, to_a, ma)
-        + recount(cb, to_b, mb)
-        + PHASE_COST
-    )
+    n = rr.size
+    fr2, idx2, own2 = np.concatenate([rr, rr]), np.concatenate([ca, cb]), np.concatenate([to_a, to_b])
+    P = own2.shape[1]
+    M = cat["L"].shape[1]
+    if HIDDEN_FRACTION == 1.0 and (int(q.shape[0]) * M) << P < 2**62:
+        # one phase of many pairs keeps the same peaks (the candidate's own matches, or
+        # those less one shared peak the other phase takes): each distinct (frame,
+        # candidate, own peaks) is recounted once; rows are independent, so this is exact
+        bits = own2.astype(np.int64) @ (np.int64(1) << np.arange(P, dtype=np.int64))
+        key = ((fr2.astype(np.int64) * M + idx2) << P) | bits
+        _, first, inv = np.unique(key, return_index=True, return_inverse=True)
+        R = recount(fr2[first], idx2[first], own2[first], None)[inv.reshape(-1)]
+    else:  # pragma: no cover - more peak columns than a key holds, or the tuning switch
+        R = recount(fr2, idx2, own2, np.concatenate([ma, mb]))
+    out[ri, pi] = _sum_peaks(np.where(explained, 0.0, unexpl[rr])) + R[:n] + R[n:] + PHASE_COST
     return out
 
 
