@@ -403,23 +403,29 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
             x_lo = np.nan_to_num((np.asarray(q_lo, dtype=float)[:, None] * Lj) ** 2, nan=0.0, posinf=0.0)
 
         cur = phase[..., j]
-        is_cubic = np.isin(cur, cubic)
-        if not is_cubic.any():
+        # only states with a cubic phase in this slot and peaks given to it can change
+        # (with no own peak every reading costs nothing more): those rows alone are worked
+        # on, row by row, so the result is the same as on all states
+        fi, ki = np.nonzero(np.isin(cur, cubic) & own.any(-1))
+        if fi.size == 0:
             continue
-        p = None if snr is None else snr[:, None, :]
-        miss = {k: _miss_as(phases[k], own, s, x_lo, x_hi, p) for k in cubic}
-        cur_miss = np.zeros(cur.shape)
+        own_r, s_r, cur_r = own[fi, ki], s[fi, ki], cur[fi, ki]
+        p = None if snr is None else snr[fi]
+        miss = {k: _miss_as(phases[k], own_r, s_r, x_lo[fi, ki], x_hi[fi, ki], p) for k in cubic}
+        cur_miss = np.zeros(cur_r.shape)
         for k in cubic:
-            cur_miss = np.where(cur == k, miss[k][0], cur_miss)
-        other = phase[..., 1 - j]
-        best_delta = np.zeros(cur.shape)
-        best_k = cur.copy()
+            cur_miss = np.where(cur_r == k, miss[k][0], cur_miss)
+        other = phase[fi, ki, 1 - j]
+        delta_r = np.zeros(cur_r.shape)
+        best_r = cur_r.copy()
         for k in cubic:
             m_k, allowed = miss[k]
             d = m_k - cur_miss
-            better = is_cubic & (cur != k) & (other != k) & allowed & (d < best_delta - 1e-9)
-            best_delta = np.where(better, d, best_delta)
-            best_k = np.where(better, k, best_k)
-        phase[..., j] = best_k
+            better = (cur_r != k) & (other != k) & allowed & (d < delta_r - 1e-9)
+            delta_r = np.where(better, d, delta_r)
+            best_r = np.where(better, k, best_r)
+        best_delta = np.zeros(cur.shape)
+        best_delta[fi, ki] = delta_r
+        phase[fi, ki, j] = best_r
         cost = cost + best_delta
     return phase, cost
