@@ -284,7 +284,9 @@ def _refine(s, w, q0, wq, root=None, sigma=True, finite=True):
 
 def _refine_candidates(s, root, ok, w, q0, wq, ws, sigma=True, finite=True):
     """:func:`_refine` for arrays laid out (B, P, N) (w, q0, wq (B, P, 1)), ``ok`` =
-    s > 0; sums run over the peak axis one peak after the other."""
+    s > 0; sums run over the peak axis one peak after the other. With ``sigma="later"``
+    returns ``L`` and what :func:`_sigma_candidates` needs (``k``, ``sw``), so sigma_L
+    is computed for a few candidates only, with the same numbers."""
     if not finite:
         w, wq = np.where(ok, w, 0.0), np.where(ok, wq, 0.0)
     t = np.multiply(w, s, out=ws("t", s.shape))
@@ -293,17 +295,25 @@ def _refine_candidates(s, root, ok, w, q0, wq, ws, sigma=True, finite=True):
         k = np.multiply(wq, root, out=t).sum(axis=1) / sw
         if not sigma:
             return 1.0 / k, None
+        if sigma == "later":
+            return 1.0 / k, (k, sw)
+    return 1.0 / k, _sigma_candidates(k, sw, root, ok, w, q0, ws)
+
+
+def _sigma_candidates(k, sw, root, ok, w, q0, ws):
+    """sigma_L of :func:`_refine_candidates` from its ``k`` and ``sw`` (B, N), with
+    root, ok (B, P, N) and w, q0 (B, P, 1) (w as given to it)."""
+    with np.errstate(all="ignore"):
         n = ok.sum(axis=1)
-        d = np.multiply(k[:, None, :], root, out=t)
+        d = np.multiply(k[:, None, :], root, out=ws("t3", root.shape))
         np.subtract(q0, d, out=d)
         d *= d
-        d *= np.multiply(w, ok, out=ws("t2", s.shape))  # w where assigned, else 0
+        d *= np.multiply(w, ok, out=ws("t2", root.shape))  # w where assigned, else 0
         chi = d.sum(axis=1)
         red = np.where(n > 1, chi / np.maximum(n - 1, 1), 1.0)
         sk = np.sqrt(np.maximum(red, 1.0) / sw)
-        L = 1.0 / k
         sL = sk / k**2
-    return L, sL
+    return sL
 
 
 def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
@@ -325,7 +335,9 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
     L, _ = _refine_candidates(s, root, ok, w3, q03, wq3, ws, sigma=False, finite=finite)
     L = np.where(np.isfinite(L) & np.isfinite(L0), L, 0.0)
     s, root, matched, unmatched, mc, err = _match(tabs, ph_of, q, L, tol, ws)
-    L, sL = _refine_candidates(s, root, matched, w3, q03, wq3, ws, finite=finite)
+    # sigma_L only for the candidates kept (below): the same numbers, a quarter of the work
+    L, (k_all, sw_all) = _refine_candidates(s, root, matched, w3, q03, wq3, ws, sigma="later",
+                                            finite=finite)
     n_match = matched.sum(1)  # one peak per reflection (see _match)
     # missing reflections: allowed ones predicted inside [q_lo, highest matched q] that no
     # peak matches. Their cost is the cumulative cost of all allowed reflections in that
@@ -375,6 +387,10 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
         return np.take_along_axis(a, J[:, None, :], 2).transpose(0, 2, 1)  # (B, M, P)
 
     s_kept = take(s).astype(np.int64)
+    J3 = J[:, None, :]
+    ok_k = np.take_along_axis(matched, J3, 2)
+    sL_kept = _sigma_candidates(take(k_all), take(sw_all), np.take_along_axis(root, J3, 2), ok_k,
+                                w3 if finite else np.where(ok_k, w3, 0.0), q03, ws)
     cost_kept = np.concatenate(kept_cost, axis=2).reshape(B, nph * _KEEP)
     miss_kept = take(miss)
     if snr is not None:
@@ -385,7 +401,7 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
         miss_kept = miss_w
     return {
         "L": take(L),
-        "sL": take(sL),
+        "sL": sL_kept,
         "s": s_kept,
         "err": np.where(s_kept > 0, take(err), np.nan),
         "mc": take(mc),
