@@ -170,7 +170,13 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
     # when either matches it
     explained = ma | mb
     mc, err = cat["mc"], cat["err"]
-    to_a, to_b = _share(ma, mb, mc[rr, ca], mc[rr, cb], err[rr, ca], err[rr, cb])
+    # only a peak both match needs the comparison of _share: it is made there alone
+    both = ma & mb
+    pr, pp = np.nonzero(both)
+    fa, fb, fr = ca[pr], cb[pr], rr[pr]
+    to_a = ma.copy()
+    to_a[pr, pp] = _share(True, True, mc[fr, fa, pp], mc[fr, fb, pp], err[fr, fa, pp], err[fr, fb, pp])[0]
+    to_b = mb & ~to_a
     tabs = _phase_set(tuple(phases))
     ph_id = np.repeat(np.arange(len(phases)), _KEEP)
 
