@@ -8,6 +8,7 @@ from functools import cache
 
 import numpy as np
 
+from . import _latticematch
 from ._latticematch import (
     _ANCHOR_REFLECTIONS,
     _KEEP,
@@ -171,12 +172,15 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
     explained = ma | mb
     mc, err = cat["mc"], cat["err"]
     # only a peak both match needs the comparison of _share: it is made there alone
-    both = ma & mb
-    pr, pp = np.nonzero(both)
-    fa, fb, fr = ca[pr], cb[pr], rr[pr]
-    to_a = ma.copy()
-    to_a[pr, pp] = _share(True, True, mc[fr, fa, pp], mc[fr, fb, pp], err[fr, fa, pp], err[fr, fb, pp])[0]
-    to_b = mb & ~to_a
+    shortcuts = _latticematch.SHORTCUTS
+    if shortcuts:
+        pr, pp = np.nonzero(ma & mb)
+        fa, fb, fr = ca[pr], cb[pr], rr[pr]
+        to_a = ma.copy()
+        to_a[pr, pp] = _share(True, True, mc[fr, fa, pp], mc[fr, fb, pp], err[fr, fa, pp], err[fr, fb, pp])[0]
+        to_b = mb & ~to_a
+    else:
+        to_a, to_b = _share(ma, mb, mc[rr, ca], mc[rr, cb], err[rr, ca], err[rr, cb])
     tabs = _phase_set(tuple(phases))
     ph_id = np.repeat(np.arange(len(phases)), _KEEP)
 
@@ -217,7 +221,7 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
     fr2, idx2, own2 = np.concatenate([rr, rr]), np.concatenate([ca, cb]), np.concatenate([to_a, to_b])
     P = own2.shape[1]
     M = cat["L"].shape[1]
-    if HIDDEN_FRACTION == 1.0 and (int(q.shape[0]) * M) << P < 2**62:
+    if shortcuts and HIDDEN_FRACTION == 1.0 and (int(q.shape[0]) * M) << P < 2**62:
         # one phase of many pairs keeps the same peaks (the candidate's own matches, or
         # those less one shared peak the other phase takes): each distinct (frame,
         # candidate, own peaks) is recounted once; rows are independent, so this is exact
@@ -225,7 +229,7 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
         key = ((fr2.astype(np.int64) * M + idx2) << P) | bits
         _, first, inv = np.unique(key, return_index=True, return_inverse=True)
         R = recount(fr2[first], idx2[first], own2[first], None)[inv.reshape(-1)]
-    else:  # pragma: no cover - more peak columns than a key holds, or the tuning switch
+    else:  # the plain computation; also with more peak columns than a key holds
         R = recount(fr2, idx2, own2, np.concatenate([ma, mb]))
     out[ri, pi] = _sum_peaks(np.where(explained, 0.0, unexpl[rr])) + R[:n] + R[n:] + PHASE_COST
     return out
@@ -412,7 +416,8 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
         # only states with a cubic phase in this slot and peaks given to it can change
         # (with no own peak every reading costs nothing more): those rows alone are worked
         # on, row by row, so the result is the same as on all states
-        fi, ki = np.nonzero(np.isin(cur, cubic) & own.any(-1))
+        rows = np.isin(cur, cubic) & own.any(-1) if _latticematch.SHORTCUTS else np.ones(cur.shape, bool)
+        fi, ki = np.nonzero(rows)
         if fi.size == 0:
             continue
         own_r, s_r, cur_r = own[fi, ki], s[fi, ki], cur[fi, ki]
