@@ -388,7 +388,6 @@ def index_peaks(
             peak_phase[m] = ph
     # alternatives: other label sets within CLOSE_COST of the chosen explanation
     ch_key = _key(ch_phase, nph)
-    alt = np.full(F, "", dtype=object)
     margin = np.full(F, np.nan)
     key_names = {}
     for a_ in range(-1, nph):
@@ -402,10 +401,11 @@ def index_peaks(
         d = bk - ch_cost[:, None]
         margin = np.where(np.isfinite(d).any(1), np.min(np.where(np.isfinite(d), d, np.inf), 1), np.nan)
     margin[~np.isfinite(margin)] = np.nan
-    for i in np.nonzero((d < CLOSE_COST).any(1) & (ch_phase[:, 0] >= 0))[0]:
-        ks = np.nonzero(d[i] < CLOSE_COST)[0]
-        ks = ks[np.argsort(d[i, ks], kind="stable")][:3]
-        alt[i] = ", ".join(key_names[int(k)] for k in ks)
+    # up to three, closest first (ties: in key order), for all frames at once
+    close = (d < CLOSE_COST) & (ch_phase[:, 0] >= 0)[:, None]
+    top3 = np.argsort(np.where(close, d, np.inf), axis=1, kind="stable")[:, :3]
+    names_k = np.array([key_names.get(k, "") for k in range(nkeys)])
+    alt = _join(np.where(np.take_along_axis(close, top3, 1), names_k[top3], ""), ", ")
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
     with np.errstate(invalid="ignore"):
@@ -416,27 +416,22 @@ def index_peaks(
          "ambiguous_phase"],
         "ok",
     ).astype(STATUS_DTYPE)
-    caveat = np.full(F, "", dtype=object)
     few = found & (n_obs <= 3)
     # a phase of a pair indexed on three peaks or fewer of its own says so too
     n_own = np.stack([(ch_slot == j).sum(-1) for j in range(2)], -1)
     pair = (ch_phase >= 0).all(-1)[:, None]
     few_own = found[:, None] & ~few[:, None] & (phase_str != "") & pair & (
         n_own <= np.where(np.isin(phase_str, ("lamellar", "hexagonal")), 2, 3))
-    for i in np.nonzero(few | few_own.any(-1) | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]:
-        parts = []
-        if few[i]:
-            parts.append(f"only {int(n_obs[i])} peaks: assignment rests on few ratios")
-        for j in np.nonzero(few_own[i])[0]:
-            parts.append(f"{phase_str[i, j]} on {int(n_own[i, j])} peaks of its own: "
-                         "assignment rests on few ratios")
-        if alt[i]:
-            parts.append(f"close alternative: {alt[i]}")
-        if n_unexpl[i]:
-            parts.append(f"{int(n_unexpl[i])} peak(s) unexplained")
-        if n_rejected[i]:
-            parts.append(reject_words[i])
-        caveat[i] = "; ".join(parts)
+    said = few | few_own.any(-1) | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0)
+    ratios = " peaks of its own: assignment rests on few ratios"
+    parts = [
+        _words(few, "only ", n_obs, " peaks: assignment rests on few ratios"),
+        *(_words(few_own[:, j], np.char.add(phase_str[:, j], " on "), n_own[:, j], ratios) for j in range(2)),
+        np.where(alt != "", np.char.add("close alternative: ", alt), ""),
+        _words(n_unexpl > 0, "", n_unexpl, " peak(s) unexplained"),
+        np.where(n_rejected > 0, reject_words, ""),
+    ]
+    caveat = np.where(said, _join(np.stack(parts, -1), "; "), "")
     if max_phases == 1:
         phase_str, lat, lat_sig, score = phase_str[:, :1], lat[:, :1], lat_sig[:, :1], score[:, :1]
     return {
@@ -446,12 +441,33 @@ def index_peaks(
         "score": score,
         "hkl": np.take_along_axis(hkl, inverse, 1),
         "peak_phase": np.take_along_axis(peak_phase, inverse, 1),
-        "alternative": alt.astype(str),
+        "alternative": _tight(alt),
         "status": status,
         "cost": np.where(found, ch_cost, np.nan),
         "margin": np.where(found, margin, np.nan),
         "n_unexplained": n_unexpl.astype(np.int64),
-        "caveat": caveat.astype(str),
+        "caveat": _tight(caveat),
         "n_rejected": n_rejected.astype(np.int64),
         "rejected": rejected_list,
     }
+
+
+def _join(parts, sep):
+    """Join the non-empty strings of each row of ``parts`` (F, n) with ``sep``."""
+    out = parts[:, 0].astype(str)
+    for j in range(1, parts.shape[1]):
+        p = parts[:, j].astype(str)
+        out = np.where(p == "", out, np.where(out == "", p, np.char.add(np.char.add(out, sep), p)))
+    return out
+
+
+def _words(mask, before, number, after):
+    """``before + str(number) + after`` where ``mask``, else "" (vectorised f-string)."""
+    text = np.char.add(np.char.add(before, np.asarray(number).astype(np.int64).astype(str)), after)
+    return np.where(mask, text, "")
+
+
+def _tight(a):
+    """A string array no wider than its longest entry (as ``object -> str`` gives)."""
+    return np.asarray(a).astype(object).astype(str)
+
