@@ -404,6 +404,7 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
     if len(cubic) < 2:
         return phase, cost
     q0 = np.nan_to_num(q, nan=0.0)[:, None, :]
+    finite = np.isfinite(cost)
     for j in range(2):
         own = (slot == j) & (s > 0)
         Lj = L[..., j]
@@ -414,9 +415,11 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
 
         cur = phase[..., j]
         # only states with a cubic phase in this slot and peaks given to it can change
-        # (with no own peak every reading costs nothing more): those rows alone are worked
-        # on, row by row, so the result is the same as on all states
-        rows = np.isin(cur, cubic) & own.any(-1) if _latticematch.SHORTCUTS else np.ones(cur.shape, bool)
+        # (with no own peak every reading costs nothing more), and a state of infinite
+        # cost stays infinite and is never kept over the originals (index_peaks): those
+        # rows alone are worked on, row by row, so the result is the same as on all states
+        rows = (np.isin(cur, cubic) & own.any(-1) & finite if _latticematch.SHORTCUTS
+                else np.ones(cur.shape, bool))
         fi, ki = np.nonzero(rows)
         if fi.size == 0:
             continue
