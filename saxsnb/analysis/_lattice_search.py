@@ -299,18 +299,20 @@ def _viterbi(cost, phase, L, weight, switch_cost, jump_cost, jump_scale):
     # sb of b: a phase kept, which costs a jump (the two slots of a state hold different
     # phases, so at most two of the four slot pairs match and their sum is exact)
     jump = np.zeros((F - 1, K, K))
-    kept = np.zeros((F - 1, K, K, 2), dtype=bool)
+    n_same = np.zeros((F - 1, K, K), dtype=np.int64)
     for sa in range(2):
+        kept = np.zeros((F - 1, K, K), dtype=bool)
         for sb in range(2):
             pa, pb = ph[:-1, :, None, sa], ph[1:, None, :, sb]
-            t, ka, kb = np.nonzero((pa == pb) & (pa >= 0))
-            with np.errstate(invalid="ignore", divide="ignore"):
-                dl = np.abs(np.log(L[t + 1, kb, sb] / L[t, ka, sa]))
-            jump[t, ka, kb] += jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2)
-            kept[t, ka, kb, sa] = True
+            same = (pa == pb) & (pa >= 0)
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                dl = np.abs(np.log(L[1:, None, :, sb] / L[:-1, :, None, sa]))
+                step = jump_cost * np.minimum(1.0, (np.nan_to_num(dl, nan=1.0) / jump_scale) ** 2)
+            jump += np.where(same, step, 0.0)  # + 0.0 where the phase is not kept: exact
+            kept |= same
+        n_same += kept
     n_a = (phase[:-1] >= 0).sum(-1)[:, :, None]
     n_b = (phase[1:] >= 0).sum(-1)[:, None, :]
-    n_same = kept.sum(-1)
     trans = weight * (jump + switch_cost * (n_a + n_b - 2 * n_same))
     back = np.zeros((F, K), dtype=np.int64)
     acc = np.empty((F, K))  # least cost of a path ending in each state
