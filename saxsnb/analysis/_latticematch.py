@@ -154,7 +154,7 @@ def _gap_miss(s, own, weight, lo, cum, off):
     consecutive own peaks (and from ``lo`` to the first), each gap weighted by the
     weight of the own peak that closes it.
     """
-    s_own = np.where(own, s, 0)
+    s_own = np.where(own, s, 0).astype(np.int64, copy=False)
     prev = s_own.copy()  # running maximum along the peaks (a loop: faster than accumulate on short rows)
     for j in range(1, prev.shape[-1]):
         np.maximum(prev[..., j - 1], prev[..., j], out=prev[..., j])
@@ -166,8 +166,11 @@ def _gap_miss(s, own, weight, lo, cum, off):
     np.maximum(upper, 0, out=upper)
     upper += o
     below += o
-    gap = cum.take(upper)
-    gap -= cum.take(below)
+    # the two look-ups go into the memory of integer arrays no longer needed: fresh
+    # arrays alive at the same time cost page faults, several times the look-ups
+    # (indices are within the table, so mode "clip" changes nothing)
+    gap = cum.take(upper, out=s_own.view(np.float64), mode="clip")
+    gap -= cum.take(below, out=upper.view(np.float64), mode="clip")
     np.maximum(gap, 0.0, out=gap)
     gap *= own  # 0 where not own (there upper <= below anyway)
     if weight is not None:
@@ -387,16 +390,20 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
         c = np.where(same, np.inf, c)
     J = (np.concatenate(keep, axis=2) + (np.arange(nph) * C)[None, :, None]).reshape(B, nph * _KEEP)
 
+    # flat positions of the kept candidates: (B, M) in (B, N) arrays, (B, P, M) in (B, P, N)
+    N = nph * C
+    at2 = np.arange(B)[:, None] * N + J
+    at3 = (np.arange(B)[:, None, None] * (P * N) + (np.arange(P) * N)[None, :, None]) + J[:, None, :]
+
     def take(a):
         if a.ndim == 2:
-            return np.take_along_axis(a, J, 1)
-        return np.take_along_axis(a, J[:, None, :], 2).transpose(0, 2, 1)  # (B, M, P)
+            return a.reshape(-1).take(at2)
+        return a.reshape(-1).take(at3.transpose(0, 2, 1))  # (B, M, P)
 
     s_kept = take(s).astype(np.int64)
     if SHORTCUTS:
-        J3 = J[:, None, :]
-        ok_k = np.take_along_axis(matched, J3, 2)
-        sL_kept = _sigma_candidates(take(k_all), take(sw_all), np.take_along_axis(root, J3, 2), ok_k,
+        ok_k = matched.reshape(-1).take(at3)
+        sL_kept = _sigma_candidates(take(k_all), take(sw_all), root.reshape(-1).take(at3), ok_k,
                                     w3 if finite else np.where(ok_k, w3, 0.0), q03, ws)
     else:
         w_a = w3 if finite else np.where(matched, w3, 0.0)
@@ -405,7 +412,7 @@ def _singles(tabs, q, w, q0, wq, finite, unexpl, qa, q_lo, tol, ws, snr=None):
     miss_kept = take(miss)
     if snr is not None:
         lo_k = take(lo)
-        off_k = take(np.broadcast_to(off, lo.shape))
+        off_k = off[J]
         miss_w = _gap_miss(s_kept, s_kept > 0, snr[:, None, :], lo_k, cum_cost, off_k)
         cost_kept = np.where(np.isfinite(cost_kept), cost_kept - miss_kept + miss_w, cost_kept)
         miss_kept = miss_w
