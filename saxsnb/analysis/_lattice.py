@@ -401,11 +401,16 @@ def index_peaks(
         d = bk - ch_cost[:, None]
         margin = np.where(np.isfinite(d).any(1), np.min(np.where(np.isfinite(d), d, np.inf), 1), np.nan)
     margin[~np.isfinite(margin)] = np.nan
-    # up to three, closest first (ties: in key order), for all frames at once
+    # up to three, closest first (ties: in key order), chosen for all frames at once; the
+    # words are joined on Python lists (faster than numpy string operations)
     close = (d < CLOSE_COST) & (ch_phase[:, 0] >= 0)[:, None]
     top3 = np.argsort(np.where(close, d, np.inf), axis=1, kind="stable")[:, :3]
-    names_k = np.array([key_names.get(k, "") for k in range(nkeys)])
-    alt = _join(np.where(np.take_along_axis(close, top3, 1), names_k[top3], ""), ", ")
+    shown = np.take_along_axis(close, top3, 1)
+    names_k = np.array([key_names.get(k, "") for k in range(nkeys)], dtype=object)
+    alt = np.full(F, "", dtype=object)
+    some = np.nonzero(shown[:, 0])[0]
+    alt[some] = [", ".join(n for n, s in zip(nn, ss) if s)
+                 for nn, ss in zip(names_k[top3[some]].tolist(), shown[some].tolist())]
     n_unexpl = (present & (ch_slot < 0)).sum(-1)
     found = ch_phase[:, 0] >= 0
     with np.errstate(invalid="ignore"):
@@ -422,16 +427,12 @@ def index_peaks(
     pair = (ch_phase >= 0).all(-1)[:, None]
     few_own = found[:, None] & ~few[:, None] & (phase_str != "") & pair & (
         n_own <= np.where(np.isin(phase_str, ("lamellar", "hexagonal")), 2, 3))
-    said = few | few_own.any(-1) | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0)
-    ratios = " peaks of its own: assignment rests on few ratios"
-    parts = [
-        _words(few, "only ", n_obs, " peaks: assignment rests on few ratios"),
-        *(_words(few_own[:, j], np.char.add(phase_str[:, j], " on "), n_own[:, j], ratios) for j in range(2)),
-        np.where(alt != "", np.char.add("close alternative: ", alt), ""),
-        _words(n_unexpl > 0, "", n_unexpl, " peak(s) unexplained"),
-        np.where(n_rejected > 0, reject_words, ""),
+    said = np.nonzero(few | few_own.any(-1) | (alt != "") | (found & (n_unexpl > 0)) | (n_rejected > 0))[0]
+    caveat = np.full(F, "", dtype=object)
+    caveat[said] = [
+        _caveat(*row) for row in zip(*(a[said].tolist() for a in (
+            few, n_obs, few_own, phase_str, n_own, alt, n_unexpl, n_rejected, reject_words)))
     ]
-    caveat = np.where(said, _join(np.stack(parts, -1), "; "), "")
     if max_phases == 1:
         phase_str, lat, lat_sig, score = phase_str[:, :1], lat[:, :1], lat_sig[:, :1], score[:, :1]
     return {
@@ -452,20 +453,22 @@ def index_peaks(
     }
 
 
-def _join(parts, sep):
-    """Join the non-empty strings of each row of ``parts`` (F, n) with ``sep``."""
-    out = parts[:, 0].astype(str)
-    for j in range(1, parts.shape[1]):
-        p = parts[:, j].astype(str)
-        out = np.where(p == "", out, np.where(out == "", p, np.char.add(np.char.add(out, sep), p)))
-    return out
 
-
-def _words(mask, before, number, after):
-    """``before + str(number) + after`` where ``mask``, else "" (vectorised f-string)."""
-    text = np.char.add(np.char.add(before, np.asarray(number).astype(np.int64).astype(str)), after)
-    return np.where(mask, text, "")
-
+def _caveat(few, n_obs, few_own, phase, n_own, alt, n_unexpl, n_rejected, rejected):
+    """The caveat words of one frame (see :func:`index_peaks`), from Python values."""
+    parts = []
+    if few:
+        parts.append(f"only {n_obs} peaks: assignment rests on few ratios")
+    for j in (0, 1):
+        if few_own[j]:
+            parts.append(f"{phase[j]} on {n_own[j]} peaks of its own: assignment rests on few ratios")
+    if alt:
+        parts.append(f"close alternative: {alt}")
+    if n_unexpl:
+        parts.append(f"{n_unexpl} peak(s) unexplained")
+    if n_rejected:
+        parts.append(rejected)
+    return "; ".join(parts)
 
 def _tight(a):
     """A string array no wider than its longest entry (as ``object -> str`` gives)."""
