@@ -362,6 +362,14 @@ def _key(phase_pair, n):
 _NOT_CUBIC = ("lamellar", "hexagonal")
 
 
+def _allows(phase_name, own, s):
+    """Whether ``phase_name`` allows every reflection ``s`` of the peaks ``own`` (..., P)."""
+    from ._latticematch import _table
+
+    ok = _table(phase_name)[1]
+    return np.where(own, ok[np.where(own, np.minimum(s, ok.size - 1), 0)], True).all(-1)
+
+
 def _miss_as(phase_name, own, s, x_lo, x_hi, snr=None):
     """Miss cost of the peaks ``own`` (indexed ``s``) read as ``phase_name`` over the
     range x_lo..x_hi of (q L)^2 (noise-weighted with ``snr``, :func:`_gap_miss`), and
@@ -426,18 +434,27 @@ def _relabel_subsets(phase, L, slot, s, cost, q, q_lo, phases, tol, snr=None):
         if fi.size == 0:
             continue
         own_r, s_r, cur_r = own[fi, ki], s[fi, ki], cur[fi, ki]
+        xlo_r, xhi_r = x_lo[fi, ki], x_hi[fi, ki]
         p = None if snr is None else snr[fi]
-        miss = {k: _miss_as(phases[k], own_r, s_r, x_lo[fi, ki], x_hi[fi, ki], p) for k in cubic}
+        other = phase[fi, ki, 1 - j]
+        # a phase is a candidate where it allows all the peaks; its miss cost is needed
+        # there and where it is the current phase (row by row: the same numbers)
+        cand = {k: (cur_r != k) & (other != k) & _allows(phases[k], own_r, s_r) for k in cubic}
+        miss = {}
+        for k in cubic:
+            w_ = np.nonzero((cur_r == k) | cand[k])[0] if _latticematch.SHORTCUTS else np.arange(cur_r.size)
+            miss[k] = np.zeros(cur_r.shape)
+            if w_.size:
+                miss[k][w_] = _miss_as(phases[k], own_r[w_], s_r[w_], xlo_r[w_], xhi_r[w_],
+                                       None if p is None else p[w_])[0]
         cur_miss = np.zeros(cur_r.shape)
         for k in cubic:
-            cur_miss = np.where(cur_r == k, miss[k][0], cur_miss)
-        other = phase[fi, ki, 1 - j]
+            cur_miss = np.where(cur_r == k, miss[k], cur_miss)
         delta_r = np.zeros(cur_r.shape)
         best_r = cur_r.copy()
         for k in cubic:
-            m_k, allowed = miss[k]
-            d = m_k - cur_miss
-            better = (cur_r != k) & (other != k) & allowed & (d < delta_r - 1e-9)
+            d = miss[k] - cur_miss
+            better = cand[k] & (d < delta_r - 1e-9)
             delta_r = np.where(better, d, delta_r)
             best_r = np.where(better, k, best_r)
         best_delta = np.zeros(cur.shape)
