@@ -6,8 +6,10 @@ lattices drifting along the ramp, weak high orders dropped at random, position n
 and now and then an extra (unexplained) peak. The peak table is built directly (the
 positions a peak finder would return, NaN padded), so only indexing is timed.
 
-Prints microseconds per frame (target <= 20 us per frame) and, for scale, the time of
-one ``np.sort`` of the peak table measured in the same run.
+Prints microseconds per frame (target <= 20 us per frame), the load average and, in
+the same run, the time of the plain computation (the candidate-search shortcuts off,
+``saxsnb.analysis._latticematch.SHORTCUTS = False``: the same numbers bit for bit) and,
+for scale, of one ``np.sort`` of the peak table.
 
 Usage::
 
@@ -22,7 +24,7 @@ import time
 
 import numpy as np
 
-from saxsnb.analysis import index_phases
+from saxsnb.analysis import _latticematch, index_phases
 from saxsnb.analysis._reflections import q_positions
 
 #: (phases, lattice at the start, lattice at the end, nm) of each stretch of the ramp
@@ -83,11 +85,23 @@ def main(argv=None):
         times.append(time.perf_counter() - t0)
         cpu.append(time.process_time() - c0)
     t, c = float(np.median(times)), float(np.median(cpu))
+    _latticematch.SHORTCUTS = False  # the plain computation, once, for the ratio
+    try:
+        c0 = time.process_time()
+        plain = index_phases(pos, sig, fwhm, prom, q_min=0.3, q_step=0.002)
+        c_plain = time.process_time() - c0
+    finally:
+        _latticematch.SHORTCUTS = True
+    same = all(np.array_equal(np.asarray(res[k]), np.asarray(plain[k]),
+                              equal_nan=np.asarray(res[k]).dtype.kind == "f") for k in res)
     lab = np.array(["+".join(sorted(p for p in row if p)) for row in res["phase"]])
     print(f"index_phases, {n} frames x {N_PEAKS} peak columns, median of {repeats}")
     print(f"  {1e6 * t / n:8.1f} us per frame   (target <= 20)   total {t:.2f} s")
     print(f"  {1e6 * c / n:8.1f} us CPU per frame (process time: less sensitive to other load)")
+    print(f"  plain computation (shortcuts off): {1e6 * c_plain / n:.1f} us CPU per frame, "
+          f"{c_plain / c:.2f}x the time; same results: {same}")
     print(f"  np.sort of the table: {1e6 * t_sort / n:.3f} us per frame (same run, for scale)")
+    print(f"  load average {os.getloadavg()[0]:.2f} (2-core machine shared with other work)")
     print(f"  labels right: {np.mean(lab == truth):.3f}")
 
 
