@@ -453,7 +453,6 @@ def index_peaks(
     }
 
 
-
 def _caveat(few, n_obs, few_own, phase, n_own, alt, n_unexpl, n_rejected, rejected):
     """The caveat words of one frame (see :func:`index_peaks`), from Python values."""
     parts = []
@@ -470,7 +469,7 @@ def _caveat(few, n_obs, few_own, phase, n_own, alt, n_unexpl, n_rejected, reject
         parts.append(rejected)
     return "; ".join(parts)
 
+
 def _tight(a):
     """A string array no wider than its longest entry (as ``object -> str`` gives)."""
     return np.asarray(a).astype(object).astype(str)
-

@@ -177,7 +177,7 @@ def _pair_costs(cat, rows, a, b, q, unexpl, q_lo, phases, tol, snr):
         pr, pp = np.nonzero(ma & mb)
         fa, fb, fr = ca[pr], cb[pr], rr[pr]
         to_a = ma.copy()
-        to_a[pr, pp] = _share(True, True, mc[fr, fa, pp], mc[fr, fb, pp], err[fr, fa, pp], err[fr, fb, pp])[0]
+        to_a[pr, pp] = _a_wins(mc[fr, fa, pp], mc[fr, fb, pp], err[fr, fa, pp], err[fr, fb, pp])
         to_b = mb & ~to_a
     else:
         to_a, to_b = _share(ma, mb, mc[rr, ca], mc[rr, cb], err[rr, ca], err[rr, cb])
@@ -239,10 +239,14 @@ def _share(ma, mb, mca, mcb, ea, eb):
     """Which phase of a pair takes each peak: the one it matches; a peak both match goes
     to the phase for which it is the lower order (the larger miss cost), then to the
     closer fit. Returns ``to_a``, ``to_b`` (bool, disjoint)."""
-    with np.errstate(invalid="ignore"):
-        a_wins = (mca > mcb) | ((mca == mcb) & ~(eb < ea))
-    to_a = ma & (~mb | a_wins)
+    to_a = ma & (~mb | _a_wins(mca, mcb, ea, eb))
     return to_a, mb & ~to_a
+
+
+def _a_wins(mca, mcb, ea, eb):
+    """On a peak both phases of a pair match: does the first take it (see :func:`_share`)."""
+    with np.errstate(invalid="ignore"):
+        return (mca > mcb) | ((mca == mcb) & ~(eb < ea))
 
 
 def _states(H, sel, P):
