@@ -23,7 +23,7 @@ _STATUS_DTYPE = STATUS_DTYPE
 
 _CHUNK = 256
 #: points (frames x columns) searched together in one block
-_BLOCK_POINTS = 1 << 18
+_BLOCK_POINTS = 1 << 17
 
 
 _DECAY_MARGIN = 0.3
