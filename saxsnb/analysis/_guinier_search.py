@@ -246,8 +246,12 @@ def _decay_bound(I, S, kind, limit, k=3.0, col_lo=None, q=None):
     intensity lies below the first positive intensity times exp(-(limit^2/3 + 0.3)):
     a Guinier curve has lost that much only beyond q Rg = 1.6 for the limit 1.3, a
     Gaussian chain (which decays more slowly) beyond q Rg = 1.8. The columns are read
-    in growing blocks, frames already bounded are not read again, so the high-q part
-    of a long curve is never touched. Rod and sheet: the same on q I and q^2 I from the
+    in growing blocks (32, 64, ... 256), counting the points below the threshold; a
+    frame is bounded in the block where its count reaches 3 (the column found there by
+    a search) and not read again, so the high-q part of a long curve is never touched.
+    The first positive point is looked for in the first 128 columns; frames without one
+    there take :func:`_decay_bound_scan` (the same columns, tests/test_guinier_blocks.py).
+    Rod and sheet: the same on q I and q^2 I from the
     column ``col_lo`` on, with the drop limit^2 / k + 0.3 (k = 2, 1: the drop of the
     cross-section or thickness law at q R = limit).
     """
