@@ -489,7 +489,7 @@ def search_block(q, I, S, rows, h, bound, col_lo, kind, k, limit, min_points, K,
 
 
 #: frames whose windows are scored together
-_FRAMES = 256
+_FRAMES = 512
 
 
 def _finish(L, evaluate, starts, stops, cn, rows, h, q, bs, I, S, no_sigma, K, shape):
