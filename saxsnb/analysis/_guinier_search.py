@@ -8,7 +8,8 @@ import numpy as np
 
 from ..errors import SaxsInputError
 from ._arrays import as_frames
-from ._guinier_blocks import _flags, search_block
+from ._guinier_blocks import search_block
+from ._guinier_points import _flags
 from ._linear import SHAPE_PLOTS
 from ._status import STATUS_DTYPE
 from ._windows import WindowMoments
