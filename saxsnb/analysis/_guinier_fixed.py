@@ -78,14 +78,52 @@ def _fit_shared_window(q, I, S, start, stop, kind):
     qw = q[start:stop]
     Iw = I[:, start:stop]
     Sw = S[:, start:stop]
+    F = Iw.shape[0]
+    # I > 0 and finite, sigma > 0 and finite (NaN fails every comparison)
+    with np.errstate(invalid="ignore"):
+        clean = (Iw.min(axis=-1) > 0) & (Sw.min(axis=-1) > 0)
+        clean &= (Iw.max(axis=-1) < np.inf) & (Sw.max(axis=-1) < np.inf)
+    if clean.all():
+        return _fit_clean(qw, Iw, Sw, kind)
+    cl = np.flatnonzero(clean)
+    bad = np.flatnonzero(~clean)
+    fit = _fit_clean(qw, Iw[cl], Sw[cl], kind) if cl.size else _fit_clean(qw, Iw[:0], Sw[:0], kind)
+    out = {}
+    for key, v in fit.items():
+        full = np.full(F, np.nan if v.dtype.kind == "f" else 0, dtype=v.dtype)
+        full[cl] = v
+        out[key] = full
+    out["q_min"][bad] = qw[0]
+    out["q_max"][bad] = qw[-1]
+    finite, neg, zero, _ = _flags(Iw[bad], Sw[bad])
+    n_neg, n_zero = neg.sum(-1), zero.sum(-1)
+    # a window holding a non-positive intensity or a zero sigma fails with that status
+    # (guinier() reports no numbers for it): only the counts are needed
+    blocked = (n_neg > 0) | (n_zero > 0)
+    out["n_finite"][bad] = finite.sum(-1)
+    out["n_points"][bad] = out["n_finite"][bad] - n_neg - n_zero
+    out["n_negative"][bad] = n_neg
+    out["n_zero_sigma"][bad] = n_zero
+    rest = bad[~blocked]  # excluded (non-finite, e.g. masked) points only: the general route
+    if rest.size:
+        gen = _fit_shared_window_general(q, I[rest], S[rest], start, stop, kind)
+        for key, val in gen.items():
+            out[key] = out[key].astype(np.result_type(out[key], val), copy=False)
+            out[key][rest] = val
+    return out
+
+
+def _fit_clean(qw, Iw, Sw, kind):
+    """The fast route of :func:`_fit_shared_window` on frames whose window points are
+    all usable: weighted row sums centred on the window's mean x and each frame's
+    weighted mean y."""
+    n_w = qw.size
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         y = np.log(Iw)
         if kind != "guinier":
             y += (1.0 if kind == "rod" else 2.0) * np.log(qw)
-        r = Iw / Sw
-        # I > 0 and finite, sigma > 0 and finite <=> y finite and r finite and > 0
-        clean = (r.min(axis=-1) > 0) & np.isfinite(np.einsum("ij->i", y)) & np.isfinite(np.einsum("ij->i", r))
-        w = np.multiply(r, r, out=r)
+        w = Iw / Sw
+        w *= w
         x = qw * qw
         x0 = float(x.mean())
         u = x - x0
@@ -107,26 +145,6 @@ def _fit_shared_window(q, I, S, start, stop, kind):
     fit["n_finite"] = n.copy()
     fit["n_negative"] = np.zeros(F, dtype=np.int64)
     fit["n_zero_sigma"] = np.zeros(F, dtype=np.int64)
-    if not clean.all():
-        bad = np.flatnonzero(~clean)
-        finite, neg, zero, _ = _flags(Iw[bad], Sw[bad])
-        n_neg, n_zero = neg.sum(-1), zero.sum(-1)
-        # a window holding a non-positive intensity or a zero sigma fails with that status
-        # (guinier() reports no numbers for it): only the counts are needed
-        blocked = (n_neg > 0) | (n_zero > 0)
-        for key in fit:
-            if key not in ("q_min", "q_max") and fit[key].dtype.kind == "f":
-                fit[key][bad[blocked]] = np.nan
-        fit["n_finite"][bad] = finite.sum(-1)
-        fit["n_points"][bad] = fit["n_finite"][bad] - n_neg - n_zero
-        fit["n_negative"][bad] = n_neg
-        fit["n_zero_sigma"][bad] = n_zero
-        rest = bad[~blocked]  # excluded (non-finite, e.g. masked) points only: the general route
-        if rest.size:
-            gen = _fit_shared_window_general(q, I[rest], S[rest], start, stop, kind)
-            for key, val in gen.items():
-                fit[key] = fit[key].astype(np.result_type(fit[key], val), copy=False)
-                fit[key][rest] = val
     return fit
 
 

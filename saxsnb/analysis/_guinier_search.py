@@ -8,6 +8,8 @@ import numpy as np
 
 from ..errors import SaxsInputError
 from ._arrays import as_frames
+from ._guinier_blocks import search_block
+from ._guinier_points import _flags
 from ._linear import SHAPE_PLOTS
 from ._status import STATUS_DTYPE
 from ._windows import WindowMoments
@@ -21,26 +23,11 @@ _STATUS_DTYPE = STATUS_DTYPE
 
 
 _CHUNK = 256
+#: points (frames x columns) searched together in one block
+_BLOCK_POINTS = 1 << 17
 
 
 _DECAY_MARGIN = 0.3
-
-
-_OUTLIER_Z = 4.0
-
-#: low-q upturn test (compact): the relative curvature kappa = c / b^2 of ln I vs q^2
-#: (c the quadratic coefficient, b the line slope of a window from the first usable
-#: point) that no single population of particles exceeds below q Rg ~ 2. For a sum of
-#: Guinier terms kappa is half the squared relative spread of the intensity-weighted
-#: Rg^2 (the second cumulant of ln I in q^2); measured on closed forms and quadratures
-#: (tests/validation/test_shapes_validation.py): sphere -0.07, vesicle -0.1, Schulz spheres z = 4
-#: 0.09 (z = 1: 0.16), prolate ellipsoid 3x3x9 0.12-0.22, Debye-Bueche 0.25, Gaussian
-#: chain 0.25-0.41, cylinders R = 2 nm, L = 30-60 nm 0.2-1.2 (the highest, at q Rg = 2,
-#: beyond the searched windows); a mixture with 1 % by weight of 10x larger spheres,
-#: or a power-law background fading into the particle's curve, reaches 5-30.
-_UPTURN_KAPPA = 1.5
-#: significance of the upturn: (c - kappa_max b^2) above this many sigma_c
-_UPTURN_Z = 4.0
 
 
 #: rod and sheet: the low-q end of their validity region (q >> 1/L, q >> 1/D), first
@@ -157,26 +144,6 @@ def _check_shape(shape):
     return SHAPES[shape]
 
 
-def _flags(I, S):
-    """finite, non-positive intensity, zero/negative sigma, usable (bool arrays)."""
-    finite = np.isfinite(I)
-    if S is not None:
-        finite &= np.isfinite(S)
-    neg = finite & (I <= 0)
-    zero = finite & ~neg & (S <= 0) if S is not None else np.zeros_like(finite)
-    return finite, neg, zero, finite & ~neg & ~zero
-
-
-def _nth_true(cnt, k, n):
-    """Column of the k-th (1-based; int array (F, K)) usable point, from the running
-    count ``cnt`` of usable points (F, n); ``n`` where a row has fewer."""
-    out = np.empty(k.shape, dtype=np.int64)
-    for j in range(k.shape[1]):  # a handful of candidate starts, not frames
-        hit = cnt >= k[:, j : j + 1]
-        out[:, j] = np.where(hit[:, -1], np.argmax(hit, axis=-1), n)
-    return out
-
-
 def guinier_search(
     q,
     intensity,
@@ -245,37 +212,31 @@ def _search(q, I, S, kind, k, limit, min_points, K, E, curvature_z, max_drift, s
     else:
         col_lo = np.searchsorted(q, np.where(np.isnan(q_low), -np.inf, q_low)).astype(np.int64)
     bound, _ = _decay_bound(I, S, kind, limit, k, col_lo, q)
-    # Frames are processed in chunks (bounding the memory of the window arrays) of
-    # similar column bound, so that few columns are read beyond any frame's bound.
-    # Every frame's result depends on its own data only.
+    # Frames in order of their column bound, in groups of _CHUNK: a frame may use the
+    # columns up to the largest bound of its group (its horizon), so that few columns
+    # are read beyond any frame's bound. Several groups are searched together in one
+    # block of about _BLOCK_POINTS points (larger numpy operations).
     order = np.argsort(bound, kind="stable")
+    horizon = np.empty(F, dtype=np.int64)
     for a in range(0, F, _CHUNK):
-        sel = order[a : a + _CHUNK]
-        n_cut = int(bound[sel].max())
-        sa, sb, st, fit = _search_chunk(
-            q[:n_cut],
-            I[:, :n_cut][sel],
-            None if S is None else S[:, :n_cut][sel],
-            bound[sel],
-            col_lo[sel],
-            I,
-            S,
-            sel,
-            kind,
-            k,
-            limit,
-            min_points,
-            K,
-            E,
-            curvature_z,
-            max_drift,
-            shape,
+        horizon[a : a + _CHUNK] = bound[order[a : a + _CHUNK]].max()
+    a = 0
+    work: dict = {}
+    while a < F:
+        b = min(F, a + _CHUNK)
+        while b < F and (b + _CHUNK - a) * horizon[min(F, b + _CHUNK) - 1] <= _BLOCK_POINTS:
+            b = min(F, b + _CHUNK)
+        sel = order[a:b]
+        sa, sb, st, fit = search_block(
+            q, I, S, sel, horizon[a:b], bound[sel], col_lo[sel], kind, k, limit, min_points, K, E,
+            curvature_z, max_drift, shape, work,
         )
         start[sel], stop[sel], status[sel] = sa, sb, st
         for key, v in fit.items():
             if key not in fits:
                 fits[key] = np.empty(F, dtype=v.dtype)
             fits[key][sel] = v
+        a = b
     return {"start": start, "stop": stop, "status": status}, fits
 
 
@@ -286,8 +247,12 @@ def _decay_bound(I, S, kind, limit, k=3.0, col_lo=None, q=None):
     intensity lies below the first positive intensity times exp(-(limit^2/3 + 0.3)):
     a Guinier curve has lost that much only beyond q Rg = 1.6 for the limit 1.3, a
     Gaussian chain (which decays more slowly) beyond q Rg = 1.8. The columns are read
-    in growing blocks, frames already bounded are not read again, so the high-q part
-    of a long curve is never touched. Rod and sheet: the same on q I and q^2 I from the
+    in growing blocks (32, 64, ... 256), counting the points below the threshold; a
+    frame is bounded in the block where its count reaches 3 (the column found there by
+    a search) and not read again, so the high-q part of a long curve is never touched.
+    The first positive point is looked for in the first 128 columns; frames without one
+    there take :func:`_decay_bound_scan` (the same columns, tests/test_guinier_blocks.py).
+    Rod and sheet: the same on q I and q^2 I from the
     column ``col_lo`` on, with the drop limit^2 / k + 0.3 (k = 2, 1: the drop of the
     cross-section or thickness law at q R = limit).
     """
@@ -312,14 +277,69 @@ def _decay_bound(I, S, kind, limit, k=3.0, col_lo=None, q=None):
         bound[found] = np.argmax(cnt[found] >= 3, axis=-1) + 1
         return bound, int(bound.max())
     factor = np.exp(-(limit * limit / 3.0 + _DECAY_MARGIN))
+    c = min(n_q, 128)
+    # the first positive point of each frame, looked for in the first c columns (as the
+    # reference scan below, which these frames then match exactly); frames without one
+    # there take the reference scan
+    first = np.zeros(F, dtype=np.int64)
+    late = np.flatnonzero(~(I[:, 0] > 0))
+    pos_any = np.ones(F, dtype=bool)
+    if late.size:
+        head = I[late, :c] > 0
+        pos_any[late] = head.any(axis=-1)
+        first[late] = np.argmax(head, axis=-1)
+    thr = I[np.arange(F), first] * factor
+    rest = np.flatnonzero(~pos_any)
+    todo = np.flatnonzero(pos_any)
+    # columns in blocks: count the points below the threshold; a frame is done in the
+    # block where its count reaches 3, found there by a search (no running count)
+    count = np.zeros(F, dtype=np.int64)
+    a, step = 0, 32
+    while todo.size and a < n_q:
+        b = min(n_q, a + step)
+        with np.errstate(invalid="ignore"):
+            if 2 * todo.size > F:
+                below = (I[:, a:b] < thr[:, None])[todo]
+            else:
+                below = I[todo, a:b] < thr[todo, None]
+        if a <= first[todo].max():
+            below &= np.arange(a, b)[None, :] > first[todo, None]
+        got = count[todo] + np.count_nonzero(below, axis=-1)
+        done = got >= 3
+        if done.any():
+            need = 3 - count[todo[done]]
+            hit = below[done]
+            r = np.arange(hit.shape[0])
+            col = np.argmax(hit, axis=-1)
+            for j in (2, 3):  # the need-th point below: clear the ones before it
+                more = np.flatnonzero(need >= j)
+                if not more.size:
+                    break
+                hit[r[more], col[more]] = False
+                col[more] = np.argmax(hit[more], axis=-1)
+            bound[todo[done]] = a + col + 1
+        count[todo] = got
+        todo = todo[~done]
+        a, step = b, min(2 * step, 256)
+    if rest.size:
+        bound[rest] = _decay_bound_scan(I[rest], factor)
+    return bound, int(bound.max())
+
+
+def _decay_bound_scan(I, factor):
+    """Reference scan of :func:`_decay_bound` (compact): growing blocks from column 0,
+    the first positive point looked for within each block."""
+    F, n_q = I.shape
+    bound = np.full(F, n_q, dtype=np.int64)
     todo = np.arange(F)
     c = min(n_q, 128)
     while todo.size:
-        Ic = I[:, :c] if todo.size == F else I[todo, :c]
+        Ic = I[todo, :c]
         pos = Ic > 0
         first = np.argmax(pos, axis=-1)
         thr = Ic[np.arange(todo.size), first] * factor
-        below = (Ic < thr[:, None]) & (np.arange(c)[None, :] > first[:, None])
+        with np.errstate(invalid="ignore"):
+            below = (Ic < thr[:, None]) & (np.arange(c)[None, :] > first[:, None])
         cnt = np.cumsum(below, axis=-1, dtype=np.int32)
         found = cnt[:, -1] >= 3
         bound[todo[found]] = np.argmax(cnt[found] >= 3, axis=-1) + 1
@@ -327,211 +347,7 @@ def _decay_bound(I, S, kind, limit, k=3.0, col_lo=None, q=None):
             break
         todo = todo[~found]
         c = min(n_q, 2 * c)
-    return bound, int(bound.max())
-
-
-def _search_chunk(
-    q, Ic, Sc, bound, col_lo, I, S, sel, kind, k, limit, min_points, K, E, curvature_z, max_drift, shape
-):
-    """Window search on the frames ``sel``; ``Ic, Sc`` hold their first columns."""
-    F, n_cut = Ic.shape
-    rows = np.arange(F)
-    finite, neg, zero, usable = _flags(Ic, Sc)
-    cnt = np.cumsum(usable, axis=-1, dtype=np.int32)
-    n_usable = cnt[:, -1]
-    # candidate starts (F, K): the j-th usable point from column col_lo on (0 for
-    # compact; rod, sheet: the low-q end of their validity region)
-    before = np.where(col_lo > 0, cnt[rows, np.clip(col_lo - 1, 0, n_cut - 1)], 0)
-    before = np.where(col_lo >= n_cut, n_usable, before)
-    if shape == "compact":
-        kth = before[:, None] + np.arange(1, K + 1)[None, :]
-    else:
-        # rod, sheet: the later starts spread up to min_points before the decay bound, so a
-        # frame whose validity region starts higher than estimated still finds its window
-        at_bound = cnt[rows, np.clip(bound - 1, 0, n_cut - 1)]
-        span = np.maximum(at_bound - before - min_points, 0)
-        steps = np.rint(np.linspace(0.0, 1.0, K)[None, :] * span[:, None]).astype(np.int64)
-        kth = before[:, None] + 1 + steps
-    starts = _nth_true(cnt, kth, n_cut)
-    # candidate stops (F, E): from min_points usable after the first start to the bound
-    lo = _nth_true(cnt, before[:, None] + min_points, n_cut)[:, 0] + 1
-    hi = np.maximum(bound, lo)
-    stops = np.rint(lo[:, None] + np.linspace(0.0, 1.0, E)[None, :] * (hi - lo)[:, None]).astype(np.int64)
-    stops = np.minimum(stops, n_cut)
-
-    mom = _moments(q, Ic, Sc, usable, kind, quadratic=True)
-    # blocking points (non-positive intensity, zero sigma) must not lie inside a window
-    blocking = neg | zero
-    blk = np.zeros((F, n_cut + 1), dtype=np.int32)
-    np.cumsum(blocking, axis=-1, out=blk[:, 1:])
-    idx = np.where(usable, np.arange(n_cut)[None, :], 0)
-    last_use = np.maximum.accumulate(idx, axis=-1)
-    q_last_all = q[last_use[rows[:, None], np.maximum(stops - 1, 0)]]
-
-    def evaluate(r, s2):
-        """Acceptance and score of the windows (starts s2 (len(r), k) x all stops); also
-        the low-q upturn statistic (module notes of saxsnb.analysis._guinier): the largest
-        significance, over the windows, of a relative curvature above _UPTURN_KAPPA."""
-        e3 = stops[r][:, None, :]
-        s3 = s2[:, :, None]
-        st = mom.search_stats(s3, e3, rows=r)
-        nblk = blk[r[:, None], stops[r]][:, None, :] - blk[r[:, None], s2][:, :, None]
-        slope = st["slope"]
-        n = st["n_points"]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            # curvature: significance (sigma scaled by sqrt(chi2_red) when above 1) or size
-            var_scale = np.maximum(st["chi2_quadratic"] / np.maximum(n - 3.0, 1.0), 1.0)
-            c2 = st["c"] * st["c"]
-            c_var = st["c_var"] * var_scale
-            flat = (c2 <= curvature_z * curvature_z * c_var) | (np.abs(st["drift"]) <= max_drift)
-            # the first point must not be an outlier of the window's line (beam-stop
-            # shadow, parasitic scattering): its squared weighted residual below
-            # outlier_z^2 times the line's reduced chi-square (at least 1)
-            line_scale = np.maximum(st["chi2_line"] / np.maximum(n - 2.0, 1.0), 1.0)
-            clean_start = st["first_residual2"] <= _OUTLIER_Z**2 * line_scale
-            inside = (q_last_all[r] ** 2)[:, None, :] * (-k * slope) <= limit * limit
-            geom = (s3 < e3) & (nblk == 0) & (n >= min_points - 0.5)
-            negative = slope < 0
-            accept = geom & negative & inside & flat & clean_start
-            # score: estimated mean-squared error of the slope as an estimate of the
-            # slope at q = 0: its variance plus the squared departure c * lever that
-            # the quadratic term causes (c^2 estimated without its noise bias)
-            mse = st["slope_var"] * var_scale + np.maximum(c2 - c_var, 0.0) * st["lever"] ** 2
-            key = np.where(accept, -mse / (slope * slope), -np.inf).reshape(len(r), -1)
-            # sigma_c from the data's sigma alone (a quadratic misfits an upturn: scaling
-            # by its chi2 would hide the upturn it measures); scaled without sigma
-            up_var = c_var if Sc is None else st["c_var"]
-            up_z = np.where(geom, (st["c"] - _UPTURN_KAPPA * slope * slope) / np.sqrt(up_var), -np.inf)
-            up_z = np.max(np.where(np.isnan(up_z), -np.inf, up_z).reshape(len(r), -1), -1)
-        best = np.argmax(key, axis=-1)
-        ok_ = accept.reshape(len(r), -1)[np.arange(len(r)), best]
-        bs, be = np.unravel_index(best, (s2.shape[1], E))
-        avg = _window_average(accept, key, slope, st["slope_var"] * var_scale, st["intercept"],
-                              st["intercept_var"] * var_scale, st["slope_intercept_cov"] * var_scale)
-        avg["sigma_scale"] = np.sqrt(var_scale.reshape(len(r), -1)[np.arange(len(r)), best])
-        diag = (geom, negative, inside, flat, st["c"], up_z)
-        return ok_, s2[np.arange(len(r)), bs], stops[r, be], diag, avg
-
-    # stage 1: windows from the first usable point (compact) or from all starts (rod,
-    # sheet); stage 2, only for frames without an acceptable window: the later starts
-    K1 = 1
-    ok, start, stop, diag, avg = evaluate(rows, starts[:, :K1])
-    start = np.where(ok, start, -1)
-    stop = np.where(ok, stop, -1)
-    if K > K1 and not ok.all():
-        r2 = rows[~ok]
-        ok2, start2, stop2, _, avg2 = evaluate(r2, starts[r2, K1:])
-        ok[r2] = ok2
-        start[r2] = np.where(ok2, start2, -1)
-        stop[r2] = np.where(ok2, stop2, -1)
-        for key_, v in avg2.items():
-            avg[key_][r2] = v
-    geom, negative, inside, flat, c_curv, up_z = diag
-
-    status = np.full(F, "ok", dtype=_STATUS_DTYPE)
-    # the low-q upturn (compact): the windows from the first usable point curve upwards
-    # more than any single population allows -> no Guinier result, whatever the later
-    # starts gave (aggregates, attraction, unsubtracted background or parasitic scattering)
-    upturn = (up_z > _UPTURN_Z) if shape == "compact" else np.zeros(F, dtype=bool)
-    ok &= ~upturn
-    start = np.where(ok, start, -1)
-    stop = np.where(ok, stop, -1)
-    approx = np.zeros(F, dtype=bool)
-    fail = ~ok
-    if fail.any():
-        # why a frame failed, judged on the windows from the first start
-        g0 = geom[:, 0, :]
-        any_geom = g0.any(axis=-1)
-        rising = (g0 & (~negative[:, 0, :] | ((c_curv[:, 0, :] > 0) & ~flat[:, 0, :]))).any(axis=-1)
-        if shape != "compact":  # ln(q I), ln(q^2 I) rise at low q by nature: no aggregation sign
-            rising[:] = False
-        short_inside = inside[:, 0, :][rows, np.argmax(g0, axis=-1)]
-        has_block = blocking.any(axis=-1)
-        first_block = np.argmax(blocking, axis=-1)
-        block_kind = np.where(neg[rows, first_block], "negative_intensity", "zero_sigma")
-        status[fail & any_geom & ~short_inside] = "qrg_limit_exceeded"
-        status[fail & any_geom & short_inside] = "no_linear_region"
-        # curving upwards, but no more than a single population can (chains, rods, broad
-        # size distributions): the shortest window within the limit, as an approximation
-        g_in = g0 & negative[:, 0, :] & inside[:, 0, :]
-        curved = fail & rising & ~upturn & g_in.any(axis=-1)
-        status[curved] = "curved_approximate"
-        approx = curved
-        start = np.where(curved, starts[:, 0], start)
-        stop = np.where(curved, stops[rows, np.argmax(g_in, axis=-1)], stop)
-        status[upturn] = "curvature_aggregation"
-        status[fail & ~any_geom] = "too_few_points"
-        few = fail & ~any_geom & has_block
-        status[few] = block_kind[few]
-        empty = fail & (n_usable == 0)
-        if empty.any():
-            fr = sel[empty]
-            full = np.isfinite(I[fr]) if S is None else np.isfinite(I[fr]) & np.isfinite(S[fr])
-            st_ = status[empty]
-            st_[~full.any(axis=-1)] = "no_data"
-            status[empty] = st_
-    s_ = np.maximum(start, 0)[:, None]
-    e_ = np.maximum(stop, 0)[:, None]
-    fit = {key: v[:, 0] for key, v in mom.fit(s_, e_, scale_covariance=Sc is None).items()}
-    # the reported line: the average over the acceptable windows (module notes); a
-    # "curved_approximate" frame keeps its one window's line
-    for key_ in ("slope", "intercept"):
-        fit[key_ + "_window"] = fit[key_]
-        fit[key_] = np.where(ok, avg[key_], np.where(approx, fit[key_], np.nan))
-    for key_ in ("slope_sigma", "intercept_sigma"):
-        fit[key_ + "_window"] = fit[key_]
-        fit[key_] = np.where(ok, np.sqrt(avg[key_[:-6] + "_var"]), np.where(approx, fit[key_], np.nan))
-    cov_window = fit["slope_intercept_cov"]
-    fit["slope_intercept_cov"] = np.where(ok, avg["cov"], np.where(approx, cov_window, np.nan))
-    fit["n_windows"] = np.where(ok, avg["n_windows"], 0)
-    fit["sigma_scale"] = np.where(ok, avg["sigma_scale"], np.where(approx, 1.0, np.nan))
-    kept = ok | approx
-    fit["q_min"] = np.where(kept, q[np.minimum(s_[:, 0], n_cut - 1)], np.nan)
-    fit["q_max"] = np.where(kept, q[last_use[rows, np.maximum(e_[:, 0] - 1, 0)]], np.nan)
-    return start, stop, status, fit
-
-
-#: width of the window weights exp(-(m - m_best) / (tau m_best)) on the relative
-#: mean-squared error m of the acceptable windows (calibrated on the validation shapes,
-#: tests/validation: spread over noise draws / median sigma 0.85-1.15 at 0.1-10 % noise)
-_AVERAGE_TAU = 5.0
-
-
-def _window_average(accept, key, slope, slope_var, intercept, intercept_var, cov):
-    """Average of the line over the acceptable windows of each frame, and its variance
-    including the spread between windows (Buckland, Burnham & Augustin 1997,
-    Biometrics 53, 603: the variance of a model-averaged estimate is the weighted mean
-    of each model's variance plus its squared offset from the average). The weight of a
-    window falls with its estimated relative mean-squared error ``-key`` (see
-    ``evaluate``): exp(-(m - m_best) / (tau m_best)), tau = :data:`_AVERAGE_TAU`.
-
-    All inputs are (n_frames, n_starts, n_stops); returns a dict of (n_frames,) arrays.
-    """
-    F = accept.shape[0]
-    A = accept.reshape(F, -1)
-    m = -key.reshape(F, -1)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        m_best = np.min(np.where(A, m, np.inf), axis=-1, keepdims=True)
-        w = np.where(A, np.exp(-(m - m_best) / (_AVERAGE_TAU * m_best)), 0.0)
-        tot = w.sum(-1, keepdims=True)
-        w = np.where(tot > 0, w / np.where(tot > 0, tot, 1.0), 0.0)
-        b = np.where(A, slope.reshape(F, -1), 0.0)
-        a = np.where(A, intercept.reshape(F, -1), 0.0)
-        vb = np.where(A, slope_var.reshape(F, -1), 0.0)
-        va = np.where(A, intercept_var.reshape(F, -1), 0.0)
-        c = np.where(A, cov.reshape(F, -1), 0.0)
-        bm = (w * b).sum(-1)
-        am = (w * a).sum(-1)
-        db = b - bm[:, None]
-        da = a - am[:, None]
-        return {
-            "slope": bm,
-            "intercept": am,
-            "slope_var": (w * (vb + db * db)).sum(-1),
-            "intercept_var": (w * (va + da * da)).sum(-1),
-            "cov": (w * (c + db * da)).sum(-1),
-            "n_windows": A.sum(-1),
-        }
+    return bound
 
 
 def _moments(q, Ic, Sc, usable, kind, quadratic=False):
