@@ -61,16 +61,14 @@ def _layout(raw: RawFile) -> tuple[bytes, tuple[bool, ...]] | None:
 
 def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[bool, ...]):
     """Data (rows, ncols) of each body of ``idx`` parsed by polars as one block, or None
-    if polars refuses any of it (then each body is read on its own)."""
+    if polars refuses any of it (then each body is read on its own).
+
+    The bodies (each ending with a newline) are joined with an empty line between two of
+    them; polars gives every line one row (an empty line a row of nulls), so the rows of
+    nulls in a number column are exactly the separators when there are as many as
+    separators, and they split the rows by file with no count of the newlines."""
     bodies = [raws[i].body for i in idx]
-    buf = b"".join(bodies)
-    a = np.frombuffer(buf, dtype=np.uint8)
-    newlines = np.flatnonzero(a == 10)
-    total = newlines.size
-    ends = np.cumsum([len(b) for b in bodies])
-    counts = np.diff(np.searchsorted(newlines, ends), prepend=0)
-    if total == 0:
-        return None
+    buf = b"\n".join(bodies)
     # control bytes need no search: polars refuses them in a number (a tab or carriage
     # return next to one it strips, as the format allows), tested in tests/test_io_text.py
     schema = {f"c{j}": (pl.Float64 if full else pl.String) for j, full in enumerate(pattern)}
@@ -90,22 +88,23 @@ def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[
         )
     except Exception:  # any refusal (a bad token, a ragged line): read file by file
         return None
-    # a blank line is skipped or a missing field null: every line must give one full row
-    if df.height != total:
-        return None
+    # a blank line, a line of blanks or a missing field gives nulls: only the separators may
+    height, n_sep = df.height, len(idx) - 1
     nulls = df.null_count().row(0)
-    if any(n != (0 if full else total) for n, full in zip(nulls, pattern)):
+    if any(n != (n_sep if full else height) for n, full in zip(nulls, pattern)):
         return None
     cols = [df.get_column(f"c{j}") for j, full in enumerate(pattern) if full]
-    data = np.empty((len(cols), total))
+    seps = np.flatnonzero(cols[0].is_null().to_numpy()) if n_sep else np.empty(0, dtype=np.int64)
+    data = np.empty((len(cols), height))
     for j, c in enumerate(cols):
         data[j] = c.to_numpy()
     data = data.T  # (rows, ncols), each column contiguous
-    out, pos = [], 0
+    starts = np.concatenate([[0], seps + 1])
+    stops = np.concatenate([seps, [height]])
+    out = []
     for k, i in enumerate(idx):
-        n = int(counts[k])
-        out.append((data[pos : pos + n], raws[i].first_line + np.arange(n)))
-        pos += n
+        a, b = int(starts[k]), int(stops[k])
+        out.append((data[a:b], raws[i].first_line + np.arange(b - a)))
     return out
 
 
