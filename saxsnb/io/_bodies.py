@@ -43,32 +43,43 @@ def fast_parser():
     return polars
 
 
-def _layout(raw: RawFile) -> tuple[bytes, tuple[bool, ...]] | None:
-    """(separator byte, which fields of a line are non-empty) of the body's first line
-    when its ``ncols`` numbers are split by one separator byte, else None."""
-    head = bytes(raw.body[:1024])
-    nl = head.find(b"\n")
-    if nl <= 0:
-        return None
-    line = head[:nl].removesuffix(b"\r")
+def _layout_of(line: bytes, ncols: int) -> tuple[bytes, tuple[bool, ...]] | None:
+    """(separator byte, which fields are non-empty) of a first line whose ``ncols``
+    numbers are split by one separator byte, else None. Digits play no part: the line
+    may be given with its digits turned into ``0``."""
+    line = line.removesuffix(b"\r")
     for sep in _SEPS:
         fields = line.split(sep)
         full = [f for f in fields if f]
-        if len(full) == raw.ncols and not _SEP_OR_SPACE.search(b"".join(full)):
+        if len(full) == ncols and not _SEP_OR_SPACE.search(b"".join(full)):
             return sep, tuple(bool(f) for f in fields)
     return None
+
+
+def _layout(raw: RawFile, known: dict | None = None) -> tuple[bytes, tuple[bool, ...]] | None:
+    """:func:`_layout_of` the body's first line (kept by the layout of the line split
+    found, ``raw.shape``, in ``known``)."""
+    if raw.shape is not None and known is not None:
+        key = (raw.shape, raw.ncols)
+        if key not in known:
+            known[key] = _layout_of(raw.shape, raw.ncols)
+        return known[key]
+    head = bytes(raw.body[:1024])
+    nl = head.find(b"\n")
+    return None if nl <= 0 else _layout_of(head[:nl], raw.ncols)
 
 
 def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[bool, ...]):
     """Data (rows, ncols) of each body of ``idx`` parsed by polars as one block, or None
     if polars refuses any of it (then each body is read on its own).
 
-    The bodies (each ending with a newline) are joined with an empty line between two of
-    them; polars gives every line one row (an empty line a row of nulls), so the rows of
-    nulls in a number column are exactly the separators when there are as many as
-    separators, and they split the rows by file with no count of the newlines."""
+    The bodies (each ending with a newline) are joined with a line of NaN laid out as
+    their rows between two of them; polars gives every line one row, so the rows whose
+    q is NaN are exactly the separators when there are as many as separators (a NaN q
+    in a file makes one more, and that group is read file by file), and they split the
+    rows by file with no count of the newlines."""
     bodies = [raws[i].body for i in idx]
-    buf = b"\n".join(bodies)
+    buf = (sep.join(b"nan" if full else b"" for full in pattern) + b"\n").join(bodies)
     # control bytes need no search: polars refuses them in a number (a tab or carriage
     # return next to one it strips, as the format allows), tested in tests/test_io_text.py
     schema = {f"c{j}": (pl.Float64 if full else pl.String) for j, full in enumerate(pattern)}
@@ -88,23 +99,24 @@ def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[
         )
     except Exception:  # any refusal (a bad token, a ragged line): read file by file
         return None
-    # a blank line, a line of blanks or a missing field gives nulls: only the separators may
+    # a blank line, a line of blanks or a missing field gives nulls
     height, n_sep = df.height, len(idx) - 1
     nulls = df.null_count().row(0)
-    if any(n != (n_sep if full else height) for n, full in zip(nulls, pattern)):
+    if any(n != (0 if full else height) for n, full in zip(nulls, pattern)):
         return None
-    cols = [df.get_column(f"c{j}") for j, full in enumerate(pattern) if full]
-    seps = np.flatnonzero(cols[0].is_null().to_numpy()) if n_sep else np.empty(0, dtype=np.int64)
-    data = np.empty((len(cols), height))
-    for j, c in enumerate(cols):
-        data[j] = c.to_numpy()
-    data = data.T  # (rows, ncols), each column contiguous
+    data = df.select([f"c{j}" for j, full in enumerate(pattern) if full]).to_numpy(order="fortran")
+    seps = np.flatnonzero(np.isnan(data[:, 0])) if n_sep else np.empty(0, dtype=np.int64)
+    if seps.size != n_sep:
+        return None
     starts = np.concatenate([[0], seps + 1])
     stops = np.concatenate([seps, [height]])
+    # line numbers of all rows at once: a file's rows count on from its first line
+    first = np.array([raws[i].first_line for i in idx], dtype=np.int64)
+    lines = np.arange(height, dtype=np.int64) + np.repeat(first - starts, stops - starts + 1)[:height]
     out = []
-    for k, i in enumerate(idx):
+    for k in range(len(idx)):
         a, b = int(starts[k]), int(stops[k])
-        out.append((data[a:b], raws[i].first_line + np.arange(b - a)))
+        out.append((data[a:b], lines[a:b]))
     return out
 
 
@@ -146,8 +158,9 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
     pl = fast_parser()
     if pl is not None:
         groups: dict = {}
+        known: dict = {}
         for i, r in enumerate(raws):
-            key = _layout(r)
+            key = _layout(r, known)
             if key is not None:
                 groups.setdefault(key, []).append(i)
         for (sep, pattern), idx in groups.items():

@@ -93,6 +93,7 @@ class RawFile:
     cut_check: int = -1
     attr_lines: dict[str, int] = field(default_factory=dict)
     key_lines: dict = field(default_factory=dict)
+    shape: bytes | None = None  # the body's first line with its digits turned into 0
 
 
 def _floatable(tokens) -> bool:
@@ -473,8 +474,9 @@ def split_file(path: str, name: str, data: bytes, cache: HeaderCache | None = No
     t0 = _trailer_start(data, end)
     stop = len(data) if t0 is None else t0
     body: bytes | memoryview
+    stripped = None
     if data.find(b"#", start, stop) >= 0:
-        body = _strip_comments(data[start:stop])
+        body = stripped = _strip_comments(data[start:stop])
         if not body.endswith(b"\n"):
             body += b"\n"
     elif t0 is not None or data.endswith(b"\n"):
@@ -482,6 +484,8 @@ def split_file(path: str, name: str, data: bytes, cache: HeaderCache | None = No
     else:
         body = data[start:] + b"\n"
     raw = RawFile(path, name, body, _line_of(data, start), n_tokens, source=data)
+    if stripped is None:  # the body starts with the row found
+        raw.shape = shape
     # a last value cut short: checked once the rows have parsed
     raw.cut_check = -1 if (t0 is not None or data.endswith(b"\n")) else start
     raw.comma = comma
