@@ -186,6 +186,9 @@ def _same_grid(qa: np.ndarray, qb: np.ndarray) -> bool:
 
 
 def _stack(curves, attr, n_q, fill=np.nan):
+    values = [getattr(c, attr) for c in curves]
+    if all(v is not None for v in values):  # the usual case: one copy
+        return np.stack(values)
     out = np.full((len(curves), n_q), fill)
     for i, c in enumerate(curves):
         v = getattr(c, attr)
