@@ -4,7 +4,10 @@ The numeric bodies are parsed by maintained parsers (see :mod:`._bodies`): the b
 of many files laid out alike (one separator byte, the same empty fields on every line,
 the usual output of a program) are joined and read by polars' multi-threaded CSV
 reader in one call; any other body by ``numpy.loadtxt``. Any file that does not parse
-cleanly is re-read line by line, only to name the line that is wrong.
+cleanly is re-read line by line, only to name the line that is wrong. Files laid out
+alike (the usual series) share the work that depends only on the layout through a
+:class:`HeaderCache`: one regular expression reads a header made like the last one,
+and a first row laid out like one accepted before is accepted without its tokens.
 """
 
 from __future__ import annotations
