@@ -89,7 +89,14 @@ def _normalized(c: Curve) -> str:
 
 
 def _resolve_q_unit(curves: Sequence[Curve], q_unit: str | None) -> str:
-    declared = [(c, _normalized(c)) for c in curves if c.q_unit]
+    known: dict[str, str] = {}  # each spelling normalised once (the first file with it named)
+
+    def normalized(c: Curve) -> str:
+        if c.q_unit not in known:
+            known[c.q_unit] = _normalized(c)
+        return known[c.q_unit]
+
+    declared = [(c, normalized(c)) for c in curves if c.q_unit]
     if declared:
         first_c, first_u = declared[0]
         for c, u in declared[1:]:
