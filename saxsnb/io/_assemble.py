@@ -89,7 +89,14 @@ def _normalized(c: Curve) -> str:
 
 
 def _resolve_q_unit(curves: Sequence[Curve], q_unit: str | None) -> str:
-    declared = [(c, _normalized(c)) for c in curves if c.q_unit]
+    known: dict[str, str] = {}  # each spelling normalised once (the first file with it named)
+
+    def normalized(c: Curve) -> str:
+        if c.q_unit not in known:
+            known[c.q_unit] = _normalized(c)
+        return known[c.q_unit]
+
+    declared = [(c, normalized(c)) for c in curves if c.q_unit]
     if declared:
         first_c, first_u = declared[0]
         for c, u in declared[1:]:
@@ -186,6 +193,9 @@ def _same_grid(qa: np.ndarray, qb: np.ndarray) -> bool:
 
 
 def _stack(curves, attr, n_q, fill=np.nan):
+    values = [getattr(c, attr) for c in curves]
+    if all(v is not None for v in values):  # the usual case: one copy
+        return np.stack(values)
     out = np.full((len(curves), n_q), fill)
     for i, c in enumerate(curves):
         v = getattr(c, attr)

@@ -8,12 +8,18 @@ it refuses, and every other body, is read by ``numpy.loadtxt`` file by file; any
 that does not parse cleanly either way is re-read line by line, only to name the line
 that is wrong (:func:`._textparse._line_errors`). Both parsers are stricter than
 Python's ``float`` where they differ (``1_0``, non-ASCII digits): such a token fails
-and is then named.
+and is then named. The joined bodies are split by file at separator rows of NaN put
+between them (:func:`_joined`), so no newline is counted in Python or numpy.
 
-Measured on 2,000 files x 1,000 rows x 3 columns (benchmarks/bench_read.py, an idle
-2-core machine): the joined polars read takes about 30 ns per number on two cores,
-``numpy.loadtxt`` 130-170 ns; the hand-written vectorised parser this module replaced
-took about 65 ns per number on a fixed layout and about 250 ns on a varying one.
+Measured on 256 files x 1,000 rows x 3 columns (benchmarks/bench_read.py sizes, CPU
+time summed over threads, a 2-core machine under a load average of 11): the polars
+call takes about 26 ns per number, the rest of this module about 6 ns (join, one copy
+out of polars, the split); ``numpy.loadtxt`` takes 130-170 ns per number and the
+per-file Python work before it (:func:`._textparse.split_file`) about 12 us per file
+when files share a layout, 25 us when not. Tried and left: a numpy prototype for
+fixed-width rows (digits taken by position, exact for up to 15 digits by Clinger's
+fast path) took about 160 ns per number, and pyarrow's CSV reader 1.2-1.3x polars'
+CPU time in the same run; ``numpy.fromstring`` about 250 ns per number.
 """
 
 from __future__ import annotations
@@ -43,34 +49,43 @@ def fast_parser():
     return polars
 
 
-def _layout(raw: RawFile) -> tuple[bytes, tuple[bool, ...]] | None:
-    """(separator byte, which fields of a line are non-empty) of the body's first line
-    when its ``ncols`` numbers are split by one separator byte, else None."""
-    head = bytes(raw.body[:1024])
-    nl = head.find(b"\n")
-    if nl <= 0:
-        return None
-    line = head[:nl].removesuffix(b"\r")
+def _layout_of(line: bytes, ncols: int) -> tuple[bytes, tuple[bool, ...]] | None:
+    """(separator byte, which fields are non-empty) of a first line whose ``ncols``
+    numbers are split by one separator byte, else None. Digits play no part: the line
+    may be given with its digits turned into ``0``."""
+    line = line.removesuffix(b"\r")
     for sep in _SEPS:
         fields = line.split(sep)
         full = [f for f in fields if f]
-        if len(full) == raw.ncols and not _SEP_OR_SPACE.search(b"".join(full)):
+        if len(full) == ncols and not _SEP_OR_SPACE.search(b"".join(full)):
             return sep, tuple(bool(f) for f in fields)
     return None
 
 
+def _layout(raw: RawFile, known: dict | None = None) -> tuple[bytes, tuple[bool, ...]] | None:
+    """:func:`_layout_of` the body's first line (kept by the layout of the line split
+    found, ``raw.shape``, in ``known``)."""
+    if raw.shape is not None and known is not None:
+        key = (raw.shape, raw.ncols)
+        if key not in known:
+            known[key] = _layout_of(raw.shape, raw.ncols)
+        return known[key]
+    head = bytes(raw.body[:1024])
+    nl = head.find(b"\n")
+    return None if nl <= 0 else _layout_of(head[:nl], raw.ncols)
+
+
 def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[bool, ...]):
     """Data (rows, ncols) of each body of ``idx`` parsed by polars as one block, or None
-    if polars refuses any of it (then each body is read on its own)."""
+    if polars refuses any of it (then each body is read on its own).
+
+    The bodies (each ending with a newline) are joined with a line of NaN laid out as
+    their rows between two of them; polars gives every line one row, so the rows whose
+    q is NaN are exactly the separators when there are as many as separators (a NaN q
+    in a file makes one more, and that group is read file by file), and they split the
+    rows by file with no count of the newlines."""
     bodies = [raws[i].body for i in idx]
-    buf = b"".join(bodies)
-    a = np.frombuffer(buf, dtype=np.uint8)
-    newlines = np.flatnonzero(a == 10)
-    total = newlines.size
-    ends = np.cumsum([len(b) for b in bodies])
-    counts = np.diff(np.searchsorted(newlines, ends), prepend=0)
-    if total == 0:
-        return None
+    buf = (sep.join(b"nan" if full else b"" for full in pattern) + b"\n").join(bodies)
     # control bytes need no search: polars refuses them in a number (a tab or carriage
     # return next to one it strips, as the format allows), tested in tests/test_io_text.py
     schema = {f"c{j}": (pl.Float64 if full else pl.String) for j, full in enumerate(pattern)}
@@ -90,22 +105,24 @@ def _joined(pl, raws: list[RawFile], idx: list[int], sep: bytes, pattern: tuple[
         )
     except Exception:  # any refusal (a bad token, a ragged line): read file by file
         return None
-    # a blank line is skipped or a missing field null: every line must give one full row
-    if df.height != total:
-        return None
+    # a blank line, a line of blanks or a missing field gives nulls
+    height, n_sep = df.height, len(idx) - 1
     nulls = df.null_count().row(0)
-    if any(n != (0 if full else total) for n, full in zip(nulls, pattern)):
+    if any(n != (0 if full else height) for n, full in zip(nulls, pattern)):
         return None
-    cols = [df.get_column(f"c{j}") for j, full in enumerate(pattern) if full]
-    data = np.empty((len(cols), total))
-    for j, c in enumerate(cols):
-        data[j] = c.to_numpy()
-    data = data.T  # (rows, ncols), each column contiguous
-    out, pos = [], 0
-    for k, i in enumerate(idx):
-        n = int(counts[k])
-        out.append((data[pos : pos + n], raws[i].first_line + np.arange(n)))
-        pos += n
+    data = df.select([f"c{j}" for j, full in enumerate(pattern) if full]).to_numpy(order="fortran")
+    seps = np.flatnonzero(np.isnan(data[:, 0])) if n_sep else np.empty(0, dtype=np.int64)
+    if seps.size != n_sep:
+        return None
+    starts = np.concatenate([[0], seps + 1])
+    stops = np.concatenate([seps, [height]])
+    # line numbers of all rows at once: a file's rows count on from its first line
+    first = np.array([raws[i].first_line for i in idx], dtype=np.int64)
+    lines = np.arange(height, dtype=np.int64) + np.repeat(first - starts, stops - starts + 1)[:height]
+    out = []
+    for k in range(len(idx)):
+        a, b = int(starts[k]), int(stops[k])
+        out.append((data[a:b], lines[a:b]))
     return out
 
 
@@ -147,8 +164,9 @@ def parse_bodies(raws: list[RawFile]) -> list[tuple[np.ndarray, np.ndarray]]:
     pl = fast_parser()
     if pl is not None:
         groups: dict = {}
+        known: dict = {}
         for i, r in enumerate(raws):
-            key = _layout(r)
+            key = _layout(r, known)
             if key is not None:
                 groups.setdefault(key, []).append(i)
         for (sep, pattern), idx in groups.items():

@@ -4,7 +4,10 @@ The numeric bodies are parsed by maintained parsers (see :mod:`._bodies`): the b
 of many files laid out alike (one separator byte, the same empty fields on every line,
 the usual output of a program) are joined and read by polars' multi-threaded CSV
 reader in one call; any other body by ``numpy.loadtxt``. Any file that does not parse
-cleanly is re-read line by line, only to name the line that is wrong.
+cleanly is re-read line by line, only to name the line that is wrong. Files laid out
+alike (the usual series) share the work that depends only on the layout through a
+:class:`HeaderCache`: one regular expression reads a header made like the last one,
+and a first row laid out like one accepted before is accepted without its tokens.
 """
 
 from __future__ import annotations
@@ -19,7 +22,7 @@ import numpy as np
 
 from ..errors import SaxsFileError
 
-__all__ = ["RawFile", "split_file"]
+__all__ = ["HeaderCache", "RawFile", "split_file"]
 
 _NUMROW = re.compile(rb"^[ \t]*[-+]?(?:\d|\.\d|nan|inf)", re.M | re.I)
 _TOKSPLIT = re.compile(rb"[\s,;]+")
@@ -93,6 +96,7 @@ class RawFile:
     cut_check: int = -1
     attr_lines: dict[str, int] = field(default_factory=dict)
     key_lines: dict = field(default_factory=dict)
+    shape: bytes | None = None  # the body's first line with its digits turned into 0
 
 
 def _floatable(tokens) -> bool:
@@ -177,10 +181,77 @@ def _put(raw: RawFile, raw_key: str, value: str, line: int, trailer_line: int = 
         store[key] = value
 
 
-def _header(raw: RawFile, text: str) -> None:
-    for m in _KEYVAL.finditer(text):
-        raw_key, value = m.group(1), m.group(2)
-        _put(raw, raw_key, value.rstrip(" \t\r"), text.count("\n", 0, m.start()) + 1)
+_DIGIT_RUN = re.compile(r"([0-9]+)")
+
+
+class _Template:
+    """The layout of one header, to read the headers of the files that share it with one
+    regular expression instead of a search per line.
+
+    Each ``key = value`` line of the header it is made from keeps its text up to and
+    including the ``=`` or ``:``, then any blanks, then its value (a group); every other
+    line keeps its text, with each run of ASCII digits standing for any run of them
+    (``# frame 12``). A header it matches gives the same keys, on the same lines, as
+    :data:`_KEYVAL` searched line by line: the key of a line and whether a line holds one
+    depend only on the part kept, and on digits only through their class, which stays
+    (tests/test_io_fastpath.py checks both readings agree on varied headers)."""
+
+    __slots__ = ("regex", "keys")
+
+    def __init__(self, text: str):
+        pieces, keys = [], []
+        for lineno, line in enumerate(text.split("\n"), start=1):
+            m = _KEYVAL.match(line)
+            if m is None:
+                parts = _DIGIT_RUN.split(line)
+                pieces.append("".join("[0-9]+" if k % 2 else re.escape(t) for k, t in enumerate(parts)))
+            else:
+                pieces.append(re.escape(line[: m.end(1) + 1]) + "[ \t]*+([^\n]*)")
+                keys.append((m.group(1), *_classify_key(m.group(1).rstrip(" \t")), lineno))
+        self.regex = re.compile("\n".join(pieces))
+        self.keys = tuple(keys)
+
+
+class HeaderCache:
+    """What the last files read on one thread had in common: the template of their header
+    (:class:`_Template`) and the verdict on the layout of their first row of data.
+
+    A verdict is kept by the layout of the row with every digit turned into ``0``: what
+    :func:`split_file` decides about a first row (comments, a decimal comma, the count of
+    numbers, whether each token reads as a number) depends on its digits only through
+    their class. Not shared between threads."""
+
+    __slots__ = ("template", "rows")
+
+    def __init__(self):
+        self.template: _Template | None = None
+        self.rows: dict[bytes, tuple[bytes, list[bytes]]] = {}
+
+
+def _header(raw: RawFile, text: str, cache: HeaderCache | None = None) -> None:
+    template = None if cache is None else cache.template
+    m = None if template is None else template.regex.fullmatch(text)
+    if m is not None:  # what _put does with a header line, its key classified once
+        for (raw_key, kind, key, lineno), value in zip(template.keys, m.groups()):
+            value = value.rstrip(" \t\r")
+            if not key:
+                continue
+            if kind == "meta":
+                raw.meta[key] = value
+            elif kind == "units":
+                raw.units[key] = value
+            elif kind == "attr":
+                _put(raw, raw_key, value, lineno)
+                continue
+            else:
+                setattr(raw, kind, value)
+            raw.key_lines[(kind, key)] = lineno
+    else:
+        for m in _KEYVAL.finditer(text):
+            raw_key, value = m.group(1), m.group(2)
+            _put(raw, raw_key, value.rstrip(" \t\r"), text.count("\n", 0, m.start()) + 1)
+        if cache is not None and text:
+            cache.template = _Template(text)
     if raw.q_unit is None:
         qm = _QCOLUMN.search(text)
         if qm:
@@ -327,19 +398,21 @@ def _layout(line: bytes) -> bytes:
     return line.rstrip(b"\r").translate(bytes.maketrans(b"0123456789+", b"0000000000-"))
 
 
-def split_file(path: str, name: str, data: bytes) -> RawFile:
+def split_file(path: str, name: str, data: bytes, cache: HeaderCache | None = None) -> RawFile:
     """Split raw file bytes into header metadata and numeric body.
 
     The first line holding 2 to 4 numbers starts the body; every line before it is
     header. Raises :class:`SaxsFileError` for binary, empty or header-only files, a
     malformed first row, a summary line before the data, a decimal comma, control
-    bytes and a last row cut short.
+    bytes and a last row cut short. ``cache`` (one per thread) lets files laid out alike
+    skip the work they share; the result is the same without it.
     """
     if b"\x00" in data:
         raise SaxsFileError("this is not a text file (it contains NUL bytes)", path=path)
     if data.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
         data = data[3:]
     pos = 0
+    known = None if cache is None else cache.rows
     while True:
         m = _NUMROW.search(data, pos)
         if m is None:
@@ -349,6 +422,10 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
         start = m.start()
         end = data.find(b"\n", start)
         end = len(data) if end < 0 else end
+        shape = data[start:end].translate(_DIGITS)
+        if known is not None and shape in known:  # a first row laid out as one accepted before
+            n_tokens, comma = known[shape]
+            break
         line = _strip_comments(data[start:end]).strip()
         if _is_comma_decimal(line):
             raise SaxsFileError(
@@ -364,6 +441,11 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
                     path=path,
                     line=_line_of(data, start),
                 )
+            n_tokens, comma = len(tokens), b"," in line
+            if known is not None:
+                if len(known) >= 64:  # rows of varying width: keep the cache small
+                    known.clear()
+                known[shape] = (n_tokens, comma)
             break
         if 2 <= len(tokens) <= 4 and all(_NUMBERLIKE.match(t) for t in tokens):
             bad = next(t for t in tokens if not _floatable([t]))
@@ -374,16 +456,16 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
             )
         pos = end + 1
     _refuse_control(path, data, 0, end)
-    _refuse_malformed_before(path, data, start, len(tokens))
+    _refuse_malformed_before(path, data, start, n_tokens)
     # a line with another count of numbers than the two rows after it (a summary, a row
     # count before the data) is not the first row of data
     e2 = data.find(b"\n", end + 1)
-    same = e2 > 0 and data[end + 1 : e2].translate(_DIGITS) == data[start:end].translate(_DIGITS)
+    same = e2 > 0 and data[end + 1 : e2].translate(_DIGITS) == shape
     # a row laid out like the first, or two plain rows of as many tokens: fine
-    counts = [] if same or _next_two_alike(data, end + 1, len(tokens)) else _next_counts(data, end + 1, 2)
-    if len(counts) == 2 and counts[0] == counts[1] != len(tokens):
+    counts = [] if same or _next_two_alike(data, end + 1, n_tokens) else _next_counts(data, end + 1, 2)
+    if len(counts) == 2 and counts[0] == counts[1] != n_tokens:
         raise SaxsFileError(
-            f"this line holds {len(tokens)} numbers but the rows after it hold {counts[0]}: a summary "
+            f"this line holds {n_tokens} numbers but the rows after it hold {counts[0]}: a summary "
             "or count line before the data? Start it with '#' to make it a comment",
             path=path,
             line=_line_of(data, start),
@@ -395,19 +477,22 @@ def split_file(path: str, name: str, data: bytes) -> RawFile:
     t0 = _trailer_start(data, end)
     stop = len(data) if t0 is None else t0
     body: bytes | memoryview
+    stripped = None
     if data.find(b"#", start, stop) >= 0:
-        body = _strip_comments(data[start:stop])
+        body = stripped = _strip_comments(data[start:stop])
         if not body.endswith(b"\n"):
             body += b"\n"
     elif t0 is not None or data.endswith(b"\n"):
         body = memoryview(data)[start:stop]  # no copy; joined with the others later
     else:
         body = data[start:] + b"\n"
-    raw = RawFile(path, name, body, _line_of(data, start), len(tokens), source=data)
+    raw = RawFile(path, name, body, _line_of(data, start), n_tokens, source=data)
+    if stripped is None:  # the body starts with the row found
+        raw.shape = shape
     # a last value cut short: checked once the rows have parsed
     raw.cut_check = -1 if (t0 is not None or data.endswith(b"\n")) else start
-    raw.comma = b"," in line
-    _header(raw, text)
+    raw.comma = comma
+    _header(raw, text, cache)
     if t0 is not None:
         _trailer(raw, data, t0)
     return raw

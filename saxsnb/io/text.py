@@ -38,7 +38,7 @@ from ..series import CANONICAL_Q_UNIT, q_unit_factor, scan_coords, validate
 from ._assemble import Curve, build_series
 from ._atomic import atomic_folder
 from ._bodies import parse_bodies
-from ._textparse import split_file
+from ._textparse import HeaderCache, split_file
 
 __all__ = ["read_series", "write_text_series", "find_files", "DATA_EXTENSIONS", "MIN_Q_POINTS"]
 
@@ -120,7 +120,8 @@ def _progress(total: int, progress: bool | None):
 
 
 def _read_batch(paths: list[str]) -> list[Curve]:
-    raws = [split_file(p, os.path.basename(p), _read_bytes(p)) for p in paths]
+    cache = HeaderCache()  # files of a batch are mostly laid out alike
+    raws = [split_file(p, os.path.basename(p), _read_bytes(p), cache) for p in paths]
     curves = []
     for raw, (data, lines) in zip(raws, parse_bodies(raws)):
         nc = data.shape[1]
