@@ -339,6 +339,10 @@ def _empty_result(n_frames: int, max_peaks: int, status: str) -> dict:
     return out
 
 
+#: Frames fitted together, in units of ``block`` (baseline and detection run per block).
+_FIT_BLOCKS = 8
+
+
 def find_peaks(
     q,
     intensity,
@@ -357,6 +361,7 @@ def find_peaks(
     track: bool = True,
     order=None,
     iterations: bool = False,
+    _detect_block: int | None = None,
 ):
     """Find, fit and track the Bragg peaks of every frame.
 
@@ -379,8 +384,9 @@ def find_peaks(
     errors : "ignore" (per-frame status) or "raise" (:class:`SaxsFitError` for a
         frame without usable data).
     block : int
-        Frames processed together; larger series are done block by block (a loop
-        over blocks, not frames, that keeps the work arrays in cache).
+        Frames whose baseline and detection are computed together (a loop over
+        blocks, not frames, that keeps the work arrays in cache); the peaks of
+        ``8 * block`` frames are fitted together (fewer, larger batched steps).
     track : bool
         Link the peaks of consecutive frames into tracks
         (:func:`~saxsnb.analysis._tracking.track_peaks`), in the frame order ``order``
@@ -426,11 +432,15 @@ def find_peaks(
         res["track"] = track_peaks(res["position"], res["position_sigma"], res["fwhm"], order=order)
         return res
     I_all = np.atleast_2d(np.asarray(intensity, dtype=float))
+    if block > 0 and _detect_block is None:  # a public call: fits in batches of _FIT_BLOCKS blocks
+        _detect_block = block
+        block = block * _FIT_BLOCKS
     if I_all.shape[0] > block > 0:
         S_all = None if sigma is None else np.broadcast_to(np.asarray(sigma, dtype=float), I_all.shape)
         opts = dict(q_range=q_range, min_prominence=min_prominence, profile=profile, max_peaks=max_peaks,
                     baseline_width=baseline_width, min_separation=min_separation, shoulders=shoulders,
-                    backfit=backfit, errors=errors, block=0, track=False, iterations=iterations)
+                    backfit=backfit, errors=errors, block=0, track=False, iterations=iterations,
+                    _detect_block=_detect_block)
         parts = []
         for b0 in range(0, I_all.shape[0], block):
             sl = slice(b0, b0 + block)
@@ -478,27 +488,41 @@ def find_peaks(
         bad = int(np.nonzero(~enough)[0][0])
         raise SaxsFitError("fewer than 12 finite points in the searched q range", frame=bad)
     scale = _noise_scale(Is, Ss)[:, None]
-    base = estimate_baseline(qs, Is, Ss, width=baseline_width, _scale=scale)
-    all_finite = bool(finite.all())
-    resid = Is - base if all_finite else np.where(finite, Is - base, np.nan)
+    dq = float(np.median(np.diff(qs)))
+    bw = 0.05 * (qs[-1] - qs[0]) if baseline_width is None else baseline_width
+    window = _odd(max(bw / dq, 15))
+    n_f = Is.shape[0]
+    sub = int(_detect_block) if _detect_block and _detect_block > 0 else n_f
     if Ss is not None:
         noise = np.where(np.isfinite(Ss) & (Ss > 0), Ss, scale)
     else:
         noise = np.broadcast_to(scale, Is.shape)
-    dq = float(np.median(np.diff(qs)))
-    bw = 0.05 * (qs[-1] - qs[0]) if baseline_width is None else baseline_width
-    window = _odd(max(bw / dq, 15))
-    rf = resid if all_finite else np.where(finite, resid, 0.0)
-    index, prom, wpts = detect_peaks(
-        qs,
-        rf,
-        noise if all_finite else np.where(finite, noise, np.inf),
-        min_prominence=min_prominence,
-        min_separation=min_separation,
-        max_peaks=int(max_peaks),
-        window=window,
-        shoulders=shoulders,
-    )
+    resid = np.empty(Is.shape)
+    parts = []
+    # baseline and detection in blocks of ``sub`` frames (their work arrays stay in cache);
+    # the fits below take all frames of the call at once (fewer, larger batched steps)
+    for b0 in range(0, n_f, sub):
+        sl = slice(b0, b0 + sub)
+        Ib, fb = Is[sl], finite[sl]
+        base = estimate_baseline(qs, Ib, None if Ss is None else Ss[sl], width=baseline_width,
+                                 _scale=scale[sl])
+        all_finite = bool(fb.all())
+        if all_finite:
+            np.subtract(Ib, base, out=resid[sl])
+        else:
+            resid[sl] = np.where(fb, Ib - base, np.nan)
+        rf = resid[sl] if all_finite else np.where(fb, resid[sl], 0.0)
+        parts.append(detect_peaks(
+            qs,
+            rf,
+            noise[sl] if all_finite else np.where(fb, noise[sl], np.inf),
+            min_prominence=min_prominence,
+            min_separation=min_separation,
+            max_peaks=int(max_peaks),
+            window=window,
+            shoulders=shoulders,
+        ))
+    index, prom, wpts = (np.concatenate(a, axis=0) for a in zip(*parts))
     index[~enough] = -1
     fit = fit_peaks(qs, resid, noise, index, wpts, profile=profile)
     # overlapping peaks: two backfitting rounds, each peak refitted with its neighbours removed
