@@ -52,6 +52,47 @@ def _fill_nan(y: np.ndarray) -> np.ndarray:
     return filled
 
 
+def _running_extreme(y: np.ndarray, size: int, fn=np.minimum) -> np.ndarray:
+    """Running minimum (``fn=np.minimum``) or maximum (``np.maximum``) over ``size``
+    points along the last axis of a 2-D array, ends extended with the end values:
+    the same numbers as ``scipy.ndimage.minimum_filter1d(y, size, mode="nearest")``
+    (``maximum_filter1d``), which it replaces for finite data (several times faster
+    on a stack of curves).
+
+    Notes
+    -----
+    Doubling (the sparse table of range-minimum queries; Bender & Farach-Colton 2000,
+    LATIN, LNCS 1776, 88): ``m_2s[i] = fn(m_s[i], m_s[i + s])`` until ``s`` reaches
+    the largest power of two not above ``size``, then one more ``fn`` of two
+    overlapping spans covers the window; about ``log2(size) + 1`` whole-array
+    passes on the padded rows laid end to end (a window never leaves its row).
+    Exact: a minimum or maximum involves no rounding.
+    """
+    n_f, n = y.shape
+    size = int(size)
+    if size <= 1 or n == 0:
+        return y.copy()
+    if not np.isfinite(y).all():  # NaN order differs: the library filter
+        filt = ndimage.minimum_filter1d if fn is np.minimum else ndimage.maximum_filter1d
+        return filt(y, size=size, axis=-1, mode="nearest")
+    left = size // 2
+    width = n + size - 1
+    pad = np.empty((n_f, width))
+    pad[:, left : left + n] = y
+    pad[:, :left] = y[:, :1]
+    pad[:, left + n :] = y[:, -1:]
+    cur, other = pad.reshape(-1), np.empty(n_f * width)
+    span, valid = 1, cur.size
+    while 2 * span <= size:
+        valid -= span
+        fn(cur[:valid], cur[span : span + valid], out=other[:valid])
+        cur, other = other, cur
+        span *= 2
+    rows = cur.reshape(n_f, width)  # rows[:, i] = extreme of pad[:, i : i + span]
+    rest = size - span
+    return fn(rows[:, :n], rows[:, rest : rest + n]) if rest else rows[:, :n].copy()
+
+
 def _odd(n: float, minimum: int = 3) -> int:
     n = max(int(round(n)), minimum)
     return n if n % 2 else n + 1
@@ -137,9 +178,7 @@ def estimate_baseline(q, intensity, sigma=None, *, width: float | None = None, _
     c = (_noise_scale(I, S) if _scale is None else np.asarray(_scale, dtype=float).reshape(-1))[..., None]
     y = np.arcsinh(_fill_nan(I) / c)
     ys = ndimage.uniform_filter1d(y, size=min(5, n_q), axis=-1, mode="nearest")
-    opened = ndimage.maximum_filter1d(
-        ndimage.minimum_filter1d(ys, size=w, axis=-1, mode="nearest"), size=w, axis=-1, mode="nearest"
-    )
+    opened = _running_extreme(_running_extreme(ys, w, np.minimum), w, np.maximum)  # opening
     sm = ndimage.uniform_filter1d(opened, size=w, axis=-1, mode="nearest")
     sm = ndimage.uniform_filter1d(sm, size=w, axis=-1, mode="nearest")
     base = np.minimum(sm, ys)
@@ -232,7 +271,7 @@ def detect_peaks(
     half = max(int(window) // 2, 2)
     half += half % 2  # even, so a centred window of half + 1 points is symmetric
     # left base window [i - half, i] is the centred window at i - half/2, right at i + half/2
-    cmin = ndimage.minimum_filter1d(sm, size=half + 1, axis=-1, mode="nearest")
+    cmin = _running_extreme(sm, half + 1, np.minimum)
     h2 = min(half // 2, n_q - 1)
     # everything else only at the (few) local maxima and shoulder candidates
     fi, qi = np.nonzero(is_max)
