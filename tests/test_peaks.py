@@ -305,7 +305,8 @@ def test_running_extreme_equals_scipy_filters():
         y = rng.integers(0, 5, (4, n)).astype(float)
         for size in (1, 2, 3, 4, 15, 16, 25, 47, 1001):
             for fn, ref in ((np.minimum, ndimage.minimum_filter1d), (np.maximum, ndimage.maximum_filter1d)):
-                assert np.array_equal(_running_extreme(y, size, fn), ref(y, size=size, axis=-1, mode="nearest"))
+                expected = ref(y, size=size, axis=-1, mode="nearest")
+                assert np.array_equal(_running_extreme(y, size, fn), expected)
     y = rng.normal(size=(3, 50))
     y[1, 7] = np.nan  # non-finite rows: the library filter itself
     assert np.array_equal(_running_extreme(y, 5), ndimage.minimum_filter1d(y, size=5, mode="nearest"),
