@@ -256,15 +256,9 @@ def detect_peaks(
     factor = 1.0 / np.sqrt(2.0 * np.sqrt(np.pi) * smooth) if smooth > 0 else 1.0
     noise_b = np.broadcast_to(np.asarray(noise, dtype=float), r.shape)
     md = max(int(min_separation), 1)
-    if np.isfinite(sm).all():  # the maximum of its +-md window: not below any point of it
-        is_max = np.ones(sm.shape, dtype=bool)
-        for d in range(1, min(md, n_q - 1) + 1):
-            is_max[:, d:] &= sm[:, d:] >= sm[:, :-d]
-            is_max[:, :-d] &= sm[:, :-d] >= sm[:, d:]
-            is_max[:, :d] &= sm[:, :d] >= sm[:, :1]  # beyond the ends: the end values
-            is_max[:, -d:] &= sm[:, -d:] >= sm[:, -1:]
-    else:
-        is_max = sm == ndimage.maximum_filter1d(sm, size=2 * md + 1, axis=-1, mode="nearest")
+    sm_finite = bool(np.isfinite(sm).all())
+    # the maximum of its +-md window (ends extended): not below any point of it
+    is_max = sm == _running_extreme(sm, 2 * md + 1, np.maximum)
     is_max[:, 1:] &= sm[:, 1:] > sm[:, :-1]
     is_max[:, 0] = False
     is_max[:, -1] = False
@@ -273,9 +267,16 @@ def detect_peaks(
     # left base window [i - half, i] is the centred window at i - half/2, right at i + half/2
     cmin = _running_extreme(sm, half + 1, np.minimum)
     h2 = min(half // 2, n_q - 1)
-    # everything else only at the (few) local maxima and shoulder candidates
-    fi, qi = np.nonzero(is_max)
-    smv = sm[fi, qi]
+    # everything else only at the (few) local maxima and shoulder candidates; a maximum
+    # whose height above the lowest point of its frame is under the threshold cannot
+    # have the prominence (both bases lie at or above that point): dropped first
+    cand_mask = is_max & (sm > 0)
+    if sm_finite:
+        cand_mask &= (sm - sm.min(axis=1, keepdims=True)) > min_prominence * (noise_b * factor)
+    flat = np.flatnonzero(cand_mask)
+    fi = flat // n_q
+    qi = flat - fi * n_q
+    smv = sm.reshape(-1)[flat]
     nzv = noise_b[fi, qi] * factor
     pv = smv - np.maximum(cmin[fi, np.maximum(qi - h2, 0)], cmin[fi, np.minimum(qi + h2, n_q - 1)])
     okv = (pv > min_prominence * nzv) & (smv > 0)
@@ -292,8 +293,11 @@ def detect_peaks(
         high = sm > (min_prominence * factor) * noise_b
         high[:, : 2 * md + 2] = False
         high[:, -(2 * md + 2) :] = False
-        fi, qi = np.nonzero(high)
-        cval = sm[fi, qi] * 2.0 - sm[fi, qi - 1] - sm[fi, qi + 1]
+        flat = np.flatnonzero(high)
+        smf = sm.reshape(-1)
+        cval = smf[flat] * 2.0 - smf[flat - 1] - smf[flat + 1]
+        fi = flat // n_q
+        qi = flat - fi * n_q
         curved = cval > (min_prominence * kd2) * noise_b[fi, qi]
         fi, qi = fi[curved], qi[curved]
         if fi.size:
