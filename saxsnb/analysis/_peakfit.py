@@ -179,8 +179,8 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
     step that would cross a bound stops at it, the other parameters solving the
     reduced system (an active set). Peaks still running are packed together when
     half of them have stopped, so the work follows the active peaks. Returns the
-    weighted Jacobian (k, n, m), the weighted residuals, the chi-square and the
-    iterations per peak."""
+    normal matrix ``J^T W J`` (n, k, k) at the final parameters (for the covariance),
+    the chi-square and the iterations per peak."""
     n, k = p.shape
     m = x.shape[1]
     dof = np.maximum((wgt > 0).sum(axis=1) - k, 1)
@@ -195,7 +195,10 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
     # the working set: every array below is for the peaks in ``ids``
     w = {"ids": np.arange(n), "x": x, "y": y, "wgt": wgt, "dx": dx, "p": p.copy(), "J": J, "r": res,
          "chi": chi.copy(), "lo": lo_b, "hi": hi_b, "dof": dof, "lam": np.full(n, 1e-3),
-         "done": np.zeros(n, dtype=bool), "line": None}
+         "done": np.zeros(n, dtype=bool), "line": None, "pending": np.zeros(n, dtype=bool)}
+    # normal matrix at each peak's final parameters (for the covariance), recorded when
+    # the peak stops; "pending": stopped after a taken step, recorded at the next pass
+    A_fin = np.full((n, k, k), np.nan)
     w["line"] = np.empty((n, 2, 2))  # constant: the block of the line's columns
     for a in (3, 4):
         for b in range(a, 5):
@@ -206,10 +209,9 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
 
     def pack(extra=()):
         """Write back the finished peaks and keep the running ones (also in ``extra``)."""
-        done = w["done"]
-        fin, keep = w["ids"][done], ~done
-        p[fin], chi[fin] = w["p"][done], w["chi"][done]
-        J[:, fin], res[fin] = w["J"][:, done], w["r"][done]
+        keep = ~w["done"] | w["pending"]
+        fin = w["ids"][~keep]
+        p[fin], chi[fin] = w["p"][~keep], w["chi"][~keep]
         for key in w:
             if key != "J":
                 w[key] = w[key][keep]
@@ -227,6 +229,10 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
         run = ~done
         iters[w["ids"][run]] += 1
         A, g = _normal(w["J"], w["r"], w["line"])
+        A0 = A.copy()  # at the current parameters, before holds and damping
+        if w["pending"].any():
+            A_fin[w["ids"][w["pending"]]] = A0[w["pending"]]
+            w["pending"][:] = False
         for b, col in enumerate(bcols):  # at a bound, gradient pointing out: held
             v, gc = wp[:, col], g[:, col]
             hold = ((v <= wlo[:, b]) & (gc <= 0)) | ((v >= whi[:, b]) & (gc >= 0))
@@ -255,11 +261,13 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
             # the step is neither tried nor taken (its trial would cost a model evaluation)
             tiny = pred <= 1e-8 * np.maximum(wc / w["dof"], 1.0)
             tiny |= np.all(np.abs(dp) <= xtol * np.abs(pn), axis=1)
-        done |= pd & tiny
+        stop = pd & tiny & ~done
+        A_fin[w["ids"][stop]] = A0[stop]
+        done |= stop
         if done.all():
             continue
         if done.mean() > 0.5:
-            Jn, (pn, pd) = pack((pn, pd))
+            Jn, (pn, pd, A0) = pack((pn, pd, A0))
         wx, wy, ww, wd, wJ, wr = w["x"], w["y"], w["wgt"], w["dx"], w["J"], w["r"]
         wp, wc, done, lam = w["p"], w["chi"], w["done"], w["lam"]
         run = ~done
@@ -279,11 +287,16 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
         wp[better] = pn[better]
         w["chi"] = np.where(better, chin, wc)
         w["lam"] = lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.where(run, lam * 4.0, lam))
-        done |= (better & flat) | (lam > 1e8)
+        stuck = (lam > 1e8) & ~done  # no step taken: the current parameters are final
+        A_fin[w["ids"][stuck]] = A0[stuck]
+        w["pending"] |= better & flat
+        done |= (better & flat) | stuck
     ids = w["ids"]
     p[ids], chi[ids] = w["p"], w["chi"]
-    J[:, ids], res[ids] = w["J"], w["r"]
-    return J, res, chi, iters
+    left = ~w["done"] | w["pending"]
+    if left.any():
+        A_fin[ids[left]] = _normal(w["J"][:, left], w["r"][left], w["line"][left])[0]
+    return A_fin, chi, iters
 
 
 def _weighted_residual(y, f, wgt):
@@ -477,11 +490,10 @@ def fit_peaks(
         it_g = 0
         if k == 6 and start is None:  # a Gaussian first pass seeds the pseudo-Voigt at eta = 0
             pg = np.ascontiguousarray(p[:, :5])
-            it_g = _levenberg_marquardt(x, y, wgt, dxw, pg, "gaussian", wmin, max_iter)[3]
+            it_g = _levenberg_marquardt(x, y, wgt, dxw, pg, "gaussian", wmin, max_iter)[2]
             p[:, :5] = pg
             p[:, 5] = 0.0
-        Jw, res, chi, it = _levenberg_marquardt(x, y, wgt, dxw, p, profile, wmin, max_iter)
-        A, _ = _normal(Jw, res)
+        A, chi, it = _levenberg_marquardt(x, y, wgt, dxw, p, profile, wmin, max_iter)
         dof = np.maximum(n_pts - k, 1)
         redchi = chi / dof
         with np.errstate(all="ignore"):
