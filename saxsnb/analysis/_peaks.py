@@ -7,7 +7,8 @@ array operations (no per-frame ``scipy.signal.find_peaks`` loop), and all peaks 
 all frames are fitted together by one vectorised Levenberg-Marquardt iteration on a
 padded ``(n_peaks_total, window)`` array, each peak stopping when converged;
 overlapping peaks are then refined by two backfitting rounds. Large series are
-processed in blocks of frames (a loop over blocks, not frames).
+processed in blocks of frames (a loop over blocks, not frames): baseline and
+detection per block of ``block`` frames, fits per batch of ``8 * block`` frames.
 """
 
 from __future__ import annotations
