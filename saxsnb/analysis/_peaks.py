@@ -36,8 +36,9 @@ _STATUS = STATUS_DTYPE
 # --------------------------------------------------------------------------- helpers
 def _fill_nan(y: np.ndarray) -> np.ndarray:
     """Fill non-finite points along the last axis with the nearest finite value
-    (forward then backward fill), vectorised over leading axes. All-NaN rows stay 0."""
-    y = np.array(y, dtype=float, copy=True)
+    (forward then backward fill), vectorised over leading axes. All-NaN rows stay 0.
+    Finite input is returned as it is (not copied: the caller only reads it)."""
+    y = np.asarray(y, dtype=float)
     good = np.isfinite(y)
     if good.all():
         return y
@@ -527,7 +528,8 @@ def find_peaks(
         qs, Is = q[sel], np.ascontiguousarray(I[:, sel])
         Ss = None if S is None else np.ascontiguousarray(S[:, sel])
     finite = np.isfinite(Is)
-    enough = finite.sum(axis=1) >= 12
+    n_finite = finite.sum(axis=1)
+    enough = n_finite >= 12
     if errors == "raise" and not enough.all():
         bad = int(np.nonzero(~enough)[0][0])
         raise SaxsFitError("fewer than 12 finite points in the searched q range", frame=bad)
@@ -538,7 +540,8 @@ def find_peaks(
     n_f = Is.shape[0]
     sub = int(_detect_block) if _detect_block and _detect_block > 0 else n_f
     if Ss is not None:
-        noise = np.where(np.isfinite(Ss) & (Ss > 0), Ss, scale)
+        usable = np.isfinite(Ss) & (Ss > 0)
+        noise = Ss if usable.all() else np.where(usable, Ss, scale)  # only read below
     else:
         noise = np.broadcast_to(scale, Is.shape)
     resid = np.empty(Is.shape)
@@ -607,7 +610,7 @@ def find_peaks(
     # a frame whose intensity is mostly at or below zero (an over-subtracted background)
     # is not "ok": its peaks are kept, but heights and prominences are suspect (issue 12)
     with np.errstate(invalid="ignore"):
-        nonpos = (finite & (Is <= 0)).sum(axis=1) > 0.5 * finite.sum(axis=1)
+        nonpos = (finite & (Is <= 0)).sum(axis=1) > 0.5 * n_finite
     status = np.where(enough & nonpos, "negative_intensity", status).astype(_STATUS)
     fit["n_peaks"] = n_peaks
     fit["status"] = status
