@@ -40,12 +40,14 @@ def peak_profile(x, center, fwhm, height, eta=None, *, profile: str = "gaussian"
     raise SaxsInputError(f"unknown profile {profile!r}; use one of {PROFILES}", parameter="profile")
 
 
-def _model(x, p, profile, dx, wgt, J=None):
+def _model(x, p, profile, dx, wgt, J=None, line=True):
     """Peak + local line at parameters ``p`` (n, k): the weighted residual basis.
 
     Returns the model (n, m) and the weighted Jacobian ``J`` (k, n, m) (analytic;
     written into ``J`` when given, a buffer reused across iterations); ``dx`` is
-    ``x - q0`` of the local line, ``wgt`` the weights 1/sigma (0 on padding)."""
+    ``x - q0`` of the local line, ``wgt`` the weights 1/sigma (0 on padding). The
+    columns of the line, ``wgt`` and ``dx wgt``, do not depend on ``p``: with
+    ``line=False`` they are left as they are in ``J``."""
     c, w, h, b0, b1 = (p[:, i : i + 1] for i in range(5))
     k = 6 if profile == "pseudo_voigt" else 5
     if J is None:
@@ -70,27 +72,32 @@ def _model(x, p, profile, dx, wgt, J=None):
     np.multiply(ds, (-h / w) * wgt, out=J[0])
     np.multiply(J[0], u, out=J[1])
     np.multiply(s, wgt, out=J[2])
-    J[3] = wgt
-    np.multiply(dx, wgt, out=J[4])
+    if line:
+        J[3] = wgt
+        np.multiply(dx, wgt, out=J[4])
     return f, J
 
 
-def _normal(J, r):
-    """Normal matrix J^T J (n, k, k) and gradient J^T r (n, k), J of shape (k, n, m)."""
+def _normal(J, r, line=None):
+    """Normal matrix J^T J (n, k, k) and gradient J^T r (n, k), J of shape (k, n, m).
+    ``line``: the block of the line columns 3, 4 (n, 2, 2), constant across
+    iterations, when already known."""
     k, n = J.shape[:2]
     A = np.empty((n, k, k))
     for a in range(k):
         for b in range(a, k):
+            if line is not None and 3 <= a <= 4 and 3 <= b <= 4:
+                A[:, a, b] = A[:, b, a] = line[:, a - 3, b - 3]
+                continue
             A[:, a, b] = A[:, b, a] = np.einsum("nm,nm->n", J[a], J[b])
     g = np.einsum("knm,nm->nk", J, r)
     return A, g
 
 
-def _cholesky_solve(A, b):
-    """Solve A x = b for many small symmetric positive-definite systems at once
-    (A (n, k, k), b (n, k); Cholesky, loops over k only). Returns x and a mask of the
-    systems that were positive definite (x = 0 elsewhere)."""
-    n, k = b.shape
+def _cholesky(A):
+    """Cholesky factors of many small symmetric matrices A (n, k, k), as L (k, k, n)
+    (loops over k only), and a mask of the ones that were positive definite."""
+    n, k = A.shape[:2]
     L = np.zeros((k, k, n))
     At = A.transpose(1, 2, 0)
     ok = np.ones(n, dtype=bool)
@@ -101,6 +108,12 @@ def _cholesky_solve(A, b):
         L[j, j] = d
         for i in range(j + 1, k):
             L[i, j] = (At[i, j] - (L[i, :j] * L[j, :j]).sum(0)) / d
+    return L, ok
+
+
+def _cholesky_subst(L, ok, b):
+    """Solve L L^T x = b (b (n, k)) by forward and back substitution; x = 0 where not ok."""
+    n, k = b.shape
     z = np.empty((k, n))
     bt = b.T
     for i in range(k):
@@ -108,8 +121,15 @@ def _cholesky_solve(A, b):
     x = np.empty((k, n))
     for i in range(k - 1, -1, -1):
         x[i] = (z[i] - (L[i + 1 :, i] * x[i + 1 :]).sum(0)) / L[i, i]
-    x = np.where(ok, x, 0.0).T
-    return x, ok
+    return np.where(ok, x, 0.0).T
+
+
+def _cholesky_solve(A, b):
+    """Solve A x = b for many small symmetric positive-definite systems at once
+    (A (n, k, k), b (n, k); Cholesky, loops over k only). Returns x and a mask of the
+    systems that were positive definite (x = 0 elsewhere)."""
+    L, ok = _cholesky(A)
+    return _cholesky_subst(L, ok, b), ok
 
 
 def _inverse(A):
@@ -120,12 +140,12 @@ def _inverse(A):
     cov = np.full_like(A, np.nan)
     fin = np.isfinite(A).all(axis=(1, 2))
     Af = np.where(fin[:, None, None], A, np.eye(k))
-    ok = fin.copy()
+    L, okc = _cholesky(Af)  # one factorisation, k right-hand sides
+    ok = fin & okc
     for j in range(k):
         e = np.zeros((n, k))
         e[:, j] = 1.0
-        cov[:, :, j], okj = _cholesky_solve(Af, e)
-        ok &= okj
+        cov[:, :, j] = _cholesky_subst(L, okc, e)
     cov[~ok] = np.nan
     rest = np.nonzero(fin & ~ok)[0]
     if rest.size:
@@ -150,17 +170,17 @@ def _hold(A, g, col, sel, delta=None):
 def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9, ftol=1e-10):
     """Levenberg-Marquardt for every window at once; parameters ``p`` (n, k) updated.
 
-    A peak stops when its step is small, taken or not: the predicted chi-square
-    decrease ``dp^T g`` below ``1e-8 max(chi2_red, 1)`` (a step under 1e-4 of the
-    uncertainties) or every relative step ``|dp_i| <= xtol |p_i|``; or when a taken
+    A peak stops when its step is small (the step is then not tried): the predicted
+    chi-square decrease ``dp^T g`` below ``1e-8 max(chi2_red, 1)`` (a step under 1e-4
+    of the uncertainties) or every relative step ``|dp_i| <= xtol |p_i|``; or when a taken
     step lowers the chi-square by less than ``ftol`` relatively; or when lambda passes
     1e8 (no step lowers the chi-square). Bounds (``w >= wmin``, ``0 <= eta <= 1``): a parameter
     at its bound with the gradient pointing out is held there for the step, and a
     step that would cross a bound stops at it, the other parameters solving the
     reduced system (an active set). Peaks still running are packed together when
     half of them have stopped, so the work follows the active peaks. Returns the
-    weighted Jacobian (k, n, m), the weighted residuals, the chi-square and the
-    iterations per peak."""
+    normal matrix ``J^T W J`` (n, k, k) at the final parameters (for the covariance),
+    the chi-square and the iterations per peak."""
     n, k = p.shape
     m = x.shape[1]
     dof = np.maximum((wgt > 0).sum(axis=1) - k, 1)
@@ -173,28 +193,46 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
     hi_b = np.stack([np.full(n, np.inf)] + ([np.ones(n)] if k == 6 else []), axis=1)
     bcols = [1, 5] if k == 6 else [1]
     # the working set: every array below is for the peaks in ``ids``
-    ids = np.arange(n)
-    wx, wy, ww, wd, wp, wJ, wr, wc = x, y, wgt, dx, p.copy(), J, res, chi.copy()
-    wlo, whi, wdof = lo_b, hi_b, dof
-    lam = np.full(n, 1e-3)
-    done = np.zeros(n, dtype=bool)
+    w = {"ids": np.arange(n), "x": x, "y": y, "wgt": wgt, "dx": dx, "p": p.copy(), "J": J, "r": res,
+         "chi": chi.copy(), "lo": lo_b, "hi": hi_b, "dof": dof, "lam": np.full(n, 1e-3),
+         "done": np.zeros(n, dtype=bool), "line": None, "pending": np.zeros(n, dtype=bool)}
+    # normal matrix at each peak's final parameters (for the covariance), recorded when
+    # the peak stops; "pending": stopped after a taken step, recorded at the next pass
+    A_fin = np.full((n, k, k), np.nan)
+    w["line"] = np.empty((n, 2, 2))  # constant: the block of the line's columns
+    for a in (3, 4):
+        for b in range(a, 5):
+            w["line"][:, a - 3, b - 3] = w["line"][:, b - 3, a - 3] = np.einsum("nm,nm->n", J[a], J[b])
     Jn = np.empty_like(J)
+    Jn[3:5] = J[3:5]
     diag = np.arange(k)
+
+    def pack(extra=()):
+        """Write back the finished peaks and keep the running ones (also in ``extra``)."""
+        keep = ~w["done"] | w["pending"]
+        fin = w["ids"][~keep]
+        p[fin], chi[fin] = w["p"][~keep], w["chi"][~keep]
+        for key in w:
+            if key != "J":
+                w[key] = w[key][keep]
+        w["J"] = np.ascontiguousarray(w["J"][:, keep])
+        buf = np.empty_like(w["J"])
+        buf[3:5] = w["J"][3:5]
+        return buf, [e[keep] for e in extra]
+
     for _ in range(int(max_iter)):
-        if done.all():
+        if w["done"].all():
             break
-        if done.mean() > 0.5:  # pack the running peaks; write back the finished ones
-            fin, keep = ids[done], ~done
-            p[fin], chi[fin] = wp[done], wc[done]
-            J[:, fin], res[fin] = wJ[:, done], wr[done]
-            ids = ids[keep]
-            wx, wy, ww, wd, wp, wr, wc = wx[keep], wy[keep], ww[keep], wd[keep], wp[keep], wr[keep], wc[keep]
-            wJ = np.ascontiguousarray(wJ[:, keep])
-            Jn = np.empty_like(wJ)
-            wlo, whi, wdof, lam, done = wlo[keep], whi[keep], wdof[keep], lam[keep], done[keep]
+        if w["done"].mean() > 0.5:  # pack the running peaks; write back the finished ones
+            Jn, _ = pack()
+        wp, wlo, whi, wc, done = w["p"], w["lo"], w["hi"], w["chi"], w["done"]
         run = ~done
-        iters[ids[run]] += 1
-        A, g = _normal(wJ, wr)
+        iters[w["ids"][run]] += 1
+        A, g = _normal(w["J"], w["r"], w["line"])
+        A0 = A.copy()  # at the current parameters, before holds and damping
+        if w["pending"].any():
+            A_fin[w["ids"][w["pending"]]] = A0[w["pending"]]
+            w["pending"][:] = False
         for b, col in enumerate(bcols):  # at a bound, gradient pointing out: held
             v, gc = wp[:, col], g[:, col]
             hold = ((v <= wlo[:, b]) & (gc <= 0)) | ((v >= whi[:, b]) & (gc >= 0))
@@ -202,7 +240,7 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
                 _hold(A, g, col, np.nonzero(hold)[0])
         D = A.diagonal(axis1=1, axis2=2).copy()
         Ad = A
-        Ad[:, diag, diag] += lam[:, None] * (D + 1e-12 * D.max(axis=1, keepdims=True) + 1e-300)
+        Ad[:, diag, diag] += w["lam"][:, None] * (D + 1e-12 * D.max(axis=1, keepdims=True) + 1e-300)
         with np.errstate(all="ignore"):
             dp, pd = _cholesky_solve(Ad, g)
             for b, col in enumerate(bcols):  # a step crossing a bound stops at it
@@ -218,7 +256,23 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
         pn = wp + dp
         pn[:, bcols] = np.clip(pn[:, bcols], wlo, whi)
         with np.errstate(all="ignore"):
-            fn, Jn = _model(wx, pn, profile, wd, ww, Jn)
+            pred = np.einsum("nk,nk->n", dp, g)
+            # a step this small changes nothing that matters: the peak has converged, and
+            # the step is neither tried nor taken (its trial would cost a model evaluation)
+            tiny = pred <= 1e-8 * np.maximum(wc / w["dof"], 1.0)
+            tiny |= np.all(np.abs(dp) <= xtol * np.abs(pn), axis=1)
+        stop = pd & tiny & ~done
+        A_fin[w["ids"][stop]] = A0[stop]
+        done |= stop
+        if done.all():
+            continue
+        if done.mean() > 0.5:
+            Jn, (pn, pd, A0) = pack((pn, pd, A0))
+        wx, wy, ww, wd, wJ, wr = w["x"], w["y"], w["wgt"], w["dx"], w["J"], w["r"]
+        wp, wc, done, lam = w["p"], w["chi"], w["done"], w["lam"]
+        run = ~done
+        with np.errstate(all="ignore"):
+            fn, Jn = _model(wx, pn, profile, wd, ww, Jn, line=False)
             fn = _weighted_residual(wy, fn, ww)
             chin = np.einsum("nm,nm->n", fn, fn)
         better = (chin < wc) & pd & run
@@ -226,21 +280,23 @@ def _levenberg_marquardt(x, y, wgt, dx, p, profile, wmin, max_iter, *, xtol=1e-9
         worse = np.nonzero(~better)[0]
         Jn[:, worse] = wJ[:, worse]
         fn[worse] = wr[worse]
-        wJ, Jn = Jn, wJ
-        wr = fn
+        w["J"], Jn = Jn, wJ
+        w["r"] = fn
         with np.errstate(all="ignore"):
-            pred = np.einsum("nk,nk->n", dp, g)
-            # a step this small changes nothing that matters, taken or not
-            tiny = pred <= 1e-8 * np.maximum(wc / wdof, 1.0)
-            tiny |= np.all(np.abs(dp) <= xtol * np.abs(pn), axis=1)
             flat = (wc - chin) <= ftol * wc
         wp[better] = pn[better]
-        wc = np.where(better, chin, wc)
-        lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.where(run, lam * 4.0, lam))
-        done |= (pd & tiny) | (better & flat) | (lam > 1e8)
-    p[ids], chi[ids] = wp, wc
-    J[:, ids], res[ids] = wJ, wr
-    return J, res, chi, iters
+        w["chi"] = np.where(better, chin, wc)
+        w["lam"] = lam = np.where(better, np.maximum(lam / 3.0, 1e-9), np.where(run, lam * 4.0, lam))
+        stuck = (lam > 1e8) & ~done  # no step taken: the current parameters are final
+        A_fin[w["ids"][stuck]] = A0[stuck]
+        w["pending"] |= better & flat
+        done |= (better & flat) | stuck
+    ids = w["ids"]
+    p[ids], chi[ids] = w["p"], w["chi"]
+    left = ~w["done"] | w["pending"]
+    if left.any():
+        A_fin[ids[left]] = _normal(w["J"][:, left], w["r"][left], w["line"][left])[0]
+    return A_fin, chi, iters
 
 
 def _weighted_residual(y, f, wgt):
@@ -434,11 +490,10 @@ def fit_peaks(
         it_g = 0
         if k == 6 and start is None:  # a Gaussian first pass seeds the pseudo-Voigt at eta = 0
             pg = np.ascontiguousarray(p[:, :5])
-            it_g = _levenberg_marquardt(x, y, wgt, dxw, pg, "gaussian", wmin, max_iter)[3]
+            it_g = _levenberg_marquardt(x, y, wgt, dxw, pg, "gaussian", wmin, max_iter)[2]
             p[:, :5] = pg
             p[:, 5] = 0.0
-        Jw, res, chi, it = _levenberg_marquardt(x, y, wgt, dxw, p, profile, wmin, max_iter)
-        A, _ = _normal(Jw, res)
+        A, chi, it = _levenberg_marquardt(x, y, wgt, dxw, p, profile, wmin, max_iter)
         dof = np.maximum(n_pts - k, 1)
         redchi = chi / dof
         with np.errstate(all="ignore"):
