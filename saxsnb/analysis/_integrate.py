@@ -258,7 +258,7 @@ class IntegrationMatrix:
         check_finite = kind.kind == "f"
         check_sign = kind.kind not in "ub"
         check_big = small and kind.itemsize >= 4
-        for p0, p1, indptr, indices, data in blocks:
+        for p0, p1, r0, r1, indptr, indices, data in blocks:
             b = buf[:p1 - p0]
             b[...] = xc[:, p0:p1].T
             if check_finite and not np.isfinite(b).all():
@@ -269,13 +269,14 @@ class IntegrationMatrix:
                 # values above 2**24 lose digits in float32 sums: this block in float64
                 blk = self._blocks64[(p0 // width)]
                 b64 = np.asarray(xc[:, p0:p1].T, np.float64, order="C")
-                y64 = np.zeros((rows, n_c))
-                _csc_matvecs(rows, p1 - p0, n_c, blk[2], blk[3], blk[4], b64, y64)
-                acc += y64
+                y64 = np.zeros((r1 - r0, n_c))
+                _csc_matvecs(r1 - r0, p1 - p0, n_c, blk[4], blk[5], blk[6], b64, y64)
+                acc[r0:r1] += y64
                 continue
-            y[...] = 0
-            _csc_matvecs(rows, p1 - p0, n_c, indptr, indices, data, b, y)
-            acc += y
+            yb = y[:r1 - r0]          # only the bins this block of pixels reaches
+            yb[...] = 0
+            _csc_matvecs(r1 - r0, p1 - p0, n_c, indptr, indices, data, b, yb)
+            acc[r0:r1] += yb
         total[...] = acc[:n_b].T
         var[...] = acc[:n_b].T if self.subpixels == 1 else acc[n_b:].T
         return True
@@ -315,7 +316,8 @@ _BLOCK = 8192                 # pixels per block of the fast route (buffer stays
 
 
 def _pixel_blocks(csc: sp.csc_matrix, dtype) -> list:
-    """Column (pixel) blocks of a CSC matrix: (p0, p1, indptr from 0, indices, data as dtype)."""
+    """Column (pixel) blocks of a CSC matrix: (p0, p1, r0, r1, indptr from 0, indices from
+    r0, data as dtype), rows r0 <= r < r1 being the bins the block reaches."""
     n_p = csc.shape[1]
     data = csc.data.astype(dtype)
     indices = csc.indices.astype(np.int32) if csc.indices.dtype != np.int32 else csc.indices
@@ -324,7 +326,9 @@ def _pixel_blocks(csc: sp.csc_matrix, dtype) -> list:
         p1 = min(p0 + _BLOCK, n_p)
         a0, a1 = int(csc.indptr[p0]), int(csc.indptr[p1])
         ip = (csc.indptr[p0:p1 + 1] - a0).astype(indices.dtype)
-        out.append((p0, p1, ip, indices[a0:a1], data[a0:a1]))
+        ind = indices[a0:a1]
+        r0, r1 = (int(ind.min()), int(ind.max()) + 1) if ind.size else (0, 0)
+        out.append((p0, p1, r0, r1, ip, (ind - r0).astype(indices.dtype), data[a0:a1]))
     return out
 
 
