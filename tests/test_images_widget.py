@@ -48,3 +48,33 @@ def test_rings_centre_and_cursor(panel):
     traitlets.link((panel, "frame"), (other, "frame"))
     panel.frame = 1
     assert other.frame == 1
+
+
+def test_orientation_selector_drives_the_trend(panel):
+    from saxsnb.demo_images import fibre_series
+
+    fib = fibre_series(n_frames=5)
+    q0 = 2 * np.pi / 3.0                       # the demo fibre's reflection, d = 3 nm
+    p = ImagePanel(fib, q_band=(q0 - 0.06, q0 + 0.06), sector=(45.0, 135.0), n_chi=36)
+    assert p.director_deg == 90.0
+    direct = fib.saxs.orientation((q0 - 0.06, q0 + 0.06), director_deg=90.0, n_chi=36)
+    np.testing.assert_allclose(p.orientation.hermans.values, direct.hermans.values)
+    np.testing.assert_allclose(np.asarray(p.f_lines.y)[0], direct.hermans.values)
+    np.testing.assert_allclose(np.asarray(p.f_lines.x), fib.strain.values)
+    assert len(p.selection_lines.x) == 4        # two arcs and two edges of the sector
+    p.sector_slider.value = (-45.0, 45.0)      # the slider moves the director to 0 degrees
+    assert p.sector == [-45.0, 45.0] and p.director_deg == 0.0
+    moved = fib.saxs.orientation((q0 - 0.06, q0 + 0.06), director_deg=0.0, n_chi=36)
+    np.testing.assert_allclose(p.orientation.hermans.values, moved.hermans.values)
+    p.q_slider.value = (q0 - 0.1, q0 + 0.1)
+    assert p.q_band == pytest.approx([q0 - 0.1, q0 + 0.1])
+    code = p.to_code()
+    ns = {"fib": fib}                          # the panel writes code about the caller's variable
+    exec(code, ns)                              # runs without widgets
+    np.testing.assert_allclose(ns["orientation"].hermans.values, p.orientation.hermans.values)
+    p.show_code()
+    assert "orientation(" in p.code_area.value
+    png = p.to_png(width_px=300)
+    assert png[:8] == b"\x89PNG\r\n\x1a\n"
+    p.frame_slider.value = 3
+    assert p.frame == 3 and list(p.f_now.y) == [float(p.orientation.hermans.values[3])]
