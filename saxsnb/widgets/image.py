@@ -8,13 +8,15 @@
 ``log_scale`` (bool)
     Colour by log10(counts) (default) or by counts.
 ``show_mask`` (bool)
-    Masked pixels are left blank (no colour) when True.
+    Masked pixels are covered by a translucent grey layer when True. (The colour image
+    itself holds finite values only: one NaN makes the front end's colour range NaN and
+    the whole image blank. ``image_values`` keeps the NaN of masked and empty pixels.)
 ``rings_q`` (list of float)
     q values (1/nm) whose cones are drawn as rings (e.g. calibrant orders); their pixel
     positions come from :meth:`DetectorGeometry.ring <saxsnb.analysis.DetectorGeometry.ring>`.
 ``cursor`` (dict)
-    ``x``, ``y`` (pixels), ``q`` (1/nm), ``chi`` (degrees) under the pointer, set on hover
-    or by :meth:`point_at` (which a test calls as the browser would).
+    ``x``, ``y`` (pixels), ``q`` (1/nm), ``chi`` (degrees) of the pixel clicked on the
+    image (bqplot's image mark reports clicks, not hovering), or set by :meth:`point_at`.
 ``q_band`` (list of 2 floats) and ``sector`` (list of 2 floats)
     The orientation selector: the q band (1/nm) whose azimuthal profile is analysed and
     a sector (degrees of chi) whose centre is the director of Hermans' f (the sector's
@@ -104,23 +106,32 @@ class ImagePanel(widgets.VBox):
         self.xs, self.ys = bq.LinearScale(min=-0.5, max=shape[1] - 0.5), bq.LinearScale(min=shape[0] - 0.5,
                                                                                         max=-0.5)
         self.cs = bq.ColorScale(scheme="viridis")
-        self.heatmap = bq.HeatMap(x=self._x, y=self._y, color=self._colour(),
-                                  scales={"x": self.xs, "y": self.ys, "color": self.cs})
+        # the frame as a PNG (colours mapped here): bqplot's HeatMap draws nothing with a
+        # reversed y scale (row 0 on top) in the browser, its Image mark does
+        extent = {"x": [-0.5, shape[1] - 0.5], "y": [shape[0] - 0.5, -0.5]}
+        self.frame_layer = bq.Image(image=widgets.Image(value=b"", format="png"), **extent,
+                                    scales={"x": self.xs, "y": self.ys})
+        self.mask_layer = bq.Image(image=widgets.Image(value=_png_rgba(self._mask_rgba()), format="png"),
+                                   x=[-0.5, shape[1] - 0.5], y=[shape[0] - 0.5, -0.5],
+                                   scales={"x": self.xs, "y": self.ys})
+        self._set_colour(self._colour())
         self.ring_lines = bq.Lines(x=[], y=[], colors=["white"], stroke_width=1,
                                    scales={"x": self.xs, "y": self.ys})
         self.centre = bq.Scatter(x=[], y=[], marker="cross", colors=["red"],
                                  scales={"x": self.xs, "y": self.ys})
         axes = [bq.Axis(scale=self.xs, label="x (px)"), bq.Axis(scale=self.ys, side="left", label="y (px)"),
                 bq.ColorAxis(scale=self.cs, side="right", label="log10 counts")]
-        self.figure = bq.Figure(marks=[self.heatmap, self.ring_lines, self.centre], axes=axes,
-                                fig_margin={"top": 20, "bottom": 50, "left": 60, "right": 80},
+        marks = [self.frame_layer, self.mask_layer, self.ring_lines, self.centre]
+        self.figure = bq.Figure(marks=marks, axes=axes,
+                                fig_margin={"top": 20, "bottom": 50, "left": 60, "right": 110},
                                 min_aspect_ratio=1, max_aspect_ratio=1)
         self.selection_lines = bq.Lines(x=[], y=[], colors=["orange"], stroke_width=1.5,
                                         line_style="dashed", scales={"x": self.xs, "y": self.ys})
         self.figure.marks = [*self.figure.marks, self.selection_lines]
         self.readout = widgets.HTML("")
         self.status_line = widgets.HTML("")
-        self.heatmap.on_hover(self._on_hover)
+        self.frame_layer.on_element_click(self._on_click)
+        self.mask_layer.on_element_click(self._on_click)
         n = images.sizes["frame"]
         self.frame_slider = widgets.IntSlider(0, min=0, max=max(n - 1, 0), description="frame",
                                               continuous_update=False)
@@ -215,6 +226,32 @@ class ImagePanel(widgets.VBox):
             img = np.where(self.mask[::s, ::s], np.nan, img)
         return img
 
+    def _mask_rgba(self) -> np.ndarray:
+        s = self.stride
+        m = self.mask[::s, ::s]
+        rgba = np.zeros(m.shape + (4,), np.uint8)
+        rgba[m] = (128, 128, 128, 200)
+        return rgba
+
+    def _set_colour(self, colour: np.ndarray) -> None:
+        # finite values only (module doc): NaN (masked, or no counts on a log scale) are
+        # drawn at the bottom of the colour range; the mask layer covers the masked ones
+        self.image_values = colour
+        finite = np.isfinite(colour)
+        lo, hi = (float(colour[finite].min()), float(colour[finite].max())) if finite.any() else (0.0, 1.0)
+        if hi <= lo:
+            hi = lo + 1.0
+        with self.cs.hold_sync():
+            self.cs.min, self.cs.max = lo, hi
+        self.colour_values = np.where(finite, colour, lo)
+        # a new image widget each time: bqplot's Image mark redraws when its ``image`` is
+        # replaced, not when the old widget's value changes
+        old = self.frame_layer.image
+        png = _png_rgba(_viridis((self.colour_values - lo) / (hi - lo)))
+        self.frame_layer.image = widgets.Image(value=png, format="png")
+        old.close()
+        self.mask_layer.visible = bool(self.show_mask and self.mask.any())
+
     def _redraw(self, change=None):
         try:
             colour = self._colour()
@@ -224,8 +261,7 @@ class ImagePanel(widgets.VBox):
             return
         self.status = ""
         self.status_line.value = ""
-        with self.heatmap.hold_sync():
-            self.heatmap.color = colour
+        self._set_colour(colour)
         axis = self.figure.axes[2]
         axis.label = "log10 counts" if self.log_scale else "counts"
 
@@ -295,7 +331,9 @@ class ImagePanel(widgets.VBox):
         with self.f_lines.hold_sync():
             self.f_lines.x = t
             self.f_lines.y = np.vstack([out.hermans.values, out.order_2d.values])
-        self.w_lines.x, self.w_lines.y = t, np.asarray(out.fwhm_deg.values, float)
+        ok = np.asarray(out.fwhm_status.values) == "ok"     # frames whose arc width was resolved
+        with self.w_lines.hold_sync():
+            self.w_lines.x, self.w_lines.y = t[ok], np.asarray(out.fwhm_deg.values, float)[ok]
         self._mark_frame()
 
     def _mark_frame(self, change=None):
@@ -372,8 +410,15 @@ class ImagePanel(widgets.VBox):
         heights = [width / 3.0] + [1.0] * (len(figs) - 1)
         axes = mfig.subplots(len(figs), 1, squeeze=False, height_ratios=heights)[:, 0]
         for ax, fig in zip(axes, figs):
-            figure_to_matplotlib(fig, ax)
+            figure_to_matplotlib(fig, ax)   # lines and points (rings, centre, trends)
             ax.set_title(fig.title or "")
+        shape = self.mask.shape
+        extent = (-0.5, shape[1] - 0.5, shape[0] - 0.5, -0.5)
+        im = axes[0].imshow(self.image_values, extent=extent, cmap="viridis", vmin=self.cs.min,
+                            vmax=self.cs.max, interpolation="nearest", zorder=0)
+        mfig.colorbar(im, ax=axes[0], label=self.figure.axes[2].label)
+        if self.mask_layer.visible:
+            axes[0].imshow(self._mask_rgba(), extent=extent, interpolation="nearest", zorder=0.5)
         axes[0].set_xlim(self.xs.min, self.xs.max)
         axes[0].set_ylim(self.ys.min, self.ys.max)
         axes[0].set_aspect("equal")
@@ -416,7 +461,31 @@ class ImagePanel(widgets.VBox):
         self.cursor = out
         return out
 
-    def _on_hover(self, mark, event):
+    def _on_click(self, mark, event):
+        """A click on the image (bqplot sends the data coordinates): its q and chi."""
         data = (event or {}).get("data", {})
-        if "column" in data and "row" in data:
-            self.point_at(self._x[int(data["column"])], self._y[int(data["row"])])
+        if "click_x" in data and "click_y" in data:
+            self.point_at(float(data["click_x"]), float(data["click_y"]))
+
+
+def _viridis(v: np.ndarray) -> np.ndarray:
+    """RGBA uint8 of values in [0, 1] with matplotlib's viridis colour map."""
+    from matplotlib import colormaps
+
+    return colormaps["viridis"](np.clip(v, 0.0, 1.0), bytes=True)
+
+
+def _png_rgba(rgba: np.ndarray) -> bytes:
+    """A PNG file (bytes) of an (rows, columns, 4) uint8 RGBA array (PNG spec, W3C 2003)."""
+    import struct
+    import zlib
+
+    h, w = rgba.shape[:2]
+    raw = np.concatenate([np.zeros((h, 1), np.uint8), rgba.reshape(h, w * 4)], axis=1).tobytes()
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
+
+    header = struct.pack(">IIBBBBB", w, h, 8, 6, 0, 0, 0)
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", header) + chunk(b"IDAT", zlib.compress(raw))
+            + chunk(b"IEND", b""))
