@@ -18,7 +18,7 @@ def _demo_arguments(parser: argparse.ArgumentParser) -> None:
 
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="folder to write into (created if missing); one sub-folder per scenario")
-    names = (*SCENARIOS, "preparation")
+    names = (*SCENARIOS, "preparation", "images")
     parser.add_argument("--names", nargs="+", choices=names, default=None, metavar="NAME",
                         help=f"scenarios to write (default: all of {', '.join(names)})")
     parser.add_argument("--seed", type=int, default=0, help="random seed of the noise (default 0)")
@@ -30,9 +30,13 @@ def _demo_run(args: argparse.Namespace) -> int:
     folders = write_demo(args.out, names=args.names, seed=args.seed)
     for name, folder in folders.items():
         n = len(list(folder.glob("*.dat")))
+        n_img = len(list(folder.glob("*.tif")))
         parts = [f"{n} curves"] if n else []
+        parts += [f"{n_img} image{'s' if n_img > 1 else ''}"] if n_img else []
         subs = [sub for sub in sorted(folder.iterdir()) if sub.is_dir()]
-        parts += [f"{sub.name} ({len(list(sub.glob('*.dat')))})" for sub in subs]
+        for sub in subs:
+            k = len(list(sub.glob("*.dat"))) or len(list(sub.glob("*.tif")))
+            parts.append(f"{sub.name} ({k})")
         print(f"{name}: {' + '.join(parts)} in {folder}")
     print("synthetic data from closed-form models; see README.md in each folder")
     return 0
@@ -41,7 +45,8 @@ def _demo_run(args: argparse.Namespace) -> int:
 #: name -> (help text, add_arguments(parser), run(args) -> exit code)
 COMMANDS: dict[str, tuple[str, Callable[[argparse.ArgumentParser], None],
                           Callable[[argparse.Namespace], int]]] = {
-    "demo": ("write the synthetic demo series as folders of text files", _demo_arguments, _demo_run),
+    "demo": ("write the synthetic demo series as folders of text files (and detector images as TIFF)",
+             _demo_arguments, _demo_run),
 }
 
 

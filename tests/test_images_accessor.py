@@ -91,3 +91,25 @@ def test_errors():
         ims.saxs.integrate(g8, mask=np.ones((8, 8), bool))
     with pytest.raises(SaxsError, match="q band"):
         ims.saxs.azimuthal_profile((0.5, 0.1), g8)
+
+
+def test_pixel_options_shared_and_forwarded():
+    import inspect
+
+    from saxsnb.accessor.images import PixelOptions
+    from saxsnb.analysis import hermans_orientation
+
+    # the accessor's defaults are the analysis function's (one place: PixelOptions)
+    sig = inspect.signature(integration_matrix).parameters
+    names = ("subpixels", "solid_angle", "polarization")
+    assert PixelOptions().as_dict() == {k: sig[k].default for k in names}
+    fib = fibre_series(n_frames=3)
+    q0 = 2 * np.pi / 3.0
+    band = (q0 - 0.06, q0 + 0.06)
+    opts = dict(subpixels=1, solid_angle=False, polarization=False)
+    prof = fib.saxs.azimuthal_profile(band, n_chi=36, **opts)
+    out = fib.saxs.orientation(band, n_chi=36, director_deg=90.0, **opts)
+    ref = hermans_orientation(prof.chi.values, prof.intensity.values, prof.sigma.values, director_deg=90.0)
+    np.testing.assert_allclose(out.hermans.values, ref["hermans"])       # batch = direct call
+    default = fib.saxs.orientation(band, n_chi=36, director_deg=90.0)
+    assert not np.allclose(default.hermans.values, out.hermans.values, rtol=0, atol=1e-12)

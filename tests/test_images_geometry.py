@@ -132,10 +132,13 @@ def test_count_conservation_with_splitting():
     frames = rng.poisson(50.0, size=(4, 96, 128)).astype(np.uint32)
     for s in (1, 2, 3):
         m = integration_matrix(g, n_bins=60, subpixels=s, solid_angle=False, polarization=False)
-        out = m.integrate(frames)
-        # every pixel lies in the default range: sum over bins of (mean x pixels) = total counts
-        np.testing.assert_allclose((out["intensity"] * out["pixels"]).sum(axis=1),
-                                   frames.reshape(4, -1).sum(axis=1), rtol=1e-12)
+        # every pixel lies in the default range: sum over bins of (mean x pixels) = total counts;
+        # float64 images take the float64 route (1e-12), integer counts the float32 one (1e-6,
+        # the tolerance documented in IntegrationMatrix.integrate)
+        for data, rtol in ((frames.astype(float), 1e-12), (frames, 1e-6)):
+            out = m.integrate(data)
+            np.testing.assert_allclose((out["intensity"] * out["pixels"]).sum(axis=1),
+                                       frames.reshape(4, -1).sum(axis=1), rtol=rtol)
         np.testing.assert_allclose(out["pixels"].sum(), 96 * 128, rtol=1e-12)
 
 
@@ -221,3 +224,24 @@ def test_sector_and_mask_errors():
     m = integration_matrix(g, n_bins=10)
     with pytest.raises(SaxsError, match="images"):
         m.integrate(np.ones((2, 10, 10)))
+
+
+def test_float32_route_equals_float64_route():
+    # the fast route (float32 buffers, per-block float32 sums) against the general float64 route
+    g = _geom(tilt_deg=2.0, tilt_rotation_deg=30.0)
+    rng = np.random.default_rng(1234)
+    frames = rng.poisson(300.0, size=(7, 96, 128)).astype(np.uint32)
+    frames[2, 10, 10] = 2**31          # above 2**24: that block goes through float64
+    for s in (1, 2):
+        m = integration_matrix(g, n_bins=70, subpixels=s)
+        fast = m.integrate(frames, chunk=3)
+        ref = m.integrate(frames.astype(float), variance=frames.astype(float), chunk=3)   # general route
+        for k in ("counts", "intensity", "sigma"):
+            np.testing.assert_allclose(fast[k], ref[k], rtol=1e-6, equal_nan=True)
+    # a chunk with a NaN pixel goes the general route, the other chunks stay fast: same result
+    f = frames.astype(np.float32)
+    f[4, 50, 60] = np.nan
+    m = integration_matrix(g, n_bins=70, subpixels=2)
+    mixed = m.integrate(f, chunk=2)
+    alone = np.stack([m.integrate(f[i:i + 1].astype(float))["intensity"][0] for i in range(7)])
+    np.testing.assert_allclose(mixed["intensity"], alone, rtol=1e-6, equal_nan=True)

@@ -132,3 +132,18 @@ def test_tiff_roundtrip_property(dtype, n, ny, nx):
         ds = read_images(p)
         assert ds.counts.dtype == a.dtype
         np.testing.assert_array_equal(ds.counts.values, a)
+
+
+def test_image_demo_files_small_and_lossless(tmp_path):
+    from saxsnb.demo.files import write_demo
+    from saxsnb.demo_images import calibrant_image, fibre_series
+
+    folder = write_demo(tmp_path, names=["images"])["images"]
+    files = sorted(folder.rglob("*.tif"))
+    assert len(files) == 22 and (folder / "README.md").exists()
+    assert sum(f.stat().st_size for f in files) < 5e6        # "a few MB at most"
+    fib = read_images(folder / "fibre")
+    np.testing.assert_array_equal(fib.counts.values, fibre_series().counts.values)   # lossless
+    np.testing.assert_allclose(fib.strain.values, fibre_series().strain.values)
+    cal = read_images(folder / "calibrant.tif")
+    np.testing.assert_array_equal(cal.counts.values[0], calibrant_image())

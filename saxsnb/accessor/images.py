@@ -22,6 +22,8 @@ Examples
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import xarray as xr
 
@@ -33,6 +35,26 @@ from ..series import add_history
 from ._core import result_attrs
 
 __all__ = ["ImageMethods"]
+
+
+@dataclass(frozen=True)
+class PixelOptions:
+    """How pixels enter every reduction of an image series (one place for the defaults).
+
+    ``subpixels``: each pixel sampled on a ``subpixels x subpixels`` grid; ``solid_angle``,
+    ``polarization``: the per-pixel corrections (:func:`saxsnb.analysis.integration_matrix`).
+    """
+
+    subpixels: int = 2
+    solid_angle: bool = True
+    polarization: bool = True
+
+    def as_dict(self) -> dict:
+        return {"subpixels": int(self.subpixels), "solid_angle": bool(self.solid_angle),
+                "polarization": bool(self.polarization)}
+
+
+_PIXELS = PixelOptions()
 
 
 class ImageMethods:
@@ -147,9 +169,9 @@ class ImageMethods:
         q_edges=None,
         spacing: str = "linear",
         chi_range=None,
-        subpixels: int = 2,
-        solid_angle: bool = True,
-        polarization: bool = True,
+        subpixels: int = _PIXELS.subpixels,
+        solid_angle: bool = _PIXELS.solid_angle,
+        polarization: bool = _PIXELS.polarization,
         matrix: IntegrationMatrix | None = None,
     ) -> xr.Dataset:
         """Every frame to a curve I(q) +- sigma: a curve series (frame, q) ready for analysis.
@@ -169,16 +191,9 @@ class ImageMethods:
         >>> ims.saxs.integrate(n_bins=10).intensity.dims
         ('frame', 'q')
         """
-        opts = dict(
-            n_bins=n_bins,
-            q_range=q_range,
-            q_edges=q_edges,
-            spacing=spacing,
-            chi_range=chi_range,
-            subpixels=subpixels,
-            solid_angle=solid_angle,
-            polarization=polarization,
-        )
+        pixels = PixelOptions(subpixels, solid_angle, polarization).as_dict()
+        opts = dict(n_bins=n_bins, q_range=q_range, q_edges=q_edges, spacing=spacing, chi_range=chi_range,
+                    **pixels)
         mat, g = self._matrix(geometry, mask, matrix, **opts)
         if mat.is_cake:
             raise SaxsInputError("a cake matrix cannot make curves: use cake()", parameter="matrix")
@@ -206,9 +221,8 @@ class ImageMethods:
             "q_range": [float(mat.q_edges[0]), float(mat.q_edges[-1])],
             "spacing": spacing,
             "chi_range": chi_range,
+            **pixels,
             "subpixels": mat.subpixels,
-            "solid_angle": solid_angle,
-            "polarization": polarization,
             "masked_pixels": int(
                 mat.shape[0] * mat.shape[1] - np.count_nonzero(np.asarray(mat.fractions.sum(axis=0)).ravel())
             ),
@@ -229,9 +243,9 @@ class ImageMethods:
         q_range=None,
         q_edges=None,
         chi_range=None,
-        subpixels: int = 2,
-        solid_angle: bool = True,
-        polarization: bool = True,
+        subpixels: int = _PIXELS.subpixels,
+        solid_angle: bool = _PIXELS.solid_angle,
+        polarization: bool = _PIXELS.polarization,
         matrix: IntegrationMatrix | None = None,
     ) -> xr.Dataset:
         """Every frame to (q, chi) bins: ``intensity``, ``sigma`` on (frame, q, chi).
@@ -246,16 +260,8 @@ class ImageMethods:
         >>> dict(ims.saxs.cake(n_bins=6, n_chi=8).intensity.sizes)
         {'frame': 2, 'q': 6, 'chi': 8}
         """
-        opts = dict(
-            n_bins=n_bins,
-            n_chi=n_chi,
-            q_range=q_range,
-            q_edges=q_edges,
-            chi_range=chi_range,
-            subpixels=subpixels,
-            solid_angle=solid_angle,
-            polarization=polarization,
-        )
+        opts = dict(n_bins=n_bins, n_chi=n_chi, q_range=q_range, q_edges=q_edges, chi_range=chi_range,
+                    **PixelOptions(subpixels, solid_angle, polarization).as_dict())
         mat, g = self._matrix(geometry, mask, matrix, **opts)
         I, S = self._reduce(mat)
         n_q, n_c = mat.q_edges.size - 1, mat.chi_edges.size - 1
@@ -288,9 +294,9 @@ class ImageMethods:
         *,
         n_chi: int = 72,
         background_bands=None,
-        subpixels: int = 2,
-        solid_angle: bool = True,
-        polarization: bool = True,
+        subpixels: int = _PIXELS.subpixels,
+        solid_angle: bool = _PIXELS.solid_angle,
+        polarization: bool = _PIXELS.polarization,
     ) -> xr.Dataset:
         """I(chi) of the q band ``(q_lo, q_hi)`` (1/nm) per frame, on (frame, chi).
 
@@ -317,17 +323,9 @@ class ImageMethods:
                 )
         profiles = []
         g = None
+        pixels = PixelOptions(subpixels, solid_angle, polarization).as_dict()
         for b in bands:
-            mat, g = self._matrix(
-                geometry,
-                mask,
-                None,
-                q_edges=list(b),
-                n_chi=n_chi,
-                subpixels=subpixels,
-                solid_angle=solid_angle,
-                polarization=polarization,
-            )
+            mat, g = self._matrix(geometry, mask, None, q_edges=list(b), n_chi=n_chi, **pixels)
             profiles.append(self._reduce(mat))
         I, S = profiles[0]
         if len(profiles) > 1:
@@ -351,7 +349,7 @@ class ImageMethods:
                 "background_bands": [list(b) for b in (background_bands or [])],
                 "n_chi": n_chi,
                 "geometry": g.to_attrs(),
-                "subpixels": subpixels,
+                **pixels,
             },
         )
         return out
@@ -367,6 +365,9 @@ class ImageMethods:
         background_bands=None,
         symmetry: int = 2,
         baseline=None,
+        subpixels: int = _PIXELS.subpixels,
+        solid_angle: bool = _PIXELS.solid_angle,
+        polarization: bool = _PIXELS.polarization,
     ) -> xr.Dataset:
         """Orientation per frame from the azimuthal profile of a q band.
 
@@ -388,7 +389,9 @@ class ImageMethods:
         >>> np.round(out.hermans.values, 6).tolist(), out.status.values.tolist()   # isotropic
         ([0.0, 0.0], ['ok', 'ok'])
         """
-        prof = self.azimuthal_profile(q_band, geometry, mask, n_chi=n_chi, background_bands=background_bands)
+        pixels = PixelOptions(subpixels, solid_angle, polarization).as_dict()
+        prof = self.azimuthal_profile(q_band, geometry, mask, n_chi=n_chi, background_bands=background_bands,
+                                      **pixels)
         chi = prof["chi"].values
         I, S = np.asarray(prof["intensity"].values, float), np.asarray(prof["sigma"].values, float)
         h = hermans_orientation(chi, I, S, director_deg=director_deg, baseline=baseline)
@@ -423,6 +426,7 @@ class ImageMethods:
                 "director_deg": director_deg,
                 "symmetry": symmetry,
                 "baseline": baseline,
+                **pixels,
             },
         )
         return out

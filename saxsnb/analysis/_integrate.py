@@ -158,7 +158,15 @@ class IntegrationMatrix:
     def stacked_csc(self) -> sp.csc_matrix:
         return self.matrix.tocsc()
 
-    def integrate(self, images, variance=None, *, chunk: int = 16, progress: bool = False) -> dict:
+    @cached_property
+    def _blocks32(self) -> list:
+        return _pixel_blocks(self.stacked_csc if self.subpixels > 1 else self.fractions_csc, np.float32)
+
+    @cached_property
+    def _blocks64(self) -> list:
+        return _pixel_blocks(self.stacked_csc if self.subpixels > 1 else self.fractions_csc, np.float64)
+
+    def integrate(self, images, variance=None, *, chunk: int = 64, progress: bool = False) -> dict:
         """Reduce a stack of frames ``(n_frames, rows, columns)`` (or one image).
 
         Parameters
@@ -166,7 +174,7 @@ class IntegrationMatrix:
         images : array (n_frames, rows, columns) of counts, any real dtype (or a 2D image).
         variance : optional array of the same shape (e.g. after dark subtraction);
             default: Poisson, the counts themselves.
-        chunk : frames per sparse product (bounds the float64 working memory).
+        chunk : frames per sparse product (bounds the working memory).
         progress : show a tqdm bar over chunks.
 
         Returns
@@ -174,6 +182,19 @@ class IntegrationMatrix:
         dict with ``intensity`` and ``sigma`` of shape (n_frames, n_bins) — or
         (n_frames, n_q, n_chi) for a cake — in counts per relative solid angle, ``counts``
         (the summed counts ``sum_p A_bp c_p``, same shape) and ``pixels`` (per bin).
+
+        Notes
+        -----
+        Fast route (Poisson variance, finite non-negative counts): each chunk of frames is
+        laid out pixels x frames one block of pixels at a time into a small reused buffer
+        (it stays in cache), and one sparse product per block gives the sums and, in the
+        same pass, the Poisson variances. Integer and float32 images use float32
+        buffers (values up to 2**24 in magnitude are exact; a block with larger values
+        goes through float64); the per-block sums are float32 and the sums
+        over blocks float64, so results equal the float64 route to a relative 1e-6
+        (``tests/test_images_geometry.py``). Other inputs (float64 images, larger
+        counts) use float64 buffers. A chunk with non-finite or negative values, or with
+        a variance stack, takes the general route (float64, its own normalisation).
         """
         X = np.asarray(images)
         if X.ndim == 2:
@@ -193,45 +214,20 @@ class IntegrationMatrix:
         total = np.empty((n_f, n_b))
         var = np.empty((n_f, n_b))
         norm = np.broadcast_to(self.norm, (n_f, n_b)).copy()
-        A1, A2 = self.fractions_csc, self.squares_csc
-        same = self.subpixels == 1                      # whole pixels: A**2 == A
-        M = A1 if same else self.stacked_csc
-        exact_ints = X.dtype.kind in "iu"
-        n_p = self.correction.size
-        starts = range(0, n_f, max(1, int(chunk)))
+        chunk = max(1, int(chunk))
+        starts = range(0, n_f, chunk)
         if progress:
             from tqdm.auto import tqdm
 
             starts = tqdm(starts, desc="integrating", unit="chunk")
         for s in starts:
-            xc = X[s:s + chunk].reshape(-1, n_p)
-            # (pixels, frames) float64 in one pass: the layout the CSC product reads in order
-            x = np.empty((n_p, xc.shape[0]))
-            x[...] = xc.T
-            bad = False
-            if not exact_ints:
-                finite = np.isfinite(x)
-                bad = not finite.all()
-                if bad:
-                    x[~finite] = 0.0
+            sl = slice(s, s + chunk)
+            done = False
             if V is None:
-                r = M @ x                                   # (n_bins or 2 n_bins, frames)
-                total[s:s + chunk] = r[:n_b].T
-                negative = X.dtype.kind != "u" and (x < 0).any()
-                if negative:
-                    var[s:s + chunk] = (A2 @ np.maximum(x, 0.0)).T
-                else:
-                    var[s:s + chunk] = r[:n_b].T if same else r[n_b:].T
-            else:
-                v = np.empty_like(x)
-                v[...] = V[s:s + chunk].reshape(-1, n_p).T
-                if bad:
-                    v[~finite] = 0.0
-                total[s:s + chunk] = (A1 @ x).T
-                var[s:s + chunk] = (A2 @ v).T
-            if bad:
-                norm[s:s + chunk] = (A1 @ (finite * self.correction[:, None])).T
-        ones = np.asarray(A2.sum(axis=1)).ravel()
+                done = self._chunk_fast(X[sl], total[sl], var[sl])
+            if not done:
+                self._chunk_general(X[sl], None if V is None else V[sl], total[sl], var[sl], norm[sl])
+        ones = np.asarray(self.squares_csc.sum(axis=1)).ravel()
         var = np.where(var > 0, var, ones)
         with np.errstate(divide="ignore", invalid="ignore"):
             empty = norm <= 0
@@ -245,6 +241,112 @@ class IntegrationMatrix:
         else:
             out["pixels"] = self.pixels.copy()
         return out
+
+    def _chunk_fast(self, xc, total, var) -> bool:
+        """Sums and Poisson variances of one chunk; False (nothing written) if it needs the
+        general route (non-finite or negative values)."""
+        n_c, n_b = xc.shape[0], self.n_bins
+        xc = xc.reshape(n_c, -1)
+        kind = xc.dtype
+        small = kind.kind in "iub" or kind in (np.float16, np.float32)
+        rows = self.matrix.shape[0] if self.subpixels > 1 else n_b
+        acc = np.zeros((rows, n_c))
+        blocks = self._blocks32 if small else self._blocks64
+        width = blocks[0][1] - blocks[0][0] if blocks else 0
+        buf = np.empty((width, n_c), np.float32 if small else np.float64)
+        y = np.empty((rows, n_c), buf.dtype)
+        check_finite = kind.kind == "f"
+        check_sign = kind.kind not in "ub"
+        check_big = small and kind.itemsize >= 4
+        for p0, p1, r0, r1, indptr, indices, data in blocks:
+            b = buf[:p1 - p0]
+            b[...] = xc[:, p0:p1].T
+            if check_finite and not np.isfinite(b).all():
+                return False
+            if check_sign and b.min() < 0:
+                return False
+            if check_big and max(b.max(), -b.min()) > _F32_EXACT:
+                # values above 2**24 lose digits in float32 sums: this block in float64
+                blk = self._blocks64[(p0 // width)]
+                b64 = np.asarray(xc[:, p0:p1].T, np.float64, order="C")
+                y64 = np.zeros((r1 - r0, n_c))
+                _csc_matvecs(r1 - r0, p1 - p0, n_c, blk[4], blk[5], blk[6], b64, y64)
+                acc[r0:r1] += y64
+                continue
+            yb = y[:r1 - r0]          # only the bins this block of pixels reaches
+            yb[...] = 0
+            _csc_matvecs(r1 - r0, p1 - p0, n_c, indptr, indices, data, b, yb)
+            acc[r0:r1] += yb
+        total[...] = acc[:n_b].T
+        var[...] = acc[:n_b].T if self.subpixels == 1 else acc[n_b:].T
+        return True
+
+    def _chunk_general(self, xc, vc, total, var, norm) -> None:
+        """One chunk in float64, any values: non-finite pixels left out of their frame."""
+        n_p, n_b = self.correction.size, self.n_bins
+        A1, A2 = self.fractions_csc, self.squares_csc
+        same = self.subpixels == 1                      # whole pixels: A**2 == A
+        M = A1 if same else self.stacked_csc
+        x = np.empty((n_p, xc.shape[0]))
+        x[...] = xc.reshape(-1, n_p).T
+        finite = np.isfinite(x)
+        bad = not finite.all()
+        if bad:
+            x[~finite] = 0.0
+        if vc is None:
+            r = M @ x
+            total[...] = r[:n_b].T
+            if (x < 0).any():
+                var[...] = (A2 @ np.maximum(x, 0.0)).T
+            else:
+                var[...] = r[:n_b].T if same else r[n_b:].T
+        else:
+            v = np.empty_like(x)
+            v[...] = vc.reshape(-1, n_p).T
+            if bad:
+                v[~finite] = 0.0
+            total[...] = (A1 @ x).T
+            var[...] = (A2 @ v).T
+        if bad:
+            norm[...] = (A1 @ (finite * self.correction[:, None])).T
+
+
+_F32_EXACT = 2.0**24          # integers up to this are exact in float32
+_BLOCK = 8192                 # pixels per block of the fast route (buffer stays in cache)
+
+
+def _pixel_blocks(csc: sp.csc_matrix, dtype) -> list:
+    """Column (pixel) blocks of a CSC matrix: (p0, p1, r0, r1, indptr from 0, indices from
+    r0, data as dtype), rows r0 <= r < r1 being the bins the block reaches."""
+    n_p = csc.shape[1]
+    data = csc.data.astype(dtype)
+    indices = csc.indices.astype(np.int32) if csc.indices.dtype != np.int32 else csc.indices
+    out = []
+    for p0 in range(0, n_p, _BLOCK):
+        p1 = min(p0 + _BLOCK, n_p)
+        a0, a1 = int(csc.indptr[p0]), int(csc.indptr[p1])
+        ip = (csc.indptr[p0:p1 + 1] - a0).astype(indices.dtype)
+        ind = indices[a0:a1]
+        r0, r1 = (int(ind.min()), int(ind.max()) + 1) if ind.size else (0, 0)
+        out.append((p0, p1, r0, r1, ip, (ind - r0).astype(indices.dtype), data[a0:a1]))
+    return out
+
+
+def _csc_matvecs(n_row, n_col, n_vecs, indptr, indices, data, x, y) -> None:
+    """``y += A @ x`` for a CSC block ``A`` and C-ordered ``x`` (n_col, n_vecs), in place.
+
+    Uses scipy's compiled kernel (no result allocation); the public product otherwise.
+    """
+    if _sparsetools is not None:
+        _sparsetools.csc_matvecs(n_row, n_col, n_vecs, indptr, indices, data, x.ravel(), y.ravel())
+    else:  # pragma: no cover - a scipy without the private kernel module
+        y += sp.csc_matrix((data, indices, indptr), shape=(n_row, n_col)) @ x
+
+
+try:  # scipy's compiled sparse kernels (private module, stable for many releases)
+    from scipy.sparse import _sparsetools
+except ImportError:  # pragma: no cover
+    _sparsetools = None
 
 
 def integration_matrix(geometry: DetectorGeometry, *, mask=None, n_bins: int = 500, q_range=None,

@@ -116,9 +116,11 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
         Created if missing. Each scenario goes to ``out_dir/<name>/`` with its
         background in ``out_dir/<name>/background/`` and a README.md.
     names : iterable of str, optional
-        Scenarios to write (default: all of :data:`saxsnb.demo.SCENARIOS` and the
+        Scenarios to write (default: all of :data:`saxsnb.demo.SCENARIOS`, the
         ``"preparation"`` folder: repeat exposures, buffer, empty cell, water and a
-        silver behenate standard, see :mod:`saxsnb.demo.preparation`).
+        silver behenate standard, see :mod:`saxsnb.demo.preparation`, and the
+        ``"images"`` folder: a calibrant image and a fibre series as TIFF, see
+        :func:`saxsnb.demo_images.write_image_demo`).
     seed : int
         Seed passed to :func:`saxsnb.demo.make_series`.
 
@@ -138,7 +140,7 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
     from . import SCENARIOS, make_series
     from .preparation import write_preparation
 
-    known = [*SCENARIOS, "preparation"]
+    known = [*SCENARIOS, "preparation", "images"]
     names = known if names is None else list(names)
     for name in names:
         if name not in known:
@@ -151,6 +153,15 @@ def write_demo(out_dir, names: Iterable[str] | None = None, seed: int = 0) -> di
         raise SaxsFileError(f"cannot create the output folder: {exc.strerror}", path=out) from exc
     result: dict[str, Path] = {}
     for name in names:
+        if name == "images":   # detector images: calibrant and fibre series (saxsnb.demo_images)
+            from ..demo_images import write_image_demo
+
+            try:
+                write_image_demo(out / name, seed=seed)
+            except OSError as exc:
+                raise SaxsFileError(f"cannot write demo files: {exc}", path=out / name) from exc
+            result[name] = out / name
+            continue
         if name == "preparation":
             try:
                 result[name] = write_preparation(out / name, seed=seed)

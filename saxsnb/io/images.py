@@ -101,9 +101,10 @@ def geometry_of(ds: xr.Dataset) -> DetectorGeometry | None:
 
 
 # ---------------------------------------------------------------------------- TIFF
-def write_tiff(path, image, *, metadata=None) -> Path:
+def write_tiff(path, image, *, metadata=None, compression: str | None = None) -> Path:
     """Write one image (or a stack as pages) to a TIFF, atomically, with ``metadata`` as a
-    JSON description (read back by :func:`read_images`)."""
+    JSON description (read back by :func:`read_images`); ``compression="zlib"`` for
+    lossless deflate (Python's zlib, no extra package)."""
     import tifffile
 
     from .._jsonsafe import to_json_safe
@@ -111,7 +112,8 @@ def write_tiff(path, image, *, metadata=None) -> Path:
     path = Path(path)
     desc = json.dumps({"saxsnb": to_json_safe(dict(metadata or {}))}, sort_keys=True)
     with atomic_path(path) as tmp:
-        tifffile.imwrite(tmp, np.asarray(image), description=desc, metadata=None, photometric="minisblack")
+        tifffile.imwrite(tmp, np.asarray(image), description=desc, metadata=None, photometric="minisblack",
+                         compression=compression)
     return path
 
 
