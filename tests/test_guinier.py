@@ -400,3 +400,24 @@ def test_report_cautions_when_no_subtraction_is_recorded(tmp_path):
     q = np.linspace(0.02, 1.0, 100)
     mem = saxsnb.from_arrays(q, np.exp(-(2 * q) ** 2 / 3), np.full(100, 0.01))
     assert "caution" not in mem.saxs.guinier().saxs.report()
+
+
+def test_errors_raise_passes_cautions_with_a_warning():
+    import saxsnb
+    from saxsnb.errors import SaxsFitError, SaxsWarning
+
+    # a Gaussian chain (Debye 1947, P = 2 (e^-x + x - 1) / x^2, x = (q Rg)^2) from q Rg = 0.6,
+    # noise-free: every window curves upwards, status "curved_approximate" (numbers kept).
+    # errors="raise" stops on failures only: the caution passes with a SaxsWarning.
+    rg = 5.0
+    q = np.linspace(0.6 / rg, 5.0 / rg, 100)
+    x = (q * rg) ** 2
+    I = 1000.0 * 2 * (np.exp(-x) + x - 1) / x**2
+    ds = saxsnb.from_arrays(q, np.tile(I, (3, 1)), np.tile(1e-4 * I, (3, 1)),
+                            scan={"temperature": [1.0, 2.0, 3.0]})
+    with pytest.warns(SaxsWarning, match="3 of 3 frames carry a caution .curved_approximate."):
+        r = ds.saxs.guinier(errors="raise")
+    assert (r["status"] == "curved_approximate").all()
+    assert np.all(np.abs(r["rg"] / rg - 1) < 0.05)
+    with pytest.raises(SaxsFitError, match="q_range"):
+        ds.saxs.guinier(q_range=(5.0, 6.0), errors="raise")

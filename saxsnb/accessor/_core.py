@@ -17,6 +17,7 @@ Conventions for analysis functions called through ``_apply``:
 from __future__ import annotations
 
 import json
+import warnings
 from collections.abc import Callable, Mapping
 from typing import Any
 
@@ -25,8 +26,8 @@ import xarray as xr
 
 from .. import __version__
 from .._jsonsafe import to_json_safe
-from ..analysis._status import STATUS_DTYPE, parameter_of
-from ..errors import SaxsFitError, SaxsInputError
+from ..analysis._status import CAUTIONS, STATUS_DTYPE, parameter_of
+from ..errors import SaxsFitError, SaxsInputError, SaxsWarning
 from ..series import add_history, main_scan, scan_coords
 
 __all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask"]
@@ -190,8 +191,16 @@ class AccessorBase:
             # computed once: the status check and the user's later compute share the work
             out = out.persist()
         status = np.asarray(out["status"].values)
-        bad = np.flatnonzero(status != "ok")
+        fine = np.isin(status, ("ok",) + CAUTIONS)
+        bad = np.flatnonzero(~fine)
         if bad.size == 0:
+            cautioned = np.flatnonzero(status != "ok")
+            if cautioned.size:
+                codes = ", ".join(sorted(set(status[cautioned].astype(str))))
+                warnings.warn(
+                    f"{operation}: {cautioned.size} of {status.size} frames carry a caution ({codes}), "
+                    f"the first at frame {out['frame'].values[cautioned[0]].item()}; their numbers are "
+                    "kept (errors='raise' stops only on failures)", SaxsWarning, stacklevel=3)
             return out
         i = int(bad[0])
         st = str(status[i])
@@ -337,7 +346,8 @@ class AccessorBase:
         independently; q must be one chunk and is rechunked if needed). ``extra_args``
         are per-frame arrays (DataArrays on ``frame`` and possibly other core dims)
         passed after sigma. ``errors`` ("ignore" / "raise", None for no check): with
-        "raise" the first frame whose ``status`` is not "ok" raises SaxsFitError.
+        "raise" the first frame whose ``status`` is a failure raises SaxsFitError (the cautions
+        of :data:`saxsnb.analysis.CAUTIONS` pass with a SaxsWarning).
 
         Returns a Dataset on ``frame`` (plus the new dims of ``outputs``) with the
         scan coordinates kept, units on each variable, the series' attrs and history

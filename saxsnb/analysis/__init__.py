@@ -65,7 +65,7 @@ from ._similarity import (
     longest_same_sign_run,
     pairwise_similarity,
 )
-from ._status import STATUS, STATUS_DTYPE, Status
+from ._status import CAUTIONS, STATUS, STATUS_DTYPE, Status
 from ._tracking import link_peaks, track_peaks
 from ._windows import WindowMoments, running_sum
 
@@ -144,6 +144,7 @@ __all__ = [
     "per_concentration",
     "extrapolate_concentration",
     # statuses
+    "CAUTIONS",
     "STATUS",
     "STATUS_DTYPE",
     "Status",

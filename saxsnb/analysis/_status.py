@@ -249,3 +249,10 @@ STATUS["ambiguous_phase"] = Status(
     "ambiguous phase: another explanation of the peaks is about as good (see 'alternative')",
 )
 INDEXED = INDEXED + ("ambiguous_phase",)
+
+# --- appended (lead, stop 21): cautions, not failures
+#: Statuses whose numbers stand but carry a caution the report shows (an approximate Rg
+#: from a curved Guinier region, a phase label with a close alternative). ``errors="raise"``
+#: passes them with a :class:`saxsnb.errors.SaxsWarning` instead of raising.
+CAUTIONS = ("curved_approximate", "ambiguous_phase")
+__all__ += ["CAUTIONS"]
