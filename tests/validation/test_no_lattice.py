@@ -4,7 +4,14 @@ Truth: Schulz spheres and vesicles by quadrature of the closed-form sphere / she
 amplitudes (Pedersen 1997; Schulz 1939), featureless diffuse curves and single-point
 spikes with Poisson counts (tests/validation/truth.py). The peak table of
 ``find_peaks`` goes whole into ``index_peaks`` so the Bragg-evidence tests run.
+
+Known limit (measured, stop 21): over seeds 0-199 of "spheres z100" (4,000 frames), 3 frames
+got a cubic label (Fd3m twice, Pm3n once) with status "ok", each resting on exactly 3 weak
+peaks (prominence 2.6-8 noise units, widths differing 3-5x) and the caveat "only 3 peaks:
+assignment rests on few ratios". The test uses one fixed seed; the rate is the figure to watch.
 """
+
+import zlib
 
 import numpy as np
 import pytest
@@ -18,7 +25,9 @@ from . import runs
     "kind", ["spheres z100", "spheres z30", "vesicles z100", "vesicles z50", "spikes", "featureless"]
 )
 def test_no_phase_label_without_a_lattice(kind):
-    q, I, S = runs.no_lattice_series(kind, 20, seed=hash(kind) % 1000)
+    q, I, S = runs.no_lattice_series(kind, 20, seed=zlib.crc32(kind.encode()) % 1000)
+    # (a fixed seed: Python's str hash changes per process. Measured over seeds 0-199 of
+    # 'spheres z100': 3 of 4,000 frames got a label, each on 3 weak peaks; see the module notes)
     pk, r = runs.index_curves(q, I, S)
     # target: zero frames given a phase label, whatever the status
     assert (r["phase"] == "").all(), (kind, runs.labels(r))
