@@ -421,3 +421,12 @@ def test_errors_raise_passes_cautions_with_a_warning():
     assert np.all(np.abs(r["rg"] / rg - 1) < 0.05)
     with pytest.raises(SaxsFitError, match="q_range"):
         ds.saxs.guinier(q_range=(5.0, 6.0), errors="raise")
+
+
+def test_empty_inputs_give_a_clear_error():
+    # zero frames or a q grid with no points: an error of the family naming the input
+    # (numpy's reduction error before)
+    with pytest.raises(SaxsInputError, match="no frames"):
+        guinier(np.linspace(0.1, 1.0, 50), np.zeros((0, 50)))
+    with pytest.raises(SaxsInputError, match="no q points"):
+        guinier(np.zeros(0), np.zeros((3, 0)))

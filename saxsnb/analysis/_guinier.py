@@ -200,6 +200,9 @@ def guinier(
     limit = float(default_limit if qrg_limit is None else qrg_limit)
     q, I, S, _ = as_frames(q, intensity, sigma)
     F, n_q = I.shape
+    if F == 0 or n_q == 0:
+        raise SaxsInputError(f"no {'frames' if F == 0 else 'q points'} to fit (intensity shape {I.shape})",
+                             parameter="intensity")
     if q_range is None:
         if min_points < 3:
             raise SaxsInputError("min_points must be at least 3", parameter="min_points")
