@@ -9,7 +9,7 @@ import xarray as xr
 
 from ..analysis._status import STATUS_DTYPE
 from ..errors import SaxsInputError
-from ._core import AccessorBase, OutputSpec, order_along
+from ._core import AccessorBase, OutputSpec, is_dask, order_along
 
 __all__ = ["PhaseMethods"]
 
@@ -237,7 +237,16 @@ class PhaseMethods(AccessorBase):
         idx = self.index_phases() if index is None else index
         names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or PHASES
         scan = idx.attrs.get("scan") or self._scan_name()
-        x = self._scan_values(scan, idx.sizes["frame"])
+        src = self._ds[scan] if scan in self._ds.coords and self._ds.sizes["frame"] == idx.sizes["frame"] else None
+        if any(is_dask(v) for v in idx.variables.values()) or (src is not None and is_dask(src)):
+            # a lazy indexing: its per-frame tables ((frame, slot), (frame, peak)) and the scan
+            # values computed together, once; the (frame, q) arrays stay on the workers
+            import dask
+
+            idx, xv = dask.compute(idx, None if src is None else src.variable.data)
+            x = None if xv is None else np.asarray(xv)
+        else:
+            x = self._scan_values(scan, idx.sizes["frame"])
         x = idx["frame"].values if x is None else x
         known = ~np.isin(idx["status"].values, UNINDEXED)
         m = phase_map(idx["phase"].values, x, known=known, lattice=idx["lattice"].values,
