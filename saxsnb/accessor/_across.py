@@ -36,7 +36,8 @@ def _usable(I, S, test):
 def _compare_chunk(I, S, rI, rS, common, frames, *, test, ref):
     """Score, p-value, has-data and n_points of each frame of a chunk against the reference."""
     if not _usable(rI, rS, test).any():
-        raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference", frame=ref)
+        raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference",
+                             frame=ref)
     idx = np.flatnonzero(common)
     if idx.size < 3:
         raise SaxsInputError(f"only {idx.size} q points are finite in every frame; at least 3 are needed",
@@ -147,8 +148,10 @@ def group_include_lazy(q, I, S, labels: np.ndarray, *, test: str, alpha: float):
         return inc if np.array_equal(order, np.arange(order.size)) else inc[back]
     Is, Ss, order = _sorted_by_group(I, S, labels, max(I.chunks[0]))
     lab = da.from_array(labels[order], chunks=(Is.chunks[0],))
-    inc = da.map_blocks(lambda Ic, Sc, lc: _groups_outliers_chunk(q, Ic, Sc, lc[:, 0], test=test, alpha=alpha),
-                        Is, Ss, lab[:, None], drop_axis=1, dtype=bool)
+    def flags(Ic, Sc, lc):
+        return _groups_outliers_chunk(q, Ic, Sc, lc[:, 0], test=test, alpha=alpha)
+
+    inc = da.map_blocks(flags, Is, Ss, lab[:, None], drop_axis=1, dtype=bool)
     back = np.argsort(order, kind="stable")
     return inc if np.array_equal(order, np.arange(order.size)) else inc[back]
 

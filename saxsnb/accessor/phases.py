@@ -237,7 +237,8 @@ class PhaseMethods(AccessorBase):
         idx = self.index_phases() if index is None else index
         names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or PHASES
         scan = idx.attrs.get("scan") or self._scan_name()
-        src = self._ds[scan] if scan in self._ds.coords and self._ds.sizes["frame"] == idx.sizes["frame"] else None
+        same = scan in self._ds.coords and self._ds.sizes["frame"] == idx.sizes["frame"]
+        src = self._ds[scan] if same else None
         if any(is_dask(v) for v in idx.variables.values()) or (src is not None and is_dask(src)):
             # a lazy indexing: its per-frame tables ((frame, slot), (frame, peak)) and the scan
             # values computed together, once; the (frame, q) arrays stay on the workers

@@ -6,8 +6,8 @@ Per-frame operations go through :meth:`AccessorBase._apply` (dask-parallel over 
 chunks); operations across frames (comparison, averaging, extrapolation) call the numpy
 function on an in-memory series, and on a dask series build a graph of per-chunk work
 reduced along frame (:mod:`saxsnb.accessor._across`), never holding (frame, q) arrays in
-the client; the result is wrapped with :meth:`AccessorBase._result`. Every result keeps the series' attrs and appends one
-history entry.
+the client; the result is wrapped with :meth:`AccessorBase._result`. Every result keeps
+the series' attrs and appends one history entry.
 """
 
 from __future__ import annotations
