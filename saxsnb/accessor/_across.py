@@ -22,8 +22,15 @@ from ..errors import SaxsInputError
 __all__ = ["compare_lazy", "group_include_lazy", "average_lazy", "concentration_lazy"]
 
 #: at most this many groups are averaged with one sum per group over all chunks; more
-#: groups are regrouped into chunks of whole groups (each chunk averaged in numpy)
+#: groups, each no longer than a chunk, are regrouped into chunks of whole groups (each
+#: chunk averaged in numpy)
 FEW_GROUPS = 64
+
+
+def _by_sums(labels: np.ndarray, chunks) -> bool:
+    """True: one sum per group over all chunks (few groups, or a group longer than a chunk)."""
+    G = int(labels.max()) + 1
+    return G <= FEW_GROUPS or int(np.bincount(labels).max()) > max(chunks)
 
 
 def _usable(I, S, test):
@@ -132,7 +139,7 @@ def group_include_lazy(q, I, S, labels: np.ndarray, *, test: str, alpha: float):
     import dask.array as da
 
     G = int(labels.max()) + 1
-    if G <= FEW_GROUPS:
+    if _by_sums(labels, I.chunks[0]):
         parts = []
         for g in range(G):
             idx = np.flatnonzero(labels == g)
@@ -168,11 +175,12 @@ def average_lazy(q, I, S, labels: np.ndarray, include: np.ndarray):
     import dask.array as da
 
     G = int(labels.max()) + 1
-    if G <= FEW_GROUPS:
+    if _by_sums(labels, I.chunks[0]):
         ok = da.isfinite(I) & da.isfinite(S)
-        W = np.zeros((G, labels.size))
-        W[labels[include], np.flatnonzero(include)] = 1.0
-        Wd = da.from_array(W, chunks=(G, I.chunks[0]))
+        # group membership (group, frame), made per frame chunk
+        lab = da.from_array(labels, chunks=(I.chunks[0],))
+        inc = da.from_array(include, chunks=(I.chunks[0],))
+        Wd = ((lab[None, :] == da.arange(G, chunks=-1)[:, None]) & inc[None, :]).astype(float)
         with np.errstate(invalid="ignore", over="ignore"):
             k = Wd @ ok.astype(float)
             total = Wd @ da.where(ok, I, 0.0)
