@@ -188,6 +188,31 @@ def test_method_lazy_and_equal_in_memory(spheres, name, chunk):
     assert_same(ref, out, name)
 
 
+SLICED = {"porod": "porod", "invariant": "invariant", "kratky": "kratky", "kratky_summary": "kratky_summary",
+          "distance_fixed": "distance_distribution", "distance": "distance_distribution",
+          "absolute_scale": "absolute_scale", "rebin": "rebin", "per_concentration": "per_concentration"}
+
+
+@pytest.mark.parametrize("name", sorted(SLICED))
+def test_chunks_run_in_slices_equal_in_memory(monkeypatch, spheres, name):
+    # slices of 2 frames inside chunks of 5 (the shipped minimum is 16 to 256 frames per call)
+    from saxsnb.accessor._core import TEMPORARIES
+
+    key = SLICED[name]
+    monkeypatch.setitem(TEMPORARIES, key, (3.0, 1))  # 6 slices per chunk: 1 frame each
+    ref = METHODS[name](spheres)
+    out = METHODS[name](spheres.chunk({"frame": 5})).compute()
+    assert_same(ref, out, f"{name} in slices")
+
+
+def test_find_peaks_in_slices_equal_in_memory(monkeypatch, ramp):
+    from saxsnb.accessor._core import TEMPORARIES
+
+    monkeypatch.setitem(TEMPORARIES, "find_peaks", (2.0, 3))
+    ref = ramp.saxs.find_peaks()
+    assert_same(ref, ramp.chunk({"frame": 16}).saxs.find_peaks().compute(), "find_peaks in slices")
+
+
 def test_subtract_auto_error_names_the_series_frame_on_dask(spheres):
     from saxsnb.errors import SaxsInputError
 

@@ -58,11 +58,12 @@ def _compare_chunk(I, S, rI, rS, common, frames, *, test, ref):
         whole = idx.size == I.shape[1]
         A = I if whole else I[:, idx]
         SA = S if whole else S[:, idx]
-        if others.size < I.shape[0]:
-            A, SA = A[others], SA[others]
-        sc, pv = _pair_stats(A, SA, rI[idx], rS[idx], test)
-        out[others, 0] = sc
-        out[others, 1] = pv
+        # every row scored (no copy of the others' rows; each row's score is its own), the
+        # reference and the frames without data dropped after
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            sc, pv = _pair_stats(A, SA, rI[idx], rS[idx], test)
+        out[others, 0] = sc[others]
+        out[others, 1] = pv[others]
     return out
 
 

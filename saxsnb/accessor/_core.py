@@ -29,7 +29,25 @@ from ..analysis._status import STATUS_DTYPE, parameter_of
 from ..errors import SaxsFitError, SaxsInputError
 from ..series import add_history, main_scan, scan_coords
 
-__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask"]
+__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask", "TEMPORARIES"]
+
+#: Peak memory each analysis allocates on a batch of frames, in units of the batch's
+#: intensity, outputs included (``benchmarks/bench_temporaries.py``, 1,000 q; rounded
+#: up), and the fewest frames per call that keep its speed (a call has a fixed cost:
+#: about 0.1 s for ``find_peaks``). On a dask chunk the analysis runs on slices of the
+#: chunk that allocate about half a chunk each, no smaller than that (see
+#: :meth:`AccessorBase._apply`).
+TEMPORARIES = {
+    "porod": (4.5, 128),
+    "invariant": (4.0, 128),
+    "kratky": (3.5, 128),
+    "kratky_summary": (4.3, 128),
+    "distance_distribution": (48.0, 16),
+    "find_peaks": (10.0, 256),
+    "absolute_scale": (2.6, 128),
+    "rebin": (5.4, 128),
+    "per_concentration": (2.6, 128),
+}
 
 
 def is_dask(data) -> bool:
@@ -105,6 +123,33 @@ def result_attrs(source: xr.Dataset, operation: str, parameters: Mapping[str, An
         out.pop(key, None)
     out.update(provenance(operation, parameters))
     return out
+
+
+def _in_slices(run: Callable, pieces: int, n_out: int, min_frames: int = 1) -> Callable:
+    """``run(I, S, *extra)`` over ``pieces`` slices of the frames of a chunk (each of at
+    least ``min_frames`` frames), each writing into the outputs preallocated for the whole
+    chunk (extras cut along the frames too)."""
+
+    def sliced(I_, S_, *extra):
+        n = I_.shape[0]
+        step = max(1, min_frames, -(-n // pieces))
+        if n <= step:
+            return run(I_, S_, *extra)
+        outs = None
+        for a in range(0, n, step):  # a few slices of a chunk, each vectorised over its frames
+            b = min(n, a + step)
+            part = run(I_[a:b], S_[a:b],
+                       *[e[a:b] if np.ndim(e) and np.shape(e)[0] == n else e for e in extra])
+            part = part if n_out > 1 else (part,)
+            if outs is None:
+                outs = [np.empty((n, *p.shape[1:]), dtype=p.dtype) for p in part]
+            for k, p in enumerate(part):
+                if p.dtype.kind in "SU" and p.dtype.itemsize > outs[k].dtype.itemsize:
+                    outs[k] = outs[k].astype(p.dtype)  # strings as wide as the widest slice's
+                outs[k][a:b] = p
+        return tuple(outs) if n_out > 1 else outs[0]
+
+    return sliced
 
 
 class AccessorBase:
@@ -328,6 +373,7 @@ class AccessorBase:
         extra_args: tuple = (),
         errors: str | None = None,
         after: xr.Dataset | None = None,
+        temporaries: tuple[float, int] | None = None,
         **kwargs,
     ) -> xr.Dataset:
         """Run ``func(q, intensity, sigma, *extra_args, **kwargs)`` over all frames.
@@ -338,6 +384,13 @@ class AccessorBase:
         are per-frame arrays (DataArrays on ``frame`` and possibly other core dims)
         passed after sigma. ``errors`` ("ignore" / "raise", None for no check): with
         "raise" the first frame whose ``status`` is not "ok" raises SaxsFitError.
+        ``temporaries``: (the peak memory ``func`` allocates on a batch of frames, in
+        units of the batch's intensity, measured by ``benchmarks/bench_temporaries.py``;
+        the fewest frames per call); on a dask chunk, ``func`` then runs on slices of the
+        chunk small enough to allocate about half a chunk at a time, each writing into the
+        chunk's preallocated outputs, so a task's peak stays within a few chunks (issue 13).
+        Results are the same: the functions' results per frame do not depend on the batch
+        (the dask tests check it at chunk sizes 1, 5 and 12, and with slices of 1 frame).
 
         Returns a Dataset on ``frame`` (plus the new dims of ``outputs``) with the
         scan coordinates kept, units on each variable, the series' attrs and history
@@ -361,6 +414,8 @@ class AccessorBase:
 
         if I.chunks is not None:
             I, S = I.chunk({"q": -1}), S.chunk({"q": -1})
+            if temporaries is not None and temporaries[0] > 1:
+                _run = _in_slices(_run, int(np.ceil(2 * temporaries[0])), len(names), int(temporaries[1]))
         extra_core = [[d for d in a.dims if d != "frame"] for a in extra_args]
         sizes: dict[str, int] = {}
         for spec in outputs.values():

@@ -9,7 +9,7 @@ import xarray as xr
 
 from ..analysis._status import STATUS_DTYPE
 from ..errors import SaxsInputError
-from ._core import AccessorBase, OutputSpec, is_dask, order_along
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, is_dask, order_along
 
 __all__ = ["PhaseMethods"]
 
@@ -88,7 +88,8 @@ class PhaseMethods(AccessorBase):
         params = dict(q_range=q_range, min_prominence=min_prominence, profile=profile,
                       max_peaks=int(max_peaks), baseline_width=baseline_width, shoulders=bool(shoulders),
                       backfit=bool(backfit), errors=errors)
-        out = self._apply(_find, outputs, operation="find_peaks", parameters=params, track=False, **params)
+        out = self._apply(_find, outputs, operation="find_peaks", parameters=params, track=False,
+                          temporaries=TEMPORARIES["find_peaks"], **params)
         q = ds["q"].values
         lo, hi = (q.min(), q.max()) if q_range is None else (q_range[0], q_range[1])
         out.attrs.update(q_min=float(max(lo, q.min())), q_max=float(min(hi, q.max())), profile=profile)

@@ -19,7 +19,7 @@ from .. import analysis as an
 from ..analysis._merging import _concentrations
 from ..errors import SaxsInputError
 from ..series import validate
-from ._core import AccessorBase, OutputSpec, is_dask, result_attrs
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, is_dask, result_attrs
 
 __all__ = ["PreparationMethods", "calibrate_q", "merge_ranges", "curve_arrays"]
 
@@ -347,7 +347,8 @@ class PreparationMethods(AccessorBase):
                       empty=empty is not None, q_range=q_range, factor=k, factor_sigma=cal["factor_sigma"],
                       reference_sample=str(reference.attrs.get("sample", "")))
         spec = {v: OutputSpec(("q",), units="1/cm") for v in ("intensity", "sigma")}
-        out = self._apply(_scaled, spec, operation="absolute_scale", parameters=params)
+        out = self._apply(_scaled, spec, operation="absolute_scale", parameters=params,
+                          temporaries=TEMPORARIES["absolute_scale"])
         out.attrs["absolute_scale_factor"] = k
         out.attrs["absolute_scale_factor_sigma"] = cal["factor_sigma"]
         return _series_like(self._ds, out, units="1/cm")
@@ -396,7 +397,7 @@ class PreparationMethods(AccessorBase):
             return {"intensity": r["intensity"], "sigma": r["sigma"]}
 
         spec = {v: OutputSpec(("q_bin",), sizes={"q_bin": nb}) for v in ("intensity", "sigma")}
-        out = self._apply(_binned, spec, operation="rebin",
+        out = self._apply(_binned, spec, operation="rebin", temporaries=TEMPORARIES["rebin"],
                           parameters=dict(n=int(n), spacing=spacing, q_range=q_range))
         out = out.rename({"q_bin": "q"})
         out = _series_like(self._ds, out, q=grid["q"])
@@ -426,7 +427,8 @@ class PreparationMethods(AccessorBase):
         unit = self._ds["intensity"].attrs.get("units", "arb")
         spec = {v: OutputSpec(("q",)) for v in ("intensity", "sigma")}
         params = dict(concentration=concentration if isinstance(concentration, str) else c.tolist())
-        out = self._apply(_per, spec, operation="per_concentration", parameters=params, extra_args=(carg,))
+        out = self._apply(_per, spec, operation="per_concentration", parameters=params, extra_args=(carg,),
+                          temporaries=TEMPORARIES["per_concentration"])
         return _series_like(self._ds, out, units=f"{unit} per concentration unit")
 
     def extrapolate_concentration(self, concentration, *, i0: str = "guinier") -> xr.Dataset:
