@@ -152,6 +152,63 @@ def _in_slices(run: Callable, pieces: int, n_out: int, min_frames: int = 1) -> C
     return sliced
 
 
+def _one_block(x):
+    """The block itself from blockwise's list of the blocks along a dimension in one chunk."""
+    while isinstance(x, list):
+        if len(x) != 1:
+            raise ValueError("a core dimension must be one chunk")
+        x = x[0]
+    return x
+
+
+def _per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, outputs: Mapping,
+               sizes: Mapping[str, int]) -> tuple:
+    """``run(I, S, *extras)`` on each frame chunk of dask-backed (frame, q) arrays, one task
+    per chunk whose blocks reach ``run`` as they are (``dask.array.apply_gufunc``, under
+    ``xarray.apply_ufunc(dask="parallelized")``, joins every input block into a new array
+    first: a copy of the chunk's intensity and sigma in every task). Returns a DataArray
+    per output, frame first, like ``apply_ufunc``'s."""
+    import dask.array as da
+
+    fch = I.data.chunks[0]
+    names = list(outputs)
+    dim_size = {"q": I.sizes["q"], **dict(sizes)}
+    letters = iter("abcdeghijklmnoprstuvwxyz")
+    letter: dict[str, str] = {"q": "q"}  # one index letter per dimension name
+
+    def index(dims) -> str:
+        return "f" + "".join(letter.setdefault(d, next(letters)) for d in dims)
+
+    args = [I.data, "fq", S.data.rechunk(I.data.chunks), "fq"]
+    for a in extras:
+        arr = da.asarray(a.data)
+        arr = arr.rechunk((fch, *[-1] * (arr.ndim - 1)))
+        # an extra's own dims get their own letters (contracted: each task gets them whole)
+        args += [arr, "f" + "".join(next(letters) for _ in range(arr.ndim - 1))]
+        dim_size.update({d: int(n) for d, n in zip(a.dims, a.shape)})
+
+    def saxs_chunk(*blocks):
+        res = run(*[_one_block(b) for b in blocks])
+        return res if len(names) > 1 else (res,)
+
+    def saxs_output(t, k):
+        return t[k]
+
+    tmp = da.blockwise(saxs_chunk, "f", *args, concatenate=False, meta=np.empty((0,), dtype=object))
+    result = []
+    for k, n in enumerate(names):
+        spec = outputs[n]
+        ind = index(spec.dims)
+        new_axes = {c: dim_size[d] for c, d in zip(ind[1:], spec.dims)}
+        arr = da.blockwise(saxs_output, ind, tmp, "f", k, None, new_axes=new_axes, dtype=spec.dtype,
+                           meta=np.empty((0,) * len(ind), dtype=spec.dtype))
+        coords = {"frame": I["frame"]} if "frame" in I.coords else {}
+        if "q" in spec.dims and "q" in I.coords:
+            coords["q"] = I["q"]
+        result.append(xr.DataArray(arr, dims=("frame", *spec.dims), coords=coords))
+    return tuple(result)
+
+
 class AccessorBase:
     """State and helpers shared by the subject mixins of ``ds.saxs``."""
 
@@ -420,17 +477,21 @@ class AccessorBase:
         sizes: dict[str, int] = {}
         for spec in outputs.values():
             sizes.update(spec.sizes)
-        result = xr.apply_ufunc(
-            _run, I, S, *extra_args,
-            input_core_dims=[["q"], ["q"], *extra_core],
-            output_core_dims=[list(outputs[n].dims) for n in names],
-            dask="parallelized",
-            output_dtypes=[outputs[n].dtype for n in names],
-            dask_gufunc_kwargs={"output_sizes": sizes} if sizes else None,
-            keep_attrs=False,
-        )
-        if len(names) == 1:
-            result = (result,)
+        if I.chunks is not None and all(isinstance(a, xr.DataArray) and "frame" in a.dims
+                                        for a in extra_args):
+            result = _per_chunk(_run, I, S, [a.transpose("frame", ...) for a in extra_args], outputs, sizes)
+        else:
+            result = xr.apply_ufunc(
+                _run, I, S, *extra_args,
+                input_core_dims=[["q"], ["q"], *extra_core],
+                output_core_dims=[list(outputs[n].dims) for n in names],
+                dask="parallelized",
+                output_dtypes=[outputs[n].dtype for n in names],
+                dask_gufunc_kwargs={"output_sizes": sizes} if sizes else None,
+                keep_attrs=False,
+            )
+            if len(names) == 1:
+                result = (result,)
         data_vars = {}
         for n, da in zip(names, result):
             spec = outputs[n]
