@@ -41,7 +41,11 @@ def _usable(I, S, test):
 
 
 def _compare_chunk(I, S, rI, rS, common, frames, *, test, ref):
-    """Score, p-value, has-data and n_points of each frame of a chunk against the reference."""
+    """Score, p-value, has-data and n_points of each frame of a chunk against the reference
+    (the blocks as blockwise gives them, lists of one block along q: not joined into copies)."""
+    from ._core import _one_block
+
+    I, S, rI, rS, common, frames = (_one_block(x) for x in (I, S, rI, rS, common, frames))
     if not _usable(rI, rS, test).any():
         raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference",
                              frame=ref)
@@ -86,7 +90,7 @@ def compare_lazy(I, S, *, test: str, ref: int, correction: str, alpha: float) ->
     common = (ok | ~has[:, None]).all(axis=0)
     frames = da.arange(I.shape[0], chunks=I.chunks[0])
     stats = da.blockwise(_compare_chunk, "ik", I, "ij", S, "ij", I[ref], "j", S[ref], "j", common, "j",
-                         frames, "i", new_axes={"k": 4}, dtype=float, concatenate=True, test=test, ref=ref)
+                         frames, "i", new_axes={"k": 4}, dtype=float, concatenate=False, test=test, ref=ref)
     score, pval, has_f, n_pts = (stats[:, k] for k in range(4))
     padj = AccessorBase._across_frames(lambda p: {"p_adjusted": adjust_pvalues(p, correction)}, [pval],
                                        {"p_adjusted": ((I.shape[0],), float)}, frame_chunks=I.chunks[0])

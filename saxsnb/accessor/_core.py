@@ -161,18 +161,20 @@ def _one_block(x):
     return x
 
 
-def _per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, outputs: Mapping,
-               sizes: Mapping[str, int]) -> tuple:
+def per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, outputs: Mapping,
+              sizes: Mapping[str, int] | None = None) -> tuple:
     """``run(I, S, *extras)`` on each frame chunk of dask-backed (frame, q) arrays, one task
-    per chunk whose blocks reach ``run`` as they are (``dask.array.apply_gufunc``, under
-    ``xarray.apply_ufunc(dask="parallelized")``, joins every input block into a new array
+    per chunk (``I`` and ``S`` with q in one chunk; ``extras`` DataArrays with frame first,
+    or without frame: given whole to every task) whose blocks reach ``run`` as they are
+    (``dask.array.apply_gufunc``, under ``xarray.apply_ufunc(dask="parallelized")``, joins
+    every input block into a new array
     first: a copy of the chunk's intensity and sigma in every task). Returns a DataArray
     per output, frame first, like ``apply_ufunc``'s."""
     import dask.array as da
 
     fch = I.data.chunks[0]
     names = list(outputs)
-    dim_size = {"q": I.sizes["q"], **dict(sizes)}
+    dim_size = {"q": I.sizes["q"], **dict(sizes or {})}
     letters = iter("abcdeghijklmnoprstuvwxyz")
     letter: dict[str, str] = {"q": "q"}  # one index letter per dimension name
 
@@ -182,9 +184,12 @@ def _per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, ou
     args = [I.data, "fq", S.data.rechunk(I.data.chunks), "fq"]
     for a in extras:
         arr = da.asarray(a.data)
-        arr = arr.rechunk((fch, *[-1] * (arr.ndim - 1)))
-        # an extra's own dims get their own letters (contracted: each task gets them whole)
-        args += [arr, "f" + "".join(next(letters) for _ in range(arr.ndim - 1))]
+        # an extra's own dims get their own letters (contracted: each task gets them whole);
+        # one without frame (a background curve, a factor) goes whole to every task
+        on_frame = a.dims[:1] == ("frame",)
+        arr = arr.rechunk((fch, *[-1] * (arr.ndim - 1)) if on_frame else -1)
+        own = "".join(next(letters) for _ in range(arr.ndim - on_frame))
+        args += [arr, ("f" if on_frame else "") + own]
         dim_size.update({d: int(n) for d, n in zip(a.dims, a.shape)})
 
     def saxs_chunk(*blocks):
@@ -479,7 +484,7 @@ class AccessorBase:
             sizes.update(spec.sizes)
         if I.chunks is not None and all(isinstance(a, xr.DataArray) and "frame" in a.dims
                                         for a in extra_args):
-            result = _per_chunk(_run, I, S, [a.transpose("frame", ...) for a in extra_args], outputs, sizes)
+            result = per_chunk(_run, I, S, [a.transpose("frame", ...) for a in extra_args], outputs, sizes)
         else:
             result = xr.apply_ufunc(
                 _run, I, S, *extra_args,
