@@ -13,7 +13,7 @@ temporaries), and the task. Target (issue 13): a peak <= 3 chunks, the output in
 
 Usage::
 
-    .venv/bin/python benchmarks/bench_temporaries.py [--frames 500] [--only porod kratky]
+    .venv/bin/python benchmarks/bench_temporaries.py [--frames 600] [--only porod kratky]
 """
 
 from __future__ import annotations
@@ -97,8 +97,10 @@ def task_peaks(lazy) -> tuple[int, int, str]:
 
 def main(argv=None) -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--frames", type=int, default=600, help="frames in the chunk")
-    p.add_argument("--only", nargs="*", default=[], help="methods to run (substrings of their names)")
+    p.add_argument("--frames", type=int, default=int(os.environ.get("SAXSNB_BENCH_FRAMES", 600)),
+                   help="frames in the chunk")
+    p.add_argument("--only", nargs="*", default=os.environ.get("SAXSNB_BENCH_ONLY", "").split(),
+                   help="methods to run (substrings of their names)")
     o = p.parse_args(argv)
 
     import saxsnb
