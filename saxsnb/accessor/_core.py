@@ -32,21 +32,22 @@ from ..series import add_history, main_scan, scan_coords
 __all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask", "TEMPORARIES"]
 
 #: Peak memory each analysis allocates on a batch of frames, in units of the batch's
-#: intensity, outputs included (``benchmarks/bench_temporaries.py``, 1,000 q; rounded
-#: up), and the fewest frames per call that keep its speed (a call has a fixed cost:
+#: intensity, outputs included (``benchmarks/bench_temporaries.py`` on unsliced 200-frame
+#: chunks of 1,000 q, less the 2 chunks of input copies that apply_gufunc made then;
+#: rounded up), and the fewest frames per call that keep its speed (a call has a fixed cost:
 #: about 0.1 s for ``find_peaks``). On a dask chunk the analysis runs on slices of the
 #: chunk that allocate about half a chunk each, no smaller than that (see
 #: :meth:`AccessorBase._apply`).
 TEMPORARIES = {
-    "porod": (4.5, 128),
+    "porod": (2.5, 128),
     "invariant": (4.0, 128),
-    "kratky": (3.5, 128),
-    "kratky_summary": (4.3, 128),
-    "distance_distribution": (48.0, 16),
-    "find_peaks": (10.0, 256),
-    "absolute_scale": (2.6, 128),
-    "rebin": (5.4, 128),
-    "per_concentration": (2.6, 128),
+    "kratky": (2.1, 128),
+    "kratky_summary": (2.3, 128),
+    "distance_distribution": (45.0, 16),
+    "find_peaks": (8.0, 256),
+    "absolute_scale": (4.0, 128),
+    "rebin": (3.4, 128),
+    "per_concentration": (2.1, 128),
 }
 
 
