@@ -168,9 +168,8 @@ def per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, out
     per chunk (``I`` and ``S`` with q in one chunk; ``extras`` DataArrays with frame first,
     or without frame: given whole to every task) whose blocks reach ``run`` as they are
     (``dask.array.apply_gufunc``, under ``xarray.apply_ufunc(dask="parallelized")``, joins
-    every input block into a new array
-    first: a copy of the chunk's intensity and sigma in every task). Returns a DataArray
-    per output, frame first, like ``apply_ufunc``'s."""
+    every input block into a new array first: a copy of the chunk's intensity and sigma in
+    every task). Returns a DataArray per output, frame first, like ``apply_ufunc``'s."""
     import dask.array as da
 
     fch = I.data.chunks[0]
