@@ -23,6 +23,7 @@ BENCH = Path(__file__).resolve().parents[1] / "benchmarks"
         ("bench_preparation.py", {"SAXSNB_BENCH_FRAMES": "30"}),
         ("bench_porod.py", {"SAXSNB_BENCH_FRAMES": "40", "SAXSNB_BENCH_BASELINE_FRAMES": "5"}),
         ("bench_index.py", {"SAXSNB_BENCH_FRAMES": "200"}),
+        ("bench_temporaries.py", {"SAXSNB_BENCH_FRAMES": "12", "SAXSNB_BENCH_ONLY": "porod subtract"}),
     ],
 )
 def test_benchmark_runs_small(script, env):

@@ -9,6 +9,8 @@ once, and their rounding depends on how many frames share a batch (numpy, common
 practice).
 """
 
+import json
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -46,6 +48,39 @@ def assert_same(a: xr.Dataset | xr.DataArray, b: xr.Dataset | xr.DataArray, what
         else:
             assert xv.dtype.kind == yv.dtype.kind, (what, v, xv.dtype, yv.dtype)
             np.testing.assert_array_equal(yv, xv, err_msg=f"{what} {v}")
+
+
+@pytest.fixture
+def never_whole(monkeypatch):
+    """``with never_whole(shape):`` fails a compute that returns, or a task that makes, an
+    array of ``shape`` (the series' (frame, q)): the client never holds it, nor a worker."""
+    import contextlib
+
+    import dask.array.core as dac
+
+    @contextlib.contextmanager
+    def arm(shape):
+        original = dac.finalize
+
+        def finalize(results):
+            out = original(results)
+            if getattr(out, "shape", None) == shape:
+                raise AssertionError(f"the whole {shape} array was computed")
+            return out
+
+        class Whole(Callback):
+            def _posttask(self, key, result, dsk, state, id):
+                if getattr(result, "shape", None) == shape:
+                    raise AssertionError(f"a task made the whole {shape} array ({key})")
+
+        monkeypatch.setattr(dac, "finalize", finalize)
+        try:
+            with Whole():
+                yield
+        finally:
+            monkeypatch.setattr(dac, "finalize", original)
+
+    return arm
 
 
 @pytest.fixture(scope="module")
@@ -128,6 +163,11 @@ METHODS = {
     "subtract_auto": lambda ds: ds.saxs.subtract(_ONE, scale="auto"),
     "to_q_unit": lambda ds: ds.saxs.to_q_unit("1/A"),
     "rescale_q": lambda ds: ds.saxs.rescale_q(1.01),
+    # across frames, lazy: per-chunk scores against the reference row, Holm's step on the p-values
+    "compare_frames": lambda ds: ds.saxs.compare_frames(),
+    "compare_frames_chi2": lambda ds: ds.saxs.compare_frames(test="chi2", reference=7,
+                                                             correction="bonferroni"),
+    "compare_frames_no_matrix": lambda ds: ds.saxs.compare_frames(reference=-1, pairwise=False),
 }
 
 
@@ -148,6 +188,31 @@ def test_method_lazy_and_equal_in_memory(spheres, name, chunk):
     assert_same(ref, out, name)
 
 
+SLICED = {"porod": "porod", "invariant": "invariant", "kratky": "kratky", "kratky_summary": "kratky_summary",
+          "distance_fixed": "distance_distribution", "distance": "distance_distribution",
+          "absolute_scale": "absolute_scale", "rebin": "rebin", "per_concentration": "per_concentration"}
+
+
+@pytest.mark.parametrize("name", sorted(SLICED))
+def test_chunks_run_in_slices_equal_in_memory(monkeypatch, spheres, name):
+    # slices of 2 frames inside chunks of 5 (the shipped minimum is 16 to 256 frames per call)
+    from saxsnb.accessor._core import TEMPORARIES
+
+    key = SLICED[name]
+    monkeypatch.setitem(TEMPORARIES, key, (3.0, 1))  # 6 slices per chunk: 1 frame each
+    ref = METHODS[name](spheres)
+    out = METHODS[name](spheres.chunk({"frame": 5})).compute()
+    assert_same(ref, out, f"{name} in slices")
+
+
+def test_find_peaks_in_slices_equal_in_memory(monkeypatch, ramp):
+    from saxsnb.accessor._core import TEMPORARIES
+
+    monkeypatch.setitem(TEMPORARIES, "find_peaks", (2.0, 3))
+    ref = ramp.saxs.find_peaks()
+    assert_same(ref, ramp.chunk({"frame": 16}).saxs.find_peaks().compute(), "find_peaks in slices")
+
+
 def test_subtract_auto_error_names_the_series_frame_on_dask(spheres):
     from saxsnb.errors import SaxsInputError
 
@@ -164,6 +229,138 @@ def test_chunked_along_q_too(spheres):
     ref = spheres.saxs.guinier()
     lazy = spheres.chunk({"frame": 4, "q": 100}).saxs.guinier()
     assert_same(ref, lazy.compute(), "guinier, q chunks")
+
+
+# ------------------------------------------- across frames: one small computation at the call
+def _numeric_close(a, b, what):
+    """Equal JSON-like attrs, numbers within 1e-9 relative (the rounding of the fits)."""
+    import json
+
+    if isinstance(a, str) and isinstance(b, str) and a[:1] in "[{" and a != b:
+        try:
+            a, b = json.loads(a), json.loads(b)
+        except ValueError:
+            pass
+    if isinstance(a, dict):
+        assert isinstance(b, dict) and set(a) == set(b), what
+        for k in a:
+            _numeric_close(a[k], b[k], f"{what}.{k}")
+    elif isinstance(a, list | tuple):
+        assert isinstance(b, list | tuple) and len(a) == len(b), what
+        for x, y in zip(a, b):
+            _numeric_close(x, y, what)
+    elif isinstance(a, float) and not isinstance(b, str):
+        np.testing.assert_allclose(b, a, rtol=1e-9, atol=0, err_msg=what)
+    else:
+        assert a == b, what
+
+
+def _repeats(dilution: bool):
+    """12 noisy repeats of one curve, frames 4 and 9 with a low-q excess (outliers); with
+    ``dilution``, frame k at concentration c_k (1 to 4) with a slight repulsion."""
+    e = saxsnb.demo.example_series("spheres").isel(frame=[0])
+    q = e["q"].values
+    rng = np.random.default_rng(1234)
+    base = e["intensity"].values[0]
+    s = 0.01 * base
+    I = base + s * rng.standard_normal((12, q.size))
+    I[[4, 9]] += 0.2 * base * np.exp(-(q / q[q.size // 8]) ** 2)
+    c = np.linspace(1.0, 4.0, 12)
+    f = c[:, None] * (1 - 0.03 * c[:, None]) if dilution else np.ones((12, 1))
+    return saxsnb.from_arrays(q, I * f, s[None, :] * f,
+                              scan={"concentration": c, "sample": np.array(list("aabbbaabbbab"))})
+
+
+ONCE = {  # name -> (method, computations at the call); the extrapolations on a dilution series
+    "average": (lambda ds: ds.saxs.average(), 1),
+    "average_all": (lambda ds: ds.saxs.average(exclude=None), 0),
+    "average_every": (lambda ds: ds.saxs.average(every=5, test="chi2"), 1),
+    "average_by": (lambda ds: ds.saxs.average(by="sample"), 1),
+    "extrapolate_guinier": (lambda ds: ds.saxs.extrapolate_concentration("concentration"), 1),
+    "extrapolate_lowest_q": (lambda ds: ds.saxs.extrapolate_concentration("concentration", i0="lowest_q"), 0),
+}
+
+
+@pytest.mark.parametrize("few", [64, 0])  # few groups: one sum per group; many: chunks of whole groups
+@pytest.mark.parametrize("chunk", [1, 5, 12])
+@pytest.mark.parametrize("name", sorted(ONCE))
+def test_across_frames_lazy_and_equal_in_memory(monkeypatch, never_whole, name, chunk, few):
+    import saxsnb.accessor._across as across
+
+    if few == 0 and not name.startswith("average"):
+        pytest.skip("the group paths are the averages'")
+    monkeypatch.setattr(across, "FEW_GROUPS", few)
+    ds = _repeats(dilution=name.startswith("extrapolate"))
+    method, at_call = ONCE[name]
+    ref = method(ds)
+    # the data chunked, the per-frame coordinates in memory (as a store opens them)
+    lazy = ds.chunk({"frame": chunk}).assign_coords({c: ds[c] for c in ("concentration", "sample")})
+    import contextlib
+
+    # below one chunk of the whole series, no step may hold its whole (frame, q) arrays
+    guard = never_whole(ds["intensity"].shape) if chunk < ds.sizes["frame"] else contextlib.nullcontext()
+    with guard:
+        with Computations() as c:
+            res = method(lazy)
+        assert c.n == at_call, f"{name} computed {c.n} times at the call"
+        assert res["intensity"].chunks is not None  # the (frame, q) result is left lazy
+        with Computations() as c:
+            out = res.compute()
+        assert c.n == 1
+    _numeric_close(ref.attrs, out.attrs, name)
+    assert_same(ref.assign_attrs(out.attrs), out, name)
+    if name == "average":
+        assert json.loads(ref.attrs["parameters"])["excluded_frames"] == [4, 9]  # the check is not empty
+
+
+def test_average_with_lazy_coordinates_reads_them_once(spheres):
+    # every per-frame coordinate chunked too: read in one small computation before the outlier flags
+    ref = spheres.saxs.average(every=4)
+    lazy = spheres.chunk({"frame": 5})
+    assert lazy["position"].chunks is not None
+    with Computations() as c:
+        res = lazy.saxs.average(every=4)
+    assert c.n == 2
+    assert_same(ref, res.compute(), "average, lazy coordinates")
+
+
+@pytest.mark.parametrize("test", ["cormap", "chi2"])
+def test_compare_frames_never_whole(spheres, never_whole, test):
+    ref = spheres.saxs.compare_frames(test=test, pairwise=False)
+    with never_whole(spheres["intensity"].shape):
+        out = spheres.chunk({"frame": 5}).saxs.compare_frames(test=test, pairwise=False).compute()
+    assert_same(ref, out, "compare_frames")
+
+
+def test_compare_frames_data_errors_raised_when_computed(spheres):
+    from saxsnb.errors import SaxsInputError
+
+    bad = spheres.copy(deep=True)
+    bad["intensity"][3] = np.nan
+    with pytest.raises(SaxsInputError, match="reference frame 3"):
+        bad.saxs.compare_frames(reference=3)
+    lazy = bad.chunk({"frame": 5}).saxs.compare_frames(reference=3)  # lazy: raised when computed
+    with pytest.raises(SaxsInputError, match="reference frame 3"):
+        lazy.compute()
+    with pytest.raises(SaxsInputError, match="correction"):  # a parameter: raised at the call
+        spheres.chunk({"frame": 5}).saxs.compare_frames(correction="sidak")
+
+
+@pytest.mark.parametrize("chunk", [5, 16, 48])
+def test_phase_map_computes_the_indexing_once(ramp, never_whole, chunk):
+    ref = ramp.saxs.phase_map()
+    lazy = ramp.chunk({"frame": chunk})
+    idx = lazy.saxs.index_phases()
+    with Computations() as c:
+        if chunk < ramp.sizes["frame"]:
+            with never_whole(ramp["intensity"].shape):
+                pm = lazy.saxs.phase_map(idx)
+        else:
+            pm = lazy.saxs.phase_map(idx)
+    assert c.n == 1  # the per-frame tables and the scan values together
+    _numeric_close(ref.attrs, pm.attrs, "phase_map")
+    assert_same(ref.assign_attrs(pm.attrs), pm, "phase_map")
+    assert json.loads(ref.attrs["transitions"])  # the check is not on an empty map
 
 
 # ----------------------------------------------------------------- errors="raise"

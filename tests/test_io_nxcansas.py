@@ -178,3 +178,85 @@ def test_property_damaged_nxcansas_raises_only_our_errors(tmp_path, drop, junk):
     except SaxsError:
         return
     assert ds.sizes["frame"] == 1
+
+
+# ------------------------------------------------ a dask series, chunk by chunk (issue 13)
+@pytest.fixture
+def never_whole(monkeypatch):
+    """Fail a compute that returns, or a task that makes, an array of the given shape
+    (``never_whole(shape)`` arms it; a context manager)."""
+    import contextlib
+
+    dask = pytest.importorskip("dask")
+    import dask.array.core as dac
+    from dask.callbacks import Callback
+
+    @contextlib.contextmanager
+    def arm(shape):
+        original = dac.finalize
+
+        def finalize(results):
+            out = original(results)
+            if getattr(out, "shape", None) == shape:
+                raise AssertionError(f"the whole {shape} array was computed")
+            return out
+
+        class Whole(Callback):
+            def _start(self, dsk):
+                self.n = getattr(self, "n", 0) + 1
+
+            def _posttask(self, key, result, dsk, state, id):
+                if getattr(result, "shape", None) == shape:
+                    raise AssertionError(f"a task made the whole {shape} array ({key})")
+
+        monkeypatch.setattr(dac, "finalize", finalize)
+        try:
+            with Whole() as w:
+                yield w
+        finally:
+            monkeypatch.setattr(dac, "finalize", original)
+
+    assert dask
+    return arm
+
+
+def test_dask_series_is_written_chunk_by_chunk(tmp_path, rng, never_whole):
+    ds = rich_series(rng)
+    save_series(ds, tmp_path / "whole.h5")
+    lazy = ds.chunk({"frame": 3})
+    shape = ds["intensity"].shape
+    with never_whole(shape) as calls:
+        with pytest.raises(AssertionError, match="whole"):  # the guard works
+            _ = lazy["intensity"].values
+        calls.n = 0
+        save_series(lazy, tmp_path / "s.h5")
+    # one computation per chunk (every variable's block together), one for the string label
+    assert calls.n == 3
+    xr.testing.assert_identical(open_series(tmp_path / "s.h5"), ds)
+    with h5py.File(tmp_path / "s.h5", "r") as f, h5py.File(tmp_path / "whole.h5", "r") as g:
+        d, e = f["sasentry01/sasdata01"], g["sasentry01/sasdata01"]
+        for name in ("I", "Idev", "Mask", "Qdev", "temperature"):
+            assert d[name].chunks[0] == 3, name  # chunked along frame like the series
+            assert d[name].attrs["saxsnb_sha256"] == e[name].attrs["saxsnb_sha256"], name
+            np.testing.assert_array_equal(d[name][()], e[name][()])
+
+
+def test_dask_series_failing_midway_leaves_no_file(tmp_path, rng):
+    da = pytest.importorskip("dask.array")
+    ds = rich_series(rng)
+    path = tmp_path / "s.h5"
+    save_series(ds, path)
+    before = path.read_bytes()
+
+    def second_fails(block, block_info=None):
+        if block_info[0]["chunk-location"][0] == 1:
+            raise RuntimeError("disk of the beamline went away")
+        return block
+
+    lazy = ds.chunk({"frame": 2})
+    lazy["sigma"] = (("frame", "q"), da.map_blocks(second_fails, lazy["sigma"].data, dtype=float),
+                     ds["sigma"].attrs)
+    with pytest.raises(RuntimeError, match="went away"):
+        save_series(lazy, path)
+    assert path.read_bytes() == before  # the old file is untouched (atomic write)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["s.h5"]  # no temporary left

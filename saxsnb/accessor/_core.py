@@ -30,7 +30,26 @@ from ..analysis._status import CAUTIONS, STATUS_DTYPE, parameter_of
 from ..errors import SaxsFitError, SaxsInputError, SaxsWarning
 from ..series import add_history, main_scan, scan_coords
 
-__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask"]
+__all__ = ["OutputSpec", "AccessorBase", "provenance", "result_attrs", "is_dask", "TEMPORARIES"]
+
+#: Peak memory each analysis allocates on a batch of frames, in units of the batch's
+#: intensity, outputs included (``benchmarks/bench_temporaries.py`` on unsliced 200-frame
+#: chunks of 1,000 q, less the 2 chunks of input copies that apply_gufunc made then;
+#: rounded up), and the fewest frames per call that keep its speed (a call has a fixed cost:
+#: about 0.1 s for ``find_peaks``). On a dask chunk the analysis runs on slices of the
+#: chunk that allocate about half a chunk each, no smaller than that (see
+#: :meth:`AccessorBase._apply`).
+TEMPORARIES = {
+    "porod": (2.5, 128),
+    "invariant": (4.0, 128),
+    "kratky": (2.1, 128),
+    "kratky_summary": (2.3, 128),
+    "distance_distribution": (45.0, 16),
+    "find_peaks": (8.0, 256),
+    "absolute_scale": (4.0, 128),
+    "rebin": (3.4, 128),
+    "per_concentration": (2.1, 128),
+}
 
 
 def is_dask(data) -> bool:
@@ -106,6 +125,94 @@ def result_attrs(source: xr.Dataset, operation: str, parameters: Mapping[str, An
         out.pop(key, None)
     out.update(provenance(operation, parameters))
     return out
+
+
+def _in_slices(run: Callable, pieces: int, n_out: int, min_frames: int = 1) -> Callable:
+    """``run(I, S, *extra)`` over ``pieces`` slices of the frames of a chunk (each of at
+    least ``min_frames`` frames), each writing into the outputs preallocated for the whole
+    chunk (extras cut along the frames too)."""
+
+    def sliced(I_, S_, *extra):
+        n = I_.shape[0]
+        step = max(1, min_frames, -(-n // pieces))
+        if n <= step:
+            return run(I_, S_, *extra)
+        outs = None
+        for a in range(0, n, step):  # a few slices of a chunk, each vectorised over its frames
+            b = min(n, a + step)
+            part = run(I_[a:b], S_[a:b],
+                       *[e[a:b] if np.ndim(e) and np.shape(e)[0] == n else e for e in extra])
+            part = part if n_out > 1 else (part,)
+            if outs is None:
+                outs = [np.empty((n, *p.shape[1:]), dtype=p.dtype) for p in part]
+            for k, p in enumerate(part):
+                if p.dtype.kind in "SU" and p.dtype.itemsize > outs[k].dtype.itemsize:
+                    outs[k] = outs[k].astype(p.dtype)  # strings as wide as the widest slice's
+                outs[k][a:b] = p
+        return tuple(outs) if n_out > 1 else outs[0]
+
+    return sliced
+
+
+def _one_block(x):
+    """The block itself from blockwise's list of the blocks along a dimension in one chunk."""
+    while isinstance(x, list):
+        if len(x) != 1:
+            raise ValueError("a core dimension must be one chunk")
+        x = x[0]
+    return x
+
+
+def per_chunk(run: Callable, I: xr.DataArray, S: xr.DataArray, extras: list, outputs: Mapping,
+              sizes: Mapping[str, int] | None = None) -> tuple:
+    """``run(I, S, *extras)`` on each frame chunk of dask-backed (frame, q) arrays, one task
+    per chunk (``I`` and ``S`` with q in one chunk; ``extras`` DataArrays with frame first,
+    or without frame: given whole to every task) whose blocks reach ``run`` as they are
+    (``dask.array.apply_gufunc``, under ``xarray.apply_ufunc(dask="parallelized")``, joins
+    every input block into a new array first: a copy of the chunk's intensity and sigma in
+    every task). Returns a DataArray per output, frame first, like ``apply_ufunc``'s."""
+    import dask.array as da
+
+    fch = I.data.chunks[0]
+    names = list(outputs)
+    dim_size = {"q": I.sizes["q"], **dict(sizes or {})}
+    letters = iter("abcdeghijklmnoprstuvwxyz")
+    letter: dict[str, str] = {"q": "q"}  # one index letter per dimension name
+
+    def index(dims) -> str:
+        return "f" + "".join(letter.setdefault(d, next(letters)) for d in dims)
+
+    args = [I.data, "fq", S.data.rechunk(I.data.chunks), "fq"]
+    for a in extras:
+        arr = da.asarray(a.data)
+        # an extra's own dims get their own letters (contracted: each task gets them whole);
+        # one without frame (a background curve, a factor) goes whole to every task
+        on_frame = a.dims[:1] == ("frame",)
+        arr = arr.rechunk((fch, *[-1] * (arr.ndim - 1)) if on_frame else -1)
+        own = "".join(next(letters) for _ in range(arr.ndim - on_frame))
+        args += [arr, ("f" if on_frame else "") + own]
+        dim_size.update({d: int(n) for d, n in zip(a.dims, a.shape)})
+
+    def saxs_chunk(*blocks):
+        res = run(*[_one_block(b) for b in blocks])
+        return res if len(names) > 1 else (res,)
+
+    def saxs_output(t, k):
+        return t[k]
+
+    tmp = da.blockwise(saxs_chunk, "f", *args, concatenate=False, meta=np.empty((0,), dtype=object))
+    result = []
+    for k, n in enumerate(names):
+        spec = outputs[n]
+        ind = index(spec.dims)
+        new_axes = {c: dim_size[d] for c, d in zip(ind[1:], spec.dims)}
+        arr = da.blockwise(saxs_output, ind, tmp, "f", k, None, new_axes=new_axes, dtype=spec.dtype,
+                           meta=np.empty((0,) * len(ind), dtype=spec.dtype))
+        coords = {"frame": I["frame"]} if "frame" in I.coords else {}
+        if "q" in spec.dims and "q" in I.coords:
+            coords["q"] = I["q"]
+        result.append(xr.DataArray(arr, dims=("frame", *spec.dims), coords=coords))
+    return tuple(result)
 
 
 class AccessorBase:
@@ -337,6 +444,7 @@ class AccessorBase:
         extra_args: tuple = (),
         errors: str | None = None,
         after: xr.Dataset | None = None,
+        temporaries: tuple[float, int] | None = None,
         **kwargs,
     ) -> xr.Dataset:
         """Run ``func(q, intensity, sigma, *extra_args, **kwargs)`` over all frames.
@@ -348,6 +456,13 @@ class AccessorBase:
         passed after sigma. ``errors`` ("ignore" / "raise", None for no check): with
         "raise" the first frame whose ``status`` is a failure raises SaxsFitError (the cautions
         of :data:`saxsnb.analysis.CAUTIONS` pass with a SaxsWarning).
+        ``temporaries``: (the peak memory ``func`` allocates on a batch of frames, in
+        units of the batch's intensity, measured by ``benchmarks/bench_temporaries.py``;
+        the fewest frames per call); on a dask chunk, ``func`` then runs on slices of the
+        chunk small enough to allocate about half a chunk at a time, each writing into the
+        chunk's preallocated outputs, so a task's peak stays within a few chunks (issue 13).
+        Results are the same: the functions' results per frame do not depend on the batch
+        (the dask tests check it at chunk sizes 1, 5 and 12, and with slices of 1 frame).
 
         Returns a Dataset on ``frame`` (plus the new dims of ``outputs``) with the
         scan coordinates kept, units on each variable, the series' attrs and history
@@ -371,21 +486,27 @@ class AccessorBase:
 
         if I.chunks is not None:
             I, S = I.chunk({"q": -1}), S.chunk({"q": -1})
+            if temporaries is not None and temporaries[0] > 1:
+                _run = _in_slices(_run, int(np.ceil(2 * temporaries[0])), len(names), int(temporaries[1]))
         extra_core = [[d for d in a.dims if d != "frame"] for a in extra_args]
         sizes: dict[str, int] = {}
         for spec in outputs.values():
             sizes.update(spec.sizes)
-        result = xr.apply_ufunc(
-            _run, I, S, *extra_args,
-            input_core_dims=[["q"], ["q"], *extra_core],
-            output_core_dims=[list(outputs[n].dims) for n in names],
-            dask="parallelized",
-            output_dtypes=[outputs[n].dtype for n in names],
-            dask_gufunc_kwargs={"output_sizes": sizes} if sizes else None,
-            keep_attrs=False,
-        )
-        if len(names) == 1:
-            result = (result,)
+        if I.chunks is not None and all(isinstance(a, xr.DataArray) and "frame" in a.dims
+                                        for a in extra_args):
+            result = per_chunk(_run, I, S, [a.transpose("frame", ...) for a in extra_args], outputs, sizes)
+        else:
+            result = xr.apply_ufunc(
+                _run, I, S, *extra_args,
+                input_core_dims=[["q"], ["q"], *extra_core],
+                output_core_dims=[list(outputs[n].dims) for n in names],
+                dask="parallelized",
+                output_dtypes=[outputs[n].dtype for n in names],
+                dask_gufunc_kwargs={"output_sizes": sizes} if sizes else None,
+                keep_attrs=False,
+            )
+            if len(names) == 1:
+                result = (result,)
         data_vars = {}
         for n, da in zip(names, result):
             spec = outputs[n]

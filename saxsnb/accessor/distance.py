@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from ._core import AccessorBase, OutputSpec, scalar_outputs
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, scalar_outputs
 
 __all__ = ["DistanceMethods"]
 
@@ -90,4 +90,4 @@ class DistanceMethods(AccessorBase):
             return _pr(q_, I, S, dmax=more[0] if more else dmax, **options)
 
         return self._apply(run, outputs, operation="distance_distribution", parameters=params,
-                           extra_args=extra, errors=errors)
+                           extra_args=extra, errors=errors, temporaries=TEMPORARIES["distance_distribution"])

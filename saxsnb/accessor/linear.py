@@ -8,7 +8,7 @@ import numpy as np
 import xarray as xr
 
 from ..errors import SaxsInputError
-from ._core import AccessorBase, OutputSpec, scalar_outputs
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, scalar_outputs
 
 __all__ = ["LinearMethods"]
 
@@ -154,7 +154,7 @@ class LinearMethods(AccessorBase):
             return porod(q, I, S, q_range=rng_, background=bg_)
 
         return self._apply(run, outputs, operation="porod", parameters=params, extra_args=extra,
-                           errors=errors)
+                           errors=errors, temporaries=TEMPORARIES["porod"])
 
     def invariant(
         self,
@@ -224,7 +224,7 @@ class LinearMethods(AccessorBase):
                               volume_fraction=more[0] if more else None)
 
         return self._apply(run, outputs, operation="invariant", parameters=params, extra_args=extra,
-                           errors=errors)
+                           errors=errors, temporaries=TEMPORARIES["invariant"])
 
     def kratky(self, normalize: str | None = None, *, guinier: xr.Dataset | None = None) -> xr.DataArray:
         """Kratky transform of every frame, a DataArray on (frame, q).
@@ -260,7 +260,8 @@ class LinearMethods(AccessorBase):
             g = self.guinier() if guinier is None else guinier
             params["guinier"] = g.attrs.get("parameters")
             extra = (g["rg"], g["i0"])
-        out = self._apply(run, outputs, operation="kratky", parameters=params, extra_args=extra)
+        out = self._apply(run, outputs, operation="kratky", parameters=params, extra_args=extra,
+                          temporaries=TEMPORARIES["kratky"])
         da = out["kratky"].transpose("frame", "q")
         return da.assign_attrs({**out.attrs, **da.attrs})
 
@@ -291,7 +292,7 @@ class LinearMethods(AccessorBase):
         out = self._apply(
             lambda q, I, S, rg, i0: _summary(q, I, rg=rg, i0=i0, **options), outputs,
             operation="kratky_summary", parameters={**options, "guinier": g.attrs.get("parameters")},
-            extra_args=(g["rg"], g["i0"]), after=g,
+            extra_args=(g["rg"], g["i0"]), after=g, temporaries=TEMPORARIES["kratky_summary"],
         )
         return out.assign(rg=g["rg"], i0=g["i0"])
 

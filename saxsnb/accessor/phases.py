@@ -9,7 +9,7 @@ import xarray as xr
 
 from ..analysis._status import STATUS_DTYPE
 from ..errors import SaxsInputError
-from ._core import AccessorBase, OutputSpec, order_along
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, is_dask, order_along
 
 __all__ = ["PhaseMethods"]
 
@@ -88,7 +88,8 @@ class PhaseMethods(AccessorBase):
         params = dict(q_range=q_range, min_prominence=min_prominence, profile=profile,
                       max_peaks=int(max_peaks), baseline_width=baseline_width, shoulders=bool(shoulders),
                       backfit=bool(backfit), errors=errors)
-        out = self._apply(_find, outputs, operation="find_peaks", parameters=params, track=False, **params)
+        out = self._apply(_find, outputs, operation="find_peaks", parameters=params, track=False,
+                          temporaries=TEMPORARIES["find_peaks"], **params)
         q = ds["q"].values
         lo, hi = (q.min(), q.max()) if q_range is None else (q_range[0], q_range[1])
         out.attrs.update(q_min=float(max(lo, q.min())), q_max=float(min(hi, q.max())), profile=profile)
@@ -237,7 +238,17 @@ class PhaseMethods(AccessorBase):
         idx = self.index_phases() if index is None else index
         names = tuple(json.loads(idx.attrs.get("parameters", "{}")).get("phases", ())) or PHASES
         scan = idx.attrs.get("scan") or self._scan_name()
-        x = self._scan_values(scan, idx.sizes["frame"])
+        same = scan in self._ds.coords and self._ds.sizes["frame"] == idx.sizes["frame"]
+        src = self._ds[scan] if same else None
+        if any(is_dask(v) for v in idx.variables.values()) or (src is not None and is_dask(src)):
+            # a lazy indexing: its per-frame tables ((frame, slot), (frame, peak)) and the scan
+            # values computed together, once; the (frame, q) arrays stay on the workers
+            import dask
+
+            idx, xv = dask.compute(idx, None if src is None else src.variable.data)
+            x = None if xv is None else np.asarray(xv)
+        else:
+            x = self._scan_values(scan, idx.sizes["frame"])
         x = idx["frame"].values if x is None else x
         known = ~np.isin(idx["status"].values, UNINDEXED)
         m = phase_map(idx["phase"].values, x, known=known, lattice=idx["lattice"].values,

@@ -3,10 +3,11 @@ scale, q calibration, rebinning, concentration series; and the top-level
 :func:`calibrate_q` and :func:`merge_ranges` on Datasets.
 
 Per-frame operations go through :meth:`AccessorBase._apply` (dask-parallel over frame
-chunks); operations across frames (comparison, averaging, extrapolation) load the
-series' arrays (a dask series is computed) and wrap the numpy result with
-:meth:`AccessorBase._result`. Every result keeps the series' attrs and appends one
-history entry.
+chunks); operations across frames (comparison, averaging, extrapolation) call the numpy
+function on an in-memory series, and on a dask series build a graph of per-chunk work
+reduced along frame (:mod:`saxsnb.accessor._across`), never holding (frame, q) arrays in
+the client; the result is wrapped with :meth:`AccessorBase._result`. Every result keeps
+the series' attrs and appends one history entry.
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ from .. import analysis as an
 from ..analysis._merging import _concentrations
 from ..errors import SaxsInputError
 from ..series import validate
-from ._core import AccessorBase, OutputSpec, result_attrs
+from ._core import TEMPORARIES, AccessorBase, OutputSpec, is_dask, result_attrs
 
 __all__ = ["PreparationMethods", "calibrate_q", "merge_ranges", "curve_arrays"]
 
@@ -73,6 +74,17 @@ class PreparationMethods(AccessorBase):
         I, S = self.masked()
         return self._ds["q"].values, np.asarray(I.values, dtype=float), np.asarray(S.values, dtype=float)
 
+    def _dask_arrays(self):
+        """q and the masked intensity and sigma as dask arrays (frame, q), q in one chunk;
+        None when the series is in memory."""
+        I, S = self.masked()
+        if not (is_dask(I) or is_dask(S)):
+            return None
+        import dask.array as da
+
+        return (self._ds["q"].values, da.asarray(I.data).astype(float).rechunk({1: -1}),
+                da.asarray(S.data).astype(float).rechunk({1: -1}))
+
     def compare_frames(self, *, test: str = "cormap", reference: int = 0, alpha: float = 0.01,
                        correction: str = "holm", pairwise: bool | str = "auto") -> xr.Dataset:
         """Test every frame against a reference frame (correlation-map or chi-square test).
@@ -96,13 +108,21 @@ class PreparationMethods(AccessorBase):
         >>> res.outlier.dtype.kind, str(res.status.values[0])
         ('b', 'is_reference')
         """
-        q, I, S = self._arrays()
+        lazy = self._dask_arrays()
+        if lazy is None:
+            q, I, S = self._arrays()
+        else:
+            q, I, S = lazy
         if pairwise == "auto":
             pairwise = I.shape[0] <= 1000
-        res = an.compare_frames(q, I, S, test=test, reference=reference, alpha=alpha,
-                                correction=correction, pairwise=bool(pairwise))
+        if lazy is None:
+            res = an.compare_frames(q, I, S, test=test, reference=reference, alpha=alpha,
+                                    correction=correction, pairwise=bool(pairwise))
+        else:
+            res = self._compare_lazy(q, I, S, test=test, reference=reference, alpha=alpha,
+                                     correction=correction, pairwise=bool(pairwise))
         units = {"score": "points" if test == "cormap" else "1", "p_value": "1", "p_adjusted": "1"}
-        data = {k: (("frame",), np.asarray(v), {"units": units[k]} if k in units else {})
+        data = {k: (("frame",), v if is_dask(v) else np.asarray(v), {"units": units[k]} if k in units else {})
                 for k, v in res.items() if not k.startswith("pairwise")}
         coords = None
         if pairwise:
@@ -112,6 +132,22 @@ class PreparationMethods(AccessorBase):
         params = dict(test=test, reference=int(reference), alpha=float(alpha), correction=correction,
                       pairwise=bool(pairwise))
         return self._result(data, "compare_frames", params, coords=coords)
+
+    def _compare_lazy(self, q, I, S, *, test, reference, alpha, correction, pairwise) -> dict:
+        """compare_frames on dask arrays: the parameter checks now, the data's when computed."""
+        from ..analysis._similarity import _check
+        from ._across import compare_lazy
+
+        ref = _check(test, reference, alpha, I.shape[0])
+        an.adjust_pvalues(np.zeros(0), correction)  # checks the name
+        res = compare_lazy(I, S, test=test, ref=ref, correction=correction, alpha=alpha)
+        if pairwise:  # one task on a worker; the (frame, q) arrays are gathered there, not here
+            nf = I.shape[0]
+            pw = self._across_frames(lambda I_, S_: an.pairwise_similarity(q, I_, S_, test=test), [I, S],
+                                     {"score": ((nf, nf), float), "p_value": ((nf, nf), float)},
+                                     frame_chunks=I.chunks[0])
+            res["pairwise_score"], res["pairwise_p_value"] = pw["score"], pw["p_value"]
+        return res
 
     def average(self, *, exclude: str | None = "outliers", by: str | None = None, every: int | None = None,
                 test: str = "cormap", alpha: float = 0.01) -> xr.Dataset:
@@ -147,10 +183,13 @@ class PreparationMethods(AccessorBase):
         if exclude not in ("outliers", None):
             raise SaxsInputError(f"exclude must be 'outliers' or None, got {exclude!r}", parameter="exclude")
         ds = self._ds
-        q, I, S = self._arrays()
+        lazy = self._dask_arrays()
+        q, I, S = self._arrays() if lazy is None else lazy
         n = I.shape[0]
         if by is not None and (by not in ds.variables or ds[by].dims != ("frame",)):
             raise SaxsInputError(f"by={by!r} names no per-frame coordinate of the series", parameter="by")
+        if lazy is not None:
+            return self._average_lazy(q, I, S, exclude=exclude, by=by, every=every, test=test, alpha=alpha)
         labels, keys = an.group_labels(n, by=None if by is None else ds[by].values, every=every)
         include = np.ones(n, bool)
         if exclude == "outliers":
@@ -177,6 +216,61 @@ class PreparationMethods(AccessorBase):
             "sigma": (("frame", "q"), res["sigma"]),
             "n_averaged": (("frame",), res["n_averaged"]),
             "members": (("frame", "source_frame"), M, {"long_name": "frames averaged into this frame"}),
+        }
+        out = xr.Dataset(data, coords=coords)
+        params = dict(exclude=exclude, by=by, every=every, test=test, alpha=float(alpha),
+                      excluded_frames=ds["frame"].values[~include].tolist())
+        out.attrs = result_attrs(ds, "average", params)
+        return _series_like(ds, out.assign_coords(q=ds["q"]))
+
+    def _average_lazy(self, q, I, S, *, exclude, by, every, test, alpha) -> xr.Dataset:
+        """:meth:`average` of a dask series: the outlier flags (per-frame bools) computed
+        once, the group means left lazy (sums along frame per chunk). Per-frame
+        coordinates held by dask are read first (one small computation)."""
+        import dask
+
+        from ._across import average_lazy, group_include_lazy
+
+        ds = self._ds
+        names = list(dict.fromkeys(self.scan_coords + ([by] if by is not None else [])))
+        held = {c: ds[c].data for c in names if is_dask(ds[c])}
+        if held:
+            (got,) = dask.compute(held)
+            ds = ds.assign({c: (ds[c].dims, v, ds[c].attrs) for c, v in got.items() if c in ds.data_vars})
+            ds = ds.assign_coords({c: (ds[c].dims, v, ds[c].attrs) for c, v in got.items() if c in ds.coords})
+        labels, keys = an.group_labels(I.shape[0], by=None if by is None else ds[by].values, every=every)
+        n, G = labels.size, int(labels.max()) + 1
+        include = np.ones(n, bool)
+        if exclude == "outliers":
+            include = np.asarray(group_include_lazy(q, I, S, labels, test=test, alpha=alpha).compute())
+        mean, sig = average_lazy(q, I, S, labels, include)
+        used = labels[include]
+        count = np.bincount(used, minlength=G)
+        coords = {"frame": ("frame", np.arange(G)), "source_frame": ("source_frame", ds["frame"].values)}
+        # the first member of each group (the first frame when a group has none included)
+        first = np.full(G, n, dtype=np.int64)
+        np.minimum.at(first, used, np.flatnonzero(include))
+        first[first == n] = 0
+        for c in self.scan_coords:
+            v = ds[c].values
+            if c == by:
+                coords[c] = ("frame", keys, dict(ds[c].attrs))
+            elif v.dtype.kind in "fiu":
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    total = np.bincount(used, weights=v[include].astype(float), minlength=G)
+                coords[c] = ("frame", total / np.maximum(count, 1), dict(ds[c].attrs))
+            else:
+                coords[c] = ("frame", v[first], dict(ds[c].attrs))
+        import dask.array as da
+
+        lab = da.from_array(labels, chunks=(I.chunks[0],))
+        inc = da.from_array(include, chunks=(I.chunks[0],))
+        members = (lab[None, :] == da.arange(G, chunks=-1)[:, None]) & inc[None, :]
+        data = {
+            "intensity": (("frame", "q"), mean),
+            "sigma": (("frame", "q"), sig),
+            "n_averaged": (("frame",), count),
+            "members": (("frame", "source_frame"), members, {"long_name": "frames averaged into this frame"}),
         }
         out = xr.Dataset(data, coords=coords)
         params = dict(exclude=exclude, by=by, every=every, test=test, alpha=float(alpha),
@@ -253,7 +347,8 @@ class PreparationMethods(AccessorBase):
                       empty=empty is not None, q_range=q_range, factor=k, factor_sigma=cal["factor_sigma"],
                       reference_sample=str(reference.attrs.get("sample", "")))
         spec = {v: OutputSpec(("q",), units="1/cm") for v in ("intensity", "sigma")}
-        out = self._apply(_scaled, spec, operation="absolute_scale", parameters=params)
+        out = self._apply(_scaled, spec, operation="absolute_scale", parameters=params,
+                          temporaries=TEMPORARIES["absolute_scale"])
         out.attrs["absolute_scale_factor"] = k
         out.attrs["absolute_scale_factor_sigma"] = cal["factor_sigma"]
         return _series_like(self._ds, out, units="1/cm")
@@ -302,7 +397,7 @@ class PreparationMethods(AccessorBase):
             return {"intensity": r["intensity"], "sigma": r["sigma"]}
 
         spec = {v: OutputSpec(("q_bin",), sizes={"q_bin": nb}) for v in ("intensity", "sigma")}
-        out = self._apply(_binned, spec, operation="rebin",
+        out = self._apply(_binned, spec, operation="rebin", temporaries=TEMPORARIES["rebin"],
                           parameters=dict(n=int(n), spacing=spacing, q_range=q_range))
         out = out.rename({"q_bin": "q"})
         out = _series_like(self._ds, out, q=grid["q"])
@@ -332,7 +427,8 @@ class PreparationMethods(AccessorBase):
         unit = self._ds["intensity"].attrs.get("units", "arb")
         spec = {v: OutputSpec(("q",)) for v in ("intensity", "sigma")}
         params = dict(concentration=concentration if isinstance(concentration, str) else c.tolist())
-        out = self._apply(_per, spec, operation="per_concentration", parameters=params, extra_args=(carg,))
+        out = self._apply(_per, spec, operation="per_concentration", parameters=params, extra_args=(carg,),
+                          temporaries=TEMPORARIES["per_concentration"])
         return _series_like(self._ds, out, units=f"{unit} per concentration unit")
 
     def extrapolate_concentration(self, concentration, *, i0: str = "guinier") -> xr.Dataset:
@@ -367,13 +463,17 @@ class PreparationMethods(AccessorBase):
         if i0 not in ("guinier", "lowest_q"):
             raise SaxsInputError(f"i0 must be 'guinier' or 'lowest_q', got {i0!r}", parameter="i0")
         c = _per_frame_value(self._ds, concentration, "concentration")
-        q, I, S = self._arrays()
-        i0v = i0s = None
-        if i0 == "guinier":
-            g = an.guinier(q, I, S)
-            if np.all(g["status"] == "ok"):
-                i0v, i0s = g["i0"], g["i0_sigma"]
-        res = an.extrapolate_concentration(q, I, S, c, i0=i0v, i0_sigma=i0s)
+        lazy = self._dask_arrays()
+        if lazy is None:
+            q, I, S = self._arrays()
+            i0v = i0s = None
+            if i0 == "guinier":
+                g = an.guinier(q, I, S)
+                if np.all(g["status"] == "ok"):
+                    i0v, i0s = g["i0"], g["i0_sigma"]
+            res = an.extrapolate_concentration(q, I, S, c, i0=i0v, i0_sigma=i0s)
+        else:
+            res, i0v = self._extrapolate_lazy(lazy, c, i0)
         data = {
             "intensity": (("frame", "q"), res["intensity"][None]),
             "sigma": (("frame", "q"), res["sigma"][None]),
@@ -381,7 +481,7 @@ class PreparationMethods(AccessorBase):
             "slope_sigma": (("frame", "q"), res["slope_sigma"][None]),
         }
         for k in ("i0_intercept", "i0_slope", "i0_slope_sigma", "relative_i0_slope"):
-            data[k] = (("frame",), [res[k]])
+            data[k] = (("frame",), res[k][None] if is_dask(res[k]) else [res[k]])
         params = dict(concentration=concentration if isinstance(concentration, str)
                       else np.asarray(c, dtype=float).tolist(),
                       i0="guinier" if i0v is not None else "lowest_q")
@@ -389,6 +489,32 @@ class PreparationMethods(AccessorBase):
         out.attrs = result_attrs(self._ds, "extrapolate_concentration", params)
         unit = self._ds["intensity"].attrs.get("units", "arb")
         return _series_like(self._ds, out, units=f"{unit} per concentration unit")
+
+    def _extrapolate_lazy(self, arrays, c, i0):
+        """:meth:`extrapolate_concentration` of a dask series: the Guinier statuses and I0
+        (per-frame values) computed once when ``i0="guinier"``, the per-q line lazy."""
+        import dask
+
+        from ..analysis._merging import _concentrations
+        from ._across import concentration_lazy
+        from ._core import scalar_outputs
+
+        q, I, S = arrays
+        c = _concentrations(c, I.shape[0])
+        if np.unique(c).size < 2:
+            raise SaxsInputError("at least two distinct concentrations are needed", parameter="concentration")
+        i0v = i0s = None
+        if i0 == "guinier":
+            def fit(q_, I_, S_):
+                g = an.guinier(q_, I_, S_)
+                return {k: g[k] for k in ("status", "i0", "i0_sigma")}
+
+            g = self._apply(fit, scalar_outputs({"status": None, "i0": None, "i0_sigma": None}),
+                            operation="guinier", parameters={})
+            st, v, vs = dask.compute(g["status"].data, g["i0"].data, g["i0_sigma"].data)
+            if np.all(st == "ok"):
+                i0v, i0s = v, vs
+        return concentration_lazy(I, S, c, i0=i0v, i0_sigma=i0s), i0v
 
 
 def calibrate_q(standard, *, d_spacing: float = an.SILVER_BEHENATE_D, orders=None, wavelength=None,

@@ -339,11 +339,17 @@ class SeriesMethods(AccessorBase):
                 return r["scale"], r["scale_sigma"]
 
             # per frame (a dask series: per chunk on the workers, lazy)
-            k, k_sigma = xr.apply_ufunc(
-                _fit, (Im / norm).reset_coords(drop=True), (Sm / norm).reset_coords(drop=True), bIa, bSa,
-                frames, input_core_dims=[["q"]] * 4 + [[]], output_core_dims=[[], []],
-                dask="parallelized", output_dtypes=[float, float],
-            )
+            In, Sn = (Im / norm).reset_coords(drop=True), (Sm / norm).reset_coords(drop=True)
+            if In.chunks is not None:  # one task per chunk, its blocks given as they are
+                from ._core import OutputSpec, per_chunk
+
+                k, k_sigma = per_chunk(_fit, In, Sn, [bIa, bSa, frames],
+                                       {"k": OutputSpec(()), "k_sigma": OutputSpec(())})
+            else:
+                k, k_sigma = xr.apply_ufunc(
+                    _fit, In, Sn, bIa, bSa, frames, input_core_dims=[["q"]] * 4 + [[]],
+                    output_core_dims=[[], []], dask="parallelized", output_dtypes=[float, float],
+                )
             k, k_sigma = k.drop_vars("frame", errors="ignore"), k_sigma.drop_vars("frame", errors="ignore")
             extra["background_scale"] = k.assign_attrs(units="1")
             extra["background_scale_sigma"] = k_sigma.assign_attrs(units="1")
@@ -356,11 +362,18 @@ class SeriesMethods(AccessorBase):
         def _sub(I_, S_, B_, BS_, k_):
             return subtract_background(I_, S_, B_, BS_, scale=np.asarray(k_)[..., None])
 
-        out_i, out_s = xr.apply_ufunc(
-            _sub, I, S, bIa, bSa, scale_arg,
-            input_core_dims=[["q"]] * 4 + [[]], output_core_dims=[["q"], ["q"]],
-            dask="parallelized", output_dtypes=[float, float],
-        )
+        if I.chunks is not None:  # one task per chunk, its blocks given as they are
+            from ._core import OutputSpec, per_chunk
+
+            out_i, out_s = per_chunk(_sub, I.reset_coords(drop=True), S.reset_coords(drop=True),
+                                     [bIa, bSa, scale_arg],
+                                     {"i": OutputSpec(("q",)), "s": OutputSpec(("q",))})
+        else:
+            out_i, out_s = xr.apply_ufunc(
+                _sub, I, S, bIa, bSa, scale_arg,
+                input_core_dims=[["q"]] * 4 + [[]], output_core_dims=[["q"], ["q"]],
+                dask="parallelized", output_dtypes=[float, float],
+            )
         dd = xr.DataArray(d, dims="frame", coords={"frame": ds["frame"]})
         out = ds.copy()
         out["intensity"] = (out_i / dd).transpose("frame", "q").assign_attrs(ds["intensity"].attrs)

@@ -257,8 +257,12 @@ def fit_scale(q, intensity, sigma, bg_intensity, bg_sigma, *, q_range) -> dict[s
         raise SaxsInputError(f"scale_q_range must be (q_min, q_max), got {q_range!r}",
                              parameter="scale_q_range") from None
     inr = (q >= lo) & (q <= hi)
+    # only the points of the range enter the sums: the arrays cut to them first (the
+    # temporaries are those of the range, not of the whole curves)
+    cols = np.flatnonzero(inr)
+    I, S, B, BS = (a[:, cols] for a in (I, S, B, BS))
     var = S**2 + BS**2
-    ok = inr & np.isfinite(I) & np.isfinite(B) & np.isfinite(var) & (var > 0)
+    ok = np.isfinite(I) & np.isfinite(B) & np.isfinite(var) & (var > 0)
     n = ok.sum(axis=1)
     bad = np.flatnonzero(n < 3)
     if bad.size:

@@ -193,7 +193,27 @@ def extrapolate_concentration(q, intensity, sigma, concentration, *, i0=None, i0
     else:
         i0v = np.asarray(i0, dtype=float)
         i0s = np.ones_like(i0v) if i0_sigma is None else np.asarray(i0_sigma, dtype=float)
-    y0, s0 = i0v / c, i0s / c
+    i0_a, i0_b, i0_bs, rel = i0_line(i0v, i0s, c)
+    return {
+        "intensity": a, "sigma": sa, "slope": b, "slope_sigma": sb,
+        "i0_intercept": i0_a, "i0_slope": i0_b, "i0_slope_sigma": i0_bs, "relative_i0_slope": rel,
+    }
+
+
+def i0_line(i0, i0_sigma, concentration) -> tuple[float, float, float, float]:
+    """Weighted line of ``I0/c`` against c: intercept, slope, slope sigma, slope / intercept.
+
+    Weights ``c^2 / sigma^2`` (the sigma of ``I0/c``), parameter sigmas from the
+    covariance; NaN when fewer than two frames have a usable I0.
+
+    Examples
+    --------
+    >>> c = np.array([1.0, 2.0, 4.0])
+    >>> [round(v, 6) for v in i0_line(c * (10.0 - c), np.ones(3), c)]
+    [10.0, -1.0, 0.227992, -0.1]
+    """
+    c = np.asarray(concentration, dtype=float)
+    y0, s0 = np.asarray(i0, dtype=float) / c, np.asarray(i0_sigma, dtype=float) / c
     ok0 = np.isfinite(y0) & np.isfinite(s0) & (s0 > 0)
     if ok0.sum() >= 2:
         w0 = 1 / s0[ok0] ** 2
@@ -203,8 +223,4 @@ def extrapolate_concentration(q, intensity, sigma, concentration, *, i0=None, i0
         i0_a, i0_b, i0_bs = float(p[0]), float(p[1]), float(np.sqrt(cov[1, 1]))
     else:
         i0_a = i0_b = i0_bs = np.nan
-    return {
-        "intensity": a, "sigma": sa, "slope": b, "slope_sigma": sb,
-        "i0_intercept": i0_a, "i0_slope": i0_b, "i0_slope_sigma": i0_bs,
-        "relative_i0_slope": i0_b / i0_a if np.isfinite(i0_a) and i0_a != 0 else np.nan,
-    }
+    return i0_a, i0_b, i0_bs, (i0_b / i0_a if np.isfinite(i0_a) and i0_a != 0 else np.nan)

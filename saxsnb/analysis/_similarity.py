@@ -243,7 +243,12 @@ def _pair_stats(A, SA, b, sb, test):
         np.greater_equal(A.T, b[:, None], out=sT)  # points down, curves across
         C = _longest_equal_run_columns(sT)
         return C.astype(float), longest_run_pvalue(n, C)
-    chi = ((A - b) ** 2 / (SA**2 + sb**2)).sum(axis=1)
+    d = A - b  # ((A - b)^2 / (SA^2 + sb^2)) summed per row, with two temporaries of A's size
+    d *= d
+    v = SA * SA
+    v += sb * sb
+    d /= v
+    chi = d.sum(axis=1)
     return chi / n, _chi2_pvalue(chi, n)
 
 

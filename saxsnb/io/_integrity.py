@@ -25,7 +25,8 @@ import numpy as np
 
 from ..errors import SaxsFileError
 
-__all__ = ["ATTR", "TRAILER_SIZE", "digest", "text_digest", "append_trailer", "check_trailer", "verify"]
+__all__ = ["ATTR", "TRAILER_SIZE", "digest", "BlockDigest", "text_digest", "append_trailer", "check_trailer",
+           "verify"]
 
 #: Attribute that holds the checksum of an array.
 ATTR = "saxsnb_sha256"
@@ -89,6 +90,36 @@ def digest(values) -> str:
         h.update(a.dtype.str.encode())
         h.update(memoryview(a).cast("B"))
     return "sha256:" + h.hexdigest()
+
+
+class BlockDigest:
+    """:func:`digest` of a numeric array given block by block along its first axis (a
+    writer hashes each block as it writes it: the data are read once).
+
+    >>> a = np.arange(12.0).reshape(4, 3)
+    >>> d = BlockDigest(a.dtype, a.shape)
+    >>> d.update(a[:3]); d.update(a[3:])
+    >>> d.hexdigest() == digest(a)
+    True
+    """
+
+    def __init__(self, dtype, shape):
+        self._dtype = np.dtype(dtype)
+        self._h = hashlib.sha256()
+        self._h.update(f"{self._dtype.kind}:{tuple(int(n) for n in shape)}:".encode())
+        self._first = True
+
+    def update(self, block) -> None:
+        a = _canonical(np.asarray(block, dtype=self._dtype))
+        if self._first:
+            self._h.update(a.dtype.str.encode())
+            self._first = False
+        self._h.update(memoryview(a).cast("B"))
+
+    def hexdigest(self) -> str:
+        if self._first:
+            self._h.update(_canonical(np.zeros(0, dtype=self._dtype)).dtype.str.encode())
+        return "sha256:" + self._h.hexdigest()
 
 
 def _canon(value):

@@ -50,7 +50,7 @@ from ._assemble import Curve, build_series
 from ._atomic import atomic_path
 from ._attrs import decode_attrs, encode_attrs, scalar_json
 from ._h5guard import Guard, run_bounded
-from ._integrity import ATTR, append_trailer, check_trailer, digest, text_digest, verify
+from ._integrity import ATTR, BlockDigest, append_trailer, check_trailer, digest, text_digest, verify
 
 __all__ = ["write_nxcansas", "read_nxcansas"]
 
@@ -72,8 +72,77 @@ def _nx_intensity_unit(unit: str) -> str:
     return "arbitrary" if unit in ("arb", "", "arbitrary", "a.u.") else unit
 
 
-def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
-    """Write a series as one NXcanSAS entry with a stacked SASdata (see module doc)."""
+#: largest HDF5 chunk of a dataset written block by block (bytes): a frame read later
+#: touches one chunk
+_H5_CHUNK_BYTES = 4 << 20
+
+
+def _stored(values: np.ndarray) -> np.ndarray:
+    """The array as stored in HDF5: bools as int8, datetimes as int64, strings as str objects."""
+    if values.dtype == bool:
+        return values.astype(np.int8)
+    if values.dtype.kind in "mM":
+        return values.view(np.int64)  # the record keeps the datetime/timedelta dtype
+    if values.dtype.kind in "UO":
+        return np.array([str(v) for v in values.ravel()], dtype=object).reshape(values.shape)
+    return values
+
+
+def _by_blocks(ds: xr.Dataset) -> dict:
+    """The dask-backed numeric variables on frame (first axis), each as a dask array cut
+    like the series along frame and whole along its other axes: ``name -> array``."""
+    from ..accessor._core import is_dask
+
+    frame_chunks = (ds.chunks or {}).get("frame")
+    if not frame_chunks:
+        return {}
+    out = {}
+    for name, var in [*ds.data_vars.items(), *ds.coords.items()]:
+        if is_dask(var) and var.dims[:1] == ("frame",) and var.dtype.kind not in "OUS":
+            out[str(name)] = var.data.rechunk((frame_chunks, *[-1] * (var.ndim - 1)))
+    return out
+
+
+def _write_blocks(d, h5names: dict, arrays: dict, *, path, progress) -> dict:
+    """Fill the chunked datasets ``d[h5names[name]]`` block by block along frame: each
+    block of every variable computed together (one computation: the variables of one
+    read share their tasks), written, and hashed. Returns ``name -> checksum``."""
+    import dask
+
+    names = list(arrays)
+    sums = {n: BlockDigest(_stored(np.zeros(0, arrays[n].dtype)).dtype, arrays[n].shape) for n in names}
+    chunks = arrays[names[0]].chunks[0]
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=len(chunks), desc="writing", unit="chunk")
+    a = 0
+    try:
+        for i, n_rows in enumerate(chunks):
+            blocks = dask.compute(*[arrays[n].blocks[i] for n in names])
+            for n, blk in zip(names, blocks):
+                data = _stored(np.asarray(blk))
+                d[h5names[n]][a : a + n_rows] = data
+                sums[n].update(data)
+            a += n_rows
+            if bar is not None:
+                bar.update(1)
+    finally:
+        if bar is not None:
+            bar.close()
+    return {n: s.hexdigest() for n, s in sums.items()}
+
+
+def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True, progress: bool = False) -> None:
+    """Write a series as one NXcanSAS entry with a stacked SASdata (see module doc).
+
+    A dask-backed series is written chunk by chunk: its (frame, ...) variables go to
+    HDF5 datasets chunked along frame, filled one frame chunk at a time (every variable's
+    block of that chunk computed together) and hashed as they are written, so memory
+    holds one chunk and the data are computed once. ``progress``: a tqdm bar over the
+    chunks.
+    """
     import h5py
 
     scan = main_scan(ds)
@@ -97,6 +166,8 @@ def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
             d.attrs["Q_indices"] = np.int32(1)
             d.attrs[f"{scan}_indices"] = np.int32(0)
             used = set(names.values())
+            lazy = _by_blocks(ds)
+            lazy_h5: dict[str, str] = {}
             for name, var in [*ds.data_vars.items(), *ds.coords.items()]:
                 name = str(name)
                 if name in names:
@@ -106,24 +177,28 @@ def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
                     while h5name in used or h5name in ("I", "Q"):
                         h5name = "saxsnb_" + h5name
                 used.add(h5name)
-                values = np.asarray(var.values)
-                if values.dtype == bool:
-                    data = values.astype(np.int8)
-                elif values.dtype.kind in "mM":
-                    data = values.view(np.int64)  # the record keeps the datetime/timedelta dtype
-                elif values.dtype.kind in "UO":
-                    data = np.array([str(v) for v in values.ravel()], dtype=object).reshape(values.shape)
+                if name in lazy:  # filled block by block below
+                    values = np.zeros(0, var.dtype)
+                    x = lazy[name]
+                    stored = _stored(values).dtype
+                    row = max(1, int(np.prod(x.shape[1:])) * stored.itemsize)
+                    rows = max(1, min(max(x.chunks[0]), _H5_CHUNK_BYTES // row))
+                    dset = d.create_dataset(h5name, shape=x.shape, dtype=stored,
+                                            chunks=(min(rows, max(x.shape[0], 1)), *x.shape[1:])
+                                            if x.shape[0] else None)
+                    lazy_h5[name] = h5name
                 else:
-                    data = values
-                try:
-                    dset = d.create_dataset(
-                        h5name, data=data, dtype=string if values.dtype.kind in "UO" else None
-                    )
-                except (TypeError, ValueError) as exc:
-                    raise SaxsFileError(
-                        f"cannot store {name!r} ({values.dtype}) in NXcanSAS: {exc}", path=path
-                    ) from None
-                dset.attrs[ATTR] = digest(data)
+                    values = np.asarray(var.values)
+                    data = _stored(values)
+                    try:
+                        dset = d.create_dataset(
+                            h5name, data=data, dtype=string if values.dtype.kind in "UO" else None
+                        )
+                    except (TypeError, ValueError) as exc:
+                        raise SaxsFileError(
+                            f"cannot store {name!r} ({values.dtype}) in NXcanSAS: {exc}", path=path
+                        ) from None
+                    dset.attrs[ATTR] = digest(data)
                 if "units" in var.attrs:
                     dset.attrs["units"] = str(var.attrs["units"])
                 layout["variables"][name] = {
@@ -133,6 +208,9 @@ def write_nxcansas(ds: xr.Dataset, path, *, overwrite: bool = True) -> None:
                     "dtype": values.dtype.str if values.dtype.kind not in "UO" else "str",
                     "coord": name in ds.coords,
                 }
+            if lazy:
+                for name, checksum in _write_blocks(d, lazy_h5, lazy, path=path, progress=progress).items():
+                    d[lazy_h5[name]].attrs[ATTR] = checksum
             d["I"].attrs["units"] = _nx_intensity_unit(str(ds["intensity"].attrs.get("units", "arb")))
             d["I"].attrs["uncertainties"] = "Idev"
             d["Idev"].attrs["units"] = d["I"].attrs["units"]

@@ -87,7 +87,9 @@ def save_series(ds: xr.Dataset, path, *, overwrite: bool = True, progress: bool 
 
     A dask-backed series is written chunk by chunk, never computed whole: to Zarr and
     NetCDF chunked along frame like the series (NetCDF checksums are computed chunk by
-    chunk too, so the series is computed twice; NXcanSAS files are written whole).
+    chunk too, so the series is computed twice); to NXcanSAS into HDF5 datasets chunked
+    along frame, one frame chunk of every variable computed, written and hashed at a
+    time (computed once).
     With a dask progress bar active (``dask.diagnostics.ProgressBar``) it shows the
     writing.
 
@@ -107,19 +109,24 @@ def save_series(ds: xr.Dataset, path, *, overwrite: bool = True, progress: bool 
     """
     kind = _kind(path)
     validate(ds)
+    if kind == "nxcansas":  # its own bar, over the chunks it writes one at a time
+        import sys
+
+        from .nxcansas import write_nxcansas
+
+        if progress is None:
+            progress = bool(ds.chunks) and sys.stderr.isatty() and len(ds.chunks.get("frame", ())) >= 20
+        write_nxcansas(ds, path, overwrite=overwrite, progress=bool(progress) and bool(ds.chunks))
+        return
     with _writing_bar(ds, progress):
         if kind == "zarr":
             from .zarrstore import write_zarr
 
             write_zarr(ds, path, overwrite=overwrite)
-        elif kind == "netcdf":
+        else:
             from .netcdf import write_netcdf
 
             write_netcdf(ds, path, overwrite=overwrite)
-        else:
-            from .nxcansas import write_nxcansas
-
-            write_nxcansas(ds, path, overwrite=overwrite)
 
 
 def open_series(path, *, chunks: int | Mapping | None = None) -> xr.Dataset:
