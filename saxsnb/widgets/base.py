@@ -40,6 +40,7 @@ the figures in ``_build()``, compute in ``_update()`` (whole-series results from
 
 from __future__ import annotations
 
+import functools
 import html
 import io
 import keyword
@@ -180,6 +181,13 @@ def _rename(code: str, names: dict[str, str]) -> str:
     names = {k: v for k, v in names.items() if k != v}
     if not names:
         return code
+    return _rename_tokens(code, tuple(sorted(names.items())))
+
+
+@functools.lru_cache(maxsize=256)
+def _rename_tokens(code: str, pairs: tuple) -> str:
+    """:func:`_rename` of ``code`` (the code of a frame step recurs: kept, not re-tokenized)."""
+    names = dict(pairs)
     lines = code.splitlines(keepends=True)
     edits = []
     prev = None
@@ -195,8 +203,10 @@ def _rename(code: str, names: dict[str, str]) -> str:
     return "".join(lines)
 
 
-def _names_in(code: str) -> set[str]:
-    return {t.string for t in tokenize.generate_tokens(io.StringIO(code).readline) if t.type == tokenize.NAME}
+@functools.lru_cache(maxsize=256)
+def _names_in(code: str) -> frozenset[str]:
+    tokens = tokenize.generate_tokens(io.StringIO(code).readline)
+    return frozenset(t.string for t in tokens if t.type == tokenize.NAME)
 
 
 def _recipe_lines(ds, name: str) -> list[str] | None:
@@ -229,7 +239,7 @@ def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, na
     keeps ``ds`` (``background``) unless a name was given, and the code says to define it.
     """
     body = "\n".join(steps) + "\n"
-    uses_bg = "background" in _names_in(body)
+    uses_bg = "background" in body and "background" in _names_in(body)  # tokenized only when it may
     out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
     series = checked_name(name) or model.name or "ds"
     rec = _cached_recipe(model, model.ds, series)

@@ -41,6 +41,7 @@ import inspect
 import keyword
 import queue
 import threading
+import time
 from collections import OrderedDict
 from collections.abc import Mapping
 from concurrent.futures import Future
@@ -97,6 +98,19 @@ def _freeze(value) -> Any:
         return value.item()
     hash(value)  # anything else must be hashable (str, numbers, None, bool)
     return value
+
+
+def _check_every(every) -> int:
+    if isinstance(every, bool) or not isinstance(every, (int, np.integer)) or int(every) < 1:
+        raise SaxsInputError(f"every must be a positive integer (a frame step), got {every!r}",
+                             parameter="every")
+    return int(every)
+
+
+def _split_every(params: Mapping[str, Any]) -> tuple[int, dict[str, Any]]:
+    """``(every, the other parameters)`` of a ``result(...)`` call."""
+    params = dict(params)
+    return _check_every(params.pop("every", 1)), params
 
 
 def is_lazy(da) -> bool:
@@ -200,6 +214,8 @@ class SeriesModel(BackgroundResults):
         self._pending: list = []
         self._loop = None
         self._tasks = [0, 0]  # dask tasks started, finished (background progress)
+        #: Seconds each whole-series result took to compute (see :meth:`result`).
+        self.timings: dict[str, float] = {}
         super().__init__(**kwargs)
         if frame:
             self.frame = int(frame)
@@ -439,21 +455,34 @@ class SeriesModel(BackgroundResults):
 
     def key(self, analysis: str, /, **params) -> tuple:
         """The cache key of ``result(analysis, **params)``: the analysis and all its
-        arguments (defaults filled in), frozen."""
+        arguments (defaults filled in), frozen; ``every`` > 1 is a third element."""
+        every, params = _split_every(params)
         args = self._arguments(analysis, params)
-        return (analysis, _freeze(args))
+        key = (analysis, _freeze(args))
+        return key if every == 1 else (*key, ("every", every))
 
-    def _resolve(self, analysis: str, args: dict[str, Any]) -> dict[str, Any]:
+    def thinned(self, every: int = 1) -> xr.Dataset:
+        """``ds.isel(frame=slice(None, None, every))`` (the series itself for 1), made once."""
+        every = _check_every(every)
+        if every == 1:
+            return self.ds
+        cache = self.__dict__.setdefault("_thinned", {})
+        if every not in cache:
+            cache[every] = self.ds.isel(frame=slice(None, None, every))
+        return cache[every]
+
+    def _resolve(self, analysis: str, args: dict[str, Any], every: int = 1) -> dict[str, Any]:
         """Replace the inputs of ``analysis`` that are options (or absent) by cached results."""
         needed = dict(INPUTS.get(analysis, {}))
         if analysis == "kratky" and args.get("normalize") != "rg":
             needed = {}  # the plain transform uses no Guinier fit
         for arg, source in needed.items():
             value = args.get(arg)
+            extra = {} if every == 1 else {"every": every}
             if value is None:
-                args[arg] = self.result(source)
+                args[arg] = self.result(source, **extra)
             elif isinstance(value, Mapping):
-                args[arg] = self.result(source, **value)
+                args[arg] = self.result(source, **extra, **value)
         return args
 
     def compute(self, analysis: str, /, **params):
@@ -472,12 +501,17 @@ class SeriesModel(BackgroundResults):
         ----------
         analysis : one of :data:`ANALYSES`.
         **params : the accessor method's arguments; an input of :data:`INPUTS` may be
-            a dict of options of the analysis that produces it.
+            a dict of options of the analysis that produces it. One more keyword,
+            ``every`` (int, default 1), computes the analysis on every ``every``-th frame
+            only (``ds.isel(frame=slice(None, None, every)).saxs.<analysis>``, its inputs
+            on the same frames): what a panel shows at a fixed decimation on a big series.
 
         Returns
         -------
         The computed (in-memory) result, the same object on every call with the same
-        parameters (an exception is raised again, not cached).
+        parameters (an exception is raised again, not cached). The time of the
+        computation itself (inputs from the cache not counted) is kept in
+        :attr:`timings` under the analysis' name (with ", every k-th frame").
         """
         key = self.key(analysis, **params)
         with self._lock:
@@ -487,20 +521,24 @@ class SeriesModel(BackgroundResults):
             job = self._jobs.get(key)
         if job is not None and threading.current_thread() is not self._worker:
             return job.result()  # computing in the background: wait for it (errors raised)
-        args = self._resolve(analysis, self._arguments(analysis, params))
+        every, own = _split_every(params)
+        args = self._resolve(analysis, self._arguments(analysis, own), every)
         kw = {}
         if self.lazy and threading.current_thread() is self._worker and _row_scheduler() == "sync":
             # the background thread computes its chunks one after the other itself (no
             # distributed client): the other core stays free for the notebook
             kw = {"scheduler": "sync"}
-        out = getattr(self.ds.saxs, analysis)(**args).compute(**kw)
+        t0 = time.perf_counter()
+        out = getattr(self.thinned(every).saxs, analysis)(**args).compute(**kw)
+        label = analysis if every == 1 else f"{analysis}, every {every}th frame"
+        self.timings[label] = time.perf_counter() - t0
         # Datasets passed as inputs are kept with the entry: their id is in the key
-        kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
+        kept = tuple(v for v in own.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
         with self._lock:
             self._results[key] = (out, kept)
-            # the automatic results (default arguments) stay: other results and every frame
-            # step build on them; the others go least recently used first
-            spare = [k for k in self._results if k != self.key(k[0])]
+            # the automatic results (default arguments, on all frames or thinned) stay: other
+            # results and every frame step build on them; the others go least recently used first
+            spare = [k for k in self._results if k[:2] != self.key(k[0])]
             while len(self._results) > max(self.max_results, 1) and spare:
                 del self._results[spare.pop(0)]
         return out
