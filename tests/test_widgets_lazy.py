@@ -162,3 +162,66 @@ def test_dask_random_series_opens(never_whole):
         dash.frame = 7
         dash.wait()
     assert dash.panels["curve"].result.sizes["frame"] == 1
+
+
+def test_peaks_on_every_kth_frame_of_a_big_deferred_series(ramp, monkeypatch):
+    """A deferred model of more than PEAK_FRAMES frames finds the peaks of every k-th
+    frame: the panel's result is the accessor's on those frames (its exported code gives
+    it again), a frame between shows the nearest analysed one, and the button analyses
+    every frame (the accessor's result on the whole series)."""
+    import saxsnb.widgets.peaks as peaks_mod
+
+    monkeypatch.setattr(peaks_mod, "PEAK_FRAMES", 25)  # 60 frames -> every 3rd
+    dash = saxsnb.explore(ramp, panels=("browser", "peaks"), wait=False, frame=4)
+    p = dash.panels["peaks"]
+    assert p.every == 3 and "one frame in 3" in p.every_note.value
+    dash.wait()
+    thin = ramp.isel(frame=slice(None, None, 3))
+    direct = thin.saxs.index_phases(thin.saxs.find_peaks())
+    xr.testing.assert_identical(p.result, direct)
+    assert p.analysed_frame() == 3 and "nearest analysed frame" in p.table.value
+    xr.testing.assert_identical(_run_steps(p.to_code("out"), ramp), direct)
+    assert any("one frame in 3" in k for k in dash.model.timings)
+    p.override(7, "lamellar")  # frame 7 -> the nearest analysed frame, 6
+    assert list(p.overrides) == [6] and str(p.result["status"].values[2]) == "override"
+    xr.testing.assert_identical(_run_steps(p.to_code("out"), ramp), p.result)
+    p.clear_override(6)
+    p.analyse_every_frame()
+    dash.wait()
+    assert p.every == 1 and p.every_button.layout.display == "none"
+    xr.testing.assert_identical(p.result, ramp.saxs.index_phases(ramp.saxs.find_peaks()))
+
+
+def _run_steps(code: str, ds):
+    """The panel's own steps of exported code (after the series' recipe), run on ``ds``."""
+    steps = "\n".join(line for line in code.splitlines() if line.startswith(("out", "# peaks of one")))
+    assert "ramp.isel(frame=slice(None, None, 3))" in steps
+    ns = {"ramp": ds}
+    exec(steps, ns)
+    return ns["out"]
+
+
+def test_model_every_keyword(ramp):
+    model = SeriesModel(ramp)
+    a = model.result("guinier", every=4)
+    xr.testing.assert_identical(a, ramp.isel(frame=slice(None, None, 4)).saxs.guinier())
+    assert model.result("guinier", every=4) is a and model.key("guinier", every=1) == model.key("guinier")
+    assert "guinier, one frame in 4" in model.timings
+    with pytest.raises(SaxsInputError, match="every"):
+        model.result("guinier", every=0)
+
+
+def test_marks_send_float32_and_keep_float64(ramp):
+    from saxsnb.widgets import _bq as bq
+
+    dash = saxsnb.explore(ramp, panels=("curve",), frame=2)
+    c = dash.panels["curve"]
+    state = c.curve.get_state()
+    assert state["y"]["dtype"] == "float32" and c.curve.y.dtype == np.float64
+    # float32 on the wire: relative rounding <= 2**-24 (IEEE 754 single precision, common practice)
+    wire = np.frombuffer(state["y"]["value"], dtype=np.float32)
+    np.testing.assert_allclose(wire, c.curve.y, rtol=2.0**-24)
+    # values float32 cannot hold go as float64
+    assert bq.wire_array(np.array([1e-300, 1.0])).dtype == np.float64
+    assert bq.wire_array(np.array([1e39])).dtype == np.float64
+    assert bq.wire_array(np.array([0.0, np.nan, np.inf, 3.0])).dtype == np.float32

@@ -118,7 +118,7 @@ class BackgroundResults(traitlets.HasTraits):
                                                 name="saxsnb-panels")
                 self._worker.start()
             every = params.get("every", 1)
-            self._job_names[key] = analysis if every == 1 else f"{analysis} (every {every}th frame)"
+            self._job_names[key] = analysis if every == 1 else f"{analysis} (one frame in {every})"
             job = Future()
             self._jobs[key] = job
             self._queue.put((job, key, analysis, params))

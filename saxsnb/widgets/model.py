@@ -511,7 +511,7 @@ class SeriesModel(BackgroundResults):
         The computed (in-memory) result, the same object on every call with the same
         parameters (an exception is raised again, not cached). The time of the
         computation itself (inputs from the cache not counted) is kept in
-        :attr:`timings` under the analysis' name (with ", every k-th frame").
+        :attr:`timings` under the analysis' name (with ", one frame in k").
         """
         key = self.key(analysis, **params)
         with self._lock:
@@ -530,7 +530,7 @@ class SeriesModel(BackgroundResults):
             kw = {"scheduler": "sync"}
         t0 = time.perf_counter()
         out = getattr(self.thinned(every).saxs, analysis)(**args).compute(**kw)
-        label = analysis if every == 1 else f"{analysis}, every {every}th frame"
+        label = analysis if every == 1 else f"{analysis}, one frame in {every}"
         self.timings[label] = time.perf_counter() - t0
         # Datasets passed as inputs are kept with the entry: their id is in the key
         kept = tuple(v for v in own.values() if isinstance(v, (xr.Dataset, xr.DataArray)))

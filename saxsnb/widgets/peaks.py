@@ -264,7 +264,7 @@ class PeaksPanel(PanelBase):
             return
         k = self.every
         self.every_note.value = (
-            f"<small>Peaks found, fitted and indexed on every {k}th frame ({len(range(0, n, k))} of {n}; "
+            f"<small>Peaks found, fitted and indexed on one frame in {k} ({len(range(0, n, k))} of {n}; "
             "other frames show the nearest analysed one): </small>")
         self.every_button.layout.display = None
 
@@ -320,7 +320,7 @@ class PeaksPanel(PanelBase):
         if self.model.deferred and self.model.peek("phase_map", **pm) is None:
             # every frame's peaks, indexing and phase map in the background: the curve is
             # drawn now, the rest when they arrive
-            which = "every frame" if self.every == 1 else f"every {self.every}th frame"
+            which = "every frame" if self.every == 1 else f"one frame in {self.every}"
             self.table.value = (f"<small>&#8987; finding, fitting and indexing the peaks of {which} "
                                 "in the background&hellip;</small>")
             self.model.when_ready("phase_map", self._analysis_arrived, **pm)
@@ -342,7 +342,7 @@ class PeaksPanel(PanelBase):
         self._map_rows = np.arange(0, rows, step)  # positions in the (thinned) results
         shown = step * self.every
         self.map_note.value = (
-            f"<small>Maps show every {shown}th frame ({self._map_rows.size} of {n}).</small>"
+            f"<small>Maps show one frame in {shown} ({self._map_rows.size} of {n}).</small>"
             if shown > 1
             else ""
         )
@@ -523,7 +523,7 @@ class PeaksPanel(PanelBase):
         f = i * self.every
         if f != self.frame:
             extra.insert(0, f"<b>peaks and phase of {e(self.frame_label(f))}</b>, the nearest analysed frame "
-                            f"(every {self.every}th frame analysed)")
+                            f"(one frame in {self.every} analysed)")
         style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"
         return (
             f"{style}<table class='saxsnb-phases'><tr><th>phase</th><th>lattice</th>"
@@ -545,7 +545,7 @@ class PeaksPanel(PanelBase):
                 for k, v in sorted(self.overrides.items())
             }
             io = ", ".join(x for x in (io, f"overrides={ov!r}") if x)
-        lines = [f"# peaks of every {self.every}th frame (as the panel shows them)"] if self.every > 1 else []
+        lines = [f"# peaks of one frame in {self.every} (as the panel shows them)"] if self.every > 1 else []
         return lines + [
             f"{found} = {src}.saxs.find_peaks({fo})",
             f"{target} = {src}.saxs.index_phases({found}{', ' + io if io else ''})",
