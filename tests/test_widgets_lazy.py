@@ -225,3 +225,26 @@ def test_marks_send_float32_and_keep_float64(ramp):
     assert bq.wire_array(np.array([1e-300, 1.0])).dtype == np.float64
     assert bq.wire_array(np.array([1e39])).dtype == np.float64
     assert bq.wire_array(np.array([0.0, np.nan, np.inf, 3.0])).dtype == np.float32
+
+
+def test_trend_plots_draw_one_frame_in_k_of_a_long_series(monkeypatch):
+    import saxsnb.widgets.base as base
+
+    ds, bg = make_series("unfolding", seed=2)
+    ds = ds.saxs.subtract(bg)
+    n = ds.sizes["frame"]
+    k_ = -(-n // 5)
+    monkeypatch.setattr(base, "MAX_TREND_POINTS", 5)  # one frame in k_ drawn
+    dash = saxsnb.explore(ds, panels=("guinier", "kratky"))
+    g, k = dash.panels["guinier"], dash.panels["kratky"]
+    rg = ds.saxs.guinier()["rg"].values[::k_]
+    assert np.isfinite(rg).sum() >= 3
+    np.testing.assert_array_equal(g.trend.y, rg[np.isfinite(rg)])
+    frames = g._point_frames[id(g.trend)]
+    assert np.all(frames % k_ == 0) and f"one frame in {k_} drawn" in g.trend_key.value
+    g._on_point_click(g.trend, {"data": {"index": 2}})
+    assert dash.frame == frames[2]
+    assert f"one frame in {k_} drawn" in k.trend_key.value
+    assert np.all(k._point_frames[id(k.trend_peak)] % k_ == 0)
+    # the tables keep every frame
+    assert g.table_result().sizes["frame"] == n and k.table_result().sizes["frame"] == n

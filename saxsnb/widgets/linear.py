@@ -352,6 +352,8 @@ class LinearFitPanel(PanelBase):
         ]
         if pending:
             entries.append((ROLE["reference"], "&#8987;", "every frame is being fitted in the background"))
+        if self._trend_note():
+            entries.append((ROLE["reference"], "", self._trend_note()))
         return key_html(entries)
 
     def _auto_arrived(self, res, exc) -> None:
@@ -366,7 +368,7 @@ class LinearFitPanel(PanelBase):
         self._draw_points(self.trend, values)
         sig = f"{self.size_var}_sigma"
         if sig in self._auto_series:
-            x, y, kept = finite_points(self.scan_values, values)
+            x, y, kept = self._trend_points(values)
             s_ = np.asarray(self._auto_series[sig].values, dtype=float)[kept]
             bx, by = errorbar_segments(x, y, s_)
             self._set_line(self.trend_bars, bx, by)
@@ -414,7 +416,7 @@ class LinearFitPanel(PanelBase):
     def _draw_points(self, mark, values) -> bool:
         """Draw per-frame values against the scan (finite points only; a browser
         cannot place a NaN), remembering which frame each drawn point is."""
-        x, y, frames = finite_points(self.scan_values, values)
+        x, y, frames = self._trend_points(values)
         shown = self._set_points(mark, x, y)
         self._point_frames[id(mark)] = frames if shown else np.zeros(0, dtype=int)
         return shown
@@ -443,7 +445,7 @@ class LinearFitPanel(PanelBase):
                 self._set_result(series)
                 self._draw_fixed_trend(series)
         else:
-            self._set_result(one.isel(frame=[k]))
+            self._set_result(one.isel(frame=slice(k, k + 1)))  # = isel(frame=[k]), twice as fast
             if not frame_only and self.trend_fixed.visible:
                 self.trend_fixed.visible = False
         var = one.variables
