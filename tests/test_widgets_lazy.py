@@ -248,3 +248,22 @@ def test_trend_plots_draw_one_frame_in_k_of_a_long_series(monkeypatch):
     assert np.all(k._point_frames[id(k.trend_peak)] % k_ == 0)
     # the tables keep every frame
     assert g.table_result().sizes["frame"] == n and k.table_result().sizes["frame"] == n
+
+
+def test_distance_trends_of_one_frame_in_k_in_the_background(monkeypatch):
+    """On a deferred model the distance panel opens at once (its current frame only) and
+    the automatic p(r) trends arrive from one frame in k, equal to the accessor's there."""
+    import saxsnb.widgets.distance as dist
+
+    ds, bg = make_series("unfolding", seed=2)
+    ds = ds.saxs.subtract(bg).isel(frame=slice(0, 12))
+    monkeypatch.setattr(dist, "DISTANCE_FRAMES", 4)  # 12 frames -> one frame in 3
+    dash = saxsnb.explore(ds, panels=("distance",), wait=False, frame=4)
+    p = dash.panels["distance"]
+    assert p.every == 3 and p.series is None and "one frame in 3" in p.trend_note.value
+    xr.testing.assert_identical(p.result, ds.isel(frame=[4]).saxs.distance_distribution())
+    dash.wait()
+    thin = ds.isel(frame=slice(None, None, 3))
+    xr.testing.assert_identical(p.series, thin.saxs.distance_distribution())
+    assert np.all(p._point_frames[id(p.trend_dmax)] % 3 == 0)
+    assert p.trend_guinier.x.size == np.isfinite(ds.saxs.guinier()["rg"].values).sum()
