@@ -471,10 +471,21 @@ class SeriesModel(BackgroundResults):
     def key(self, analysis: str, /, **params) -> tuple:
         """The cache key of ``result(analysis, **params)``: the analysis and all its
         arguments (defaults filled in), frozen; ``every`` > 1 is a third element."""
-        every, params = _split_every(params)
-        args = self._arguments(analysis, params)
+        try:  # keys of plain parameters are kept (asked for at every frame step)
+            memo = (analysis, tuple(sorted(params.items())))
+            hash(memo)
+        except TypeError:
+            memo = None
+        cache = self.__dict__.setdefault("_key_memo", {})
+        if memo is not None and memo in cache:
+            return cache[memo]
+        every, own = _split_every(params)
+        args = self._arguments(analysis, own)
         key = (analysis, _freeze(args))
-        return key if every == 1 else (*key, ("every", every))
+        key = key if every == 1 else (*key, ("every", every))
+        if memo is not None and len(cache) < 256:
+            cache[memo] = key
+        return key
 
     def thinned(self, every: int = 1) -> xr.Dataset:
         """``ds.isel(frame=slice(None, None, every))`` (the series itself for 1), made once."""
