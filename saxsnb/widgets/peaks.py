@@ -46,6 +46,8 @@ def default_every(model) -> int:
     if not model.deferred or n <= PEAK_FRAMES:
         return 1
     return int(np.ceil(n / PEAK_FRAMES))
+
+
 _AUTO = "(automatic)"
 
 
