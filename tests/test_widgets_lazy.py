@@ -20,7 +20,7 @@ from saxsnb.demo import make_series
 from saxsnb.errors import SaxsInputError
 from saxsnb.widgets import SeriesModel
 from saxsnb.widgets.dashboard import DEFAULT_PANELS
-from saxsnb.widgets.model import ROW_BLOCK
+from saxsnb.widgets.model import ROW_BLOCK, is_lazy
 
 
 @pytest.fixture(scope="module")
@@ -267,3 +267,15 @@ def test_distance_trends_of_one_frame_in_k_in_the_background(monkeypatch):
     xr.testing.assert_identical(p.series, thin.saxs.distance_distribution())
     assert np.all(p._point_frames[id(p.trend_dmax)] % 3 == 0)
     assert p.trend_guinier.x.size == np.isfinite(ds.saxs.guinier()["rg"].values).sum()
+
+
+def test_lazy_thinned_peaks_equal_the_in_memory_ones(ramp, never_whole, monkeypatch):
+    import saxsnb.widgets.peaks as peaks_mod
+
+    monkeypatch.setattr(peaks_mod, "PEAK_FRAMES", 25)  # 60 frames -> one frame in 3
+    dash = saxsnb.explore(ramp.chunk({"frame": 16}), panels=("peaks",), frame=7)
+    dash.wait()
+    p = dash.panels["peaks"]
+    thin = ramp.isel(frame=slice(None, None, 3))
+    assert p.every == 3 and not is_lazy(dash.model.thinned(3)["intensity"])
+    xr.testing.assert_identical(p.result, thin.saxs.index_phases(thin.saxs.find_peaks()))
