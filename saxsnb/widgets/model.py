@@ -105,6 +105,11 @@ def _freeze(value) -> Any:
     return value
 
 
+def _strided_rows(block: np.ndarray, start: int, every: int) -> np.ndarray:
+    """The rows of a chunk starting at frame ``start`` whose frame is a multiple of ``every``."""
+    return np.ascontiguousarray(np.asarray(block)[(-start) % every::every])
+
+
 def _check_every(every) -> int:
     if isinstance(every, bool) or not isinstance(every, (int, np.integer)) or int(every) < 1:
         raise SaxsInputError(f"every must be a positive integer (a frame step), got {every!r}",
@@ -505,9 +510,31 @@ class SeriesModel(BackgroundResults):
                 # a few thousand frames: read once (every chunk is read for them anyway) and
                 # analysed in memory, which is several times faster than the same analysis
                 # over a hundred dask chunks of a few frames each (measured in bench_widgets)
-                thin = thin.compute(scheduler=_row_scheduler())
+                thin = self._thin_in_memory(thin, every)
             cache[every] = thin
         return cache[every]
+
+    def _thin_in_memory(self, thin: xr.Dataset, every: int) -> xr.Dataset:
+        """``thin`` (``ds`` thinned to one frame in ``every``) in memory, its (frame, q)
+        variables taken chunk by chunk: each task reads one chunk and keeps its thinned
+        rows only, so no more than a chunk or two is ever held (a plain ``compute()``
+        may read every chunk before slicing any)."""
+        import dask
+
+        big = self._big()
+        out = thin.drop_vars(big).compute(scheduler=_row_scheduler())
+        take = dask.delayed(_strided_rows, pure=True)
+        for k in big:
+            data = self.ds[k].data
+            if not is_lazy(self.ds[k]):
+                rows = np.asarray(data)[::every]
+            else:
+                data = data.rechunk({1: -1}) if len(data.chunks[1]) > 1 else data
+                starts = np.concatenate([[0], np.cumsum(data.chunks[0])[:-1]])
+                parts = [take(b, int(a), every) for b, a in zip(data.to_delayed()[:, 0], starts)]
+                rows = np.concatenate(dask.compute(*parts, scheduler=_row_scheduler()))
+            out[k] = (("frame", "q"), rows, self.ds[k].attrs)
+        return out[list(self.ds.data_vars)]
 
     def _resolve(self, analysis: str, args: dict[str, Any], every: int = 1) -> dict[str, Any]:
         """Replace the inputs of ``analysis`` that are options (or absent) by cached results."""
