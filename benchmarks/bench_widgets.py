@@ -35,6 +35,10 @@ computed array fail the run if the whole (frame, q) arrays are ever computed. Pr
 open time and peak resident memory (targets <= 10 s, <= 1 GB), steps (<= 30 ms,
 <= 100 kB), the background work's time and peak memory. The files are removed.
 
+Each step time is printed with the CPU time of the notebook thread (``time.thread_time``:
+what the step itself costs, whatever else runs on a loaded machine), and the background
+work with the time of each of its parts (``dashboard.model.timings``).
+
 Run: ``.venv/bin/python benchmarks/bench_widgets.py [--frames N] [--steps K] [--lazy]``.
 """
 
