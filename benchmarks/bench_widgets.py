@@ -35,6 +35,10 @@ computed array fail the run if the whole (frame, q) arrays are ever computed. Pr
 open time and peak resident memory (targets <= 10 s, <= 1 GB), steps (<= 30 ms,
 <= 100 kB), the background work's time and peak memory. The files are removed.
 
+Each step time is printed with the CPU time of the notebook thread (``time.thread_time``:
+what the step itself costs, whatever else runs on a loaded machine), and the background
+work with the time of each of its parts (``dashboard.model.timings``).
+
 Run: ``.venv/bin/python benchmarks/bench_widgets.py [--frames N] [--steps K] [--lazy]``.
 """
 
@@ -124,24 +128,28 @@ def main(argv=None) -> dict:
     start = n // 3
     if deferred:
         during_ms, during_kb = _steps(dash, start, args.steps)
-        print(f"frame step while the background work runs: median {during_ms:.1f} ms, {during_kb:.1f} kB")
+        print(f"frame step while the background work runs: median {during_ms:.1f} ms "
+              f"({_steps.cpu_ms:.1f} ms CPU of this thread), {during_kb:.1f} kB")
         t0 = time.perf_counter()
         dash.wait()
-        print(f"background work done {t_open + time.perf_counter() - t0:.1f} s after explore() was called")
+        print(f"background work done {t_open + time.perf_counter() - t0:.1f} s after explore() was called; "
+              f"each part: {_timings(dash.model)}")
         start += args.steps
 
     # frame steps
-    times, sizes = [], []
+    times, sizes, cpu = [], [], []
     for k in range(args.steps):
         RecordingComm.log.clear()
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.thread_time()
         dash.frame = start + k
         times.append(time.perf_counter() - t)
+        cpu.append(time.thread_time() - c)
         sizes.append(sum(RecordingComm.log))
     step_ms = 1e3 * statistics.median(times)
     step_kb = statistics.median(sizes) / 1e3
     print(
-        f"frame step: median {step_ms:.1f} ms (max {1e3 * max(times):.1f} ms), "
+        f"frame step: median {step_ms:.1f} ms (max {1e3 * max(times):.1f} ms; "
+        f"{1e3 * statistics.median(cpu):.1f} ms CPU), "
         f"median {step_kb:.1f} kB (max {max(sizes) / 1e3:.1f} kB) in {len(RecordingComm.log)} messages"
     )
 
@@ -189,15 +197,24 @@ def main(argv=None) -> dict:
 
 
 def _steps(dash, start: int, steps: int) -> tuple[float, float]:
-    """Median time (ms) and bytes (kB) of ``steps`` frame steps from ``start``."""
-    times, sizes = [], []
+    """Median time (ms) and bytes (kB) of ``steps`` frame steps from ``start``; the
+    median CPU time of this thread per step (ms, what the step itself costs whatever
+    else runs) is kept in ``_steps.cpu_ms``."""
+    times, sizes, cpu = [], [], []
     for k in range(steps):
         RecordingComm.log.clear()
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.thread_time()
         dash.frame = start + k
         times.append(time.perf_counter() - t)
+        cpu.append(time.thread_time() - c)
         sizes.append(sum(RecordingComm.log))
+    _steps.cpu_ms = 1e3 * statistics.median(cpu)
     return 1e3 * statistics.median(times), statistics.median(sizes) / 1e3
+
+
+def _timings(model) -> str:
+    """The time of each whole-series result the background computed (``model.timings``)."""
+    return "; ".join(f"{k} {v:.1f} s" for k, v in model.timings.items()) or "none"
 
 
 class RowFile:
@@ -316,7 +333,8 @@ def lazy_main(n: int, steps: int, wait_s: float = 1200.0) -> dict:
             print(f"explore() on the lazy series: {t_open:.2f} s to open (target <= 10 s), peak resident "
                   f"memory {mem.peak / 1e9:.2f} GB (target <= 1 GB), {opened / 1e6:.2f} MB sent once")
             during_ms, during_kb = _steps(dash, n // 3, steps)
-            print(f"frame step while the background work runs: median {during_ms:.1f} ms, {during_kb:.1f} kB")
+            print(f"frame step while the background work runs: median {during_ms:.1f} ms "
+                  f"({_steps.cpu_ms:.1f} ms CPU of this thread), {during_kb:.1f} kB")
             with _Peak() as mem2:
                 t0 = time.perf_counter()
                 try:
@@ -326,16 +344,23 @@ def lazy_main(n: int, steps: int, wait_s: float = 1200.0) -> dict:
                     done = "NOT done"
                 t_bg = time.perf_counter() - t0
             print(f"background work (whole-series fits, peaks, shape summary) {done} {t_open + t_bg:.0f} s "
-                  f"after explore() was called; peak resident memory meanwhile {mem2.peak / 1e9:.2f} GB")
+                  f"after explore() was called; peak resident memory meanwhile {mem2.peak / 1e9:.2f} GB; "
+                  f"each part: {_timings(dash.model)}")
             step_ms, step_kb = _steps(dash, n // 2, steps)
+            step_cpu = _steps.cpu_ms
+            t = time.perf_counter()
+            for k in range(5):
+                dash.model.part([n // 4 + 7 * k]).saxs.guinier()
+            base_ms = 1e3 * (time.perf_counter() - t) / 5
         finally:
             restore()
         verdict = "ok" if step_ms <= 30 and step_kb <= 100 else "OVER TARGET"
-        print(f"frame step: median {step_ms:.1f} ms, {step_kb:.1f} kB "
-              f"(targets <= 30 ms, <= 100 kB: {verdict}); load average {os.getloadavg()[0]:.1f} "
-              f"on {os.cpu_count()} cores")
+        print(f"frame step: median {step_ms:.1f} ms ({step_cpu:.1f} ms CPU), {step_kb:.1f} kB "
+              f"(targets <= 30 ms, <= 100 kB: {verdict}); baseline: one per-frame accessor call "
+              f"{base_ms:.1f} ms (the step does all panels in {step_ms / base_ms:.2f}x that); "
+              f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
         return {"open_s": t_open, "open_peak_gb": mem.peak / 1e9, "step_ms": step_ms, "step_kb": step_kb,
-                "during_ms": during_ms, "background_s": t_bg}
+                "during_ms": during_ms, "background_s": t_bg, "timings": dict(dash.model.timings)}
     finally:
         for p in paths.values():
             if os.path.exists(p):

@@ -20,7 +20,7 @@ from saxsnb.demo import make_series
 from saxsnb.errors import SaxsInputError
 from saxsnb.widgets import SeriesModel
 from saxsnb.widgets.dashboard import DEFAULT_PANELS
-from saxsnb.widgets.model import ROW_BLOCK
+from saxsnb.widgets.model import ROW_BLOCK, is_lazy
 
 
 @pytest.fixture(scope="module")
@@ -162,3 +162,120 @@ def test_dask_random_series_opens(never_whole):
         dash.frame = 7
         dash.wait()
     assert dash.panels["curve"].result.sizes["frame"] == 1
+
+
+def test_peaks_on_every_kth_frame_of_a_big_deferred_series(ramp, monkeypatch):
+    """A deferred model of more than PEAK_FRAMES frames finds the peaks of every k-th
+    frame: the panel's result is the accessor's on those frames (its exported code gives
+    it again), a frame between shows the nearest analysed one, and the button analyses
+    every frame (the accessor's result on the whole series)."""
+    import saxsnb.widgets.peaks as peaks_mod
+
+    monkeypatch.setattr(peaks_mod, "PEAK_FRAMES", 25)  # 60 frames -> every 3rd
+    dash = saxsnb.explore(ramp, panels=("browser", "peaks"), wait=False, frame=4)
+    p = dash.panels["peaks"]
+    assert p.every == 3 and "one frame in 3" in p.every_note.value
+    dash.wait()
+    thin = ramp.isel(frame=slice(None, None, 3))
+    direct = thin.saxs.index_phases(thin.saxs.find_peaks())
+    xr.testing.assert_identical(p.result, direct)
+    assert p.analysed_frame() == 3 and "nearest analysed frame" in p.table.value
+    xr.testing.assert_identical(_run_steps(p.to_code("out"), ramp), direct)
+    assert any("one frame in 3" in k for k in dash.model.timings)
+    p.override(7, "lamellar")  # frame 7 -> the nearest analysed frame, 6
+    assert list(p.overrides) == [6] and str(p.result["status"].values[2]) == "override"
+    xr.testing.assert_identical(_run_steps(p.to_code("out"), ramp), p.result)
+    p.clear_override(6)
+    p.analyse_every_frame()
+    dash.wait()
+    assert p.every == 1 and p.every_button.layout.display == "none"
+    xr.testing.assert_identical(p.result, ramp.saxs.index_phases(ramp.saxs.find_peaks()))
+
+
+def _run_steps(code: str, ds):
+    """The panel's own steps of exported code (after the series' recipe), run on ``ds``."""
+    steps = "\n".join(line for line in code.splitlines() if line.startswith(("out", "# peaks of one")))
+    assert "ramp.isel(frame=slice(None, None, 3))" in steps
+    ns = {"ramp": ds}
+    exec(steps, ns)
+    return ns["out"]
+
+
+def test_model_every_keyword(ramp):
+    model = SeriesModel(ramp)
+    a = model.result("guinier", every=4)
+    xr.testing.assert_identical(a, ramp.isel(frame=slice(None, None, 4)).saxs.guinier())
+    assert model.result("guinier", every=4) is a and model.key("guinier", every=1) == model.key("guinier")
+    assert "guinier, one frame in 4" in model.timings
+    with pytest.raises(SaxsInputError, match="every"):
+        model.result("guinier", every=0)
+
+
+def test_marks_send_float32_and_keep_float64(ramp):
+    from saxsnb.widgets import _bq as bq
+
+    dash = saxsnb.explore(ramp, panels=("curve",), frame=2)
+    c = dash.panels["curve"]
+    state = c.curve.get_state()
+    assert state["y"]["dtype"] == "float32" and c.curve.y.dtype == np.float64
+    # float32 on the wire: relative rounding <= 2**-24 (IEEE 754 single precision, common practice)
+    wire = np.frombuffer(state["y"]["value"], dtype=np.float32)
+    np.testing.assert_allclose(wire, c.curve.y, rtol=2.0**-24)
+    # values float32 cannot hold go as float64
+    assert bq.wire_array(np.array([1e-300, 1.0])).dtype == np.float64
+    assert bq.wire_array(np.array([1e39])).dtype == np.float64
+    assert bq.wire_array(np.array([0.0, np.nan, np.inf, 3.0])).dtype == np.float32
+
+
+def test_trend_plots_draw_one_frame_in_k_of_a_long_series(monkeypatch):
+    import saxsnb.widgets.base as base
+
+    ds, bg = make_series("unfolding", seed=2)
+    ds = ds.saxs.subtract(bg)
+    n = ds.sizes["frame"]
+    k_ = -(-n // 5)
+    monkeypatch.setattr(base, "MAX_TREND_POINTS", 5)  # one frame in k_ drawn
+    dash = saxsnb.explore(ds, panels=("guinier", "kratky"))
+    g, k = dash.panels["guinier"], dash.panels["kratky"]
+    rg = ds.saxs.guinier()["rg"].values[::k_]
+    assert np.isfinite(rg).sum() >= 3
+    np.testing.assert_array_equal(g.trend.y, rg[np.isfinite(rg)])
+    frames = g._point_frames[id(g.trend)]
+    assert np.all(frames % k_ == 0) and f"one frame in {k_} drawn" in g.trend_key.value
+    g._on_point_click(g.trend, {"data": {"index": 2}})
+    assert dash.frame == frames[2]
+    assert f"one frame in {k_} drawn" in k.trend_key.value
+    assert np.all(k._point_frames[id(k.trend_peak)] % k_ == 0)
+    # the tables keep every frame
+    assert g.table_result().sizes["frame"] == n and k.table_result().sizes["frame"] == n
+
+
+def test_distance_trends_of_one_frame_in_k_in_the_background(monkeypatch):
+    """On a deferred model the distance panel opens at once (its current frame only) and
+    the automatic p(r) trends arrive from one frame in k, equal to the accessor's there."""
+    import saxsnb.widgets.distance as dist
+
+    ds, bg = make_series("unfolding", seed=2)
+    ds = ds.saxs.subtract(bg).isel(frame=slice(0, 12))
+    monkeypatch.setattr(dist, "DISTANCE_FRAMES", 4)  # 12 frames -> one frame in 3
+    dash = saxsnb.explore(ds, panels=("distance",), wait=False, frame=4)
+    p = dash.panels["distance"]
+    assert p.every == 3 and p.series is None and "one frame in 3" in p.trend_note.value
+    xr.testing.assert_identical(p.result, ds.isel(frame=[4]).saxs.distance_distribution())
+    dash.wait()
+    thin = ds.isel(frame=slice(None, None, 3))
+    xr.testing.assert_identical(p.series, thin.saxs.distance_distribution())
+    assert np.all(p._point_frames[id(p.trend_dmax)] % 3 == 0)
+    assert p.trend_guinier.x.size == np.isfinite(ds.saxs.guinier()["rg"].values).sum()
+
+
+def test_lazy_thinned_peaks_equal_the_in_memory_ones(ramp, never_whole, monkeypatch):
+    import saxsnb.widgets.peaks as peaks_mod
+
+    monkeypatch.setattr(peaks_mod, "PEAK_FRAMES", 25)  # 60 frames -> one frame in 3
+    dash = saxsnb.explore(ramp.chunk({"frame": 16}), panels=("peaks",), frame=7)
+    dash.wait()
+    p = dash.panels["peaks"]
+    thin = ramp.isel(frame=slice(None, None, 3))
+    assert p.every == 3 and not is_lazy(dash.model.thinned(3)["intensity"])
+    xr.testing.assert_identical(p.result, thin.saxs.index_phases(thin.saxs.find_peaks()))

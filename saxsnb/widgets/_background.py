@@ -117,7 +117,8 @@ class BackgroundResults(traitlets.HasTraits):
                 self._worker = threading.Thread(target=self._serve, args=(self._queue,), daemon=True,
                                                 name="saxsnb-panels")
                 self._worker.start()
-            self._job_names[key] = analysis
+            every = params.get("every", 1)
+            self._job_names[key] = analysis if every == 1 else f"{analysis} (one frame in {every})"
             job = Future()
             self._jobs[key] = job
             self._queue.put((job, key, analysis, params))

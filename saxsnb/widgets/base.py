@@ -40,6 +40,7 @@ the figures in ``_build()``, compute in ``_update()`` (whole-series results from
 
 from __future__ import annotations
 
+import functools
 import html
 import io
 import keyword
@@ -52,7 +53,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from ..display import describe_status, drawable_line, log_ticks, pretty_label, tick_format
+from ..display import describe_status, drawable_line, finite_points, log_ticks, pretty_label, tick_format
 from ..errors import SaxsInputError
 from . import _bq as bq
 from .model import SeriesModel, as_model
@@ -64,6 +65,16 @@ __all__ = ["PanelBase", "DatasetTrait", "make_figure", "figure_to_matplotlib", "
 
 #: Margins of every figure, in pixels.
 FIG_MARGIN = {"top": 30, "bottom": 48, "left": 64, "right": 16}
+#: Most points a trend plot (per-frame values against the scan) draws: a longer series
+#: draws one frame in k (k = ceil(frames / MAX_TREND_POINTS), said under the plot); the
+#: results and tables keep every frame. Some thousands of points show a trend as well
+#: as 10^5 do, which a browser would draw slowly and which would be sent whole.
+MAX_TREND_POINTS = 4000
+
+
+def trend_step(n_frames: int) -> int:
+    """The frame step of trend plots of a series of ``n_frames`` (see :data:`MAX_TREND_POINTS`)."""
+    return max(1, -(-int(n_frames) // MAX_TREND_POINTS))
 
 
 def make_figure(
@@ -180,6 +191,13 @@ def _rename(code: str, names: dict[str, str]) -> str:
     names = {k: v for k, v in names.items() if k != v}
     if not names:
         return code
+    return _rename_tokens(code, tuple(sorted(names.items())))
+
+
+@functools.lru_cache(maxsize=256)
+def _rename_tokens(code: str, pairs: tuple) -> str:
+    """:func:`_rename` of ``code`` (the code of a frame step recurs: kept, not re-tokenized)."""
+    names = dict(pairs)
     lines = code.splitlines(keepends=True)
     edits = []
     prev = None
@@ -195,8 +213,10 @@ def _rename(code: str, names: dict[str, str]) -> str:
     return "".join(lines)
 
 
-def _names_in(code: str) -> set[str]:
-    return {t.string for t in tokenize.generate_tokens(io.StringIO(code).readline) if t.type == tokenize.NAME}
+@functools.lru_cache(maxsize=256)
+def _names_in(code: str) -> frozenset[str]:
+    tokens = tokenize.generate_tokens(io.StringIO(code).readline)
+    return frozenset(t.string for t in tokens if t.type == tokenize.NAME)
 
 
 def _recipe_lines(ds, name: str) -> list[str] | None:
@@ -229,7 +249,7 @@ def export_code(model: SeriesModel, steps: Sequence[str], *, background=None, na
     keeps ``ds`` (``background``) unless a name was given, and the code says to define it.
     """
     body = "\n".join(steps) + "\n"
-    uses_bg = "background" in _names_in(body)
+    uses_bg = "background" in body and "background" in _names_in(body)  # tokenized only when it may
     out = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
     series = checked_name(name) or model.name or "ds"
     rec = _cached_recipe(model, model.ds, series)
@@ -539,6 +559,18 @@ class PanelBase(widgets.VBox):
             if mark.visible != show:
                 mark.visible = show
         return True
+
+    def _trend_points(self, values):
+        """``finite_points(scan, values)`` of the frames a trend plot draws (one in
+        :func:`trend_step`): x, y and the frame of each point."""
+        k = trend_step(self.n_frames)
+        x, y, idx = finite_points(self.scan_values[::k], np.asarray(values)[::k])
+        return x, y, idx * k
+
+    def _trend_note(self) -> str:
+        """The key entry saying that trend plots draw one frame in k ("" when all)."""
+        k, n = trend_step(self.n_frames), self.n_frames
+        return "" if k == 1 else f"one frame in {k} drawn ({len(range(0, n, k))} of {n})"
 
     # a panel with a brush selector commits it when a drag ends (or from Python)
     def _on_brushing(self, change) -> None:

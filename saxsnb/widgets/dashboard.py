@@ -365,7 +365,14 @@ def explore(
         (on the active dask distributed client for a dask series) and update the
         trends when they arrive, the progress shown above the panels
         (``dashboard.wait()`` blocks until then). Default: False for a dask-backed
-        series or one larger than :data:`DEFER_SIZE` points, else True.
+        series or one larger than :data:`DEFER_SIZE` points, else True. In the
+        background the costly whole-series work is bounded whatever the length of the
+        series: the peaks panel analyses one frame in k of a series longer than
+        ``peaks.PEAK_FRAMES`` (2,000) frames, the distance panel's automatic p(r)
+        trends one frame in k of more than ``distance.DISTANCE_FRAMES`` (100), each
+        panel saying so (the peaks panel has a button for every frame); the fits and
+        the shape summary cover every frame. ``dashboard.model.timings`` gives the
+        time of each part.
 
     Returns
     -------

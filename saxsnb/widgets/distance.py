@@ -19,6 +19,19 @@ __all__ = ["DistancePanel"]
 EVIDENCE_SPAN = 60.0
 
 
+#: Most frames whose automatic p(r) (Dmax and weight chosen by the evidence: seconds per
+#: frame) a deferred model (:func:`saxsnb.explore` on a big or lazy series) computes for
+#: the trends by default: a longer series gets one frame in k, k = ceil(frames /
+#: DISTANCE_FRAMES), said under the trends. The current frame is always its own.
+DISTANCE_FRAMES = 100
+
+
+def distance_every(model) -> int:
+    """The frame step of the distance panel's automatic trends on ``model``."""
+    n = int(model.n_frames)
+    return 1 if not model.deferred or n <= DISTANCE_FRAMES else int(np.ceil(n / DISTANCE_FRAMES))
+
+
 class DistancePanel(PanelBase):
     """The pair-distance distribution p(r) of the current frame and its series trends.
 
@@ -199,6 +212,8 @@ class DistancePanel(PanelBase):
             (OKABE_ITO["reddish_purple"], "&#9679;", "I0 from p(r) (\u00b1\u03c3)"),
             (ROLE["current"], "&#9474;", "current frame"),
         ]))
+        #: Frame step of the automatic series trends (1: every frame; see DISTANCE_FRAMES).
+        self.every = distance_every(self.model)
         self._guinier_rg = self._guinier()
         self._series_for(None)
         controls = [control_row([self.dmax_text, self.dmax_auto, self.weight_slider, self.weight_auto]),
@@ -212,6 +227,9 @@ class DistancePanel(PanelBase):
                         visible=False)
 
     def _guinier(self) -> np.ndarray:
+        if self.model.deferred and self.model.peek("guinier") is None:  # drawn when it arrives
+            self.model.when_ready("guinier", self._guinier_arrived)
+            return np.full(self.n_frames, np.nan)
         try:
             return np.asarray(self.model.result("guinier")["rg"].values, dtype=float)
         except Exception as exc:  # shown in the status line
@@ -227,21 +245,47 @@ class DistancePanel(PanelBase):
         """The whole-series ``ds.saxs.distance_distribution(**params)`` from the model's cache."""
         return self.model.result("distance_distribution", **params)
 
+    def _guinier_arrived(self, res, exc) -> None:
+        if exc is None:
+            self._guinier_rg = np.asarray(res["rg"].values, dtype=float)
+            self._draw_points(self.trend_guinier, self._guinier_rg)
+
     def _series_for(self, params) -> None:
-        """Draw the trends of the series result with ``params`` (None: automatic)."""
+        """Draw the trends of the series result with ``params`` (None: automatic, on one
+        frame in ``every``; computed in the background on a deferred model)."""
+        every = self.every if params is None else 1
+        extra = {} if every == 1 else {"every": every}
+        pending = self.model.deferred and self.model.peek("distance_distribution", **extra) is None
+        if params is None and pending:
+            which = "every frame" if every == 1 else f"one frame in {every}"
+            self.trend_note.value = (f"<small>&#8987; p(r) of {which} (automatic Dmax and weight) "
+                                     "being computed in the background</small>")
+            self._series_params = None
+            self.model.when_ready("distance_distribution", self._auto_arrived, **extra)
+            return
         try:
-            res = self.series_result(**(params or {}))
+            res = self.series_result(**extra, **(params or {}))
         except Exception as exc:  # shown in the status line
             self.report(exc, "p(r) of the series")
             return
+        self._draw_series(res, params, every)
+
+    def _auto_arrived(self, res, exc) -> None:
+        if exc is not None:
+            self.report(exc, "p(r) of the series")
+        elif self._series_params is None:  # still showing the automatic trends
+            self._draw_series(res, None, self.every)
+
+    def _draw_series(self, res, params, every: int = 1) -> None:
         self.set_trait("series", res)
         self._series_params = params
         trends = ((self.trend_rg, self.rg_bars, "rg"), (self.trend_dmax, self.dmax_bars, "dmax"),
                   (self.trend_i0, self.i0_bars, "i0"))
+        scan = self.scan_values[::every]
         for mark, bars, var in trends:
-            self._draw_points(mark, res[var].values)
+            self._draw_points(mark, res[var].values, every)
             sig = f"{var}_sigma"
-            x, y, kept = finite_points(self.scan_values, res[var].values)
+            x, y, kept = finite_points(scan, res[var].values)
             s_ = np.asarray(res[sig].values, dtype=float)[kept] if sig in res else np.zeros(0)
             if x.size and np.isfinite(s_).any():
                 self._set_line(bars, *errorbar_segments(x, y, s_))
@@ -250,13 +294,17 @@ class DistancePanel(PanelBase):
         self._draw_points(self.trend_guinier, self._guinier_rg)
         bad = [f"{k}: {v}" for k, v in zip(*np.unique(res["status"].values, return_counts=True)) if k != "ok"]
         what = "with the panel's choices" if params else "automatic Dmax and weight"
+        if every > 1:
+            what += f", one frame in {every}: {res.sizes['frame']} of {self.n_frames}"
         self.trend_note.value = (f"<small>series ({what}): frames not 'ok': "
                                  f"{', '.join(bad) if bad else 'none'}</small>")
 
-    def _draw_points(self, mark, values) -> None:
-        x, y, frames = finite_points(self.scan_values, values)
+    def _draw_points(self, mark, values, every: int = 1) -> None:
+        """Per-frame values of one frame in ``every`` against the scan (``values`` holds
+        those frames only when ``every`` > 1)."""
+        x, y, frames = finite_points(self.scan_values[::every], values)
         shown = self._set_points(mark, x, y)
-        self._point_frames[id(mark)] = frames if shown else np.zeros(0, dtype=int)
+        self._point_frames[id(mark)] = frames * every if shown else np.zeros(0, dtype=int)
 
     @traitlets.validate("q_range")
     def _check_range(self, proposal):

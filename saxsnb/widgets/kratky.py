@@ -12,7 +12,6 @@ import xarray as xr
 from ..display import (
     KRATKY_REFERENCES,
     errorbar_segments,
-    finite_points,
     format_value,
     pretty_label,
     scaled_q,
@@ -196,6 +195,8 @@ class KratkyPanel(PanelBase):
             (OKABE_ITO["black"], "- -", "chain plateau 2"),
             (ROLE["current"], "&#9474;", "current frame"),
         ]
+        if self._trend_note():
+            key.append((ROLE["reference"], "", self._trend_note()))
         self.trend_key = widgets.HTML(key_html(key))
         self.figures = [fig, tfig]
         self.toggle = widgets.ToggleButtons(
@@ -219,7 +220,7 @@ class KratkyPanel(PanelBase):
         if self.summary is None:
             return
         for mark, var in ((self.trend_peak, "peak_height"), (self.trend_level, "level_high")):
-            x, y, frames = finite_points(self.scan_values, self.summary[var].values)
+            x, y, frames = self._trend_points(self.summary[var].values)
             if self._set_points(mark, x, y):
                 self._point_frames[id(mark)] = frames
 
@@ -288,7 +289,7 @@ class KratkyPanel(PanelBase):
                 g = self._guinier()
                 da = part.saxs.kratky(normalize="rg", guinier=None if g is None else g.isel(frame=frames))
             self._block = (key, da.compute())
-        return self._block[1].isel(frame=[i - start])
+        return self._block[1].isel(frame=slice(i - start, i - start + 1))  # = [i - start], faster
 
     def _update(self) -> None:
         i = self.frame

@@ -41,6 +41,7 @@ import inspect
 import keyword
 import queue
 import threading
+import time
 from collections import OrderedDict
 from collections.abc import Mapping
 from concurrent.futures import Future
@@ -63,6 +64,11 @@ __all__ = ["SeriesModel", "as_model", "ANALYSES", "INPUTS", "is_lazy"]
 ROW_BLOCK = 32
 #: ... and blocks kept in memory (the current frame's, a few stepped through).
 ROW_CACHE = 4
+
+#: A lazy series thinned to at most this many points (frames x q) is loaded into memory
+#: for the analyses of its thinned frames (:meth:`SeriesModel.thinned`): 4e6 points are
+#: 64 MB of intensity and sigma.
+THIN_IN_MEMORY = 4_000_000
 
 #: Accessor methods whose whole-series results the model caches.
 ANALYSES = ("guinier", "porod", "invariant", "kratky", "kratky_summary", "find_peaks", "index_phases",
@@ -97,6 +103,24 @@ def _freeze(value) -> Any:
         return value.item()
     hash(value)  # anything else must be hashable (str, numbers, None, bool)
     return value
+
+
+def _strided_rows(block: np.ndarray, start: int, every: int) -> np.ndarray:
+    """The rows of a chunk starting at frame ``start`` whose frame is a multiple of ``every``."""
+    return np.ascontiguousarray(np.asarray(block)[(-start) % every::every])
+
+
+def _check_every(every) -> int:
+    if isinstance(every, bool) or not isinstance(every, (int, np.integer)) or int(every) < 1:
+        raise SaxsInputError(f"every must be a positive integer (a frame step), got {every!r}",
+                             parameter="every")
+    return int(every)
+
+
+def _split_every(params: Mapping[str, Any]) -> tuple[int, dict[str, Any]]:
+    """``(every, the other parameters)`` of a ``result(...)`` call."""
+    params = dict(params)
+    return _check_every(params.pop("every", 1)), params
 
 
 def is_lazy(da) -> bool:
@@ -166,6 +190,7 @@ class SeriesModel(BackgroundResults):
             self._mask = self._read_only(ds["mask"].values) if "mask" in ds.data_vars else None
         self._row_cache: OrderedDict = OrderedDict()
         self._part_cache: OrderedDict = OrderedDict()
+        self._part_blocks: OrderedDict = OrderedDict()
         self._small: xr.Dataset | None = None
         self._positive_range: tuple[float, float] | None = None
         self._overview: dict = {}
@@ -200,6 +225,8 @@ class SeriesModel(BackgroundResults):
         self._pending: list = []
         self._loop = None
         self._tasks = [0, 0]  # dask tasks started, finished (background progress)
+        #: Seconds each whole-series result took to compute (see :meth:`result`).
+        self.timings: dict[str, float] = {}
         super().__init__(**kwargs)
         if frame:
             self.frame = int(frame)
@@ -300,18 +327,37 @@ class SeriesModel(BackgroundResults):
         one-frame part is cached (the panels of one step share it)."""
         one = isinstance(frames, list) and len(frames) == 1
         if one:
+            i = int(frames[0]) % max(self.n_frames, 1)
             with self._lock:
-                hit = self._part_cache.get(int(frames[0]))
+                hit = self._part_cache.get(i)
                 if hit is not None:
                     return hit
+            if self.lazy:
+                # the part of the frame's block of ROW_BLOCK frames (made once per block),
+                # sliced: the same Dataset as ds.isel(frame=[i]) at a fraction of the cost
+                n = i // ROW_BLOCK
+                with self._lock:
+                    block = self._part_blocks.get(n)
+                if block is None:
+                    block = self.part(slice(n * ROW_BLOCK, min((n + 1) * ROW_BLOCK, self.n_frames)))
+                    with self._lock:
+                        self._part_blocks[n] = block
+                        while len(self._part_blocks) > 2:
+                            self._part_blocks.popitem(last=False)
+                out = block.isel(frame=slice(i - n * ROW_BLOCK, i - n * ROW_BLOCK + 1))
+            else:
+                out = self.ds.isel(frame=slice(i, i + 1))  # = isel(frame=[i]), twice as fast
+            with self._lock:
+                self._part_cache[i] = out
+                while len(self._part_cache) > 6:
+                    self._part_cache.popitem(last=False)
+            return out
         if self.lazy:
             big = self._big()
             if self._small is None:  # every variable but the (frame, q) ones, in memory once
                 self._small = self.ds.drop_vars(big).compute(scheduler=_row_scheduler())
             small = self._small.isel(frame=frames)
-            if one:
-                raw = {k: v[None] for k, v in self._raw(int(frames[0])).items()}
-            elif isinstance(frames, slice):
+            if isinstance(frames, slice):
                 raw = self._raw(frames)
             else:
                 raw = self._fetch(frames)
@@ -321,11 +367,6 @@ class SeriesModel(BackgroundResults):
             out = out[list(self.ds.data_vars)]
         else:
             out = self.ds.isel(frame=frames)
-        if one:
-            with self._lock:
-                self._part_cache[int(frames[0])] = out
-                while len(self._part_cache) > 4:
-                    self._part_cache.popitem(last=False)
         return out
 
     def masked(self) -> tuple[np.ndarray, np.ndarray]:
@@ -439,21 +480,74 @@ class SeriesModel(BackgroundResults):
 
     def key(self, analysis: str, /, **params) -> tuple:
         """The cache key of ``result(analysis, **params)``: the analysis and all its
-        arguments (defaults filled in), frozen."""
-        args = self._arguments(analysis, params)
-        return (analysis, _freeze(args))
+        arguments (defaults filled in), frozen; ``every`` > 1 is a third element."""
+        try:  # keys of plain parameters are kept (asked for at every frame step)
+            memo = (analysis, tuple(sorted(params.items())))
+            hash(memo)
+        except TypeError:
+            memo = None
+        cache = self.__dict__.setdefault("_key_memo", {})
+        if memo is not None and memo in cache:
+            return cache[memo]
+        every, own = _split_every(params)
+        args = self._arguments(analysis, own)
+        key = (analysis, _freeze(args))
+        key = key if every == 1 else (*key, ("every", every))
+        if memo is not None and len(cache) < 256:
+            cache[memo] = key
+        return key
 
-    def _resolve(self, analysis: str, args: dict[str, Any]) -> dict[str, Any]:
+    def thinned(self, every: int = 1) -> xr.Dataset:
+        """``ds.isel(frame=slice(None, None, every))`` (the series itself for 1), made once;
+        of a lazy series, in memory when it has at most :data:`THIN_IN_MEMORY` points."""
+        every = _check_every(every)
+        if every == 1:
+            return self.ds
+        cache = self.__dict__.setdefault("_thinned", {})
+        if every not in cache:
+            thin = self.ds.isel(frame=slice(None, None, every))
+            if self.lazy and thin.sizes["frame"] * self.q.size <= THIN_IN_MEMORY:
+                # a few thousand frames: read once (every chunk is read for them anyway) and
+                # analysed in memory, which is several times faster than the same analysis
+                # over a hundred dask chunks of a few frames each (measured in bench_widgets)
+                thin = self._thin_in_memory(thin, every)
+            cache[every] = thin
+        return cache[every]
+
+    def _thin_in_memory(self, thin: xr.Dataset, every: int) -> xr.Dataset:
+        """``thin`` (``ds`` thinned to one frame in ``every``) in memory, its (frame, q)
+        variables taken chunk by chunk: each task reads one chunk and keeps its thinned
+        rows only, so no more than a chunk or two is ever held (a plain ``compute()``
+        may read every chunk before slicing any)."""
+        import dask
+
+        big = self._big()
+        out = thin.drop_vars(big).compute(scheduler=_row_scheduler())
+        take = dask.delayed(_strided_rows, pure=True)
+        for k in big:
+            data = self.ds[k].data
+            if not is_lazy(self.ds[k]):
+                rows = np.asarray(data)[::every]
+            else:
+                data = data.rechunk({1: -1}) if len(data.chunks[1]) > 1 else data
+                starts = np.concatenate([[0], np.cumsum(data.chunks[0])[:-1]])
+                parts = [take(b, int(a), every) for b, a in zip(data.to_delayed()[:, 0], starts)]
+                rows = np.concatenate(dask.compute(*parts, scheduler=_row_scheduler()))
+            out[k] = (("frame", "q"), rows, self.ds[k].attrs)
+        return out[list(self.ds.data_vars)]
+
+    def _resolve(self, analysis: str, args: dict[str, Any], every: int = 1) -> dict[str, Any]:
         """Replace the inputs of ``analysis`` that are options (or absent) by cached results."""
         needed = dict(INPUTS.get(analysis, {}))
         if analysis == "kratky" and args.get("normalize") != "rg":
             needed = {}  # the plain transform uses no Guinier fit
         for arg, source in needed.items():
             value = args.get(arg)
+            extra = {} if every == 1 else {"every": every}
             if value is None:
-                args[arg] = self.result(source)
+                args[arg] = self.result(source, **extra)
             elif isinstance(value, Mapping):
-                args[arg] = self.result(source, **value)
+                args[arg] = self.result(source, **extra, **value)
         return args
 
     def compute(self, analysis: str, /, **params):
@@ -472,12 +566,17 @@ class SeriesModel(BackgroundResults):
         ----------
         analysis : one of :data:`ANALYSES`.
         **params : the accessor method's arguments; an input of :data:`INPUTS` may be
-            a dict of options of the analysis that produces it.
+            a dict of options of the analysis that produces it. One more keyword,
+            ``every`` (int, default 1), computes the analysis on every ``every``-th frame
+            only (``ds.isel(frame=slice(None, None, every)).saxs.<analysis>``, its inputs
+            on the same frames): what a panel shows at a fixed decimation on a big series.
 
         Returns
         -------
         The computed (in-memory) result, the same object on every call with the same
-        parameters (an exception is raised again, not cached).
+        parameters (an exception is raised again, not cached). The time of the
+        computation itself (inputs from the cache not counted) is kept in
+        :attr:`timings` under the analysis' name (with ", one frame in k").
         """
         key = self.key(analysis, **params)
         with self._lock:
@@ -487,20 +586,24 @@ class SeriesModel(BackgroundResults):
             job = self._jobs.get(key)
         if job is not None and threading.current_thread() is not self._worker:
             return job.result()  # computing in the background: wait for it (errors raised)
-        args = self._resolve(analysis, self._arguments(analysis, params))
+        every, own = _split_every(params)
+        args = self._resolve(analysis, self._arguments(analysis, own), every)
         kw = {}
         if self.lazy and threading.current_thread() is self._worker and _row_scheduler() == "sync":
             # the background thread computes its chunks one after the other itself (no
             # distributed client): the other core stays free for the notebook
             kw = {"scheduler": "sync"}
-        out = getattr(self.ds.saxs, analysis)(**args).compute(**kw)
+        t0 = time.perf_counter()
+        out = getattr(self.thinned(every).saxs, analysis)(**args).compute(**kw)
+        label = analysis if every == 1 else f"{analysis}, one frame in {every}"
+        self.timings[label] = time.perf_counter() - t0
         # Datasets passed as inputs are kept with the entry: their id is in the key
-        kept = tuple(v for v in params.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
+        kept = tuple(v for v in own.values() if isinstance(v, (xr.Dataset, xr.DataArray)))
         with self._lock:
             self._results[key] = (out, kept)
-            # the automatic results (default arguments) stay: other results and every frame
-            # step build on them; the others go least recently used first
-            spare = [k for k in self._results if k != self.key(k[0])]
+            # the automatic results (default arguments, on all frames or thinned) stay: other
+            # results and every frame step build on them; the others go least recently used first
+            spare = [k for k in self._results if k[:2] != self.key(k[0])]
             while len(self._results) > max(self.max_results, 1) and spare:
                 del self._results[spare.pop(0)]
         return out

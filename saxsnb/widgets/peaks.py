@@ -22,6 +22,7 @@ from ..display import (
     pretty_label,
     status_message,
 )
+from ..errors import SaxsInputError
 from . import _bq as bq
 from .base import PanelBase, control_row, key_html, make_figure
 from .palette import ROLE
@@ -30,6 +31,23 @@ __all__ = ["PeaksPanel"]
 
 #: Most frames drawn in the peak map and lattice trend (longer series are thinned).
 MAX_MAP_FRAMES = 400
+#: Most frames whose peaks a deferred model (:func:`saxsnb.explore` on a big or lazy
+#: series) finds, fits and indexes in the background by default: a longer series is
+#: analysed on every k-th frame (k = ceil(frames / PEAK_FRAMES), said in the panel),
+#: so the maps arrive in a time that does not grow with the series; the "Analyse every
+#: frame" button (:meth:`PeaksPanel.analyse_every_frame`) asks for all of them.
+PEAK_FRAMES = 2000
+
+
+def default_every(model) -> int:
+    """The frame step of the peaks panel on ``model``: 1 (every frame), or on a deferred
+    model of more than :data:`PEAK_FRAMES` frames ceil(frames / PEAK_FRAMES)."""
+    n = int(model.n_frames)
+    if not model.deferred or n <= PEAK_FRAMES:
+        return 1
+    return int(np.ceil(n / PEAK_FRAMES))
+
+
 _AUTO = "(automatic)"
 
 
@@ -47,6 +65,12 @@ class PeaksPanel(PanelBase):
         Initial hand-made assignments (``ds.saxs.index_phases(..., overrides=...)``).
     find_options, index_options : dict, optional
         Passed to ``ds.saxs.find_peaks`` and ``ds.saxs.index_phases``.
+    every : int, optional
+        Analyse every ``every``-th frame only (``ds.isel(frame=slice(None, None,
+        every))``; default :func:`default_every`: every frame, except on a big series
+        opened by :func:`saxsnb.explore` with its results in the background). A frame
+        between two analysed ones shows its own curve with the peaks and phase of the
+        nearest analysed frame, and the table says which.
 
     Traits
     ------
@@ -68,7 +92,8 @@ class PeaksPanel(PanelBase):
     boundaries : bqplot.Lines
         Phase transitions found by ``ds.saxs.phase_map``.
 
-    ``result`` is the whole-series assignment with the overrides applied.
+    ``result`` is the whole-series assignment with the overrides applied (of the
+    analysed frames: every ``every``-th).
     """
 
     name = "peaks"
@@ -78,8 +103,9 @@ class PeaksPanel(PanelBase):
 
     def __init__(
         self, source, *, frame: int | None = None, overrides=None, find_options=None, index_options=None,
-        **kwargs
+        every: int | None = None, **kwargs
     ):
+        self._init_every = every
         self.find_options = dict(find_options or {})
         self.index_options = dict(index_options or {})
         self.peaks = None
@@ -96,6 +122,11 @@ class PeaksPanel(PanelBase):
 
     # ------------------------------------------------------------------ build
     def _build(self):
+        #: Frame step of the analysis (1: every frame; see the class docstring).
+        self.every = default_every(self.model) if self._init_every is None else int(self._init_every)
+        if self.every < 1:
+            raise SaxsInputError(f"every must be a positive integer, got {self._init_every!r}",
+                                 parameter="every")
         lo, hi = self.model.positive_range()
         xs, ys = bq.LinearScale(), bq.LogScale(min=lo, max=hi)
         self.curve = bq.Lines(
@@ -216,11 +247,45 @@ class PeaksPanel(PanelBase):
         self.clear_button.on_click(lambda _b: self.clear_override())
         self.overrides_text = widgets.HTML("")
         controls = control_row([self.phase_choice, self.lattice_box, self.override_button, self.clear_button])
+        #: Analyse every frame instead of every ``every``-th (shown only when thinned).
+        self.every_button = widgets.Button(
+            description="Analyse every frame", icon="list", layout=widgets.Layout(width="auto"),
+            tooltip="Find, fit and index the peaks of every frame (in the background)",
+        )
+        self.every_button.on_click(lambda _b: self.analyse_every_frame())
+        self.every_note = widgets.HTML("")
         self._analyse()
-        return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.phase_key, self.map_note]
+        return [fig, self.table, controls, self.overrides_text, mfig, tfig, self.phase_key, self.map_note,
+                control_row([self.every_note, self.every_button])]
+
+    def _show_every(self) -> None:
+        n = self.n_frames
+        if self.every == 1:
+            self.every_note.value = ""
+            self.every_button.layout.display = "none"
+            return
+        k = self.every
+        self.every_note.value = (
+            f"<small>Peaks found, fitted and indexed on one frame in {k} ({len(range(0, n, k))} of {n}; "
+            "other frames show the nearest analysed one): </small>")
+        self.every_button.layout.display = None
+
+    def analyse_every_frame(self) -> None:
+        """Find, fit and index the peaks of every frame (``every = 1``; in the background
+        on a deferred model, the maps redrawn when done)."""
+        if self.every == 1:
+            return
+        self.every = 1
+        self.peaks = self.index = None
+        self._lat_range = (None,)
+        self.set_trait("result", None)
+        self._analyse()
+        self._apply()
+        self._update()
 
     def _analysis_arrived(self, res, exc) -> None:
-        if exc is not None and self.model.peek("index_phases", **self._index_params()) is None:
+        index = self.model.peek("index_phases", **self._every(), **self._index_params())
+        if exc is not None and index is None:
             self.report(exc, "peak search / indexing")
             self.table.value = ""
             return
@@ -231,53 +296,74 @@ class PeaksPanel(PanelBase):
     def _index_params(self, overrides=None) -> dict:
         """Arguments of ``model.result("index_phases", ...)``: the peaks by their options."""
         params = {"peaks": dict(self.find_options), **self.index_options}
-        if overrides:
-            params["overrides"] = {int(k): dict(v) for k, v in overrides.items()}
+        if overrides:  # frames of the series -> positions among the analysed frames
+            params["overrides"] = {int(k) // self.every: dict(v) for k, v in overrides.items()}
         return params
 
+    def _every(self) -> dict:
+        return {} if self.every == 1 else {"every": self.every}
+
+    def analysed_frame(self, frame: int | None = None) -> int:
+        """The analysed frame shown for ``frame`` (default: the current one): itself on
+        every frame, else the nearest multiple of ``every`` in the series."""
+        i = self.frame if frame is None else int(frame)
+        return self._row(i) * self.every
+
+    def _row(self, i: int) -> int:
+        """Position of the analysed frame nearest frame ``i`` in the (thinned) results."""
+        if self.every == 1:
+            return int(i)
+        last = (self.n_frames - 1) // self.every
+        return int(min(last, int(np.floor(i / self.every + 0.5))))
+
     def _analyse(self) -> None:
-        pm = {"index": self._index_params()}
+        self._show_every()
+        pm = {"index": self._index_params(), **self._every()}
         if self.model.deferred and self.model.peek("phase_map", **pm) is None:
             # every frame's peaks, indexing and phase map in the background: the curve is
             # drawn now, the rest when they arrive
-            self.table.value = ("<small>&#8987; finding, fitting and indexing the peaks of every frame "
+            which = "every frame" if self.every == 1 else f"one frame in {self.every}"
+            self.table.value = (f"<small>&#8987; finding, fitting and indexing the peaks of {which} "
                                 "in the background&hellip;</small>")
             self.model.when_ready("phase_map", self._analysis_arrived, **pm)
             return
         try:
-            self.peaks = self.model.result("find_peaks", **self.find_options)
-            self.index = self.model.result("index_phases", **self._index_params())
+            self.peaks = self.model.result("find_peaks", **self._every(), **self.find_options)
+            self.index = self.model.result("index_phases", **self._every(), **self._index_params())
         except Exception as exc:  # shown in the status line
             self.report(exc, "peak search / indexing")
             return
         try:
-            pmap = self.model.result("phase_map", index=self._index_params())
+            pmap = self.model.result("phase_map", index=self._index_params(), **self._every())
             self._transitions = json.loads(pmap.attrs.get("transitions", "[]"))
         except Exception as exc:
             self.report(exc, "phase map")
         self._pos = np.asarray(self.peaks["position"].values, dtype=float)
-        n = self.n_frames
-        step = max(1, int(np.ceil(n / MAX_MAP_FRAMES)))
-        self._map_rows = np.arange(0, n, step)
+        n, rows = self.n_frames, self._pos.shape[0]
+        step = max(1, int(np.ceil(rows / MAX_MAP_FRAMES)))
+        self._map_rows = np.arange(0, rows, step)  # positions in the (thinned) results
+        shown = step * self.every
         self.map_note.value = (
-            f"<small>Maps show every {step}th frame ({self._map_rows.size} of {n}).</small>"
-            if step > 1
+            f"<small>Maps show one frame in {shown} ({self._map_rows.size} of {n}).</small>"
+            if shown > 1
             else ""
         )
 
     # ------------------------------------------------------------- overrides
     def override(self, frame: int, phase: str, lattice: float | None = None) -> None:
-        """Record that ``frame`` is ``phase`` (lattice refitted, or the given value in nm)."""
+        """Record that ``frame`` is ``phase`` (lattice refitted, or the given value in nm).
+        When every ``every``-th frame is analysed, the nearest analysed frame is set."""
         if phase not in PHASES:
             self.status = f"unknown phase {phase!r}; choose from {', '.join(PHASES)}"
             return
         new = {k: dict(v) for k, v in self.overrides.items()}
-        new[int(frame)] = {"phase": phase, "lattice": None if lattice is None else float(lattice)}
+        lat = None if lattice is None else float(lattice)
+        new[self.analysed_frame(frame)] = {"phase": phase, "lattice": lat}
         self.overrides = new
 
     def clear_override(self, frame: int | None = None) -> None:
         """Forget the override of ``frame`` (default: the current frame)."""
-        f = self.frame if frame is None else int(frame)
+        f = self.analysed_frame(frame)
         if f in self.overrides:
             self.overrides = {k: dict(v) for k, v in self.overrides.items() if k != f}
 
@@ -297,7 +383,7 @@ class PeaksPanel(PanelBase):
         if self.index is None:
             return
         try:
-            res = (self.model.result("index_phases", **self._index_params(self.overrides))
+            res = (self.model.result("index_phases", **self._every(), **self._index_params(self.overrides))
                    if self.overrides else self.index)
         except Exception as exc:
             self.report(exc, "override")
@@ -313,10 +399,11 @@ class PeaksPanel(PanelBase):
         scan = np.asarray(self.scan_values, dtype=float)
         pos = self._pos[rows]
         pphase = np.asarray(res["peak_phase"].values)[rows] if "peak_phase" in res else np.full(pos.shape, "")
-        frames_2d = np.broadcast_to(rows[:, None], pos.shape)
+        frames = rows * self.every  # frames of the series
+        frames_2d = np.broadcast_to(frames[:, None], pos.shape)
         lat = np.asarray(res["lattice"].values, dtype=float)[rows]
         lphase = np.asarray(res["phase"].values)[rows]
-        frames_slot = np.broadcast_to(rows[:, None], lat.shape)
+        frames_slot = np.broadcast_to(frames[:, None], lat.shape)
         present = []
         for ph in self._phase_names:
             key = "" if ph == "unassigned" else ph
@@ -377,9 +464,10 @@ class PeaksPanel(PanelBase):
                 self._lat_range = (res, np.array([fin.min(), fin.max()]) if fin.size else np.zeros(2))
             self.trend_current.x = np.array([v, v])
             self.trend_current.y = self._lat_range[1]
-        pos = self._pos[i]
-        hkl = np.asarray(V["hkl"].values[i]) if "hkl" in res else np.full(pos.shape, "")
-        pphase = np.asarray(V["peak_phase"].values[i]) if "peak_phase" in res else np.full(pos.shape, "")
+        r = self._row(i)  # i itself, or the nearest analysed frame's position
+        pos = self._pos[r]
+        hkl = np.asarray(V["hkl"].values[r]) if "hkl" in res else np.full(pos.shape, "")
+        pphase = np.asarray(V["peak_phase"].values[r]) if "peak_phase" in res else np.full(pos.shape, "")
         # markers on the log axis: finite positions with a positive intensity only,
         # coloured by phase; labels of close peaks (coexisting phases) stacked upwards
         px, py, kept = finite_points(pos, curve_at(self.q, I, pos), positive=True)
@@ -390,12 +478,14 @@ class PeaksPanel(PanelBase):
         self._set_points(self.markers, px, py, colors=colours or [ROLE["fit"]])
         self._set_points(self.labels, px, ly, text=[str(h) for h in hkl[kept]],
                          colors=colours or [ROLE["reference"]])
-        self.table.value = self._table_html(i)
-        self.phase_choice.value = self.overrides.get(i, {}).get("phase", _AUTO)
-        status = str(V["status"].values[i])
-        self.status = "" if status in ("ok", "override") else f"{self.frame_label(i)}: {status}"
+        self.table.value = self._table_html(r)
+        f = r * self.every
+        self.phase_choice.value = self.overrides.get(f, {}).get("phase", _AUTO)
+        status = str(V["status"].values[r])
+        self.status = "" if status in ("ok", "override") else f"{self.frame_label(f)}: {status}"
 
     def _table_html(self, i: int) -> str:
+        """The assignment table of position ``i`` of the (thinned) results."""
         res = self.result
         V = res.variables
         e = html.escape
@@ -432,6 +522,10 @@ class PeaksPanel(PanelBase):
         summary = self._indexing_summary
         if summary:
             extra.append(f"<b>{e(summary)}</b>: the lattice plot stays empty")
+        f = i * self.every
+        if f != self.frame:
+            extra.insert(0, f"<b>peaks and phase of {e(self.frame_label(f))}</b>, the nearest analysed frame "
+                            f"(one frame in {self.every} analysed)")
         style = "<style>.saxsnb-phases td, .saxsnb-phases th {padding: 0 1em 0 0; text-align: left}</style>"
         return (
             f"{style}<table class='saxsnb-phases'><tr><th>phase</th><th>lattice</th>"
@@ -446,13 +540,15 @@ class PeaksPanel(PanelBase):
         fo = ", ".join(f"{k}={v!r}" for k, v in sorted(self.find_options.items()))
         io = ", ".join(f"{k}={v!r}" for k, v in sorted(self.index_options.items()))
         found = "found_peaks" if target == "peaks" else f"{target}_peaks"
-        if self.overrides:
+        src = "ds" if self.every == 1 else f"ds.isel(frame=slice(None, None, {self.every}))"
+        if self.overrides:  # frames set by hand (positions among the analysed frames)
             ov = {
-                int(k): {"phase": v["phase"], "lattice": v.get("lattice")}
+                int(k) // self.every: {"phase": v["phase"], "lattice": v.get("lattice")}
                 for k, v in sorted(self.overrides.items())
             }
-            io = ", ".join(x for x in (io, f"overrides={ov!r}") if x)  # frames set by hand
-        return [
-            f"{found} = ds.saxs.find_peaks({fo})",
-            f"{target} = ds.saxs.index_phases({found}{', ' + io if io else ''})",
+            io = ", ".join(x for x in (io, f"overrides={ov!r}") if x)
+        lines = [f"# peaks of one frame in {self.every} (as the panel shows them)"] if self.every > 1 else []
+        return lines + [
+            f"{found} = {src}.saxs.find_peaks({fo})",
+            f"{target} = {src}.saxs.index_phases({found}{', ' + io if io else ''})",
         ]
