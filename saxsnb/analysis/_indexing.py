@@ -156,8 +156,11 @@ def index_phases(
     if overrides:
         _apply_overrides(out, kept[inv], position_sigma, prominence, overrides, q_min=q_min,
                          tolerance=float(tolerance))
-    lab = np.char.add(np.char.add(out["peak_phase"].astype(str), " "), out["hkl"].astype(str))
-    labels = np.where(out["hkl"] != "", lab, "")
+    # one integer per (phase, hkl) label, 0 for an unindexed peak: equal where the words
+    # "phase hkl" are equal, without building those strings for every peak of the series
+    ph_code = np.unique(out["peak_phase"], return_inverse=True)[1].reshape(out["peak_phase"].shape)
+    hkl_code = np.unique(out["hkl"], return_inverse=True)[1].reshape(out["hkl"].shape)
+    labels = np.where(out["hkl"] != "", ph_code * (int(hkl_code.max(initial=0)) + 1) + hkl_code + 1, 0)
     out["track"] = track_peaks(pos0, position_sigma, fwhm, order=idx, labels=labels)
     return out
 

@@ -327,8 +327,14 @@ def index_peaks(
     # reflections (Im3m within Pn3m or Pm3n, ...) is also read as that phase, which
     # predicts fewer absent reflections: added as a state of its own (the original stays,
     # for the scan prior and as the alternative), the Kv cheapest states kept
-    new_phase, new_cost = _relabel_subsets(st_phase, st_L, st_slot, st_s, st_cost, q, qlo, phases, tolerance,
-                                           snr=snr)
+    # frame by frame independent: in blocks of frames, so the temporaries stay bounded
+    # (about 10 kB a frame) however long the series (a 10^5-frame table: 1 GB at once)
+    new_phase, new_cost = np.empty_like(st_phase), np.empty_like(st_cost)
+    for a in range(0, F, _RELABEL_BLOCK):
+        sl = slice(a, a + _RELABEL_BLOCK)
+        new_phase[sl], new_cost[sl] = _relabel_subsets(
+            st_phase[sl], st_L[sl], st_slot[sl], st_s[sl], st_cost[sl], q[sl], np.asarray(qlo)[sl], phases,
+            tolerance, snr=None if snr is None else snr[sl])
     changed = (new_phase != st_phase).any(-1)
     if changed.any():
         f_, k_ = np.nonzero(changed)
@@ -451,6 +457,10 @@ def index_peaks(
         "n_rejected": n_rejected.astype(np.int64),
         "rejected": rejected_list,
     }
+
+
+#: Frames per call of the subset-cubic relabelling (its temporaries are about 10 kB a frame).
+_RELABEL_BLOCK = 8192
 
 
 def _caveat(few, n_obs, few_own, phase, n_own, alt, n_unexpl, n_rejected, rejected):
