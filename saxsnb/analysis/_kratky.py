@@ -161,6 +161,17 @@ def kratky_summary(
 BLOCK_POINTS = 2**15
 
 
+def _band_width(w: int) -> int:
+    """A band width at which numpy's row sums of a frame's own points followed by zeros
+    do not depend on the width: a multiple of 8 up to 128 (the 8 partial sums of its
+    pairwise summation each see the same elements), 128 times a power of two above (its
+    halving splits fall on the same elements); the zeros add nothing."""
+    w = max(int(w), 1)
+    if w <= 128:
+        return -(-w // 8) * 8
+    return 128 * (1 << int(np.ceil(np.log2(w / 128))))
+
+
 def _summary_rows(q, I, rg_, i0_, *, peak_window, half_width, bands, bell_level, rise_trend, fall_trend,
                   peak_z) -> dict:
     """:func:`kratky_summary` on one block of frames (inputs checked and broadcast)."""
@@ -183,12 +194,30 @@ def _summary_rows(q, I, rg_, i0_, *, peak_window, half_width, bands, bell_level,
     has_peak = inwin.any(-1)
     x0 = np.where(has_peak, x[rows, imax], np.nan)
     for _ in range(2):  # fit, then refit around the maximum
-        t = x - x0[:, None]
-        m = finite & (np.abs(t) <= half_width)
+        # the fit uses the points within half_width of x0 only: the columns from each
+        # frame's first to its last such point are gathered into a narrow band (tens of
+        # columns, not all n), the moments summed there (the same terms; the full-width
+        # sums differ by rounding, ~1e-15). The band width is rounded (_band_width) so a
+        # frame's sums do not depend on the other frames of its block: batch = loop exactly
+        m_full = finite & (np.abs(x - x0[:, None]) <= half_width)
+        any_m = m_full.any(-1)
+        lo = np.where(any_m, np.argmax(m_full, -1), 0)
+        hi = np.where(any_m, n - np.argmax(m_full[:, ::-1], -1), 1)
+        W = _band_width(int((hi - lo).max(initial=1)))
+        cols = lo[:, None] + np.arange(W)
+        inside = cols < n
+        cols = np.minimum(cols, n - 1)
+        xg = np.take_along_axis(x, cols, -1)
+        Kzg = np.take_along_axis(Kz, cols, -1)
+        t = xg - x0[:, None]
+        m = np.take_along_axis(m_full, cols, -1) & inside
         tz = np.where(m, t, 0.0)
         w = m.astype(float)
-        mom = [(w * tz**k).sum(-1) for k in range(7)]
-        rhs = np.stack([(w * tz**k * Kz).sum(-1) for k in range(4)], -1)
+        pw = [w]  # w tz^k by repeated products (not pow)
+        for _k in range(6):
+            pw.append(pw[-1] * tz)
+        mom = [p_.sum(-1) for p_ in pw]
+        rhs = np.stack([(pw[k] * Kzg).sum(-1) for k in range(4)], -1)
         A = np.stack([np.stack([mom[i + j] for j in range(4)], -1) for i in range(4)], -2)
         ok = (m.sum(-1) >= 5) & has_peak
         A[~ok] = np.eye(4)
@@ -213,7 +242,7 @@ def _summary_rows(q, I, rg_, i0_, *, peak_window, half_width, bands, bell_level,
     with np.errstate(invalid="ignore", divide="ignore"):
         n_fit = m.sum(-1)
         cubic = a0[:, None] + tz * (a1[:, None] + tz * (a2[:, None] + tz * a3[:, None]))
-        resid = np.where(m, Kz - cubic, 0.0)
+        resid = np.where(m, Kzg - cubic, 0.0)
         s_res = np.sqrt((resid * resid).sum(-1) / np.maximum(n_fit - 4, 1))
         after = finite & (x >= (peak_x + 1.0)[:, None]) & (x <= (peak_x + 2.5)[:, None])
         n_after = after.sum(-1)
