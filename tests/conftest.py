@@ -25,3 +25,42 @@ def few_points(monkeypatch):
     import saxsnb.io.text
 
     monkeypatch.setattr(saxsnb.io.text, "MIN_Q_POINTS", 2)
+
+
+@pytest.fixture
+def never_whole(monkeypatch):
+    """``with never_whole(shape) as calls:`` fails a compute that returns, or a task that
+    makes, an array of ``shape`` (a series' (frame, q)): the client never holds it, nor a
+    worker; ``calls.n`` counts the computations started meanwhile."""
+    import contextlib
+
+    pytest.importorskip("dask")
+    import dask.array.core as dac
+    from dask.callbacks import Callback
+
+    @contextlib.contextmanager
+    def arm(shape):
+        original = dac.finalize
+
+        def finalize(results):
+            out = original(results)
+            if getattr(out, "shape", None) == shape:
+                raise AssertionError(f"the whole {shape} array was computed")
+            return out
+
+        class Whole(Callback):
+            def _start(self, dsk):
+                self.n = getattr(self, "n", 0) + 1
+
+            def _posttask(self, key, result, dsk, state, id):
+                if getattr(result, "shape", None) == shape:
+                    raise AssertionError(f"a task made the whole {shape} array ({key})")
+
+        monkeypatch.setattr(dac, "finalize", finalize)
+        try:
+            with Whole() as w:
+                yield w
+        finally:
+            monkeypatch.setattr(dac, "finalize", original)
+
+    return arm

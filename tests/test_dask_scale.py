@@ -50,39 +50,6 @@ def assert_same(a: xr.Dataset | xr.DataArray, b: xr.Dataset | xr.DataArray, what
             np.testing.assert_array_equal(yv, xv, err_msg=f"{what} {v}")
 
 
-@pytest.fixture
-def never_whole(monkeypatch):
-    """``with never_whole(shape):`` fails a compute that returns, or a task that makes, an
-    array of ``shape`` (the series' (frame, q)): the client never holds it, nor a worker."""
-    import contextlib
-
-    import dask.array.core as dac
-
-    @contextlib.contextmanager
-    def arm(shape):
-        original = dac.finalize
-
-        def finalize(results):
-            out = original(results)
-            if getattr(out, "shape", None) == shape:
-                raise AssertionError(f"the whole {shape} array was computed")
-            return out
-
-        class Whole(Callback):
-            def _posttask(self, key, result, dsk, state, id):
-                if getattr(result, "shape", None) == shape:
-                    raise AssertionError(f"a task made the whole {shape} array ({key})")
-
-        monkeypatch.setattr(dac, "finalize", finalize)
-        try:
-            with Whole():
-                yield
-        finally:
-            monkeypatch.setattr(dac, "finalize", original)
-
-    return arm
-
-
 @pytest.fixture(scope="module")
 def spheres():
     """The flow-growth demo (growing spheres), background subtracted: 12 frames."""

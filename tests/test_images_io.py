@@ -147,3 +147,23 @@ def test_image_demo_files_small_and_lossless(tmp_path):
     np.testing.assert_allclose(fib.strain.values, fibre_series().strain.values)
     cal = read_images(folder / "calibrant.tif")
     np.testing.assert_array_equal(cal.counts.values[0], calibrant_image())
+
+
+def test_recipe_starts_from_read_images(tmp_path):
+    # the history keeps the source as given (a folder), so the recipe reads the same files
+    # again and rebuilds the series identically (xarray's assert_identical); arrays given
+    # to read_images are not in the history: no recipe, said; integration steps neither
+    import xarray as xr
+
+    from saxsnb.errors import SaxsInputError
+
+    for i, f in enumerate(_frames(3)):
+        write_tiff(tmp_path / f"img_{i:02d}.tif", f, metadata={"temperature": 20.0 + i, **G.to_attrs()})
+    ds = read_images(tmp_path)
+    ns = {}
+    exec(ds.saxs.recipe("images"), ns)
+    xr.testing.assert_identical(ns["images"], ds)
+    with pytest.raises(SaxsInputError, match="given mask"):
+        read_images(tmp_path, mask=np.zeros(ds.counts.shape[1:], bool)).saxs.recipe()
+    with pytest.raises(SaxsInputError, match="image steps"):
+        ds.saxs.integrate(n_bins=20).saxs.recipe()

@@ -181,45 +181,6 @@ def test_property_damaged_nxcansas_raises_only_our_errors(tmp_path, drop, junk):
 
 
 # ------------------------------------------------ a dask series, chunk by chunk (issue 13)
-@pytest.fixture
-def never_whole(monkeypatch):
-    """Fail a compute that returns, or a task that makes, an array of the given shape
-    (``never_whole(shape)`` arms it; a context manager)."""
-    import contextlib
-
-    dask = pytest.importorskip("dask")
-    import dask.array.core as dac
-    from dask.callbacks import Callback
-
-    @contextlib.contextmanager
-    def arm(shape):
-        original = dac.finalize
-
-        def finalize(results):
-            out = original(results)
-            if getattr(out, "shape", None) == shape:
-                raise AssertionError(f"the whole {shape} array was computed")
-            return out
-
-        class Whole(Callback):
-            def _start(self, dsk):
-                self.n = getattr(self, "n", 0) + 1
-
-            def _posttask(self, key, result, dsk, state, id):
-                if getattr(result, "shape", None) == shape:
-                    raise AssertionError(f"a task made the whole {shape} array ({key})")
-
-        monkeypatch.setattr(dac, "finalize", finalize)
-        try:
-            with Whole() as w:
-                yield w
-        finally:
-            monkeypatch.setattr(dac, "finalize", original)
-
-    assert dask
-    return arm
-
-
 def test_dask_series_is_written_chunk_by_chunk(tmp_path, rng, never_whole):
     ds = rich_series(rng)
     save_series(ds, tmp_path / "whole.h5")

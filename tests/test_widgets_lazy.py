@@ -9,7 +9,6 @@ panels on the in-memory series (the accessor's results; batch equals loop).
 
 import dask
 import dask.array as da
-import dask.array.core as dac
 import numpy as np
 import pytest
 import xarray as xr
@@ -32,25 +31,11 @@ def ramp():
 
 
 @pytest.fixture
-def never_whole(ramp, monkeypatch):
-    """Fail every compute that returns, and every task that makes, a whole (frame, q) array."""
+def never_whole(ramp, never_whole):
+    """Fail every compute that returns, and every task that makes, a whole (frame, q) array
+    (the guard of tests/conftest.py, armed for the ramp's shape)."""
     shape = tuple(ramp["intensity"].shape)
-    original = dac.finalize
-
-    def finalize(results):
-        out = original(results)
-        if getattr(out, "shape", None) == shape:
-            raise AssertionError(f"the whole {shape} array was computed")
-        return out
-
-    monkeypatch.setattr(dac, "finalize", finalize)
-
-    class Whole(Callback):
-        def _posttask(self, key, result, dsk, state, id):
-            if getattr(result, "shape", None) == shape:
-                raise AssertionError(f"a task made the whole {shape} array ({key})")
-
-    with Whole():
+    with never_whole(shape):
         yield shape
 
 

@@ -16,8 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..analysis._averaging import average_frames
-from ..analysis._similarity import _pair_stats, adjust_pvalues, compare_frames
-from ..errors import SaxsInputError
+from ..analysis._similarity import _common_index, _pair_stats, adjust_pvalues, compare_frames
 
 __all__ = ["compare_lazy", "group_include_lazy", "average_lazy", "concentration_lazy"]
 
@@ -46,13 +45,7 @@ def _compare_chunk(I, S, rI, rS, common, frames, *, test, ref):
     from ._core import _one_block
 
     I, S, rI, rS, common, frames = (_one_block(x) for x in (I, S, rI, rS, common, frames))
-    if not _usable(rI, rS, test).any():
-        raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference",
-                             frame=ref)
-    idx = np.flatnonzero(common)
-    if idx.size < 3:
-        raise SaxsInputError(f"only {idx.size} q points are finite in every frame; at least 3 are needed",
-                             parameter="intensity")
+    idx = _common_index(bool(_usable(rI, rS, test).any()), common, ref)
     has = _usable(I, S, test).any(axis=1)
     out = np.full((I.shape[0], 4), np.nan)
     out[:, 2] = has

@@ -211,17 +211,8 @@ class PreparationMethods(AccessorBase):
             else:
                 first = np.argmax(M, axis=1)
                 coords[c] = ("frame", v[first], dict(ds[c].attrs))
-        data = {
-            "intensity": (("frame", "q"), res["intensity"]),
-            "sigma": (("frame", "q"), res["sigma"]),
-            "n_averaged": (("frame",), res["n_averaged"]),
-            "members": (("frame", "source_frame"), M, {"long_name": "frames averaged into this frame"}),
-        }
-        out = xr.Dataset(data, coords=coords)
-        params = dict(exclude=exclude, by=by, every=every, test=test, alpha=float(alpha),
-                      excluded_frames=ds["frame"].values[~include].tolist())
-        out.attrs = result_attrs(ds, "average", params)
-        return _series_like(ds, out.assign_coords(q=ds["q"]))
+        return _averaged(ds, res["intensity"], res["sigma"], res["n_averaged"], M, coords, include,
+                         exclude=exclude, by=by, every=every, test=test, alpha=alpha)
 
     def _average_lazy(self, q, I, S, *, exclude, by, every, test, alpha) -> xr.Dataset:
         """:meth:`average` of a dask series: the outlier flags (per-frame bools) computed
@@ -266,17 +257,8 @@ class PreparationMethods(AccessorBase):
         lab = da.from_array(labels, chunks=(I.chunks[0],))
         inc = da.from_array(include, chunks=(I.chunks[0],))
         members = (lab[None, :] == da.arange(G, chunks=-1)[:, None]) & inc[None, :]
-        data = {
-            "intensity": (("frame", "q"), mean),
-            "sigma": (("frame", "q"), sig),
-            "n_averaged": (("frame",), count),
-            "members": (("frame", "source_frame"), members, {"long_name": "frames averaged into this frame"}),
-        }
-        out = xr.Dataset(data, coords=coords)
-        params = dict(exclude=exclude, by=by, every=every, test=test, alpha=float(alpha),
-                      excluded_frames=ds["frame"].values[~include].tolist())
-        out.attrs = result_attrs(ds, "average", params)
-        return _series_like(ds, out.assign_coords(q=ds["q"]))
+        return _averaged(ds, mean, sig, count, members, coords, include,
+                         exclude=exclude, by=by, every=every, test=test, alpha=alpha)
 
     def absolute_scale(self, reference: xr.Dataset, *, kind: str = "water", temperature: float = 20.0,
                        empty: xr.Dataset | None = None, known=None, known_sigma=None,
@@ -598,3 +580,18 @@ def merge_ranges(low: xr.Dataset, high: xr.Dataset, *, overlap=None) -> xr.Datas
                   factor=res["factor"].tolist())
     out.attrs = result_attrs(low, "merge_ranges", params)
     return _series_like(low, out, q=res["q"])
+
+
+def _averaged(ds, mean, sig, count, members, coords, include, *, exclude, by, every, test, alpha):
+    """The series of :meth:`average` (numpy or dask arrays alike) with its attrs."""
+    data = {
+        "intensity": (("frame", "q"), mean),
+        "sigma": (("frame", "q"), sig),
+        "n_averaged": (("frame",), count),
+        "members": (("frame", "source_frame"), members, {"long_name": "frames averaged into this frame"}),
+    }
+    out = xr.Dataset(data, coords=coords)
+    params = dict(exclude=exclude, by=by, every=every, test=test, alpha=float(alpha),
+                  excluded_frames=ds["frame"].values[~include].tolist())
+    out.attrs = result_attrs(ds, "average", params)
+    return _series_like(ds, out.assign_coords(q=ds["q"]))

@@ -53,11 +53,13 @@ def _arguments(method: str, params: dict) -> str:
 
 def _series_lines(history: list[dict], name: str, depth: int = 0) -> list[str]:
     """Lines that rebuild the series described by ``history`` into variable ``name``."""
-    starts = [k for k, h in enumerate(history) if h.get("operation") in ("read_series", "demo.make_series")]
+    starts = [k for k, h in enumerate(history)
+              if h.get("operation") in ("read_series", "read_images", "demo.make_series")]
     history = history[starts[-1]:] if starts else history
     if not history:
         raise SaxsInputError("this Dataset has no history to start from (read it with saxsnb.read_series "
-                             "or make it with saxsnb.demo.make_series)", parameter="history")
+                             "or saxsnb.read_images, or make it with saxsnb.demo.make_series)",
+                             parameter="history")
     first, rest = history[0], history[1:]
     p = dict(first.get("parameters", {}))
     op = first.get("operation")
@@ -65,6 +67,13 @@ def _series_lines(history: list[dict], name: str, depth: int = 0) -> list[str]:
         src = p.pop("source")
         args = "".join(f", {k}={v!r}" for k, v in sorted(p.items()))
         lines = [f"{name} = saxsnb.read_series({src!r}{args})"]
+    elif op == "read_images":
+        if p.get("given"):
+            raise SaxsInputError(f"read_images was given {', '.join(p['given'])} as arrays; they are not in "
+                                 "the history, so no recipe can be written", parameter="history")
+        src = p.pop("source")
+        args = "".join(f", {k}={v!r}" for k, v in sorted(p.items()))
+        lines = [f"{name} = saxsnb.read_images({src!r}{args})"]
     elif op == "demo.make_series":
         part = 1 if p.get("part") == "background" else 0
         lines = [f"{name} = saxsnb.demo.make_series({p['name']!r}, seed={int(p.get('seed', 0))!r})[{part}]"]
@@ -126,6 +135,11 @@ class RecipeMethods(AccessorBase):
         """
         name, result = _identifier(name), _identifier(result)
         history = [json.loads(h) for h in self._ds.attrs.get("history", [])]
+        from_images = sorted({h.get("operation") for h in history} & set(_IMAGE_STEPS))
+        if from_images:
+            # their geometry and mask are recorded as a summary, not as arguments to replay
+            raise SaxsInputError(f"no recipe for the image steps {from_images} yet: rebuild the curves "
+                                 "from the images with the same geometry and mask", parameter="history")
         cut = len(history)
         while cut and history[cut - 1].get("operation") not in _SERIES_STEPS and "intensity" not in self._ds:
             cut -= 1
@@ -144,6 +158,10 @@ class RecipeMethods(AccessorBase):
         return "\n".join(lines) + "\n"
 
 
+#: Steps on detector images (:mod:`saxsnb.accessor.images`), which recipes do not replay.
+_IMAGE_STEPS = ("integrate", "cake", "azimuthal_profile", "orientation")
+
 #: Steps that return a series (everything else returns a result).
-_SERIES_STEPS = ("read_series", "demo.make_series", "subtract", "to_q_unit", "rescale_q", "rebin", "average",
+_SERIES_STEPS = ("read_series", "read_images", "demo.make_series",
+                 "subtract", "to_q_unit", "rescale_q", "rebin", "average",
                  "absolute_scale", "per_concentration", "extrapolate_concentration", *_INSIDE_READ)

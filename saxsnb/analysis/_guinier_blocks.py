@@ -28,8 +28,8 @@ from __future__ import annotations
 import numpy as np
 
 from ._guinier_points import _clean_rows, _Counts
-from ._linear import _line_from_moments
 from ._status import STATUS_DTYPE
+from ._windows import line_from_sums, window_stats
 
 _OUTLIER_Z = 4.0
 
@@ -176,49 +176,17 @@ class _BlockSums:
 
 def _window_stats(bs, r, s2, e, n):
     """Statistics of the windows [s2 (R, k, 1), e (R, 1, E)) of the frames r, as
-    :meth:`saxsnb.analysis._windows.WindowMoments.search_stats` (same formulas, same
-    order of operations)."""
+    :meth:`saxsnb.analysis._windows.WindowMoments.search_stats` (the same formulas:
+    :func:`~saxsnb.analysis._windows.window_stats`)."""
     Ge = bs.gather(r, e[:, 0, :])[:, :, None, :]
     Gs = bs.gather(r, s2[:, :, 0])[:, :, :, None]
     D = np.empty((_T, len(r), s2.shape[1], e.shape[2]))
     np.subtract(Ge, Gs, out=D)
     S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv = D
-    x_ref = bs.x_ref
     yr = bs.y_ref[r][:, None, None]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        inv = 1.0 / S0
-        m = Su * inv
-        mm = m * m
-        M2 = Suu * inv
-        Y = Sv * inv
-        C1 = Suv * inv
-        mu2 = M2 - mm
-        mu3 = S3 * inv - m * (3.0 * M2 - 2.0 * mm)
-        mu4 = S4 * inv - m * (4.0 * S3 * inv - m * (6.0 * M2 - 3.0 * mm))
-        cuy = C1 - m * Y
-        cu2y = Suuv * inv - m * (2.0 * C1 - m * Y) - mu2 * Y
-        k4 = mu4 - mu2 * mu2
-        det = mu2 * k4 - mu3 * mu3
-        idet = 1.0 / det
-        bq = (k4 * cuy - mu3 * cu2y) * idet
-        c = (mu2 * cu2y - mu3 * cuy) * idet
-        slope = cuy / mu2
-        out = {
-            "slope": slope,
-            "slope_var": inv / mu2,
-            "n_points": n,
-            "c": c,
-            "c_var": mu2 * idet * inv,
-            "chi2_quadratic": Svv - Sv * Y - S0 * (bq * cuy + c * cu2y),
-            "drift": 2.0 * c * np.sqrt(12.0 * mu2) / bq,
-            "lever": mu3 / mu2 + 2.0 * (m + x_ref),
-            "chi2_line": Svv - Sv * Y - S0 * slope * cuy,
-        }
-        xm = m + x_ref
-        ym = Y + yr
-        out["intercept"] = ym - slope * xm
-        out["intercept_var"] = inv * (1.0 + xm * xm / mu2)
-        out["slope_intercept_cov"] = -xm * inv / mu2
+        out = window_stats(n, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv, bs.x_ref, yr)
+        Y, slope, m = out.pop("_Y"), out["slope"], out.pop("_m")
         u0, v0, w0 = bs.point(r, s2)
         r0 = v0 - Y - slope * (u0 - m)
         out["first_residual2"] = r0 * r0 * w0
@@ -447,13 +415,4 @@ def _chosen_fit(bs, cn, r, s, e, scale):
     D = bs.gather(r, e) - bs.gather(r, s)
     n = cn.count(r, s, e).astype(np.int64)
     S0, Su, Sv, Suu, Suv, Svv = D[:6]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        um = Su / S0
-        vm = Sv / S0
-        Sxx = Suu - Su * um
-        Sxy = Suv - Su * vm
-        Syy = Svv - Sv * vm
-        chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
-    xm = um + bs.x_ref
-    ym = vm + bs.y_ref[r]
-    return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale)
+    return line_from_sums(n, S0, Su, Sv, Suu, Suv, Svv, bs.x_ref, bs.y_ref[r], scale)

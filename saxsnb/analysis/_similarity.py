@@ -353,6 +353,19 @@ def pairwise_similarity(q, intensity, sigma=None, *, test: str = "cormap",
     return {"score": score, "p_value": pval}
 
 
+def _common_index(ref_usable: bool, common, ref) -> np.ndarray:
+    """The q columns usable in every frame; an error naming the input when the reference
+    frame has no usable point or fewer than 3 columns are common."""
+    if not ref_usable:
+        raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference",
+                             frame=ref)
+    idx = np.flatnonzero(common)
+    if idx.size < 3:
+        raise SaxsInputError(f"only {idx.size} q points are finite in every frame; at least 3 are needed",
+                             parameter="intensity")
+    return idx
+
+
 def compare_frames(q, intensity, sigma=None, *, test: str = "cormap", reference: int = 0,
                    alpha: float = 0.01, correction: str = "holm", pairwise: bool = False
                    ) -> dict[str, np.ndarray]:
@@ -409,13 +422,7 @@ def compare_frames(q, intensity, sigma=None, *, test: str = "cormap", reference:
     if test == "chi2" and S is None:
         raise SaxsInputError("the chi2 test needs sigma", parameter="sigma")
     has, common = _common_points(I, S, test)
-    if not has[ref]:
-        raise SaxsInputError(f"the reference frame {ref} has no usable point", parameter="reference",
-                             frame=ref)
-    idx = np.flatnonzero(common)
-    if idx.size < 3:
-        raise SaxsInputError(f"only {idx.size} q points are finite in every frame; at least 3 are needed",
-                             parameter="intensity")
+    idx = _common_index(bool(has[ref]), common, ref)
     whole = idx.size == I.shape[1]  # usually every point: no copies
     A = I if whole else I[:, idx]
     SA = (S if whole else S[:, idx]) if S is not None else None

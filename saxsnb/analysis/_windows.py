@@ -175,16 +175,8 @@ class WindowMoments:
         n = np.rint(D[0]).astype(np.int64)
         S0, Su, Sv, Suu, Suv, Svv = D[1:7]
         extra = (slice(None),) + (None,) * (len(shape) - 1)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            um = Su / S0
-            vm = Sv / S0
-            Sxx = Suu - Su * um
-            Sxy = Suv - Su * vm
-            Syy = Svv - Sv * vm
-            chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
-        xm = um + self.x_ref[extra]
-        ym = vm + self.y_ref[extra]
-        return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale_covariance)
+        return line_from_sums(n, S0, Su, Sv, Suu, Suv, Svv, self.x_ref[extra], self.y_ref[extra],
+                              scale_covariance)
 
     def fit_and_curvature(self, start, stop):
         """:meth:`fit` and :meth:`curvature` of the same windows, reading the sums once."""
@@ -216,41 +208,10 @@ class WindowMoments:
         cnt, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv = D
         extra = (slice(None),) + (None,) * (len(shape) - 1)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            inv = 1.0 / S0
-            m = Su * inv
-            mm = m * m
-            M2 = Suu * inv
-            Y = Sv * inv
-            C1 = Suv * inv
-            mu2 = M2 - mm
-            mu3 = S3 * inv - m * (3.0 * M2 - 2.0 * mm)
-            mu4 = S4 * inv - m * (4.0 * S3 * inv - m * (6.0 * M2 - 3.0 * mm))
-            cuy = C1 - m * Y
-            cu2y = Suuv * inv - m * (2.0 * C1 - m * Y) - mu2 * Y
-            k4 = mu4 - mu2 * mu2
-            det = mu2 * k4 - mu3 * mu3
-            idet = 1.0 / det
-            bq = (k4 * cuy - mu3 * cu2y) * idet
-            c = (mu2 * cu2y - mu3 * cuy) * idet
-            slope = cuy / mu2
-            out = {
-                "slope": slope,
-                "slope_var": inv / mu2,
-                "n_points": cnt,
-                "c": c,
-                "c_var": mu2 * idet * inv,
-                "chi2_quadratic": Svv - Sv * Y - S0 * (bq * cuy + c * cu2y),
-                "drift": 2.0 * c * np.sqrt(12.0 * mu2) / bq,
-                "lever": mu3 / mu2 + 2.0 * (m + (self.x_ref if rows is None else self.x_ref[rows])[extra]),
-                "chi2_line": Svv - Sv * Y - S0 * slope * cuy,
-            }
-            # intercept of the straight line in absolute x, y, its variance and its
-            # covariance with the slope (from the weights)
-            xm = m + (self.x_ref if rows is None else self.x_ref[rows])[extra]
-            ym = Y + (self.y_ref if rows is None else self.y_ref[rows])[extra]
-            out["intercept"] = ym - slope * xm
-            out["intercept_var"] = inv * (1.0 + xm * xm / mu2)
-            out["slope_intercept_cov"] = -xm * inv / mu2
+            xr = (self.x_ref if rows is None else self.x_ref[rows])[extra]
+            yr = (self.y_ref if rows is None else self.y_ref[rows])[extra]
+            out = window_stats(cnt, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv, xr, yr)
+            Y, slope, m = out.pop("_Y"), out["slope"], out.pop("_m")
             if hasattr(self, "_v"):
                 st = np.clip(np.asarray(start, dtype=np.int64), 0, max(self._v.shape[0] - 1, 0))
                 f = np.arange(self._F) if rows is None else np.asarray(rows)
@@ -306,3 +267,65 @@ class WindowMoments:
             "drift": np.where(good, drift, np.nan),
             "lever": np.where(good, lever, np.nan),
         }
+
+
+def line_from_sums(n, S0, Su, Sv, Suu, Suv, Svv, x_ref, y_ref, scale_covariance=False) -> dict:
+    """The weighted straight-line fit of each window from its six moment sums (x and y
+    relative to ``x_ref`` / ``y_ref``), as :func:`weighted_linear_fit` returns it."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        um = Su / S0
+        vm = Sv / S0
+        Sxx = Suu - Su * um
+        Sxy = Suv - Su * vm
+        Syy = Svv - Sv * vm
+        chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
+    xm = um + x_ref
+    ym = vm + y_ref
+    return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale_covariance)
+
+
+def window_stats(n, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv, x_ref, y_ref) -> dict:
+    """The lean window statistics of :meth:`WindowMoments.search_stats` from the nine
+    weighted moment sums of each window (x and y relative to ``x_ref`` / ``y_ref``,
+    broadcastable to the sums): the straight line (slope, intercept, their variances and
+    covariance, chi-square), the quadratic term with its variance and chi-square, the
+    relative slope drift and the lever. Also ``_m`` and ``_Y`` (the window's mean x and
+    y, relative) for the caller's first-point residual. Call under ``np.errstate``:
+    degenerate windows give NaN or inf."""
+    inv = 1.0 / S0
+    m = Su * inv
+    mm = m * m
+    M2 = Suu * inv
+    Y = Sv * inv
+    C1 = Suv * inv
+    mu2 = M2 - mm
+    mu3 = S3 * inv - m * (3.0 * M2 - 2.0 * mm)
+    mu4 = S4 * inv - m * (4.0 * S3 * inv - m * (6.0 * M2 - 3.0 * mm))
+    cuy = C1 - m * Y
+    cu2y = Suuv * inv - m * (2.0 * C1 - m * Y) - mu2 * Y
+    k4 = mu4 - mu2 * mu2
+    det = mu2 * k4 - mu3 * mu3
+    idet = 1.0 / det
+    bq = (k4 * cuy - mu3 * cu2y) * idet
+    c = (mu2 * cu2y - mu3 * cuy) * idet
+    slope = cuy / mu2
+    xm = m + x_ref
+    ym = Y + y_ref
+    return {
+        "slope": slope,
+        "slope_var": inv / mu2,
+        "n_points": n,
+        "c": c,
+        "c_var": mu2 * idet * inv,
+        "chi2_quadratic": Svv - Sv * Y - S0 * (bq * cuy + c * cu2y),
+        "drift": 2.0 * c * np.sqrt(12.0 * mu2) / bq,
+        "lever": mu3 / mu2 + 2.0 * xm,
+        "chi2_line": Svv - Sv * Y - S0 * slope * cuy,
+        # intercept of the straight line in absolute x, y, its variance and its
+        # covariance with the slope (from the weights)
+        "intercept": ym - slope * xm,
+        "intercept_var": inv * (1.0 + xm * xm / mu2),
+        "slope_intercept_cov": -xm * inv / mu2,
+        "_m": m,
+        "_Y": Y,
+    }

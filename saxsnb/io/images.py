@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import glob as _glob
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -327,6 +328,7 @@ def read_images(source, *, scan=None, dataset: str | None = None, lazy: bool | N
     image series (module doc), with ``source_files`` and one history entry.
     """
     files = _expand(source)
+    geometry_given = geometry
     parts, metas, geoms = [], [], []
     shape0 = None
     tiff_files = [f for f in files if f.suffix.lower() in _TIFF]
@@ -383,4 +385,14 @@ def read_images(source, *, scan=None, dataset: str | None = None, lazy: bool | N
                 geometry = None   # partial geometry in the files: the user gives it
     ds = image_series(counts, geometry=geometry, scan=found or None, mask=mask)
     ds.attrs["source_files"] = [str(f) for f in files]
-    return add_history(ds, "read_images", source=[str(f) for f in files], lazy=bool(hasattr(counts, "dask")))
+    # the source as given (a folder or pattern stays one string, so a recipe reads the same
+    # files again); arrays given for scan, geometry or mask are named only (no recipe)
+    given = sorted(k for k, v in (("scan", scan), ("geometry", geometry_given), ("mask", mask))
+                   if v is not None)
+    record = {"source": str(source) if isinstance(source, (str, os.PathLike)) else [str(f) for f in files],
+              "lazy": bool(hasattr(counts, "dask"))}
+    if dataset is not None:
+        record["dataset"] = dataset
+    if given:
+        record["given"] = given
+    return add_history(ds, "read_images", **record)

@@ -72,6 +72,29 @@ FIG_MARGIN = {"top": 30, "bottom": 48, "left": 64, "right": 16}
 MAX_TREND_POINTS = 4000
 
 
+def figure_png(fig, dpi: float, path=None) -> bytes:
+    """The PNG bytes of a matplotlib figure at ``dpi``; written atomically to ``path``
+    when given."""
+    from ..io._atomic import atomic_write_bytes
+
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    data = buf.getvalue()
+    if path is not None:
+        atomic_write_bytes(path, data)
+    return data
+
+
+def download_link(name: str, data: bytes, mime: str, style: str = "") -> str:
+    """An HTML link that saves ``data`` as the file ``name`` in the browser."""
+    import base64
+
+    extra = f' style="{style}"' if style else ""
+    return (f'<a download="{html.escape(name)}" href="data:{mime};base64,'
+            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download"{extra}>'
+            f"&#11015; {html.escape(name)}</a>")
+
+
 def trend_step(n_frames: int) -> int:
     """The frame step of trend plots of a series of ``n_frames`` (see :data:`MAX_TREND_POINTS`)."""
     return max(1, -(-int(n_frames) // MAX_TREND_POINTS))
@@ -668,32 +691,18 @@ class PanelBase(widgets.VBox):
         -------
         bytes of the PNG file.
         """
-        from ..io._atomic import atomic_write_bytes
-
         if int(width_px) < 1:
             raise SaxsInputError("width_px must be positive", parameter="width_px")
-        fig = self.to_matplotlib(width=width)
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=int(width_px) / float(width))
-        data = buf.getvalue()
-        if path is not None:
-            atomic_write_bytes(path, data)
-        return data
+        return figure_png(self.to_matplotlib(width=width), int(width_px) / float(width), path)
 
     def _png_from_button(self) -> None:
-        import base64
-
         try:
             data = self.to_png()
         except Exception as exc:  # shown in the status line
             self.report(exc, "PNG")
             return
         name = self._file_stem() + ".png"
-        self.png_link.value = (
-            f'<a download="{html.escape(name)}" href="data:image/png;base64,'
-            f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">'
-            f"&#11015; {html.escape(name)}</a>"
-        )
+        self.png_link.value = download_link(name, data, "image/png")
 
     def save_svg(self, filename: str | None = None) -> None:
         """Ask the browser to save the main figure as SVG (needs a live front end)."""

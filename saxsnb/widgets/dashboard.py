@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import base64
 import html
 import os
 from collections.abc import Sequence
@@ -13,7 +12,7 @@ import numpy as np
 import traitlets
 import xarray as xr
 
-from .base import PanelBase, caller_variable, checked_name, control_row, export_code
+from .base import PanelBase, caller_variable, checked_name, control_row, download_link, export_code
 from .model import SeriesModel
 
 __all__ = ["Dashboard", "PanelSet", "explore", "choose_panels", "PANEL_NAMES", "DEFAULT_PANELS",
@@ -233,11 +232,7 @@ class Dashboard(widgets.VBox):
             path = folder / f"{stem}-{name}.csv"
             res.saxs.to_csv(path)
             paths.append(path)
-            data = base64.b64encode(path.read_bytes()).decode("ascii")
-            links.append(
-                f'<a download="{html.escape(path.name)}" href="data:text/csv;base64,{data}" '
-                f'class="saxsnb-download" style="margin-right:1em">&#11015; {html.escape(path.name)}</a>'
-            )
+            links.append(download_link(path.name, path.read_bytes(), "text/csv", style="margin-right:1em"))
         self.download.value = (
             "<small>tables (one row per frame):</small> " + "".join(links) if links
             else "<small>no panel has per-frame numbers to tabulate</small>"

@@ -49,7 +49,6 @@ Examples
 
 from __future__ import annotations
 
-import base64
 import html
 
 import ipywidgets as widgets
@@ -59,7 +58,7 @@ import traitlets
 from ..analysis._geometry import DetectorGeometry
 from ..errors import SaxsInputError
 from . import _bq as bq
-from .base import _recipe_lines, caller_variable
+from .base import _recipe_lines, caller_variable, download_link, figure_png
 from .mpl import figure_to_matplotlib
 
 __all__ = ["ImagePanel"]
@@ -377,8 +376,8 @@ class ImagePanel(widgets.VBox):
         lines = ["import saxsnb  # noqa: F401  (registers ds.saxs)"]
         rec = _recipe_lines(self.images, name)
         if rec is None:
-            lines.append(f"# {name}: the image series was made in memory (no history of files): "
-                         "define it before this code")
+            lines.append(f"# {name}: no recipe from the image series' history (made in memory, or read "
+                         "with arrays given): define it before this code")
         else:
             lines += rec
         mask = "None"
@@ -426,17 +425,7 @@ class ImagePanel(widgets.VBox):
 
     def to_png(self, path=None, *, width_px: int = 1200) -> bytes:
         """A PNG of :meth:`to_matplotlib` (no browser needed); written atomically to ``path``."""
-        import io
-
-        from ..io._atomic import atomic_write_bytes
-
-        fig = self.to_matplotlib()
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=int(width_px) / 6.0)
-        data = buf.getvalue()
-        if path is not None:
-            atomic_write_bytes(path, data)
-        return data
+        return figure_png(self.to_matplotlib(), int(width_px) / 6.0, path)
 
     def _png_from_button(self) -> None:
         try:
@@ -445,9 +434,7 @@ class ImagePanel(widgets.VBox):
             self._report(exc)
             return
         name = f"saxsnb-image-frame{self.frame}.png"
-        self.png_link.value = (f'<a download="{name}" href="data:image/png;base64,'
-                               f'{base64.b64encode(data).decode("ascii")}" class="saxsnb-download">'
-                               f"&#11015; {name}</a>")
+        self.png_link.value = download_link(name, data, "image/png")
 
     # ------------------------------------------------------------ pointer
     def point_at(self, x: float, y: float) -> dict:
@@ -476,16 +463,12 @@ def _viridis(v: np.ndarray) -> np.ndarray:
 
 
 def _png_rgba(rgba: np.ndarray) -> bytes:
-    """A PNG file (bytes) of an (rows, columns, 4) uint8 RGBA array (PNG spec, W3C 2003)."""
-    import struct
-    import zlib
+    """A PNG file (bytes) of an (rows, columns, 4) uint8 RGBA array (Pillow's encoder,
+    which matplotlib already depends on)."""
+    import io
 
-    h, w = rgba.shape[:2]
-    raw = np.concatenate([np.zeros((h, 1), np.uint8), rgba.reshape(h, w * 4)], axis=1).tobytes()
+    from PIL import Image
 
-    def chunk(kind: bytes, data: bytes) -> bytes:
-        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
-
-    header = struct.pack(">IIBBBBB", w, h, 8, 6, 0, 0, 0)
-    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", header) + chunk(b"IDAT", zlib.compress(raw))
-            + chunk(b"IEND", b""))
+    buf = io.BytesIO()
+    Image.fromarray(np.ascontiguousarray(rgba, dtype=np.uint8), mode="RGBA").save(buf, format="PNG")
+    return buf.getvalue()
