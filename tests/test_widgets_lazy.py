@@ -243,10 +243,25 @@ def test_distance_trends_of_one_frame_in_k_in_the_background(monkeypatch):
     ds, bg = make_series("unfolding", seed=2)
     ds = ds.saxs.subtract(bg).isel(frame=slice(0, 12))
     monkeypatch.setattr(dist, "DISTANCE_FRAMES", 4)  # 12 frames -> one frame in 3
+    # the background thread's p(r) waits until the opening is checked (on a quiet machine
+    # it could finish before the panel is built, and the panel would open with the trends)
+    import threading
+
+    from saxsnb.accessor.distance import DistanceMethods
+
+    gate, plain = threading.Event(), DistanceMethods.distance_distribution
+
+    def held(self, *args, **kwargs):
+        if threading.current_thread() is not threading.main_thread():
+            gate.wait(60)
+        return plain(self, *args, **kwargs)
+
+    monkeypatch.setattr(DistanceMethods, "distance_distribution", held)
     dash = saxsnb.explore(ds, panels=("distance",), wait=False, frame=4)
     p = dash.panels["distance"]
     assert p.every == 3 and p.series is None and "one frame in 3" in p.trend_note.value
     xr.testing.assert_identical(p.result, ds.isel(frame=[4]).saxs.distance_distribution())
+    gate.set()
     dash.wait()
     thin = ds.isel(frame=slice(None, None, 3))
     xr.testing.assert_identical(p.series, thin.saxs.distance_distribution())

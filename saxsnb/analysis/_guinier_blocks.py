@@ -28,8 +28,9 @@ from __future__ import annotations
 import numpy as np
 
 from ._guinier_points import _clean_rows, _Counts
+from ._linear import line_from_sums
 from ._status import STATUS_DTYPE
-from ._windows import line_from_sums, window_stats
+from ._windows import window_stats
 
 _OUTLIER_Z = 4.0
 

@@ -355,14 +355,22 @@ def line_fit_shared_x(x, y, w, *, scale_covariance: bool = False, n_points=None)
     Sy = wy.sum(-1)
     Sxy = np.einsum("ij,j->i", wy, xc)
     Syy = np.einsum("ij,ij->i", wy, y)
+    return line_from_sums(n, S0, Sx, Sy, Sxx, Sxy, Syy, shift, 0.0, scale_covariance)
+
+
+def line_from_sums(n, S0, Su, Sv, Suu, Suv, Svv, x_ref, y_ref, scale_covariance=False) -> dict:
+    """The weighted straight-line fit of each window from its six moment sums (x and y
+    relative to ``x_ref`` / ``y_ref``), as :func:`weighted_linear_fit` returns it."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        xm = Sx / S0
-        ym = Sy / S0
-        Sxx = Sxx - Sx * xm
-        Sxy = Sxy - Sx * ym
-        Syy = Syy - Sy * ym
+        um = Su / S0
+        vm = Sv / S0
+        Sxx = Suu - Su * um
+        Sxy = Suv - Su * vm
+        Syy = Svv - Sv * vm
         chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
-    return _line_from_moments(S0, xm + shift, ym, Sxx, Sxy, chi2, n, scale_covariance)
+    xm = um + x_ref
+    ym = vm + y_ref
+    return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale_covariance)
 
 
 def index_range(q, q_range, n_frames: int):

@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import SaxsInputError
-from ._linear import _line_from_moments, _weights
+from ._linear import _weights, line_from_sums
 
 __all__ = ["running_sum", "WindowMoments"]
 
@@ -267,21 +267,6 @@ class WindowMoments:
             "drift": np.where(good, drift, np.nan),
             "lever": np.where(good, lever, np.nan),
         }
-
-
-def line_from_sums(n, S0, Su, Sv, Suu, Suv, Svv, x_ref, y_ref, scale_covariance=False) -> dict:
-    """The weighted straight-line fit of each window from its six moment sums (x and y
-    relative to ``x_ref`` / ``y_ref``), as :func:`weighted_linear_fit` returns it."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        um = Su / S0
-        vm = Sv / S0
-        Sxx = Suu - Su * um
-        Sxy = Suv - Su * vm
-        Syy = Svv - Sv * vm
-        chi2 = np.maximum(Syy - Sxy * Sxy / Sxx, 0.0)
-    xm = um + x_ref
-    ym = vm + y_ref
-    return _line_from_moments(S0, xm, ym, Sxx, Sxy, chi2, n, scale_covariance)
 
 
 def window_stats(n, S0, Su, Sv, Suu, Suv, Svv, S3, S4, Suuv, x_ref, y_ref) -> dict:
